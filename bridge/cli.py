@@ -1,0 +1,277 @@
+"""The `drape` command."""
+
+from __future__ import annotations
+
+import argparse
+import signal
+import sys
+import time
+from pathlib import Path
+
+VERBS = {
+    "demo": "run the whole live chain on the built-in simulated jacket, sending OSC",
+    "start": "run the live chain from a garment on a serial port, as a foreground daemon",
+    "fit": "train a model from take files",
+    "replay": "run a take through the live chain as fast as possible and list its events",
+    "simulate": "write a take of the simulated jacket (for training and trying things out)",
+    "check": "validate a mapping file against a model and print its rules",
+}
+
+
+def _err(msg: str) -> int:
+    print(f"drape: {msg}", file=sys.stderr)
+    return 2
+
+
+def _print_event(e, timing=None) -> None:
+    extra = f"  held {e.duration_s:5.2f} s" if e.kind == "left" else ""
+    lat = f"  latency {timing.send_ms:5.2f} ms" if timing else ""
+    print(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}", flush=True)
+
+
+def _stop_on_signals(flag):
+    def handler(signum, _frame):
+        flag.set(signal.Signals(signum).name)
+    for s in (signal.SIGINT, signal.SIGTERM):
+        signal.signal(s, handler)
+
+
+def _default_mapping() -> Path | None:
+    for p in (Path.cwd() / "mappings" / "demo.toml", Path(__file__).resolve().parent.parent / "mappings" / "demo.toml"):
+        if p.is_file():
+            return p
+    return None
+
+
+def _open_outputs(mapping):
+    from .outputs import open_output
+    return {name: open_output(d) for name, d in mapping.destinations.items()}
+
+
+def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int = 2):
+    """A model for one simulated wearer, trained the way a user would on a new wearer."""
+    import numpy as np
+    from .garment import GESTURES, Jacket, training_script
+    from .recognition import fit_linear
+    from .sources import Recording
+
+    takes = []
+    for session in range(sessions):
+        jacket = Jacket(seed=seed, wearer=wearer, session=session)
+        rng = np.random.default_rng([seed, wearer, session, 11])
+        takes.append(Recording.from_take(jacket.perform(training_script(rng, repetitions)), GESTURES))
+    return fit_linear(takes, dict(GESTURES))
+
+
+def cmd_demo(a) -> int:
+    from .mapping import MappingError, load_mapping
+    from .service import Pipeline, StopFlag, run
+    from .sources.simulated import SimulatedSource
+
+    mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
+    if mapping_path is None:
+        return _err("no mappings/demo.toml here; run from the drape checkout or pass --mapping FILE")
+    print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
+    t0 = time.monotonic()
+    model = train_simulated(a.seed, a.wearer)
+    print(f"trained in {time.monotonic() - t0:.1f} s: {len(model.classes) - 1} gestures, "
+          f"cross-validated window accuracy {model.summary['cross_validated_window_accuracy']:.2f}", flush=True)
+    try:
+        mapping = load_mapping(mapping_path, model.classes, model.kinds)
+    except MappingError as exc:
+        return _err(f"mapping has errors:\n{exc}")
+    outputs = _open_outputs(mapping)
+    for name, d in mapping.destinations.items():
+        print(f"sending OSC to {d.host}:{d.port} ({name}) from {mapping_path}", flush=True)
+    source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s)
+    stop = StopFlag()
+    _stop_on_signals(stop)
+    print("the simulated wearer is performing; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
+    try:
+        stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=_print_event)
+    finally:
+        for o in outputs.values():
+            o.close()
+    performed = [iv for iv in source.truth if iv.end_s <= stats.samples / source.rate_hz]
+    print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {stats.samples / source.rate_hz:.1f} s of stream, "
+          f"{len(performed)} gestures performed, {stats.events} events", flush=True)
+    return 0
+
+
+def cmd_start(a) -> int:
+    from .mapping import MappingError, load_mapping
+    from .recognition import ModelError, load_model
+    from .service import Pipeline, StopFlag, run
+    from .service.config import ConfigError, load_config
+    from .sources.base import SourceGone
+    from .sources.serialport import SerialTextSource
+
+    try:
+        cfg = load_config(a.config)
+        model = load_model(cfg.model)
+        mapping = load_mapping(cfg.mapping, model.classes, model.kinds) if cfg.mapping else None
+    except (ConfigError, ModelError, MappingError) as exc:
+        return _err(str(exc))
+    try:
+        source = SerialTextSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names)
+    except SourceGone as exc:
+        return _err(str(exc))
+    outputs = _open_outputs(mapping) if mapping else {}
+    stop = StopFlag()
+    _stop_on_signals(stop)
+    print(f"drape: {cfg.name} on {cfg.port}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
+    try:
+        run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event)
+    except SourceGone as exc:
+        print(f"drape: {exc}", file=sys.stderr)
+        return 1
+    finally:
+        source.close()
+        for o in outputs.values():
+            o.close()
+        c = source.counters()
+        print(f"drape: stopped; lines good {c['good']}, skipped {c['malformed'] + c['wrong_count'] + c['out_of_range']} "
+              f"(malformed {c['malformed']}, wrong count {c['wrong_count']}, out of range {c['out_of_range']})",
+              file=sys.stderr, flush=True)
+    return 0
+
+
+def cmd_fit(a) -> int:
+    from .recognition import TrainingSettings, fit_linear
+    from .sources import RecordingError, read_recording
+
+    try:
+        recs = [read_recording(p) for p in a.recordings]
+    except RecordingError as exc:
+        return _err(str(exc))
+    kinds = {}
+    for r in recs:
+        kinds.update(r.kinds)
+    try:
+        model = fit_linear(recs, kinds, TrainingSettings(window_s=a.window_s, hop_s=a.hop_s))
+    except ValueError as exc:
+        return _err(str(exc))
+    model.save(a.output)
+    s = model.summary
+    print(f"{a.output}: {len(model.classes) - 1} gestures from {s['recordings']} takes; "
+          f"cross-validated window accuracy {s['cross_validated_window_accuracy']:.3f}, "
+          f"calibration error {s['calibration_error']:.3f}")
+    return 0
+
+
+def cmd_replay(a) -> int:
+    from .mapping import MappingError, load_mapping
+    from .recognition import ModelError, load_model
+    from .service import Pipeline
+    from .sources import RecordingError, read_recording
+
+    try:
+        model = load_model(a.model)
+        rec = read_recording(a.recording)
+        model.check_source(len(rec.channel_names), rec.rate_hz)
+        mapping = load_mapping(a.mapping, model.classes, model.kinds) if a.mapping else None
+    except (ModelError, RecordingError, MappingError) as exc:
+        return _err(str(exc))
+    events = replay_events(rec, model, mapping)
+    for e in events:
+        _print_event(e)
+        if mapping:
+            for d in mapping.dispatches(e):
+                print(f"{'':14}→ {d.destination}: {d.message.address} {' '.join(map(str, d.message.args))}")
+    return 0
+
+
+def replay_events(rec, model, mapping=None, block_s: float = 0.1):
+    """Events the live chain decides over a whole take, fed in blocks like a live source."""
+    from .service import Pipeline
+    from .sources.replay import ReplaySource
+
+    pipe = Pipeline(model, mapping)
+    src = ReplaySource(rec, block_s)
+    events = []
+    while not src.ended:
+        events += pipe.feed(src.read().freq_hz)
+    return events + pipe.stop()
+
+
+def cmd_simulate(a) -> int:
+    import numpy as np
+    from .garment import GESTURES, Jacket, random_script, training_script
+    from .sources import Recording, write_recording
+
+    jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session)
+    rng = np.random.default_rng([a.seed, a.wearer, a.session, 3])
+    script = training_script(rng, a.repetitions) if a.repetitions else random_script(rng, a.duration_s)
+    take = jacket.perform(script)
+    write_recording(a.out, Recording.from_take(take, GESTURES))
+    print(f"{a.out}: {take.t_s.size / take.rate_hz:.1f} s, {len(take.intervals)} labelled gestures, "
+          f"{len(take.channel_names)} channels at {take.rate_hz:g} Hz")
+    return 0
+
+
+def cmd_check(a) -> int:
+    from .mapping import MappingError, load_mapping
+    from .recognition import ModelError, load_model
+
+    try:
+        model = load_model(a.model) if a.model else None
+        mapping = load_mapping(a.file, model.classes if model else None, model.kinds if model else None)
+    except (ModelError, MappingError) as exc:
+        return _err(str(exc))
+    print(f"{a.file}: OK, {len(mapping.rules)} rules")
+    for r in mapping.rules:
+        d = mapping.destinations[r.to]
+        print(f"  line {r.line:<4} {r.gesture:<16} on {r.on:<8} → {r.to} ({d.host}:{d.port}) {r.address} {list(r.args)}")
+    return 0
+
+
+def build_parser() -> argparse.ArgumentParser:
+    p = argparse.ArgumentParser(prog="drape", description="Postures and gestures from textile antennas, as live control messages.")
+    sub = p.add_subparsers(dest="verb", metavar="VERB")
+    d = sub.add_parser("demo", help=VERBS["demo"], description=VERBS["demo"])
+    d.add_argument("--for", dest="for_s", type=float, default=None, metavar="SECONDS", help="stop after this many seconds")
+    d.add_argument("--mapping", help="mapping file (default mappings/demo.toml)")
+    d.add_argument("--seed", type=int, default=1)
+    d.add_argument("--wearer", type=int, default=0)
+    d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
+    d.set_defaults(func=cmd_demo)
+    s = sub.add_parser("start", help=VERBS["start"], description=VERBS["start"])
+    s.add_argument("--config", required=True, help="daemon config file (TOML)")
+    s.set_defaults(func=cmd_start)
+    f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])
+    f.add_argument("recordings", nargs="+", metavar="TAKE")
+    f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
+    f.add_argument("--window-s", type=float, default=2.0, help="window length, s")
+    f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
+    f.set_defaults(func=cmd_fit)
+    r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
+    r.add_argument("recording", metavar="TAKE")
+    r.add_argument("--model", required=True)
+    r.add_argument("--mapping")
+    r.set_defaults(func=cmd_replay)
+    m = sub.add_parser("simulate", help=VERBS["simulate"], description=VERBS["simulate"])
+    m.add_argument("--out", required=True, help="take file to write")
+    m.add_argument("--duration-s", type=float, default=120.0, help="length of a random performance, s")
+    m.add_argument("--repetitions", type=int, default=0, help="instead, each gesture this many times (a training take)")
+    m.add_argument("--seed", type=int, default=0)
+    m.add_argument("--wearer", type=int, default=0)
+    m.add_argument("--session", type=int, default=0)
+    m.set_defaults(func=cmd_simulate)
+    c = sub.add_parser("check", help=VERBS["check"], description=VERBS["check"])
+    c.add_argument("file", metavar="MAPPING")
+    c.add_argument("--model")
+    c.set_defaults(func=cmd_check)
+    return p
+
+
+def main(argv=None) -> int:
+    parser = build_parser()
+    a = parser.parse_args(argv)
+    if not getattr(a, "func", None):
+        parser.print_help()
+        return 2
+    return a.func(a)
+
+
+if __name__ == "__main__":
+    sys.exit(main())

@@ -1,0 +1,108 @@
+"""The decision layer: turns per-hop class probabilities into few, deliberate events.
+
+A dynamic gesture fires once when k of the last n hops agree on it above its threshold,
+then nothing fires for its refractory time. A posture is "entered" on the same k-of-n rule
+and "left" when k of the last n hops fall below its lower exit threshold (hysteresis).
+"""
+
+from __future__ import annotations
+
+from collections import deque
+from dataclasses import dataclass, replace
+
+import numpy as np
+
+GESTURE, ENTERED, LEFT = "gesture", "entered", "left"
+
+
+@dataclass(frozen=True)
+class Event:
+    """One decision. Times in seconds on the stream's clock (sample count / rate)."""
+
+    t_s: float
+    gesture: str
+    kind: str               # "gesture", "entered" or "left"
+    confidence: float       # mean probability over the agreeing hops, 0..1
+    duration_s: float = 0.0  # how long a posture was held ("left" events)
+    garment: str = ""
+
+
+@dataclass(frozen=True)
+class GateSettings:
+    """Decision settings for one class."""
+
+    threshold: float = 0.6       # probability needed for a hop to count, 0..1
+    agree_k: int = 3             # hops that must agree ...
+    agree_n: int = 4             # ... out of the last n
+    refractory_s: float = 1.5    # quiet time after a gesture fires, s
+    exit_threshold: float = 0.35  # posture: below this a hop counts towards "left"
+
+    def __post_init__(self):
+        if not 0 < self.threshold <= 1 or not 0 <= self.exit_threshold <= self.threshold:
+            raise ValueError("need 0 <= exit_threshold <= threshold <= 1")
+        if not 1 <= self.agree_k <= self.agree_n:
+            raise ValueError("need 1 <= agree_k <= agree_n")
+        if self.refractory_s < 0:
+            raise ValueError("refractory_s must be >= 0")
+
+    def to_dict(self) -> dict:
+        return {"threshold": self.threshold, "agree_k": self.agree_k, "agree_n": self.agree_n,
+                "refractory_s": self.refractory_s, "exit_threshold": self.exit_threshold}
+
+
+def gate_settings_for(classes, stored: dict | None, default: GateSettings = GateSettings()) -> dict[str, GateSettings]:
+    """Per-class settings from a model's stored decision table (missing entries take the default)."""
+    stored = stored or {}
+    out = {}
+    for c in classes:
+        d = stored.get(c, {})
+        out[c] = replace(default, **{k: type(getattr(default, k))(v) for k, v in d.items() if hasattr(default, k)})
+    return out
+
+
+class Gate:
+    """Decision state for one garment: recent hops, refractory clock, postures held."""
+
+    def __init__(self, classes, kinds: dict[str, str], settings: dict[str, GateSettings] | None = None,
+                 garment: str = ""):
+        self.classes = tuple(classes)
+        self.kinds = dict(kinds)
+        self.settings = gate_settings_for(self.classes[1:], None) if settings is None else dict(settings)
+        self.garment = garment
+        n_max = max(s.agree_n for s in self.settings.values())
+        self.recent: deque[np.ndarray] = deque(maxlen=n_max)
+        self.quiet_until_s = -np.inf
+        self.held: dict[str, tuple[float, float]] = {}  # posture -> (entered at, confidence)
+
+    def step(self, t_s: float, prob: np.ndarray) -> list[Event]:
+        """Take one hop's probabilities (classes,) at stream time t_s; return the events decided."""
+        self.recent.append(np.asarray(prob, dtype=float))
+        events: list[Event] = []
+        top = np.array([p.argmax() for p in self.recent])
+        for k, name in enumerate(self.classes):
+            if k == 0:
+                continue
+            s = self.settings[name]
+            hist = list(self.recent)[-s.agree_n:]
+            tops = top[-s.agree_n:]
+            votes = [p[k] for p, t in zip(hist, tops) if t == k and p[k] >= s.threshold]
+            if self.kinds[name] == "posture":
+                if name in self.held:
+                    low = sum(p[k] < s.exit_threshold for p in hist)
+                    if low >= s.agree_k:
+                        entered_at, conf = self.held.pop(name)
+                        events.append(Event(t_s, name, LEFT, conf, t_s - entered_at, self.garment))
+                elif len(votes) >= s.agree_k:
+                    conf = float(np.mean(votes))
+                    self.held[name] = (t_s, conf)
+                    events.append(Event(t_s, name, ENTERED, conf, 0.0, self.garment))
+            elif len(votes) >= s.agree_k and t_s >= self.quiet_until_s:
+                events.append(Event(t_s, name, GESTURE, float(np.mean(votes)), 0.0, self.garment))
+                self.quiet_until_s = t_s + s.refractory_s
+        return events
+
+    def release_all(self, t_s: float) -> list[Event]:
+        """End every held posture now (stop, disarm, no data): "left" events for each."""
+        out = [Event(t_s, n, LEFT, c, t_s - t0, self.garment) for n, (t0, c) in self.held.items()]
+        self.held.clear()
+        return out

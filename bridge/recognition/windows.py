@@ -1,0 +1,105 @@
+"""Sliding windows over a conditioned stream, with the window and hop in seconds."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class WindowSpec:
+    """Window length and hop, s, at a sample rate, Hz."""
+
+    rate_hz: float
+    window_s: float = 2.0
+    hop_s: float = 0.1
+
+    @property
+    def length(self) -> int:
+        """Samples per window."""
+        return max(8, int(round(self.window_s * self.rate_hz)))
+
+    @property
+    def hop(self) -> int:
+        """Samples per hop."""
+        return max(1, int(round(self.hop_s * self.rate_hz)))
+
+    def to_dict(self) -> dict:
+        return {"rate_hz": self.rate_hz, "window_s": self.window_s, "hop_s": self.hop_s}
+
+    @classmethod
+    def from_dict(cls, d: dict) -> "WindowSpec":
+        return cls(float(d["rate_hz"]), float(d["window_s"]), float(d["hop_s"]))
+
+
+class Windower:
+    """Collects samples of several parallel streams and yields a window every hop.
+
+    State is a ring of the last ``length`` samples per stream and the count of samples
+    seen; ``push`` returns the windows completed by this block with the index (count of
+    samples seen) of each window's last sample, so replay and live agree to the sample.
+    """
+
+    def __init__(self, spec: WindowSpec, n_channels: int, n_streams: int = 2):
+        self.spec = spec
+        self.ring = np.zeros((n_streams, spec.length, n_channels))
+        self.seen = 0
+
+    def push(self, *streams: np.ndarray) -> tuple[np.ndarray, list[int]]:
+        """Append a block of each stream, (n, channels) each.
+
+        Returns (windows (m, streams, length, channels), end indices (m,)).
+        """
+        L, hop = self.spec.length, self.spec.hop
+        n = streams[0].shape[0]
+        out, ends = [], []
+        start = 0
+        # Walk hop boundaries inside this block; copying only whole windows keeps it O(n).
+        while start < n:
+            next_end = self._next_emit()
+            take = min(n - start, next_end - self.seen)
+            block = np.stack([s[start:start + take] for s in streams])
+            self._append(block)
+            start += take
+            if self.seen == next_end:
+                out.append(self._window())
+                ends.append(self.seen)
+        if not out:
+            return np.empty((0, len(streams), L, self.ring.shape[2])), []
+        return np.stack(out), ends
+
+    def _next_emit(self) -> int:
+        L, hop = self.spec.length, self.spec.hop
+        if self.seen < L:
+            return L
+        return self.seen + hop - ((self.seen - L) % hop)
+
+    def _append(self, block: np.ndarray) -> None:
+        k = block.shape[1]
+        L = self.spec.length
+        if k >= L:
+            self.ring[:] = block[:, -L:]
+        elif k:
+            self.ring = np.roll(self.ring, -k, axis=1)
+            self.ring[:, -k:] = block
+        self.seen += k
+
+    def _window(self) -> np.ndarray:
+        return self.ring.copy()
+
+
+def all_windows(spec: WindowSpec, *streams: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Every window a Windower would emit over whole streams, at once (offline training).
+
+    Returns (windows (m, streams, length, channels), end indices (m,)).
+    """
+    L, hop = spec.length, spec.hop
+    n = streams[0].shape[0]
+    if n < L:
+        return np.empty((0, len(streams), L, streams[0].shape[1])), np.empty(0, dtype=int)
+    ends = np.arange(L, n + 1, hop)
+    stacked = np.stack(streams)  # (streams, n, channels)
+    view = np.lib.stride_tricks.sliding_window_view(stacked, L, axis=1)  # (streams, n-L+1, ch, L)
+    w = view[:, ends - L]  # (streams, m, ch, L)
+    return np.ascontiguousarray(w.transpose(1, 0, 3, 2)), ends

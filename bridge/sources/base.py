@@ -1,0 +1,62 @@
+"""Sources: where samples come from. A source is a tiny class: override ``read``."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass(frozen=True)
+class Block:
+    """Samples that arrived together.
+
+    t_s: (n,) device time, s (sample count / rate when the device sends none);
+    freq_hz: (n, channels) counted frequencies, Hz; arrived_s: host monotonic time of arrival, s.
+    """
+
+    t_s: np.ndarray
+    freq_hz: np.ndarray
+    arrived_s: float
+
+    def __len__(self) -> int:
+        return self.freq_hz.shape[0]
+
+
+class SourceGone(OSError):
+    """The device went away (unplugged, port closed)."""
+
+
+class Source:
+    """Base class. ``read`` waits briefly and returns a Block (possibly empty).
+
+    ``ended`` becomes True when a finite source (a file, a fixed-length simulation) is exhausted.
+    """
+
+    rate_hz: float
+    channel_names: tuple[str, ...]
+    ended: bool = False
+
+    @property
+    def n_channels(self) -> int:
+        return len(self.channel_names)
+
+    def read(self) -> Block:
+        raise NotImplementedError
+
+    def close(self) -> None:
+        """Release the device or file."""
+
+    def counters(self) -> dict:
+        """Counts of bad input, for status and logs."""
+        return {}
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def empty_block(n_channels: int, now_s: float) -> Block:
+    return Block(np.empty(0), np.empty((0, n_channels)), now_s)

@@ -1,0 +1,167 @@
+"""The take file: a recording of one wearer's session, human-readable and written as it goes.
+
+    #drape-take 1
+    #meta {"rate_hz": 100.0, "channels": [...], "wearer": "...", "session": "...", ...}
+    t_s,left_sleeve,right_sleeve,...
+    0.0000,181234.0,...
+    #label {"start_s": 3.2, "end_s": 4.5, "label": "raise_right"}
+
+Lines starting with '#' carry metadata and labels (labels may come anywhere, appended as
+gestures end); the rest is CSV that spreadsheet tools read with '#' as comment. The writer
+flushes at least once a second, so a crash loses at most the last second.
+"""
+
+from __future__ import annotations
+
+import json
+import math
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+MAGIC = "#drape-take 1"
+
+
+class RecordingError(ValueError):
+    """A take file that cannot be read, naming the file and line."""
+
+
+@dataclass(frozen=True)
+class Label:
+    start_s: float
+    end_s: float
+    label: str
+
+
+@dataclass
+class Recording:
+    rate_hz: float
+    channel_names: tuple[str, ...]
+    t_s: np.ndarray
+    freq_hz: np.ndarray
+    intervals: tuple[Label, ...] = ()
+    wearer: str = ""
+    session: str = ""
+    layout: str = ""
+    kinds: dict = field(default_factory=dict)
+
+    @classmethod
+    def from_take(cls, take, kinds: dict | None = None, layout: str = "default") -> "Recording":
+        """From a simulated take (bridge.garment.Take) or anything with the same fields."""
+        return cls(take.rate_hz, tuple(take.channel_names), np.asarray(take.t_s), np.asarray(take.freq_hz),
+                   tuple(Label(i.start_s, i.end_s, i.label) for i in take.intervals),
+                   str(take.wearer), str(take.session), layout, dict(kinds or {}))
+
+
+class RecordingWriter:
+    """Appends samples and labels to a take file, flushing at least every ``flush_s``."""
+
+    def __init__(self, path: str | Path, rate_hz: float, channel_names, wearer: str = "", session: str = "",
+                 layout: str = "", kinds: dict | None = None, flush_s: float = 1.0):
+        self.path = Path(path)
+        self.fh = open(self.path, "w", encoding="utf-8", newline="\n")
+        self.flush_s = flush_s
+        self._last_flush = time.monotonic()
+        meta = {"rate_hz": rate_hz, "channels": list(channel_names), "wearer": wearer, "session": session,
+                "layout": layout, "kinds": kinds or {}}
+        self.fh.write(f"{MAGIC}\n#meta {json.dumps(meta)}\n")
+        self.fh.write(",".join(["t_s", *channel_names]) + "\n")
+        self.fh.flush()
+
+    def samples(self, t_s: np.ndarray, freq_hz: np.ndarray) -> None:
+        rows = np.column_stack([t_s, freq_hz])
+        self.fh.write("".join(f"{r[0]:.4f}," + ",".join(f"{v:.2f}" for v in r[1:]) + "\n" for r in rows))
+        self._maybe_flush()
+
+    def label(self, start_s: float, end_s: float, label: str) -> None:
+        self.fh.write(f"#label {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
+        self._maybe_flush()
+
+    def _maybe_flush(self) -> None:
+        now = time.monotonic()
+        if now - self._last_flush >= self.flush_s:
+            self.fh.flush()
+            self._last_flush = now
+
+    def close(self) -> None:
+        if not self.fh.closed:
+            self.fh.close()
+
+    def __enter__(self):
+        return self
+
+    def __exit__(self, *exc):
+        self.close()
+
+
+def write_recording(path: str | Path, rec: Recording) -> Path:
+    with RecordingWriter(path, rec.rate_hz, rec.channel_names, rec.wearer, rec.session, rec.layout, rec.kinds) as w:
+        w.samples(rec.t_s, rec.freq_hz)
+        for iv in rec.intervals:
+            w.label(iv.start_s, iv.end_s, iv.label)
+    return Path(path)
+
+
+def read_recording(path: str | Path) -> Recording:
+    """Read a take file; a truncated last line (crash while writing) is dropped, not an error."""
+    path = Path(path)
+    try:
+        lines = path.read_text(encoding="utf-8").split("\n")
+    except FileNotFoundError:
+        raise RecordingError(f"{path}: no such take file") from None
+    except (OSError, UnicodeDecodeError) as exc:
+        raise RecordingError(f"{path}: cannot read ({exc})") from None
+    if not lines or lines[0].strip() != MAGIC:
+        raise RecordingError(f"{path}:1: not a drape take file (first line should be {MAGIC!r})")
+    meta = None
+    labels, rows = [], []
+    n_cols = None
+    for no, line in enumerate(lines[1:], start=2):
+        s = line.strip()
+        if not s:
+            continue
+        if s.startswith("#meta "):
+            try:
+                meta = json.loads(s[6:])
+                channels = tuple(str(c) for c in meta["channels"])
+                rate = float(meta["rate_hz"])
+            except (json.JSONDecodeError, KeyError, TypeError, ValueError) as exc:
+                raise RecordingError(f"{path}:{no}: metadata line unreadable ({exc})") from None
+            if not channels or not (0 < rate < 1e5):
+                raise RecordingError(f"{path}:{no}: metadata needs channels and a positive rate_hz")
+            n_cols = len(channels) + 1
+            continue
+        if s.startswith("#label "):
+            try:
+                d = json.loads(s[7:])
+                lab = Label(float(d["start_s"]), float(d["end_s"]), str(d["label"]))
+            except (json.JSONDecodeError, KeyError, TypeError, ValueError) as exc:
+                raise RecordingError(f"{path}:{no}: label line unreadable ({exc})") from None
+            if not (math.isfinite(lab.start_s) and lab.end_s > lab.start_s):
+                raise RecordingError(f"{path}:{no}: label needs start_s < end_s")
+            labels.append(lab)
+            continue
+        if s.startswith("#") or s.startswith("t_s"):
+            continue
+        if n_cols is None:
+            raise RecordingError(f"{path}:{no}: samples before the #meta line")
+        parts = s.split(",")
+        last = no == len(lines) or all(not l.strip() for l in lines[no:])
+        try:
+            row = [float(p) for p in parts]
+        except ValueError:
+            if last:
+                break
+            raise RecordingError(f"{path}:{no}: not numbers") from None
+        if len(row) != n_cols:
+            if last:
+                break
+            raise RecordingError(f"{path}:{no}: {len(row)} columns where {n_cols} were expected")
+        rows.append(row)
+    if meta is None:
+        raise RecordingError(f"{path}: no #meta line")
+    arr = np.array(rows, dtype=float).reshape(-1, n_cols)
+    return Recording(rate, channels, arr[:, 0], arr[:, 1:], tuple(labels), str(meta.get("wearer", "")),
+                     str(meta.get("session", "")), str(meta.get("layout", "")), dict(meta.get("kinds", {})))
