@@ -1,0 +1,66 @@
+"""Decision semantics on scripted probability sequences."""
+
+import numpy as np
+import pytest
+
+from bridge.decisions import Gate, GateSettings
+
+CLASSES = ("null", "wave", "hold")
+KINDS = {"wave": "gesture", "hold": "posture"}
+
+
+def probs(top: str, p: float = 0.9) -> np.ndarray:
+    v = np.full(3, (1 - p) / 2)
+    v[CLASSES.index(top)] = p
+    return v
+
+
+def run(gate, seq, hop_s=0.1):
+    out = []
+    for i, top in enumerate(seq):
+        out += gate.step(round(i * hop_s, 6), probs(*top) if isinstance(top, tuple) else probs(top))
+    return out
+
+
+def test_k_of_n_needs_agreement():
+    g = Gate(CLASSES, KINDS, {c: GateSettings(agree_k=3, agree_n=4) for c in KINDS})
+    assert run(g, ["wave", "null", "wave", "null", "null"]) == []
+    g = Gate(CLASSES, KINDS, {c: GateSettings(agree_k=3, agree_n=4) for c in KINDS})
+    ev = run(g, ["wave", "null", "wave", "wave"])
+    assert [(e.gesture, e.kind, e.t_s) for e in ev] == [("wave", "gesture", 0.3)]
+
+
+def test_below_threshold_does_not_count():
+    g = Gate(CLASSES, KINDS, {c: GateSettings(threshold=0.8) for c in KINDS})
+    assert run(g, [("wave", 0.7)] * 10) == []
+
+
+def test_refractory_suppresses_repeats_then_allows_again():
+    g = Gate(CLASSES, KINDS, {c: GateSettings(agree_k=2, agree_n=2, refractory_s=1.0) for c in KINDS})
+    ev = run(g, ["wave"] * 25)  # 2.5 s of continuous agreement
+    assert [e.t_s for e in ev] == [0.1, 1.1, 2.1]
+
+
+def test_posture_entered_left_with_duration_and_hysteresis():
+    s = GateSettings(threshold=0.8, exit_threshold=0.3, agree_k=2, agree_n=3)
+    g = Gate(CLASSES, KINDS, {c: s for c in KINDS})
+    # 0.85 enters; 0.5 is between the thresholds and keeps it held; 0.1 leaves.
+    seq = [("hold", 0.85)] * 3 + [("hold", 0.5)] * 10 + [("null", 0.9)] * 3
+    ev = run(g, seq)
+    assert [(e.kind, e.t_s) for e in ev] == [("entered", 0.1), ("left", 1.4)]
+    assert ev[1].duration_s == pytest.approx(1.3)
+
+
+def test_release_all_ends_held_postures():
+    g = Gate(CLASSES, KINDS, {c: GateSettings(agree_k=1, agree_n=1) for c in KINDS})
+    run(g, ["hold"])
+    left = g.release_all(5.0)
+    assert [(e.gesture, e.kind, e.duration_s) for e in left] == [("hold", "left", 5.0)]
+    assert g.release_all(6.0) == []
+
+
+def test_settings_reject_nonsense():
+    with pytest.raises(ValueError):
+        GateSettings(agree_k=5, agree_n=3)
+    with pytest.raises(ValueError):
+        GateSettings(threshold=0.3, exit_threshold=0.5)
