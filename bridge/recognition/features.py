@@ -5,7 +5,8 @@ from __future__ import annotations
 import numpy as np
 
 N_SEGMENTS = 4
-FEATURES_PER_CHANNEL = 9 + N_SEGMENTS
+N_SHAPE = 8
+FEATURES_PER_CHANNEL = 9 + N_SEGMENTS + 2 * N_SHAPE
 
 
 def window_features(windows: np.ndarray) -> np.ndarray:
@@ -26,6 +27,11 @@ def window_features(windows: np.ndarray) -> np.ndarray:
     spread = motion.std(axis=1)
     segs = np.array_split(np.arange(L), N_SEGMENTS)
     energy = [np.sqrt((motion[:, s] ** 2).mean(axis=1)) for s in segs]
+    # The coarse course of the movement: mean level (above the level just before) and
+    # mean motion in N_SHAPE equal stretches, which keeps the order in which channels move.
+    parts = np.array_split(np.arange(L), N_SHAPE)
+    shape_level = [level[:, s].mean(axis=1) - head for s in parts]
+    shape_motion = [motion[:, s].mean(axis=1) for s in parts]
     feats = [
         mean,
         mean - head,
@@ -37,5 +43,7 @@ def window_features(windows: np.ndarray) -> np.ndarray:
         motion.argmax(axis=1) / L,
         motion.argmin(axis=1) / L,
         *energy,
+        *shape_level,
+        *shape_motion,
     ]
     return np.stack(feats, axis=2).reshape(m, C * FEATURES_PER_CHANNEL)

@@ -31,6 +31,25 @@ def fit_lda(x: np.ndarray, y: np.ndarray, n_classes: int, shrinkage: float = 0.2
     return prec_means, bias
 
 
+def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Ridge regression onto one-hot classes, for each penalty, from one eigendecomposition.
+
+    x: (m, d) features; returns [(weights (d, k), bias (k,)), ...] per penalty; the penalty
+    is relative to the mean eigenvalue so it does not depend on the feature count.
+    """
+    targets = np.eye(n_classes)[y]
+    xm, ym = x.mean(axis=0), targets.mean(axis=0)
+    xc = x - xm
+    evals, evecs = np.linalg.eigh(xc.T @ xc)
+    proj = evecs.T @ (xc.T @ (targets - ym))
+    ref = max(float(evals.mean()), 1e-12)
+    out = []
+    for lam in penalties:
+        w = evecs @ (proj / (evals + lam * ref)[:, None])
+        out.append((w, ym - xm @ w))
+    return out
+
+
 def fit_temperature(scores: np.ndarray, y: np.ndarray) -> float:
     """Temperature T minimising the negative log-likelihood of softmax(scores / T)."""
     def nll(log_t):

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import zipfile
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -18,6 +19,17 @@ NULL = "null"
 MAX_CLASSES = 256
 MAX_CHANNELS = 64
 MAX_META_BYTES = 1_000_000
+MAX_FILE_BYTES = 256 * 2**20
+ARRAYS = ("meta_json", "feature_mean", "feature_scale", "weights", "bias", "projection", "phase")
+
+
+MAX_FOURIER = 20_000
+
+
+def fourier_map(z: np.ndarray, projection: np.ndarray, phase: np.ndarray) -> np.ndarray:
+    """Random Fourier features: a linear model over them approximates a Gaussian-kernel one
+    (Rahimi & Recht, "Random features for large-scale kernel machines", NIPS 2007)."""
+    return np.cos(z @ projection + phase) * np.sqrt(2.0 / phase.size)
 
 
 class ModelError(ValueError):
@@ -43,6 +55,8 @@ class Model:
     weights: np.ndarray
     bias: np.ndarray
     temperature: float = 1.0
+    projection: np.ndarray | None = None   # random Fourier map (d, D), or None for plain features
+    phase: np.ndarray | None = None        # (D,)
     classifier: str = "linear"
     decision: dict = field(default_factory=dict)
     summary: dict = field(default_factory=dict)
@@ -58,6 +72,8 @@ class Model:
     def scores(self, features: np.ndarray) -> np.ndarray:
         """Discriminant scores (m, classes) for raw features (m, d)."""
         z = (features - self.feature_mean) / self.feature_scale
+        if self.projection is not None:
+            z = fourier_map(z, self.projection, self.phase)
         return z @ self.weights + self.bias
 
     def check_source(self, n_channels: int, rate_hz: float, rate_tolerance: float = 0.02) -> None:
@@ -92,15 +108,12 @@ class Model:
         """Write the model as one .npz holding arrays and a JSON metadata string."""
         path = Path(path)
         meta = json.dumps(self.metadata(), indent=1, sort_keys=True).encode("utf-8")
+        arrays = dict(meta_json=np.frombuffer(meta, dtype=np.uint8), feature_mean=self.feature_mean,
+                      feature_scale=self.feature_scale, weights=self.weights, bias=self.bias)
+        if self.projection is not None:
+            arrays.update(projection=self.projection, phase=self.phase)
         with open(path, "wb") as fh:
-            np.savez(
-                fh,
-                meta_json=np.frombuffer(meta, dtype=np.uint8),
-                feature_mean=self.feature_mean,
-                feature_scale=self.feature_scale,
-                weights=self.weights,
-                bias=self.bias,
-            )
+            np.savez(fh, **arrays)
         return path
 
 
@@ -116,8 +129,15 @@ def load_model(path: str | Path) -> Model:
         raise ModelError(f"{path}: no such model file (train one with `drape fit RECORDINGS -o {path.name}`)")
     try:
         with np.load(path, allow_pickle=False) as z:
-            arrays = {k: z[k] for k in ("meta_json", "feature_mean", "feature_scale", "weights", "bias") if k in z.files}
-    except (ValueError, OSError, EOFError) as exc:  # not a zip, pickled object, truncated
+            for k in z.files:  # names and sizes from the zip directory, before any array is read
+                if k not in ARRAYS:
+                    raise ModelError(f"{path}: unexpected array {k!r}: not a drape model file")
+            if sum(i.file_size for i in z.zip.infolist()) > MAX_FILE_BYTES:
+                raise ModelError(f"{path}: arrays larger than {MAX_FILE_BYTES // 2**20} MiB: not a drape model file")
+            arrays = {k: z[k] for k in ARRAYS if k in z.files}
+    except ModelError:
+        raise
+    except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:  # not a zip, pickled object, truncated
         raise ModelError(f"{path}: not a drape model file ({exc})") from None
     _require("meta_json" in arrays, path, "no metadata: not a drape model file")
     raw = arrays["meta_json"]
@@ -151,7 +171,14 @@ def load_model(path: str | Path) -> Model:
              "sample rate missing or inconsistent")
     d = len(channels) * FEATURES_PER_CHANNEL
     k = len(classes)
-    for name, shape in (("feature_mean", (d,)), ("feature_scale", (d,)), ("weights", (d, k)), ("bias", (k,))):
+    shapes = [("feature_mean", (d,)), ("feature_scale", (d,)), ("bias", (k,))]
+    if "projection" in arrays:
+        n_map = arrays["phase"].shape[0] if "phase" in arrays and arrays["phase"].ndim == 1 else -1
+        _require(0 < n_map <= MAX_FOURIER, path, "array phase missing or too large")
+        shapes += [("projection", (d, n_map)), ("phase", (n_map,)), ("weights", (n_map, k))]
+    else:
+        shapes += [("weights", (d, k))]
+    for name, shape in shapes:
         _require(name in arrays, path, f"array {name} missing")
         a = arrays[name]
         _require(a.shape == shape and a.dtype.kind == "f", path, f"array {name} has shape {a.shape}, expected {shape}")
@@ -161,5 +188,7 @@ def load_model(path: str | Path) -> Model:
         classes=classes, kinds=kinds, channel_names=channels, conditioning=conditioning, windows=windows,
         feature_mean=arrays["feature_mean"].astype(float), feature_scale=arrays["feature_scale"].astype(float),
         weights=arrays["weights"].astype(float), bias=arrays["bias"].astype(float), temperature=temperature,
+        projection=arrays["projection"].astype(float) if "projection" in arrays else None,
+        phase=arrays["phase"].astype(float) if "phase" in arrays else None,
         classifier=classifier, decision=decision, summary=summary,
     )

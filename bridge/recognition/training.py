@@ -8,8 +8,8 @@ import numpy as np
 
 from ..signal import BandPass, Conditioner
 from .features import window_features
-from .linear import expected_calibration_error, fit_lda, fit_temperature, probabilities
-from .model import NULL, Model
+from .linear import expected_calibration_error, fit_lda, fit_ridge, fit_temperature, probabilities
+from .model import NULL, Model, fourier_map
 from .windows import WindowSpec, all_windows
 
 IGNORE = -1
@@ -23,7 +23,11 @@ class TrainingSettings:
     high_hz: float = 10.0
     order: int = 2
     baseline_tau_s: float = 30.0
-    shrinkage: float = 0.2
+    fourier_features: int = 2000   # size of the random Fourier map; 0 for a plain linear model
+    fourier_scale: float = 1.0     # projection scale (inverse kernel width) on standardised features
+    ridge: tuple = (1e-3, 1e-2, 1e-1, 1.0)  # penalties tried; the best held-out one is kept
+    shrinkage: float = 0.2         # covariance shrinkage of the plain model
+    seed: int = 0
 
 
 def condition_recording(rec, conditioning: BandPass) -> np.ndarray:
@@ -110,18 +114,38 @@ def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = T
     scale = x.std(axis=0)
     scale[scale < 1e-12] = 1.0
     z = (x - mean) / scale
-    # Held-out scores for the temperature and the estimate: by recording where there are
-    # several, else by contiguous fifths of the one recording.
+    projection = phase = None
+    if settings.fourier_features:
+        rng = np.random.default_rng(settings.seed)
+        projection = rng.normal(0.0, settings.fourier_scale / np.sqrt(z.shape[1]), (z.shape[1], settings.fourier_features))
+        phase = rng.uniform(0.0, 2 * np.pi, settings.fourier_features)
+        z = fourier_map(z, projection, phase)
+    # Held-out scores choose the penalty, fit the temperature and give the estimate: by
+    # recording where there are several, else by contiguous fifths of the one recording.
     folds = g if len(recordings) > 1 else np.minimum((np.arange(len(y)) * 5) // len(y), 4)
-    held_scores = np.zeros((len(y), len(classes)))
-    for f in np.unique(folds):
-        tr = folds != f
-        w, b = fit_lda(z[tr], y[tr], len(classes), settings.shrinkage)
-        held_scores[~tr] = z[~tr] @ w + b
+    k = len(classes)
+    if settings.fourier_features:
+        penalties = list(settings.ridge)
+        held = {lam: np.zeros((len(y), k)) for lam in penalties}
+        for f in np.unique(folds):
+            tr = folds != f
+            for lam, (w, b) in zip(penalties, fit_ridge(z[tr], y[tr], k, penalties)):
+                held[lam][~tr] = z[~tr] @ w + b
+        best = max(penalties, key=lambda lam: (held[lam].argmax(axis=1) == y).mean())
+        held_scores = held[best]
+        [(weights, bias)] = fit_ridge(z, y, k, [best])
+        model_note = {"fourier_features": settings.fourier_features, "ridge": best}
+    else:
+        held_scores = np.zeros((len(y), k))
+        for f in np.unique(folds):
+            tr = folds != f
+            w, b = fit_lda(z[tr], y[tr], k, settings.shrinkage)
+            held_scores[~tr] = z[~tr] @ w + b
+        weights, bias = fit_lda(z, y, k, settings.shrinkage)
+        model_note = {"shrinkage": settings.shrinkage}
     temperature = fit_temperature(held_scores, y)
     held_prob = probabilities(held_scores, temperature)
     cv_accuracy = float((held_prob.argmax(axis=1) == y).mean())
-    weights, bias = fit_lda(z, y, len(classes), settings.shrinkage)
     counts = {c: int((y == k).sum()) for k, c in enumerate(classes)}
     return Model(
         classes=classes,
@@ -134,11 +158,13 @@ def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = T
         weights=weights,
         bias=bias,
         temperature=temperature,
+        projection=projection,
+        phase=phase,
         summary={
             "recordings": len(recordings),
             "windows_per_class": counts,
             "cross_validated_window_accuracy": round(cv_accuracy, 4),
             "calibration_error": round(expected_calibration_error(held_prob, y), 4),
-            "shrinkage": settings.shrinkage,
+            **model_note,
         },
     )

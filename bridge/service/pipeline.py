@@ -38,7 +38,7 @@ class Pipeline:
             f = f[ok]
         if f.shape[0] == 0:
             return []
-        level, motion = self.conditioner.process(f, hold_baseline=bool(self.gate.held))
+        level, motion = self.conditioner.process(f)
         ends, probs = self.recogniser.push(level, motion)
         events: list[Event] = []
         rate = self.model.rate_hz

@@ -1,0 +1,24 @@
+import sys
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+@pytest.fixture(scope="session")
+def demo_model():
+    """The model `drape demo` trains: simulated wearer 0, seed 1, two training sessions."""
+    from bridge.cli import train_simulated
+
+    return train_simulated(seed=1, wearer=0)
+
+
+@pytest.fixture(scope="session")
+def demo_model_file(demo_model, tmp_path_factory):
+    return demo_model.save(tmp_path_factory.mktemp("model") / "jacket.npz")
+
+
+def drape_cmd(*args):
+    """The drape command as a subprocess argument list (works without the console script on PATH)."""
+    return [sys.executable, "-m", "bridge", *args]
