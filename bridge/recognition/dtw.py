@@ -51,13 +51,24 @@ def dtw_cost(query: np.ndarray, templates: np.ndarray, radius: int) -> np.ndarra
     prev = np.full(lead + (n + 1,), np.inf)  # prev[..., j+1] = D[i-1, j]; prev[..., 0] = D[i-1, -1]
     prev[..., 0] = 0.0
     cur = np.empty_like(prev)
+    width = 2 * r + 1
+    band = None
+    if int(np.prod(lead, dtype=np.int64)) * q.shape[-2] * n * width <= 4_000_000:
+        # all band costs at once: band[..., i, r + j - i] = cost of (i, j)
+        tp = np.pad(t, [(0, 0)] * (t.ndim - 1) + [(r, r)])
+        win = np.lib.stride_tricks.sliding_window_view(tp, width, axis=-1)     # (..., ch, n, width)
+        diff = q[..., :, :, None] - win
+        band = (diff * diff).sum(axis=-3)                                      # (..., n, width)
     for i in range(n):
         lo, hi = max(0, i - r), min(n, i + r + 1)
-        diff = q[..., 0, i, None] - t[..., 0, lo:hi]          # (..., w), channels summed below
-        c = diff * diff
-        for ch in range(1, q.shape[-2]):
-            diff = q[..., ch, i, None] - t[..., ch, lo:hi]
-            c += diff * diff
+        if band is not None:
+            c = band[..., i, lo - i + r:hi - i + r]
+        else:
+            diff = q[..., 0, i, None] - t[..., 0, lo:hi]      # (..., w), channels summed below
+            c = diff * diff
+            for ch in range(1, q.shape[-2]):
+                diff = q[..., ch, i, None] - t[..., ch, lo:hi]
+                c += diff * diff
         a = np.minimum(prev[..., lo:hi], prev[..., lo + 1:hi + 1])
         s = np.cumsum(c, axis=-1)
         a -= s

@@ -105,27 +105,22 @@ def _conv(taps: np.ndarray, mask: np.ndarray, beta: np.ndarray) -> np.ndarray:
     """Convolution outputs from tap values.
 
     taps: (9, channels, ...) the sample under each kernel tap (0 where padded); mask: (84,
-    channels) channels each kernel sums over. Returns (84, ...). Kernels sharing a channel
-    subset share the per-tap channel sums. Additions are elementwise in a fixed order, so
-    equal inputs give bit-equal outputs whatever the array shapes.
+    channels) 0/1, the channels each kernel sums over. Returns (84, ...): per channel
+    3·(sum of the three weight-2 taps) − (sum of all nine), then summed over the kernel's
+    channels. Additions are elementwise in a fixed order, so equal inputs give bit-equal
+    outputs whatever the array shapes (the batch and rolling transforms rely on this).
     """
-    subsets, which = np.unique(mask, axis=0, return_inverse=True)   # (u, channels), (84,)
-    which = which.reshape(-1)
     extra = (None,) * (taps.ndim - 2)
-    n_ch = taps.shape[1]
-    per_tap = []
-    for k in range(KERNEL_LENGTH):
-        acc = subsets[(slice(None), 0) + extra] * taps[k, 0][None]
-        for c in range(1, n_ch):
-            acc = acc + subsets[(slice(None), c) + extra] * taps[k, c][None]
-        per_tap.append(acc)                           # (u, ...)
-    alpha = per_tap[0]
+    alpha = taps[0]
     for k in range(1, KERNEL_LENGTH):
-        alpha = alpha + per_tap[k]
-    stacked = np.stack(per_tap)                      # (9, u, ...)
-    gamma = stacked[beta[:, 0], which] + stacked[beta[:, 1], which]
-    gamma = gamma + stacked[beta[:, 2], which]
-    return 3.0 * gamma - alpha[which]
+        alpha = alpha + taps[k]                                  # (channels, ...)
+    gamma = taps[beta[:, 0]] + taps[beta[:, 1]]
+    gamma = gamma + taps[beta[:, 2]]                             # (84, channels, ...)
+    per_channel = 3.0 * gamma - alpha[None]
+    out = mask[(slice(None), 0) + extra] * per_channel[:, 0]
+    for c in range(1, taps.shape[1]):
+        out = out + mask[(slice(None), c) + extra] * per_channel[:, c]
+    return out
 
 
 def _padded_taps(x: np.ndarray, dilation: int) -> np.ndarray:
