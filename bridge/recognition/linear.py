@@ -50,11 +50,14 @@ def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties) -> list[t
     return out
 
 
-def fit_temperature(scores: np.ndarray, y: np.ndarray) -> float:
-    """Temperature T minimising the negative log-likelihood of softmax(scores / T)."""
+def fit_temperature(scores: np.ndarray, y: np.ndarray, bounds: tuple[float, float] = (-3.0, 5.0)) -> float:
+    """Temperature T minimising the negative log-likelihood of softmax(scores / T).
+
+    bounds: the search interval of ln T.
+    """
     def nll(log_t):
         return -log_softmax(scores / np.exp(log_t), axis=1)[np.arange(len(y)), y].mean()
-    res = minimize_scalar(nll, bounds=(-3.0, 5.0), method="bounded")
+    res = minimize_scalar(nll, bounds=bounds, method="bounded")
     return float(np.exp(res.x))
 
 

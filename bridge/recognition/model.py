@@ -8,9 +8,11 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
+from numpy.lib import format as npformat
 
 from ..signal import BandPass
 from .features import FEATURES_PER_CHANNEL
+from .minirocket import KERNEL_LENGTH, MAX_DILATIONS, N_KERNELS, MiniRocketParams
 from .windows import WindowSpec
 
 FORMAT = "drape-model"
@@ -19,10 +21,17 @@ NULL = "null"
 MAX_CLASSES = 256
 MAX_CHANNELS = 64
 MAX_META_BYTES = 1_000_000
-MAX_FILE_BYTES = 256 * 2**20
-ARRAYS = ("meta_json", "feature_mean", "feature_scale", "weights", "bias", "projection", "phase")
 
 
+class ModelError(ValueError):
+    """A model file that cannot be used, with what to do about it."""
+
+
+STREAMS = ("level", "motion", "both")
+MAX_FEATURES = 50_000
+MAX_WINDOW_SAMPLES = 100_000
+MAX_TEMPLATES = 10_000
+MAX_ARRAY_VALUES = 20_000_000
 MAX_FOURIER = 20_000
 
 
@@ -32,12 +41,66 @@ def fourier_map(z: np.ndarray, projection: np.ndarray, phase: np.ndarray) -> np.
     return np.cos(z @ projection + phase) * np.sqrt(2.0 / phase.size)
 
 
-class ModelError(ValueError):
-    """A model file that cannot be used, with what to do about it."""
+class LiveModel:
+    """What every classifier's model offers the pipeline: rate, channels, the source check.
+
+    Subclasses are dataclasses with ``classes``, ``kinds``, ``channel_names``,
+    ``conditioning``, ``windows``, ``temperature``, ``classifier``, ``decision`` and ``summary``.
+    """
+
+    @property
+    def rate_hz(self) -> float:
+        return self.conditioning.rate_hz
+
+    @property
+    def n_channels(self) -> int:
+        return len(self.channel_names)
+
+    def check_source(self, n_channels: int, rate_hz: float, rate_tolerance: float = 0.02) -> None:
+        """Raise ModelError unless a source with this channel count and rate fits the model."""
+        if n_channels != self.n_channels:
+            raise ModelError(
+                f"the model was trained on {self.n_channels} channels ({', '.join(self.channel_names)}) "
+                f"but the source gives {n_channels}: use a model trained on this garment, or fix the source's channel count"
+            )
+        if abs(rate_hz - self.rate_hz) > rate_tolerance * self.rate_hz:
+            raise ModelError(
+                f"the model expects {self.rate_hz:g} Hz samples but the source runs at {rate_hz:g} Hz: "
+                f"set the garment's rate to {self.rate_hz:g} Hz or train a model at {rate_hz:g} Hz"
+            )
+
+    def common_metadata(self) -> dict:
+        return {
+            "format": FORMAT,
+            "version": FORMAT_VERSION,
+            "classifier": self.classifier,
+            "classes": list(self.classes),
+            "kinds": self.kinds,
+            "channels": list(self.channel_names),
+            "conditioning": self.conditioning.to_dict(),
+            "windows": self.windows.to_dict(),
+            "temperature": self.temperature,
+            "decision": self.decision,
+            "summary": self.summary,
+        }
+
+    def metadata(self) -> dict:
+        return self.common_metadata()
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        raise NotImplementedError
+
+    def save(self, path: str | Path) -> Path:
+        """Write the model as one .npz holding arrays and a JSON metadata string."""
+        path = Path(path)
+        meta = json.dumps(self.metadata(), indent=1, sort_keys=True).encode("utf-8")
+        with open(path, "wb") as fh:
+            np.savez(fh, meta_json=np.frombuffer(meta, dtype=np.uint8), **self.arrays())
+        return path
 
 
 @dataclass
-class Model:
+class Model(LiveModel):
     """A trained recogniser: conditioning, windowing, feature scaling and a linear classifier.
 
     ``classes[0]`` is always the null class. ``kinds`` maps each non-null class to
@@ -61,60 +124,96 @@ class Model:
     decision: dict = field(default_factory=dict)
     summary: dict = field(default_factory=dict)
 
-    @property
-    def rate_hz(self) -> float:
-        return self.conditioning.rate_hz
-
-    @property
-    def n_channels(self) -> int:
-        return len(self.channel_names)
-
     def scores(self, features: np.ndarray) -> np.ndarray:
-        """Discriminant scores (m, classes) for raw features (m, d)."""
+        """Class scores (m, classes) for raw features (m, d)."""
         z = (features - self.feature_mean) / self.feature_scale
         if self.projection is not None:
             z = fourier_map(z, self.projection, self.phase)
         return z @ self.weights + self.bias
 
-    def check_source(self, n_channels: int, rate_hz: float, rate_tolerance: float = 0.02) -> None:
-        """Raise ModelError unless a source with this channel count and rate fits the model."""
-        if n_channels != self.n_channels:
-            raise ModelError(
-                f"the model was trained on {self.n_channels} channels ({', '.join(self.channel_names)}) "
-                f"but the source gives {n_channels}: use a model trained on this garment, or fix the source's channel count"
-            )
-        if abs(rate_hz - self.rate_hz) > rate_tolerance * self.rate_hz:
-            raise ModelError(
-                f"the model expects {self.rate_hz:g} Hz samples but the source runs at {rate_hz:g} Hz: "
-                f"set the garment's rate to {self.rate_hz:g} Hz or train a model at {rate_hz:g} Hz"
-            )
+    def arrays(self) -> dict[str, np.ndarray]:
+        out = {"feature_mean": self.feature_mean, "feature_scale": self.feature_scale,
+               "weights": self.weights, "bias": self.bias}
+        if self.projection is not None:
+            out.update(projection=self.projection, phase=self.phase)
+        return out
+
+
+@dataclass
+class MiniRocketModel(LiveModel):
+    """Fixed-kernel convolution features (see ``minirocket``) and a ridge classifier.
+
+    ``stream`` says which conditioned stream(s) the transform reads: "level", "motion" or
+    "both" (level channels then motion channels). Scores are ``z @ weights + bias`` of the
+    standardised features z; probabilities are softmax(scores / temperature).
+    """
+
+    classes: tuple[str, ...]
+    kinds: dict[str, str]
+    channel_names: tuple[str, ...]
+    conditioning: BandPass
+    windows: WindowSpec
+    stream: str
+    params: MiniRocketParams
+    feature_mean: np.ndarray
+    feature_scale: np.ndarray
+    weights: np.ndarray
+    bias: np.ndarray
+    temperature: float = 1.0
+    classifier: str = "minirocket"
+    decision: dict = field(default_factory=dict)
+    summary: dict = field(default_factory=dict)
+
+    def scores(self, features: np.ndarray) -> np.ndarray:
+        """Ridge scores (m, classes) of transform features (m, n_features)."""
+        return ((features - self.feature_mean) / self.feature_scale) @ self.weights + self.bias
 
     def metadata(self) -> dict:
-        return {
-            "format": FORMAT,
-            "version": FORMAT_VERSION,
-            "classifier": self.classifier,
-            "classes": list(self.classes),
-            "kinds": self.kinds,
-            "channels": list(self.channel_names),
-            "conditioning": self.conditioning.to_dict(),
-            "windows": self.windows.to_dict(),
-            "temperature": self.temperature,
-            "decision": self.decision,
-            "summary": self.summary,
-        }
+        meta = self.common_metadata()
+        meta.update(stream=self.stream, length=self.params.length, input_channels=self.params.n_channels,
+                    n_dilations=len(self.params.dilations), n_features=self.params.n_features)
+        return meta
 
-    def save(self, path: str | Path) -> Path:
-        """Write the model as one .npz holding arrays and a JSON metadata string."""
-        path = Path(path)
-        meta = json.dumps(self.metadata(), indent=1, sort_keys=True).encode("utf-8")
-        arrays = dict(meta_json=np.frombuffer(meta, dtype=np.uint8), feature_mean=self.feature_mean,
-                      feature_scale=self.feature_scale, weights=self.weights, bias=self.bias)
-        if self.projection is not None:
-            arrays.update(projection=self.projection, phase=self.phase)
-        with open(path, "wb") as fh:
-            np.savez(fh, **arrays)
-        return path
+    def arrays(self) -> dict[str, np.ndarray]:
+        p = self.params
+        return {"dilations": p.dilations.astype(np.int64), "features_per_kernel": p.features_per_kernel.astype(np.int64),
+                "channel_mask": p.channel_mask, "biases": p.biases, "feature_mean": self.feature_mean,
+                "feature_scale": self.feature_scale, "weights": self.weights, "bias": self.bias}
+
+
+@dataclass
+class DtwModel(LiveModel):
+    """Templates matched by DTW (see ``dtw``) with a rejection threshold.
+
+    templates: (n, input channels, length) in the unit of the stream; template_class: (n,)
+    index into ``classes[1:]``; radius: Sakoe–Chiba band, samples; threshold: distance
+    beyond which a window is null.
+    """
+
+    classes: tuple[str, ...]
+    kinds: dict[str, str]
+    channel_names: tuple[str, ...]
+    conditioning: BandPass
+    windows: WindowSpec
+    stream: str
+    templates: np.ndarray
+    template_class: np.ndarray
+    radius: int
+    threshold: float
+    temperature: float = 1.0
+    classifier: str = "dtw"
+    decision: dict = field(default_factory=dict)
+    summary: dict = field(default_factory=dict)
+
+    def metadata(self) -> dict:
+        meta = self.common_metadata()
+        meta.update(stream=self.stream, length=int(self.templates.shape[2]),
+                    input_channels=int(self.templates.shape[1]), n_templates=int(self.templates.shape[0]),
+                    radius=int(self.radius), threshold=float(self.threshold))
+        return meta
+
+    def arrays(self) -> dict[str, np.ndarray]:
+        return {"templates": self.templates, "template_class": self.template_class.astype(np.int64)}
 
 
 def _require(cond: bool, path, what: str) -> None:
@@ -122,33 +221,81 @@ def _require(cond: bool, path, what: str) -> None:
         raise ModelError(f"{path}: {what}")
 
 
-def load_model(path: str | Path) -> Model:
-    """Read and check a model file; any problem raises ModelError naming the file."""
+class _Archive:
+    """An .npz opened as a zip whose members are read only after their header is checked."""
+
+    def __init__(self, path: Path):
+        self.path = path
+        try:
+            self.zip = zipfile.ZipFile(path)
+            self.names = {n[:-4]: n for n in self.zip.namelist() if n.endswith(".npy")}
+        except (zipfile.BadZipFile, OSError, EOFError) as exc:
+            raise ModelError(f"{path}: not a drape model file ({exc})") from None
+
+    def header(self, name: str) -> tuple[tuple[int, ...], np.dtype]:
+        _require(name in self.names, self.path, f"array {name} missing")
+        try:
+            with self.zip.open(self.names[name]) as fh:
+                version = npformat.read_magic(fh)
+                if version == (1, 0):
+                    shape, fortran, dtype = npformat.read_array_header_1_0(fh, max_header_size=10_000)
+                elif version == (2, 0):
+                    shape, fortran, dtype = npformat.read_array_header_2_0(fh, max_header_size=10_000)
+                else:
+                    raise ValueError(f".npy version {version} not read")
+        except (ValueError, OSError, EOFError, zipfile.BadZipFile, SyntaxError) as exc:
+            raise ModelError(f"{self.path}: not a drape model file (array {name}: {exc})") from None
+        _require(not dtype.hasobject, self.path, f"not a drape model file (array {name} holds Python objects)")
+        return tuple(int(n) for n in shape), dtype
+
+    def read(self, name: str, shape: tuple[int, ...], kind: str) -> np.ndarray:
+        """The array, after checking its header against the expected shape and dtype kind."""
+        got, dtype = self.header(name)
+        _require(got == tuple(shape), self.path, f"array {name} has shape {got}, expected {tuple(shape)}")
+        _require(dtype.kind in kind and dtype.itemsize <= 8, self.path, f"array {name} has dtype {dtype}, expected kind {kind!r}")
+        _require(int(np.prod(shape, dtype=np.int64)) <= MAX_ARRAY_VALUES, self.path, f"array {name} is too large")
+        try:
+            with self.zip.open(self.names[name]) as fh:
+                a = npformat.read_array(fh, allow_pickle=False)
+        except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
+            raise ModelError(f"{self.path}: array {name} unreadable ({exc})") from None
+        _require(a.shape == tuple(shape), self.path, f"array {name} is truncated")
+        if kind == "f":
+            _require(bool(np.isfinite(a).all()), self.path, f"array {name} holds NaN or inf")
+        return a
+
+
+def load_model(path: str | Path):
+    """Read and check a model file; any problem raises ModelError naming the file.
+
+    Returns a Model (linear), MiniRocketModel or DtwModel as the ``classifier`` field says.
+    Every array's shape and dtype is checked from its header, against the metadata and the
+    size limits, before its data is read.
+    """
     path = Path(path)
     if not path.is_file():
         raise ModelError(f"{path}: no such model file (train one with `drape fit RECORDINGS -o {path.name}`)")
-    try:
-        with np.load(path, allow_pickle=False) as z:
-            for k in z.files:  # names and sizes from the zip directory, before any array is read
-                if k not in ARRAYS:
-                    raise ModelError(f"{path}: unexpected array {k!r}: not a drape model file")
-            if sum(i.file_size for i in z.zip.infolist()) > MAX_FILE_BYTES:
-                raise ModelError(f"{path}: arrays larger than {MAX_FILE_BYTES // 2**20} MiB: not a drape model file")
-            arrays = {k: z[k] for k in ARRAYS if k in z.files}
-    except ModelError:
-        raise
-    except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:  # not a zip, pickled object, truncated
-        raise ModelError(f"{path}: not a drape model file ({exc})") from None
-    _require("meta_json" in arrays, path, "no metadata: not a drape model file")
-    raw = arrays["meta_json"]
-    _require(raw.dtype == np.uint8 and raw.ndim == 1 and raw.size <= MAX_META_BYTES, path, "metadata malformed")
-    try:
-        meta = json.loads(raw.tobytes().decode("utf-8"))
-    except (UnicodeDecodeError, json.JSONDecodeError) as exc:
-        raise ModelError(f"{path}: metadata is not JSON ({exc})") from None
-    _require(isinstance(meta, dict) and meta.get("format") == FORMAT, path, "not a drape model file")
-    _require(meta.get("version") == FORMAT_VERSION, path,
-             f"model format version {meta.get('version')!r}; this drape reads version {FORMAT_VERSION}: retrain with `drape fit`")
+    ar = _Archive(path)
+    with ar.zip:
+        _require("meta_json" in ar.names, path, "no metadata: not a drape model file")
+        shape, dtype = ar.header("meta_json")
+        _require(dtype == np.uint8 and len(shape) == 1 and shape[0] <= MAX_META_BYTES, path, "metadata malformed")
+        raw = ar.read("meta_json", shape, "u")
+        try:
+            meta = json.loads(raw.tobytes().decode("utf-8"))
+        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+            raise ModelError(f"{path}: metadata is not JSON ({exc})") from None
+        _require(isinstance(meta, dict) and meta.get("format") == FORMAT, path, "not a drape model file")
+        _require(meta.get("version") == FORMAT_VERSION, path,
+                 f"model format version {meta.get('version')!r}; this drape reads version {FORMAT_VERSION}: retrain with `drape fit`")
+        common = _common_fields(meta, path)
+        classifier = common.pop("classifier")
+        loader = _LOADERS.get(classifier)
+        _require(loader is not None, path, f"unknown classifier {classifier!r}; this drape knows {', '.join(_LOADERS)}")
+        return loader(ar, meta, common, path)
+
+
+def _common_fields(meta: dict, path) -> dict:
     try:
         classes = tuple(str(c) for c in meta["classes"])
         channels = tuple(str(c) for c in meta["channels"])
@@ -169,26 +316,89 @@ def load_model(path: str | Path) -> Model:
     _require(np.isfinite(temperature) and temperature > 0, path, "temperature must be a positive number")
     _require(conditioning.rate_hz == windows.rate_hz and 1 <= conditioning.rate_hz <= 10_000, path,
              "sample rate missing or inconsistent")
-    d = len(channels) * FEATURES_PER_CHANNEL
-    k = len(classes)
-    shapes = [("feature_mean", (d,)), ("feature_scale", (d,)), ("bias", (k,))]
-    if "projection" in arrays:
-        n_map = arrays["phase"].shape[0] if "phase" in arrays and arrays["phase"].ndim == 1 else -1
-        _require(0 < n_map <= MAX_FOURIER, path, "array phase missing or too large")
-        shapes += [("projection", (d, n_map)), ("phase", (n_map,)), ("weights", (n_map, k))]
+    _require(windows.length <= MAX_WINDOW_SAMPLES and windows.hop <= windows.length, path,
+             f"window must be at most {MAX_WINDOW_SAMPLES} samples and the hop no longer than the window")
+    return dict(classes=classes, kinds=kinds, channel_names=channels, conditioning=conditioning, windows=windows,
+                temperature=temperature, decision=decision, summary=summary, classifier=classifier)
+
+
+def _int_meta(meta: dict, key: str, lo: int, hi: int, path) -> int:
+    v = meta.get(key)
+    _require(isinstance(v, int) and not isinstance(v, bool) and lo <= v <= hi, path,
+             f"metadata {key} must be a whole number {lo} to {hi}, got {v!r}")
+    return v
+
+
+def _stream_channels(meta: dict, common: dict, path) -> tuple[str, int]:
+    stream = meta.get("stream")
+    _require(stream in STREAMS, path, f"metadata stream must be one of {', '.join(STREAMS)}")
+    n_in = len(common["channel_names"]) * (2 if stream == "both" else 1)
+    _require(meta.get("input_channels") == n_in, path,
+             f"metadata input_channels must be {n_in} for {len(common['channel_names'])} channels and stream {stream}")
+    return stream, n_in
+
+
+def _load_linear(ar: _Archive, meta: dict, common: dict, path) -> Model:
+    d = len(common["channel_names"]) * FEATURES_PER_CHANNEL
+    k = len(common["classes"])
+    shapes = [("feature_mean", (d,)), ("feature_scale", (d,))]
+    if "projection" in ar.names:
+        shape, _ = ar.header("phase")
+        _require(len(shape) == 1 and 1 <= shape[0] <= MAX_FOURIER, path, f"array phase must hold 1 to {MAX_FOURIER} values")
+        shapes += [("projection", (d, shape[0])), ("phase", shape), ("weights", (shape[0], k))]
     else:
         shapes += [("weights", (d, k))]
-    for name, shape in shapes:
-        _require(name in arrays, path, f"array {name} missing")
-        a = arrays[name]
-        _require(a.shape == shape and a.dtype.kind == "f", path, f"array {name} has shape {a.shape}, expected {shape}")
-        _require(bool(np.isfinite(a).all() if name != "bias" else not np.isnan(a).any()), path, f"array {name} holds NaN or inf")
+    arrays = {name: ar.read(name, shape, "f").astype(float) for name, shape in shapes}
+    shape, dtype = ar.header("bias")
+    _require(shape == (k,) and dtype.kind == "f", path, f"array bias has shape {shape}, expected {(k,)}")
+    with ar.zip.open(ar.names["bias"]) as fh:
+        bias = npformat.read_array(fh, allow_pickle=False).astype(float)
+    _require(not np.isnan(bias).any(), path, "array bias holds NaN or inf")
     _require(bool((arrays["feature_scale"] > 0).all()), path, "feature_scale must be positive")
-    return Model(
-        classes=classes, kinds=kinds, channel_names=channels, conditioning=conditioning, windows=windows,
-        feature_mean=arrays["feature_mean"].astype(float), feature_scale=arrays["feature_scale"].astype(float),
-        weights=arrays["weights"].astype(float), bias=arrays["bias"].astype(float), temperature=temperature,
-        projection=arrays["projection"].astype(float) if "projection" in arrays else None,
-        phase=arrays["phase"].astype(float) if "phase" in arrays else None,
-        classifier=classifier, decision=decision, summary=summary,
-    )
+    return Model(**{k_: v for k_, v in common.items()}, **arrays, bias=bias)
+
+
+def _load_minirocket(ar: _Archive, meta: dict, common: dict, path) -> MiniRocketModel:
+    stream, n_in = _stream_channels(meta, common, path)
+    length = _int_meta(meta, "length", KERNEL_LENGTH, MAX_WINDOW_SAMPLES, path)
+    n_dil = _int_meta(meta, "n_dilations", 1, MAX_DILATIONS, path)
+    n_feat = _int_meta(meta, "n_features", N_KERNELS, MAX_FEATURES, path)
+    _require(length == common["windows"].length, path, f"length {length} differs from the window's {common['windows'].length} samples")
+    dil = ar.read("dilations", (n_dil,), "iu")
+    fpk = ar.read("features_per_kernel", (n_dil,), "iu")
+    _require(bool((dil >= 1).all() and (np.diff(dil) > 0).all() and 8 * dil.max() <= length - 1), path,
+             "dilations must rise from 1 and fit the window")
+    _require(bool((fpk >= 1).all()) and N_KERNELS * int(fpk.sum()) == n_feat, path, "features_per_kernel do not add up to n_features")
+    mask = ar.read("channel_mask", (n_dil, N_KERNELS, n_in), "f")
+    _require(bool(np.isin(mask, (0.0, 1.0)).all() and (mask.sum(axis=2) >= 1).all()), path,
+             "channel_mask must be 0/1 with at least one channel per kernel")
+    k = len(common["classes"])
+    arrays = {name: ar.read(name, shape, "f").astype(float) for name, shape in (
+        ("biases", (n_feat,)), ("feature_mean", (n_feat,)), ("feature_scale", (n_feat,)),
+        ("weights", (n_feat, k)), ("bias", (k,)))}
+    _require(bool((arrays["feature_scale"] > 0).all()), path, "feature_scale must be positive")
+    params = MiniRocketParams(length, n_in, dil.astype(np.int64), fpk.astype(np.int64), mask.astype(float), arrays.pop("biases"))
+    return MiniRocketModel(**common, stream=stream, params=params, **arrays)
+
+
+def _load_dtw(ar: _Archive, meta: dict, common: dict, path) -> DtwModel:
+    stream, n_in = _stream_channels(meta, common, path)
+    length = _int_meta(meta, "length", 2, MAX_WINDOW_SAMPLES, path)
+    n_t = _int_meta(meta, "n_templates", 1, MAX_TEMPLATES, path)
+    radius = _int_meta(meta, "radius", 0, length - 1, path)
+    _require(length == common["windows"].length, path, f"length {length} differs from the window's {common['windows'].length} samples")
+    try:
+        threshold = float(meta["threshold"])
+    except (KeyError, TypeError, ValueError):
+        raise ModelError(f"{path}: metadata threshold missing") from None
+    _require(np.isfinite(threshold) and threshold > 0, path, "threshold must be a positive number")
+    _require(n_t * n_in * length <= MAX_ARRAY_VALUES, path, "templates too large")
+    templates = ar.read("templates", (n_t, n_in, length), "f").astype(float)
+    template_class = ar.read("template_class", (n_t,), "iu").astype(np.int64)
+    n_cls = len(common["classes"]) - 1
+    _require(bool(((template_class >= 0) & (template_class < n_cls)).all()), path, "template_class out of range")
+    return DtwModel(**common, stream=stream, templates=templates, template_class=template_class, radius=radius,
+                    threshold=threshold)
+
+
+_LOADERS = {"linear": _load_linear, "minirocket": _load_minirocket, "dtw": _load_dtw}

@@ -6,7 +6,7 @@ import numpy as np
 
 from ..decisions import Event, Gate, gate_settings_for
 from ..mapping import Dispatch, Mapping
-from ..recognition import Model, Recogniser
+from ..recognition import Model, make_recogniser
 from ..signal import Conditioner
 
 
@@ -22,7 +22,7 @@ class Pipeline:
         self.mapping = mapping
         self.garment = garment
         self.conditioner = Conditioner(model.conditioning)
-        self.recogniser = Recogniser(model)
+        self.recogniser = make_recogniser(model)
         self.gate = Gate(model.classes, model.kinds, gate_settings_for(model.classes[1:], model.decision), garment)
         self.samples = 0
         self.skipped = 0

@@ -1,0 +1,327 @@
+"""Classifiers selectable by name, fitted on cases and run live on conditioned streams.
+
+A *case* is one window of a multichannel series, (channels, length). Offline, cases come
+from `.ts` files or from windows of labelled recordings; live, the recogniser of each
+classifier turns conditioned blocks into class probabilities every hop.
+
+- ``linear``: the window features of ``features`` and a shrinkage linear discriminant.
+- ``minirocket``: fixed-kernel convolution features and ridge regression, with a rolling
+  transform for live use (per-hop work proportional to the hop).
+- ``dtw``: few-shot templates matched by dynamic time warping, with rejection to null.
+
+All give probabilities calibrated by a temperature fitted to held-out scores, over
+``model.classes``, whose first entry is always the null class ("none of these"). Null
+cases may be given for training (label ``"null"``); without them null is never predicted
+by ``linear`` and ``minirocket``, and by ``dtw`` only through its rejection threshold.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..signal import BandPass
+from .dtw import class_distances_pruned, envelope, fit_templates, per_class_min, distance_matrix, scores_from_distances
+from .features import window_features
+from .linear import expected_calibration_error, fit_lda, fit_temperature, probabilities
+from .minirocket import RollingMiniRocket, fit_minirocket, minirocket_transform
+from .model import NULL, STREAMS, DtwModel, MiniRocketModel, Model
+from .recogniser import Recogniser
+from .ridge import fit_ridge_loo
+from .windows import WindowSpec, Windower
+
+
+# --- shared helpers -----------------------------------------------------------------------
+
+def select_stream(level: np.ndarray, motion: np.ndarray, stream: str) -> np.ndarray:
+    """Samples (n, input channels) of the stream a model reads: level, motion or both (level first)."""
+    if stream == "level":
+        return np.asarray(level, dtype=float)
+    if stream == "motion":
+        return np.asarray(motion, dtype=float)
+    if stream == "both":
+        return np.concatenate([level, motion], axis=1).astype(float)
+    raise ValueError(f"stream must be one of {', '.join(STREAMS)}, not {stream!r}")
+
+
+def windows_to_cases(windows: np.ndarray, stream: str) -> np.ndarray:
+    """Windows (m, 2, length, channels) of (level, motion) as cases (m, input channels, length)."""
+    level = windows[:, 0].transpose(0, 2, 1)
+    motion = windows[:, 1].transpose(0, 2, 1)
+    if stream == "level":
+        return np.ascontiguousarray(level)
+    if stream == "motion":
+        return np.ascontiguousarray(motion)
+    return np.concatenate([level, motion], axis=1)
+
+
+def case_windows(X: np.ndarray) -> np.ndarray:
+    """Cases (m, channels, length) as (level, motion) windows (m, 2, length, channels) for ``linear``.
+
+    A case is taken as the level stream and, since it is not a frequency stream to
+    band-pass, its motion stream is the case minus its own mean (the minimal conditioning).
+    """
+    level = np.asarray(X, dtype=float).transpose(0, 2, 1)
+    motion = level - level.mean(axis=1, keepdims=True)
+    return np.stack([level, motion], axis=1)
+
+
+def _class_indices(y, classes) -> tuple[tuple[str, ...], np.ndarray]:
+    names = [str(c) for c in classes if str(c) != NULL]
+    if len(set(names)) != len(names) or not names:
+        raise ValueError("classes must be distinct names, at least one besides null")
+    full = (NULL, *names)
+    index = {c: i for i, c in enumerate(full)}
+    y = np.asarray(y).astype(str)
+    unknown = sorted(set(y) - set(index))
+    if unknown:
+        raise ValueError(f"labels not among the classes: {', '.join(unknown)}")
+    return full, np.array([index[v] for v in y], dtype=int)
+
+
+def _folds(y: np.ndarray, n_folds: int = 5) -> np.ndarray:
+    """Stratified fold number per case: within each class, cases dealt round-robin in order."""
+    fold = np.zeros(len(y), dtype=int)
+    for c in np.unique(y):
+        idx = np.flatnonzero(y == c)
+        fold[idx] = np.arange(len(idx)) % n_folds
+    return fold
+
+
+def _common(X: np.ndarray, full: tuple[str, ...], options: dict) -> dict:
+    """Fields every model carries; cases without a sample rate are taken at ``rate_hz`` (default 1 Hz)."""
+    n_in, length = X.shape[1], X.shape[2]
+    stream = options.get("stream", "level")
+    n_ch = n_in // 2 if stream == "both" else n_in
+    rate = float(options.get("rate_hz", 1.0))
+    conditioning = options.get("conditioning") or BandPass(rate, 0.01 * rate, 0.1 * rate)
+    windows = options.get("windows") or WindowSpec(rate, length / rate, max(1, length // 10) / rate)
+    if windows.length != length:
+        raise ValueError(f"cases have {length} samples but the window holds {windows.length}")
+    kinds = dict(options.get("kinds") or {})
+    return dict(
+        classes=full, kinds={c: kinds.get(c, "gesture") for c in full[1:]},
+        channel_names=tuple(options.get("channel_names") or (f"c{i}" for i in range(n_ch))),
+        conditioning=conditioning, windows=windows,
+    )
+
+
+# --- linear -------------------------------------------------------------------------------
+
+def fit_linear_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], shrinkage: float = 0.2, **options) -> Model:
+    """The window-feature linear discriminant on cases; temperature from 5-fold held-out scores."""
+    if options.get("stream", "level") != "level":
+        raise ValueError("the linear classifier reads level and motion itself; stream must be 'level'")
+    k = len(full)
+    x = window_features(case_windows(X))
+    mean = x.mean(axis=0)
+    scale = x.std(axis=0)
+    scale[scale < 1e-12] = 1.0
+    z = (x - mean) / scale
+    held = np.zeros((len(y), k))
+    folds = _folds(y)
+    for f in np.unique(folds):
+        tr = folds != f
+        w, b = fit_lda(z[tr], y[tr], k, shrinkage)
+        held[~tr] = z[~tr] @ w + b
+    temperature = fit_temperature(held, y)
+    prob = probabilities(held, temperature)
+    w, b = fit_lda(z, y, k, shrinkage)
+    common = _common(X, full, options)
+    return Model(**common, feature_mean=mean, feature_scale=scale, weights=w, bias=b, temperature=temperature,
+                 summary={"cases": int(len(y)), "held_out_accuracy": round(float((prob.argmax(1) == y).mean()), 4),
+                          "calibration_error": round(expected_calibration_error(prob, y), 4), "shrinkage": shrinkage})
+
+
+def _linear_scores(model: Model, X: np.ndarray) -> np.ndarray:
+    return model.scores(window_features(case_windows(X)))
+
+
+# --- minirocket ---------------------------------------------------------------------------
+
+def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_features: int = 10_000,
+                         seed: int = 0, **options) -> MiniRocketModel:
+    """Convolution features and ridge; temperature from the ridge's leave-one-out scores."""
+    params = fit_minirocket(X, n_features, seed)
+    f = minirocket_transform(params, X)
+    mean = f.mean(axis=0)
+    scale = f.std(axis=0)
+    scale[scale < 1e-12] = 1.0
+    w, b, alpha, loo = fit_ridge_loo((f - mean) / scale, y, len(full))
+    temperature = fit_temperature(loo, y, bounds=(-9.0, 5.0))
+    prob = probabilities(loo, temperature)
+    return MiniRocketModel(**_common(X, full, options), stream=options.get("stream", "level"), params=params,
+                           feature_mean=mean, feature_scale=scale, weights=w, bias=b, temperature=temperature,
+                           summary={"cases": int(len(y)), "ridge_alpha": alpha,
+                                    "leave_one_out_accuracy": round(float((prob.argmax(1) == y).mean()), 4),
+                                    "calibration_error": round(expected_calibration_error(prob, y), 4)})
+
+
+def _minirocket_scores(model: MiniRocketModel, X: np.ndarray) -> np.ndarray:
+    return model.scores(minirocket_transform(model.params, X))
+
+
+# --- dtw ----------------------------------------------------------------------------------
+
+def fit_dtw_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], band: float = 0.1, reject: bool = True,
+                  margin: float = 0.25, templates_per_class: int | None = None, **options) -> DtwModel:
+    """Templates: the non-null cases (or the first ``templates_per_class`` of each class).
+
+    Null cases only help fit the temperature. See ``dtw.fit_templates``.
+    """
+    keep = y != 0
+    if templates_per_class:
+        rank = np.zeros(len(y), dtype=int)
+        for c in np.unique(y):
+            idx = np.flatnonzero(y == c)
+            rank[idx] = np.arange(len(idx))
+        keep &= rank < templates_per_class
+    null_X = X[y == 0] if (y == 0).any() else None
+    fit = fit_templates(X[keep], y[keep], len(full), band, reject, margin, null_X)
+    return DtwModel(**_common(X, full, options), stream=options.get("stream", "level"), templates=fit["templates"],
+                    template_class=fit["template_class"].astype(np.int64), radius=fit["radius"],
+                    threshold=fit["threshold"], temperature=fit["temperature"], summary=fit["summary"])
+
+
+def _dtw_scores(model: DtwModel, X: np.ndarray) -> np.ndarray:
+    d = distance_matrix(np.asarray(X, float), model.templates, model.radius)
+    per = per_class_min(d, model.template_class, len(model.classes) - 1)
+    return scores_from_distances(per, model.threshold)
+
+
+# --- live recognisers ---------------------------------------------------------------------
+
+class MiniRocketRecogniser:
+    """Rolling transform over the model's stream; probabilities every hop."""
+
+    def __init__(self, model: MiniRocketModel):
+        self.model = model
+        self.rolling = RollingMiniRocket(model.params, model.windows.hop)
+
+    def push(self, level: np.ndarray, motion: np.ndarray) -> tuple[list[int], np.ndarray]:
+        """Add a conditioned block; returns (end sample index per hop, probabilities (hops, classes))."""
+        feats, ends = self.rolling.push(select_stream(level, motion, self.model.stream))
+        if not ends:
+            return [], np.empty((0, len(self.model.classes)))
+        return ends, probabilities(self.model.scores(feats), self.model.temperature)
+
+
+class DtwRecogniser:
+    """Window ring and template envelopes; nearest-template distances (LB_Keogh-pruned) every hop.
+
+    ``computed`` counts the template comparisons actually run, ``offered`` those possible.
+    """
+
+    def __init__(self, model: DtwModel):
+        self.model = model
+        self.windower = Windower(model.windows, model.n_channels)
+        self.upper, self.lower = envelope(model.templates, model.radius)
+        self.computed = 0
+        self.offered = 0
+
+    def push(self, level: np.ndarray, motion: np.ndarray) -> tuple[list[int], np.ndarray]:
+        """Add a conditioned block; returns (end sample index per hop, probabilities (hops, classes))."""
+        windows, ends = self.windower.push(level, motion)
+        m = self.model
+        if not ends:
+            return [], np.empty((0, len(m.classes)))
+        cases = windows_to_cases(windows, m.stream)
+        dist = np.empty((len(cases), len(m.classes) - 1))
+        for i, q in enumerate(cases):
+            dist[i], n = class_distances_pruned(q, m.templates, m.template_class, len(m.classes) - 1, m.radius,
+                                                self.upper, self.lower)
+            self.computed += n
+            self.offered += len(m.templates)
+        return ends, probabilities(scores_from_distances(dist, m.threshold), m.temperature)
+
+
+# --- the registry -------------------------------------------------------------------------
+
+CLASSIFIERS = {
+    "linear": {"fit": fit_linear_cases, "scores": _linear_scores, "recogniser": Recogniser, "model": Model},
+    "minirocket": {"fit": fit_minirocket_cases, "scores": _minirocket_scores, "recogniser": MiniRocketRecogniser,
+                   "model": MiniRocketModel},
+    "dtw": {"fit": fit_dtw_cases, "scores": _dtw_scores, "recogniser": DtwRecogniser, "model": DtwModel},
+}
+
+
+def _entry(name: str) -> dict:
+    if name not in CLASSIFIERS:
+        raise ValueError(f"unknown classifier {name!r}; choose one of {', '.join(CLASSIFIERS)}")
+    return CLASSIFIERS[name]
+
+
+def fit_cases(name: str, X: np.ndarray, y, classes, **options):
+    """Fit classifier ``name`` to cases X (m, channels, length) labelled y (names from ``classes``).
+
+    The model's classes are ("null", *classes without null). Options by classifier:
+    ``linear``: shrinkage; ``minirocket``: n_features, seed; ``dtw``: band (fraction of the
+    length), reject, margin, templates_per_class. All: rate_hz, channel_names, kinds,
+    stream, conditioning, windows (set when the cases are windows of recordings).
+    """
+    X = np.asarray(X, dtype=float)
+    if X.ndim != 3 or len(X) != len(y):
+        raise ValueError("X must be (cases, channels, length) with one label per case")
+    full, yi = _class_indices(y, classes)
+    return _entry(name)["fit"](X, yi, full, **options)
+
+
+def scores(model, X: np.ndarray) -> np.ndarray:
+    """Uncalibrated scores (m, classes) of cases X (m, input channels, length)."""
+    return _entry(model.classifier)["scores"](model, np.asarray(X, dtype=float))
+
+
+def predict_proba(model, X: np.ndarray) -> np.ndarray:
+    """Calibrated probabilities (m, len(model.classes)) of cases X (m, input channels, length)."""
+    return probabilities(scores(model, X), model.temperature)
+
+
+def make_recogniser(model):
+    """The live recogniser for a model: ``push(level, motion) -> (ends, probabilities)``."""
+    return _entry(model.classifier)["recogniser"](model)
+
+
+def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, stream: str = "both",
+                   null_per_class: int = 20, **options):
+    """Fit classifier ``name`` on windows of labelled recordings (as ``training.fit_linear`` does).
+
+    Windows are labelled by ``training.label_windows``; ambiguous ones are left out. For
+    ``dtw``, null windows are thinned to ``null_per_class`` times the number of classes.
+    """
+    from .training import TrainingSettings, condition_recording, label_windows
+    from .windows import all_windows
+    if name == "linear":
+        from .training import fit_linear
+        return fit_linear(recordings, kinds, settings or TrainingSettings())
+    settings = settings or TrainingSettings()
+    recordings = list(recordings)
+    if not recordings:
+        raise ValueError("no recordings to train on")
+    rate = recordings[0].rate_hz
+    channels = tuple(recordings[0].channel_names)
+    labels = sorted({iv.label for r in recordings for iv in r.intervals})
+    classes = (NULL, *labels)
+    conditioning = BandPass(rate, settings.low_hz, settings.high_hz, settings.order, settings.baseline_tau_s)
+    spec = WindowSpec(rate, settings.window_s, settings.hop_s)
+    cases, ys = [], []
+    for r in recordings:
+        if tuple(r.channel_names) != channels or abs(r.rate_hz - rate) > 1e-6 * rate:
+            raise ValueError("all recordings must share channels and rate")
+        streams = condition_recording(r, conditioning)
+        w, ends = all_windows(spec, streams[0], streams[1])
+        y = label_windows(ends, spec.length, rate, r.intervals, classes, kinds)
+        keep = y >= 0
+        cases.append(windows_to_cases(w[keep], stream))
+        ys.append(y[keep])
+    X = np.concatenate(cases)
+    y = np.concatenate(ys)
+    if name == "dtw":
+        nulls = np.flatnonzero(y == 0)
+        cap = null_per_class * (len(classes) - 1)
+        if len(nulls) > cap:
+            drop = np.setdiff1d(nulls, nulls[np.linspace(0, len(nulls) - 1, cap).astype(int)])
+            keep = np.setdiff1d(np.arange(len(y)), drop)
+            X, y = X[keep], y[keep]
+        options.setdefault("templates_per_class", 5)
+    names = np.array(classes)[y]
+    return fit_cases(name, X, names, labels, kinds={c: kinds[c] for c in labels}, channel_names=channels,
+                     conditioning=conditioning, windows=spec, stream=stream, **options)
