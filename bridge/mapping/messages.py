@@ -23,6 +23,10 @@ class OscMessage:
     args: tuple = ()
 
 
+# OSC time tags are NTP times: 32-bit seconds since 1900, which run out 2**32 s later (2036).
+LAST_TIMETAG_S = 2**32 - 2208988800
+
+
 @dataclass(frozen=True)
 class OscBundle:
     """OSC messages (or nested bundles) to be applied together.
@@ -38,8 +42,9 @@ class OscBundle:
         for m in self.messages:
             if not isinstance(m, (OscMessage, OscBundle)):
                 raise ValueError(f"a bundle holds OscMessage or OscBundle values (got {type(m).__name__})")
-        if self.timetag is not None and self.timetag < 0:
-            raise ValueError("timetag is Unix seconds and cannot be negative")
+        if self.timetag is not None and not 0 <= self.timetag < LAST_TIMETAG_S:
+            raise ValueError(f"timetag is Unix seconds from 0 to {LAST_TIMETAG_S} (NTP era 0 ends "
+                             f"in February 2036; got {self.timetag!r})")
 
 
 @dataclass(frozen=True)

@@ -97,6 +97,10 @@ class MidiPortOutput(Output):
                 self.port = self.backend.open_output(port_name, virtual=True, client_name=client_name)
             else:
                 names = self.backend.get_output_names()
+                if not port_name and not names:
+                    raise OutputUnavailable(
+                        f"MIDI output {name!r}: no MIDI output ports exist; connect a device, "
+                        "or set virtual = true with a port_name to create one")
                 if port_name and port_name not in names:
                     raise OutputUnavailable(
                         f"MIDI output {name!r}: no port named {port_name!r}; "
