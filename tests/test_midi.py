@@ -106,7 +106,9 @@ def test_midi_file_through_open_output(tmp_path):
     out.send(Release())
     out.close()
     f = mido.MidiFile(tmp_path / "x.mid")
-    assert [m.bytes() for m in f.tracks[0] if not m.is_meta] == [[0x90, 60, 100], [0x80, 60, 0], [0xB0, 123, 0]]
+    # the Release ends note 60 and sends All Notes Off; closing sends All Notes Off once more
+    assert [m.bytes() for m in f.tracks[0] if not m.is_meta] == [
+        [0x90, 60, 100], [0x80, 60, 0], [0xB0, 123, 0], [0xB0, 123, 0]]
 
 
 def test_no_alsa_sequencer_gives_a_clear_error():
@@ -177,3 +179,36 @@ def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server
     assert got == [[0x90, 60, 100], [0xB1, 7, 64], [0x92, 72, 90],
                    [0x80, 60, 0], [0x82, 72, 0], [0xB0, 123, 0], [0xB1, 123, 0], [0xB2, 123, 0]]
     assert out.stats.sent == 3 and out.stats.dropped == 0
+
+
+def test_named_port_of_another_jack_client(jack_server):
+    import rtmidi  # the receiving client makes its own input port; we open it by name
+    inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "listener")
+    inp.open_virtual_port("cues-in")
+    got = []
+    inp.set_callback(lambda event, _data: got.append(event[0]))
+    try:
+        names = [n for n in jack_server.get_output_names() if n.endswith("cues-in")]
+        assert names, jack_server.get_output_names()
+        out = open_output(Destination("synth", "midi", port_name=names[0], midi_api="mido.backends.rtmidi/UNIX_JACK"))
+        time.sleep(0.2)
+        out.send(MidiProgram(4, 12))
+        out.send(MidiNote(4, 48, 64))
+        end = time.monotonic() + 5
+        while out.stats.sent < 2 and time.monotonic() < end:  # a Release would discard what still waits
+            time.sleep(0.01)
+        out.send(Release())
+        out.close()  # closing sends All Notes Off again on every channel used
+        end = time.monotonic() + 5
+        while len(got) < 5 and time.monotonic() < end:
+            time.sleep(0.02)
+    finally:
+        inp.close_port()
+    # MIDI 1.0: program change C3 0C, note on 93 30 40, then the release: note off 83 30 00, CC 123 on
+    # channel 4 (B3 7B 00); then close: CC 123 once more.
+    assert got == [[0xC3, 12], [0x93, 48, 64], [0x83, 48, 0], [0xB3, 123, 0], [0xB3, 123, 0]]
+
+
+def test_unknown_port_name_lists_the_ports(jack_server):
+    with pytest.raises(OutputUnavailable, match="no port named 'nowhere'"):
+        open_output(Destination("synth", "midi", port_name="nowhere", midi_api="mido.backends.rtmidi/UNIX_JACK"))

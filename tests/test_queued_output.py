@@ -121,3 +121,12 @@ def test_ticks_run_on_the_worker_when_asked():
     assert inner.done.wait(5)
     out.close()
     assert inner.ticks == 5
+
+
+def test_a_release_sent_just_before_close_is_still_delivered():
+    inner = Gate()
+    inner.open.set()
+    out = QueuedOutput(inner)
+    out.send(Release())
+    out.close()
+    assert inner.got == [Release(), "closed"]

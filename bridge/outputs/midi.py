@@ -80,8 +80,9 @@ class MidiPortOutput(Output):
     """
 
     def __init__(self, name: str, port_name: str = "", virtual: bool = False, api: str = "",
-                 client_name: str = "drape"):
+                 client_name: str = "drape", settle_s: float = 0.2):
         super().__init__(name)
+        self.settle_s = settle_s
         import mido
         api = api or os.environ.get("MIDO_BACKEND", "") or DEFAULT_BACKEND
         try:
@@ -135,10 +136,15 @@ class MidiPortOutput(Output):
             self._write(m)
 
     def close(self) -> None:
+        """Release, give the MIDI system ``settle_s`` to deliver it, then close the port.
+
+        Some MIDI systems (JACK) hand messages over on their next processing cycle; closing
+        the port at once could lose the very note-offs that close is for."""
         if self._closed:
             return
         try:
             self.release()
+            time.sleep(self.settle_s)
         finally:
             self._closed = True
             self.port.close()

@@ -73,7 +73,7 @@ class QueuedOutput(Output):
                 return
             self._accepting = False
             deadline = self._clock() + drain_s
-            while (self._items or self._busy) and self._thread.is_alive():
+            while (self._items or self._release or self._busy) and self._thread.is_alive():
                 left = deadline - self._clock()
                 if left <= 0:
                     break
@@ -121,11 +121,11 @@ class QueuedOutput(Output):
                         if timeout is not None and timeout <= 0:
                             break
                         self._cond.wait(timeout)
-                    if self._stopping:
+                    release, self._release = self._release, None
+                    if self._stopping and release is None:
                         self.stats.dropped += len(self._items)
                         self._items.clear()
                         break
-                    release, self._release = self._release, None
                     message = None
                     if release is None and self._items:
                         message = self._items.popleft()
