@@ -110,6 +110,41 @@ def dead_destination(label, inner, message, count, rate_hz):
           f"dropped {s.dropped} ({s.overflowed} queue full), close {closed:.2f} s; last error: {s.last_error}")
 
 
+def _optional_backends(n: int) -> None:
+    """A MIDI virtual port through a JACK server and keys through pynput, where this machine can."""
+    import os
+    import shutil
+    import subprocess
+    if shutil.which("jackd"):
+        env = dict(os.environ, JACK_NO_START_SERVER="1")
+        jack = subprocess.Popen(["jackd", "--no-realtime", "-d", "dummy", "-r", "48000", "-p", "2048"],
+                                stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env)
+        os.environ["JACK_NO_START_SERVER"] = "1"
+        try:
+            from bridge.outputs.midi import MidiPortOutput
+            port = None
+            for _ in range(50):
+                try:
+                    port = MidiPortOutput("jack", "bench", virtual=True, api="mido.backends.rtmidi/UNIX_JACK")
+                    break
+                except Exception:
+                    time.sleep(0.1)
+            if port is not None:
+                through_queue("midi virtual port (JACK)", port,
+                              [MidiNote(1, 36 + i % 64, 100, on=bool(i % 2 == 0)) for i in range(n)])
+        finally:
+            jack.terminate()
+            jack.wait(5)
+    else:
+        print("midi virtual port (JACK)     skipped: no jackd")
+    if os.environ.get("DISPLAY"):
+        from bridge.outputs.keys import PynputKeyboard
+        through_queue("keys (pynput, X11)", KeyOutput("keys", PynputKeyboard()),
+                      [KeyAction(("f12",)) for _ in range(min(n, 2000))])
+    else:
+        print("keys (pynput, X11)           skipped: no DISPLAY (try under Xvfb)")
+
+
 def main() -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     ap.add_argument("--count", type=int, default=20000)
@@ -130,6 +165,8 @@ def main() -> int:
                   [LightLevels(1, {1 + i % 512: i % 256}) for i in range(n)])
     through_queue("keys (no-op keyboard)", KeyOutput("keys", NullKeyboard()),
                   [KeyAction(("ctrl", "s")) for _ in range(n)])
+
+    _optional_backends(min(n, 5000))
 
     print("\nA dead destination: 2000 messages at 500 Hz (queue of 256)\n")
     silent = _silent_tcp_peer()
