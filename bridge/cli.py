@@ -44,8 +44,24 @@ def _default_mapping() -> Path | None:
 
 
 def _open_outputs(mapping):
-    from .outputs import open_output
-    return {name: open_output(d) for name, d in mapping.destinations.items()}
+    """Each destination behind its own queue; one that cannot open is reported and left out."""
+    from .outputs import OutputUnavailable, open_output
+    outputs = {}
+    for name, d in mapping.destinations.items():
+        try:
+            outputs[name] = open_output(d)
+        except (OutputUnavailable, OSError) as exc:
+            print(f"drape: destination {name!r} left out: {exc}", file=sys.stderr, flush=True)
+    return outputs
+
+
+def _close_outputs(outputs) -> None:
+    """Close every output (each releases what it holds) and report what it sent and dropped."""
+    for name, o in outputs.items():
+        o.close()
+        s = o.stats
+        err = f"; last error: {s.last_error}" if s.last_error else ""
+        print(f"drape: output {name}: sent {s.sent}, dropped {s.dropped}{err}", file=sys.stderr, flush=True)
 
 
 def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int = 2, null_s: float = 180.0):
@@ -93,8 +109,7 @@ def cmd_demo(a) -> int:
     try:
         stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=_print_event)
     finally:
-        for o in outputs.values():
-            o.close()
+        _close_outputs(outputs)
     performed = [iv for iv in source.truth if iv.end_s <= stats.samples / source.rate_hz]
     print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {stats.samples / source.rate_hz:.1f} s of stream, "
           f"{len(performed)} gestures performed, {stats.events} events", flush=True)
@@ -130,8 +145,7 @@ def cmd_start(a) -> int:
         return 1
     finally:
         source.close()
-        for o in outputs.values():
-            o.close()
+        _close_outputs(outputs)
         c = source.counters()
         print(f"drape: stopped; lines good {c['good']}, skipped {c['malformed'] + c['wrong_count'] + c['out_of_range']} "
               f"(malformed {c['malformed']}, wrong count {c['wrong_count']}, out of range {c['out_of_range']})",

@@ -1,6 +1,12 @@
-"""Outputs: send mapped messages to the world. They see messages only, never the classifier."""
+"""Outputs: send mapped messages to the world. They see messages only, never the classifier.
 
-from .base import Output, OutputStats, open_output
-from .osc import OscUdpOutput, encode_osc
+Backends are picked by name with ``open_output(destination)``; MIDI, keys and sACN live
+in their own modules so their optional packages are imported only when used.
+"""
 
-__all__ = ["Output", "OutputStats", "OscUdpOutput", "encode_osc", "open_output"]
+from .base import Output, OutputStats, OutputUnavailable, open_backend, open_output
+from .osc import OscTcpOutput, OscUdpOutput, encode_osc, frame_osc_stream
+from .queued import QueuedOutput
+
+__all__ = ["Output", "OutputStats", "OutputUnavailable", "OscTcpOutput", "OscUdpOutput", "QueuedOutput",
+           "encode_osc", "frame_osc_stream", "open_backend", "open_output"]

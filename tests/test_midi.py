@@ -1,0 +1,214 @@
+"""MIDI bytes against the MIDI 1.0 specification and mido; files read back by mido; a
+virtual port received by a second client through a JACK server (a peer we did not write)."""
+
+import os
+import shutil
+import signal
+import subprocess
+import time
+
+import mido
+import pytest
+
+from bridge.mapping.messages import Destination, MidiControl, MidiNote, MidiProgram, Release
+from bridge.outputs import OutputUnavailable, open_output
+from bridge.outputs.midi import MidiFileOutput, SoundingNotes, midi_bytes
+
+
+def test_note_on_bytes_match_the_midi_spec():
+    # MIDI 1.0 Detailed Specification, channel voice messages: Note On = 1001nnnn (n = channel − 1),
+    # note, velocity. Channel 1, middle C (60), velocity 100 → 90 3C 64.
+    assert midi_bytes(MidiNote(1, 60, 100)) == bytes.fromhex("903c64")
+
+
+def test_control_change_bytes_match_the_midi_spec():
+    # MIDI 1.0: Control Change = 1011nnnn, controller, value. Channel 2, controller 7 (volume), 64 → B1 07 40.
+    assert midi_bytes(MidiControl(2, 7, 64)) == bytes.fromhex("b10740")
+
+
+def test_note_off_and_program_change_bytes():
+    # MIDI 1.0: Note Off = 1000nnnn; Program Change = 1100nnnn with one data byte.
+    assert midi_bytes(MidiNote(16, 127, 0, on=False)) == bytes.fromhex("8f7f00")
+    assert midi_bytes(MidiProgram(3, 5)) == bytes.fromhex("c205")
+
+
+@pytest.mark.parametrize("msg, ref", [
+    (MidiNote(10, 36, 90), mido.Message("note_on", channel=9, note=36, velocity=90)),
+    (MidiNote(5, 64, 30, on=False), mido.Message("note_off", channel=4, note=64, velocity=30)),
+    (MidiControl(16, 1, 127), mido.Message("control_change", channel=15, control=1, value=127)),
+    (MidiProgram(1, 0), mido.Message("program_change", channel=0, program=0)),
+])
+def test_bytes_agree_with_mido(msg, ref):
+    # Reference library: mido numbers channels 0–15, we number them 1–16 as gear prints them.
+    assert midi_bytes(msg) == bytes(ref.bytes())
+
+
+@pytest.mark.parametrize("bad", [dict(channel=0), dict(channel=17), dict(note=128), dict(velocity=-1)])
+def test_out_of_range_values_are_refused(bad):
+    # MIDI 1.0: 16 channels; data bytes are 7-bit (0–127).
+    args = dict(channel=1, note=60, velocity=100) | bad
+    with pytest.raises(ValueError):
+        MidiNote(**args)
+
+
+def test_release_turns_off_sounding_notes_and_sends_all_notes_off_per_channel():
+    # MIDI 1.0, channel mode messages: All Notes Off is controller 123 with value 0.
+    # A note-on with velocity 0 counts as a note-off (MIDI 1.0).
+    s = SoundingNotes()
+    for m in (MidiNote(1, 60), MidiNote(1, 64), MidiNote(10, 36), MidiNote(10, 36, 0), MidiControl(3, 7, 100)):
+        s.note(m)
+    assert s.release_messages() == [
+        MidiNote(1, 60, 0, on=False), MidiNote(1, 64, 0, on=False),
+        MidiControl(1, 123, 0), MidiControl(3, 123, 0), MidiControl(10, 123, 0),
+    ]
+    assert [bytes(m) for m in map(midi_bytes, s.release_messages()) if m[0] & 0xF0 == 0x80] == []
+
+
+class FakeClock:
+    def __init__(self):
+        self.t = 100.0
+
+    def __call__(self):
+        return self.t
+
+
+def test_midi_file_holds_what_was_sent_with_times_and_closes_notes(tmp_path):
+    clock = FakeClock()
+    out = MidiFileOutput("rec", tmp_path / "take.mid", ticks_per_beat=480, clock=clock)
+    out.send(MidiProgram(1, 5))
+    clock.t += 0.5
+    out.send(MidiNote(1, 60, 100))
+    clock.t += 1.0
+    out.send(MidiNote(2, 67, 80))
+    out.close()  # 67 on channel 2 still sounds: close must end it
+    raw = (tmp_path / "take.mid").read_bytes()
+    # Standard MIDI Files 1.0: header chunk "MThd", length 6, format 0, one track, division 480.
+    assert raw[:14] == b"MThd" + bytes.fromhex("00000006" "0000" "0001" "01e0")
+    assert raw[14:18] == b"MTrk"
+    # SMF 1.0: every track ends with the meta event FF 2F 00 (End of Track).
+    assert raw[-3:] == bytes.fromhex("ff2f00")
+    # Reference reader: mido parses the file; at 120 bpm one second is 960 ticks of 480 per beat.
+    f = mido.MidiFile(tmp_path / "take.mid")
+    msgs = [(m.time, m.bytes()) for m in f.tracks[0] if not m.is_meta]
+    assert msgs == [
+        (0, [0xC0, 5]), (480, [0x90, 60, 100]), (960, [0x91, 67, 80]),
+        (0, [0x80, 60, 0]), (0, [0x81, 67, 0]), (0, [0xB0, 123, 0]), (0, [0xB1, 123, 0]),
+    ]
+    assert abs(sum(m.time for m in f) - 1.5) < 1e-9  # mido's own tempo arithmetic
+
+
+def test_midi_file_through_open_output(tmp_path):
+    out = open_output(Destination("rec", "midi-file", path=str(tmp_path / "x.mid")))
+    out.send(MidiNote(1, 60))
+    end = time.monotonic() + 5
+    while out.stats.sent < 1 and time.monotonic() < end:  # a Release would discard a waiting note
+        time.sleep(0.01)
+    out.send(Release())
+    out.close()
+    f = mido.MidiFile(tmp_path / "x.mid")
+    # the Release ends note 60 and sends All Notes Off; closing sends All Notes Off once more
+    assert [m.bytes() for m in f.tracks[0] if not m.is_meta] == [
+        [0x90, 60, 100], [0x80, 60, 0], [0xB0, 123, 0], [0xB0, 123, 0]]
+
+
+def test_no_alsa_sequencer_gives_a_clear_error():
+    if os.path.exists("/dev/snd/seq"):
+        pytest.skip("this machine has an ALSA sequencer; the missing-system error cannot be shown")
+    pytest.importorskip("rtmidi", reason="python-rtmidi (extra 'midi') is not installed")
+    with pytest.raises(OutputUnavailable) as info:
+        open_output(Destination("synth", "midi", port_name="drape-x", virtual=True,
+                                midi_api="mido.backends.rtmidi/LINUX_ALSA"))
+    text = str(info.value)
+    assert "snd-seq" in text and "jackd" in text and "synth" in text
+
+
+@pytest.fixture
+def jack_server():
+    pytest.importorskip("rtmidi", reason="python-rtmidi (extra 'midi') is not installed")
+    if shutil.which("jackd") is None:
+        pytest.skip("jackd is not installed (Debian package jackd2); cannot run a JACK server")
+    env = dict(os.environ, JACK_NO_START_SERVER="1")
+    # A long period (2048 frames, ~43 ms) leaves slack: with --no-realtime on a busy machine a short
+    # period gives the dummy driver xruns, and after an xrun a listener can read a stale buffer again.
+    proc = subprocess.Popen(["jackd", "--no-realtime", "-d", "dummy", "-r", "48000", "-p", "2048"],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, start_new_session=True)
+    os.environ["JACK_NO_START_SERVER"] = "1"
+    backend = mido.Backend("mido.backends.rtmidi/UNIX_JACK", load=True)
+    deadline = time.monotonic() + 10
+    while True:
+        try:
+            backend.get_output_names()  # fails until the server answers
+            break
+        except OSError:
+            if time.monotonic() > deadline or proc.poll() is not None:
+                proc.kill()
+                pytest.fail("jackd did not start within 10 s")
+            time.sleep(0.1)
+    yield backend
+    proc.send_signal(signal.SIGTERM)
+    try:
+        proc.wait(5)
+    except subprocess.TimeoutExpired:
+        proc.kill()
+        proc.wait()
+
+
+def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server):
+    out = open_output(Destination("synth", "midi", port_name="drape-test", virtual=True,
+                                  midi_api="mido.backends.rtmidi/UNIX_JACK"))
+    got = []
+    try:
+        import rtmidi  # the receiving client: python-rtmidi directly, on the JACK API
+        inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "drape-listener")
+        ports = [i for i, n in enumerate(inp.get_ports()) if n.endswith("drape-test")]
+        assert ports, inp.get_ports()
+        inp.set_callback(lambda event, _data: got.append(event[0]))
+        inp.open_port(ports[0], "in")
+        time.sleep(0.3)  # JACK makes the connection on its next cycle
+        out.send(MidiNote(1, 60, 100))
+        out.send(MidiControl(2, 7, 64))
+        out.send(MidiNote(3, 72, 90))
+        out.close()  # channel 1 note 60 and channel 3 note 72 still sound
+        end = time.monotonic() + 5
+        while len(got) < 8 and time.monotonic() < end:
+            time.sleep(0.02)
+        inp.close_port()
+    finally:
+        out.close()
+    # MIDI 1.0 bytes as received by rtmidi through JACK (reference peer)
+    assert got == [[0x90, 60, 100], [0xB1, 7, 64], [0x92, 72, 90],
+                   [0x80, 60, 0], [0x82, 72, 0], [0xB0, 123, 0], [0xB1, 123, 0], [0xB2, 123, 0]]
+    assert out.stats.sent == 3 and out.stats.dropped == 0
+
+
+def test_named_port_of_another_jack_client(jack_server):
+    import rtmidi  # the receiving client makes its own input port; we open it by name
+    inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "listener")
+    inp.open_virtual_port("cues-in")
+    got = []
+    inp.set_callback(lambda event, _data: got.append(event[0]))
+    try:
+        names = [n for n in jack_server.get_output_names() if n.endswith("cues-in")]
+        assert names, jack_server.get_output_names()
+        out = open_output(Destination("synth", "midi", port_name=names[0], midi_api="mido.backends.rtmidi/UNIX_JACK"))
+        time.sleep(0.2)
+        out.send(MidiProgram(4, 12))
+        out.send(MidiNote(4, 48, 64))
+        end = time.monotonic() + 5
+        while out.stats.sent < 2 and time.monotonic() < end:  # a Release would discard what still waits
+            time.sleep(0.01)
+        out.send(Release())
+        out.close()  # closing sends All Notes Off again on every channel used
+        end = time.monotonic() + 5
+        while len(got) < 5 and time.monotonic() < end:
+            time.sleep(0.02)
+    finally:
+        inp.close_port()
+    # MIDI 1.0: program change C3 0C, note on 93 30 40, then the release: note off 83 30 00, CC 123 on
+    # channel 4 (B3 7B 00); then close: CC 123 once more.
+    assert got == [[0xC3, 12], [0x93, 48, 64], [0x83, 48, 0], [0xB3, 123, 0], [0xB3, 123, 0]]
+
+
+def test_unknown_port_name_lists_the_ports(jack_server):
+    with pytest.raises(OutputUnavailable, match="no port named 'nowhere'"):
+        open_output(Destination("synth", "midi", port_name="nowhere", midi_api="mido.backends.rtmidi/UNIX_JACK"))
