@@ -31,7 +31,7 @@ class Event:
 class GateSettings:
     """Decision settings for one class."""
 
-    threshold: float = 0.6       # probability needed for a hop to count, 0..1
+    threshold: float = 0.5       # probability needed for a hop to count, 0..1
     agree_k: int = 3             # hops that must agree ...
     agree_n: int = 4             # ... out of the last n
     refractory_s: float = 1.5    # quiet time after a gesture fires, s

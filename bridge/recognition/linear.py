@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import numpy as np
+from scipy import linalg
 from scipy.optimize import minimize_scalar
 from scipy.special import log_softmax, softmax
 
@@ -31,23 +32,43 @@ def fit_lda(x: np.ndarray, y: np.ndarray, n_classes: int, shrinkage: float = 0.2
     return prec_means, bias
 
 
-def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties) -> list[tuple[np.ndarray, np.ndarray]]:
-    """Ridge regression onto one-hot classes, for each penalty, from one eigendecomposition.
+def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties, folds: np.ndarray | None = None
+              ) -> tuple[np.ndarray, np.ndarray, float, np.ndarray | None]:
+    """Ridge regression onto one-hot classes; the penalty is chosen on held-out folds.
 
-    x: (m, d) features; returns [(weights (d, k), bias (k,)), ...] per penalty; the penalty
-    is relative to the mean eigenvalue so it does not depend on the feature count.
+    x: (m, d) features; y: (m,) class indices; penalties: relative to the mean feature
+    energy, so they do not depend on d; folds: (m,) group per row, or None to take the first
+    penalty. Per-fold Gram matrices are summed once, so each trial costs one Cholesky solve.
+    Returns (weights (d, k), bias (k,), chosen penalty, held-out scores (m, k) or None).
     """
+    m, d = x.shape
+    xa = np.hstack([x, np.ones((m, 1))])
     targets = np.eye(n_classes)[y]
-    xm, ym = x.mean(axis=0), targets.mean(axis=0)
-    xc = x - xm
-    evals, evecs = np.linalg.eigh(xc.T @ xc)
-    proj = evecs.T @ (xc.T @ (targets - ym))
-    ref = max(float(evals.mean()), 1e-12)
-    out = []
-    for lam in penalties:
-        w = evecs @ (proj / (evals + lam * ref)[:, None])
-        out.append((w, ym - xm @ w))
-    return out
+    unpenalised = np.zeros(d + 1)
+    unpenalised[:d] = 1.0  # the bias column is not shrunk
+
+    def solve(gram, rhs, lam, rows):
+        energy = max(float(np.trace(gram[:d, :d])) / (d * max(rows, 1)), 1e-12)
+        return linalg.solve(gram + np.diag(lam * energy * rows * unpenalised), rhs, assume_a="pos")
+
+    groups = np.unique(folds) if folds is not None else np.zeros(1)
+    parts = []
+    for f in groups:
+        sel = folds == f if folds is not None else np.ones(m, dtype=bool)
+        parts.append((sel, xa[sel].T @ xa[sel], xa[sel].T @ targets[sel]))
+    gram_all, rhs_all = sum(p[1] for p in parts), sum(p[2] for p in parts)
+    best, held_best = penalties[0], None
+    if len(parts) > 1:
+        best_acc = -1.0
+        for lam in penalties:
+            held = np.zeros((m, n_classes))
+            for sel, g, r in parts:
+                held[sel] = xa[sel] @ solve(gram_all - g, rhs_all - r, lam, m - sel.sum())
+            acc = float((held.argmax(axis=1) == y).mean())
+            if acc > best_acc:
+                best, best_acc, held_best = lam, acc, held
+    w = solve(gram_all, rhs_all, best, m)
+    return w[:d], w[d], float(best), held_best
 
 
 def fit_temperature(scores: np.ndarray, y: np.ndarray, bounds: tuple[float, float] = (-3.0, 5.0)) -> float:

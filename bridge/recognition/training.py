@@ -125,15 +125,7 @@ def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = T
     folds = g if len(recordings) > 1 else np.minimum((np.arange(len(y)) * 5) // len(y), 4)
     k = len(classes)
     if settings.fourier_features:
-        penalties = list(settings.ridge)
-        held = {lam: np.zeros((len(y), k)) for lam in penalties}
-        for f in np.unique(folds):
-            tr = folds != f
-            for lam, (w, b) in zip(penalties, fit_ridge(z[tr], y[tr], k, penalties)):
-                held[lam][~tr] = z[~tr] @ w + b
-        best = max(penalties, key=lambda lam: (held[lam].argmax(axis=1) == y).mean())
-        held_scores = held[best]
-        [(weights, bias)] = fit_ridge(z, y, k, [best])
+        weights, bias, best, held_scores = fit_ridge(z, y, k, list(settings.ridge), folds)
         model_note = {"fourier_features": settings.fourier_features, "ridge": best}
     else:
         held_scores = np.zeros((len(y), k))
