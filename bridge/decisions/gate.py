@@ -50,13 +50,22 @@ class GateSettings:
                 "refractory_s": self.refractory_s, "exit_threshold": self.exit_threshold}
 
 
-def gate_settings_for(classes, stored: dict | None, default: GateSettings = GateSettings()) -> dict[str, GateSettings]:
-    """Per-class settings from a model's stored decision table (missing entries take the default)."""
+# A held posture must agree longer before it counts: brief passes through a posture-like
+# shape at the edges of other movements are common and must not fire "entered".
+POSTURE_DEFAULT = GateSettings(agree_k=8, agree_n=10)
+
+
+def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None = None,
+                      default: GateSettings = GateSettings()) -> dict[str, GateSettings]:
+    """Per-class settings from a model's stored decision table; missing entries take the
+    default for the class's kind (POSTURE_DEFAULT for postures)."""
     stored = stored or {}
+    kinds = kinds or {}
     out = {}
     for c in classes:
+        base = POSTURE_DEFAULT if kinds.get(c) == "posture" else default
         d = stored.get(c, {})
-        out[c] = replace(default, **{k: type(getattr(default, k))(v) for k, v in d.items() if hasattr(default, k)})
+        out[c] = replace(base, **{k: type(getattr(base, k))(v) for k, v in d.items() if hasattr(base, k)})
     return out
 
 
@@ -67,7 +76,7 @@ class Gate:
                  garment: str = ""):
         self.classes = tuple(classes)
         self.kinds = dict(kinds)
-        self.settings = gate_settings_for(self.classes[1:], None) if settings is None else dict(settings)
+        self.settings = gate_settings_for(self.classes[1:], None, self.kinds) if settings is None else dict(settings)
         self.garment = garment
         n_max = max(s.agree_n for s in self.settings.values())
         self.recent: deque[np.ndarray] = deque(maxlen=n_max)

@@ -23,7 +23,7 @@ class Pipeline:
         self.garment = garment
         self.conditioner = Conditioner(model.conditioning)
         self.recogniser = make_recogniser(model)
-        self.gate = Gate(model.classes, model.kinds, gate_settings_for(model.classes[1:], model.decision), garment)
+        self.gate = Gate(model.classes, model.kinds, gate_settings_for(model.classes[1:], model.decision, model.kinds), garment)
         self.samples = 0
         self.skipped = 0
         self.last_probabilities = np.zeros(len(model.classes))
