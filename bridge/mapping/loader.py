@@ -120,6 +120,7 @@ class _Checker:
         self.channel_names = tuple(channel_names) if channel_names is not None else None
         self.base_dir = base_dir
         self.problems: list[str] = []
+        self.layer_refs: list[tuple[int, str, str]] = []  # (line, key path, layer) of each set_layer
 
     def bad(self, line: int, key: str, what: str) -> None:
         self.problems.append(f"{self.name}:{line}: {key}: {what}")
@@ -218,10 +219,9 @@ def parse_mapping(text: str, name: str = "<mapping>", classes=None, kinds: dict[
     for item in list(rules) + list(controls):
         if item.layer and item.layer not in layers:
             layers.append(item.layer)
-    for i, r in enumerate(rules):
-        if isinstance(r.action, SwitchLayer) and r.action.layer not in layers:
-            ck.bad(r.line, "rule.set_layer", f"no rule is in layer {r.action.layer!r}: "
-                                             f"{_near(r.action.layer, layers, 'layers in this file')}")
+    for line, key, layer in ck.layer_refs:
+        if layer not in layers:
+            ck.bad(line, key, f"no rule is in layer {layer!r}: {_near(layer, layers, 'layers in this file')}")
     first = ""
     lay = doc.get("layers", {})
     if not isinstance(lay, dict):
@@ -430,6 +430,7 @@ def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
                 ck.bad(at("set_layer"), f"{path}.set_layer", "the name of the layer to switch to")
             else:
                 action = SwitchLayer(r["set_layer"])
+                ck.layer_refs.append((at("set_layer"), f"{path}.set_layer", r["set_layer"]))
         if action is not None and dest_ok and gesture is not None and every_s is not None:
             rules.append(Rule(gesture, on, to, action, layer, at(), every_s))
     return rules
