@@ -55,7 +55,7 @@ class MappingWatcher:
         return (st.st_mtime_ns, st.st_size, st.st_ino)
 
     def poll(self, now_s: float) -> Reload | None:
-        if now_s < self._next_s:
+        if now_s < self._next_s - 1e-9:
             return None
         self._next_s = now_s + self.interval_s
         sig = self._signature()
