@@ -120,11 +120,19 @@ def cmd_demo(a) -> int:
     mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
     if mapping_path is None:
         return _err("no mappings/demo.toml here; run from the drape checkout or pass --mapping FILE")
-    print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
-    t0 = time.monotonic()
-    model = train_simulated(a.seed, a.wearer)
-    print(f"trained in {time.monotonic() - t0:.1f} s: {len(model.classes) - 1} gestures, "
-          f"cross-validated window accuracy {model.summary['cross_validated_window_accuracy']:.2f}", flush=True)
+    if a.model:  # a model of the simulated jacket saved before: no training wait
+        from .recognition import ModelError, load_model
+        try:
+            model = load_model(a.model)
+        except ModelError as exc:
+            return _err(str(exc))
+        print(f"model {a.model}: {len(model.classes) - 1} gestures", flush=True)
+    else:
+        print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
+        t0 = time.monotonic()
+        model = train_simulated(a.seed, a.wearer)
+        print(f"trained in {time.monotonic() - t0:.1f} s: {len(model.classes) - 1} gestures, "
+              f"cross-validated window accuracy {model.summary['cross_validated_window_accuracy']:.2f}", flush=True)
     try:
         watcher = MappingWatcher(mapping_path, model.classes, model.kinds, model.channel_names)
         inbox = _inbox(a.listen)
@@ -410,6 +418,7 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--wearer", type=int, default=0)
     d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
     d.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
+    d.add_argument("--model", help="use this model of the simulated jacket instead of training one first")
     d.set_defaults(func=cmd_demo)
     s = sub.add_parser("start", help=VERBS["start"], description=VERBS["start"])
     s.add_argument("--config", required=True, help="daemon config file (TOML)")
