@@ -16,6 +16,7 @@ VERBS = {
     "simulate": "write a take of the simulated jacket (for training and trying things out)",
     "check": "validate a mapping file against a model and print its rules",
     "tune": "choose each gesture's threshold and debounce from held-out takes; store them in the model",
+    "bench": "print speed figures: classifier hops, and a continuous control's added latency and jitter",
     "range": "capture a wearer's level range (relaxed, then closest) for continuous controls",
 }
 
@@ -320,15 +321,15 @@ def cmd_check(a) -> int:
         f"panic gesture {sf.panic_gesture}" if sf.panic_gesture else "panic by control message or SIGUSR1 only"])))
     if mapping.status:
         print(f"status: {mapping.status.to} {mapping.status.address}")
-    print(f"  {'line':<5} {'layer':<8} {'gesture':<16} {'on':<8} {'to':<10} does")
+    print(f"  {'line':<5} {'layer':<8} {'gesture':<16} {'on':<16} {'to':<10} does")
     for r in mapping.rules:
         when = f"{r.on} every {r.every_s:g} s" if r.on == "held" else r.on
-        print(f"  {r.line:<5} {r.layer or '*':<8} {r.gesture:<16} {when:<8} {r.to or '-':<10} {r.action.describe()}")
+        print(f"  {r.line:<5} {r.layer or '*':<8} {r.gesture:<16} {when:<16} {r.to or '-':<10} {r.action.describe()}")
     for c in mapping.controls:
         mix = " + ".join(f"{w:g}·{ch}" for ch, w in c.mix)
         rng = "range file" if c.range_file is not None else f"relaxed {c.relaxed:g} .. closest {c.closest:g}"
         while_ = f", only while {c.only_while}" if c.only_while else ""
-        print(f"  {c.line:<5} {c.layer or '*':<8} {c.name:<16} {'control':<8} {c.to:<10} {c.action.describe()} "
+        print(f"  {c.line:<5} {c.layer or '*':<8} {c.name:<16} {'control':<16} {c.to:<10} {c.action.describe()} "
               f"from {mix} ({rng}{while_}); at most {c.max_rate_hz:g}/s, steps ≥ {c.min_change:g}; "
               f"one-euro min_cutoff {c.filter.min_cutoff_hz:g} Hz beta {c.filter.beta:g}")
     return 0
@@ -391,6 +392,16 @@ def cmd_range(a) -> int:
     for n, lo, hi in zip(rng.channel_names, rng.relaxed, rng.closest):
         print(f"  {n:<14} relaxed {lo:+.4f}  closest {hi:+.4f}  (ΔC/C0)")
     print(f"{a.out}: written; use it in a mapping's [[control]] as range = \"{a.out}\"")
+    return 0
+
+
+def cmd_bench(a) -> int:
+    from .evaluation.bench import bench_continuous, run_all
+    if a.continuous_only:
+        c = bench_continuous()
+        print(" ".join(f"{k} {v}" for k, v in c.items()))
+    else:
+        run_all()
     return 0
 
 
@@ -463,6 +474,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--seed", type=int, default=1)
     g.add_argument("--wearer", type=int, default=0)
     g.set_defaults(func=cmd_range)
+    b = sub.add_parser("bench", help=VERBS["bench"], description=VERBS["bench"])
+    b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
+    b.set_defaults(func=cmd_bench)
     return p
 
 

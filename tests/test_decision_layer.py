@@ -205,10 +205,17 @@ address = "/act2/go"
 gesture = "hold"
 on = "entered"
 set_layer = "act2"
+[[rule]]
+gesture = "hold"
+on = "entered"
+layer = "act1"
+to = "desk"
+address = "/act1/last"
 """
     r = Router(parse_mapping(text, "m.toml", CLASSES, KINDS))
     assert [d.message.address for d in r.route([ev(1, "wave", "gesture")])] == ["/act1/go"]
-    r.route([ev(2, "hold", "entered")])
+    # the switch applies after every rule of the same event (act1's last cue still goes)
+    assert [d.message.address for d in r.route([ev(2, "hold", "entered")])] == ["/act1/last"]
     assert [d.message.address for d in r.route([ev(3, "wave", "gesture")])] == ["/act2/go"]
     assert r.command(ev(4, "", "layer", detail="act9")) == [] and "no layer 'act9'" in r.warnings[0]
     assert r.layer == "act2"

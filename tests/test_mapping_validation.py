@@ -146,3 +146,17 @@ def test_safety_and_status_problems():
         "show.toml:17: safety.panic_gesture: unknown gesture 'bwo': did you mean 'bow'?"
     assert one('address = "/x"', extra='\n[status]\nto = "synth"\n').startswith(
         "show.toml:17: status.to: destination 'synth' is midi; address needs a osc or osc-tcp destination")
+
+
+def test_example_mappings_are_valid_against_the_simulated_jacket():
+    from pathlib import Path
+
+    from bridge.garment import GESTURES, Jacket
+    from bridge.mapping import load_mapping
+
+    root = Path(__file__).resolve().parent.parent / "mappings"
+    names = Jacket(seed=0).channel_names
+    kinds = {p.stem: {d.kind for d in load_mapping(p, ("null", *GESTURES), dict(GESTURES), names).destinations.values()}
+             for p in sorted(root.glob("*.toml"))}
+    assert kinds == {"demo": {"osc"}, "stage-cues": {"osc"}, "music": {"midi"}, "game-keys": {"keys"},
+                     "single-switch": {"keys"}, "lighting": {"sacn"}}

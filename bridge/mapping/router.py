@@ -79,8 +79,9 @@ class Router:
             out += [Dispatch(d.destination, d.message, e.t_s) for d in self.holding.pop(e.gesture)]
         if not self.armed:
             return out
+        layer = self.layer  # a layer switch takes effect after all of this event's rules
         for r in self.mapping.rules:
-            if r.gesture != e.gesture or r.on != e.kind or r.layer not in ("", self.layer):
+            if r.gesture != e.gesture or r.on != e.kind or r.layer not in ("", layer):
                 continue
             a = r.action
             if isinstance(a, SwitchLayer):
