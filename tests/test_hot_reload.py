@@ -140,3 +140,30 @@ def test_runner_swaps_between_blocks_and_keeps_the_last_good_mapping(tmp_path):
     # values are the one-euro-smoothed mix: rising, within 0..1
     values = [m.args[0] for m in out.got]
     assert all(0 <= v <= 1 for v in values) and values[-1] > values[10]
+
+
+def test_a_panic_requested_by_signal_releases_every_output_at_the_next_block(tmp_path):
+    import os
+    import signal
+
+    from bridge.cli import _stop_on_signals
+    from bridge.mapping.messages import Release
+
+    f = tmp_path / "show.toml"
+    write(f, TEMPLATE.format(address="/a"))
+    model = small_model()
+    w = MappingWatcher(f, model.classes, model.kinds, CHANNELS)
+    stop = StopFlag()
+    old = {s: signal.getsignal(s) for s in (signal.SIGINT, signal.SIGTERM, signal.SIGUSR1)}
+    try:
+        _stop_on_signals(stop)
+        out = Recorder()
+        run(ScriptedSource(6, {3: lambda: os.kill(os.getpid(), signal.SIGUSR1)}), Pipeline(model, w.mapping),
+            {"desk": out}, stop)
+    finally:
+        for s, h in old.items():
+            signal.signal(s, h)
+    kinds = [type(m).__name__ for m in out.got]
+    # blocks 0–3 send the control, then the panic (Release), and the disarmed stream sends nothing more
+    assert kinds == ["OscMessage"] * 40 + ["Release"]
+    assert out.got[40] == Release()
