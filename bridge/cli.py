@@ -15,6 +15,9 @@ VERBS = {
     "replay": "run a take through the live chain as fast as possible and list its events",
     "simulate": "write a take of the simulated jacket (for training and trying things out)",
     "check": "validate a mapping file against a model and print its rules",
+    "tune": "choose each gesture's threshold and debounce from held-out takes; store them in the model",
+    "bench": "print speed figures: classifier hops, and a continuous control's added latency and jitter",
+    "range": "capture a wearer's level range (relaxed, then closest) for continuous controls",
 }
 
 
@@ -24,6 +27,11 @@ def _err(msg: str) -> int:
 
 
 def _print_event(e, timing=None) -> None:
+    if e.kind == "control":
+        return  # many per second: their messages are the output
+    if e.kind in ("armed", "disarmed", "panic", "layer"):
+        print(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + e.detail if e.detail else ''}", flush=True)
+        return
     extra = f"  held {e.duration_s:5.2f} s" if e.kind == "left" else ""
     lat = f"  latency {timing.send_ms:5.2f} ms" if timing else ""
     print(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}", flush=True)
@@ -34,6 +42,28 @@ def _stop_on_signals(flag):
         flag.set(signal.Signals(signum).name)
     for s in (signal.SIGINT, signal.SIGTERM):
         signal.signal(s, handler)
+    if hasattr(signal, "SIGUSR1"):  # panic: `kill -USR1 PID` releases every output
+        signal.signal(signal.SIGUSR1, lambda *_: flag.request_panic())
+
+
+def _report(text: str) -> None:
+    print(f"drape: {text}", file=sys.stderr, flush=True)
+
+
+def _inbox(listen):
+    """The control-message inbox for --listen HOST:PORT, or None."""
+    if not listen:
+        return None
+    from .service.control import ControlInbox, parse_host_port
+    inbox = ControlInbox(*parse_host_port(listen))
+    _report(f"control messages (/drape/arm, /drape/disarm, /drape/panic, /drape/layer NAME) on "
+            f"{inbox.address[0]}:{inbox.address[1]}; they never press keys")
+    return inbox
+
+
+def _open_one(d):
+    from .outputs import open_output
+    return open_output(d)
 
 
 def _default_mapping() -> Path | None:
@@ -83,33 +113,50 @@ def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int 
 
 
 def cmd_demo(a) -> int:
-    from .mapping import MappingError, load_mapping
+    from .mapping import MappingError, MappingWatcher
+    from .mapping.rules import describe_destination
     from .service import Pipeline, StopFlag, run
     from .sources.simulated import SimulatedSource
 
     mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
     if mapping_path is None:
         return _err("no mappings/demo.toml here; run from the drape checkout or pass --mapping FILE")
-    print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
-    t0 = time.monotonic()
-    model = train_simulated(a.seed, a.wearer)
-    print(f"trained in {time.monotonic() - t0:.1f} s: {len(model.classes) - 1} gestures, "
-          f"cross-validated window accuracy {model.summary['cross_validated_window_accuracy']:.2f}", flush=True)
+    if a.model:  # a model of the simulated jacket saved before: no training wait
+        from .recognition import ModelError, load_model
+        try:
+            model = load_model(a.model)
+        except ModelError as exc:
+            return _err(str(exc))
+        print(f"model {a.model}: {len(model.classes) - 1} gestures", flush=True)
+    else:
+        print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
+        t0 = time.monotonic()
+        model = train_simulated(a.seed, a.wearer)
+        print(f"trained in {time.monotonic() - t0:.1f} s: {len(model.classes) - 1} gestures, "
+              f"cross-validated window accuracy {model.summary['cross_validated_window_accuracy']:.2f}", flush=True)
     try:
-        mapping = load_mapping(mapping_path, model.classes, model.kinds)
+        watcher = MappingWatcher(mapping_path, model.classes, model.kinds, model.channel_names)
+        inbox = _inbox(a.listen)
     except MappingError as exc:
         return _err(f"mapping has errors:\n{exc}")
+    except (ValueError, OSError) as exc:
+        return _err(f"--listen: {exc}")
+    mapping = watcher.mapping
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
-        print(f"sending OSC to {d.host}:{d.port} ({name}) from {mapping_path}", flush=True)
+        print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
+    print(f"edit {mapping_path} while this runs: saved changes take effect at once", flush=True)
     source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s)
     stop = StopFlag()
     _stop_on_signals(stop)
     print("the simulated wearer is performing; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
     try:
-        stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=_print_event)
+        stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=_print_event,
+                    watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report)
     finally:
         _close_outputs(outputs)
+        if inbox:
+            inbox.close()
     performed = [iv for iv in source.truth if iv.end_s <= stats.samples / source.rate_hz]
     print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {stats.samples / source.rate_hz:.1f} s of stream, "
           f"{len(performed)} gestures performed, {stats.events} events", flush=True)
@@ -117,7 +164,7 @@ def cmd_demo(a) -> int:
 
 
 def cmd_start(a) -> int:
-    from .mapping import MappingError, load_mapping
+    from .mapping import MappingError, MappingWatcher
     from .recognition import ModelError, load_model
     from .service import Pipeline, StopFlag, run
     from .service.config import ConfigError, load_config
@@ -127,9 +174,13 @@ def cmd_start(a) -> int:
     try:
         cfg = load_config(a.config)
         model = load_model(cfg.model)
-        mapping = load_mapping(cfg.mapping, model.classes, model.kinds) if cfg.mapping else None
+        watcher = MappingWatcher(cfg.mapping, model.classes, model.kinds, model.channel_names) if cfg.mapping else None
+        mapping = watcher.mapping if watcher else None
+        inbox = _inbox(a.listen)
     except (ConfigError, ModelError, MappingError) as exc:
         return _err(str(exc))
+    except (ValueError, OSError) as exc:
+        return _err(f"--listen: {exc}")
     try:
         source = SerialTextSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names)
     except SourceGone as exc:
@@ -139,12 +190,15 @@ def cmd_start(a) -> int:
     _stop_on_signals(stop)
     print(f"drape: {cfg.name} on {cfg.port}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
     try:
-        run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event)
+        run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event,
+            watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report)
     except SourceGone as exc:
         print(f"drape: {exc}", file=sys.stderr)
         return 1
     finally:
         source.close()
+        if inbox:
+            inbox.close()
         _close_outputs(outputs)
         c = source.counters()
         print(f"drape: stopped; lines good {c['good']}, skipped {c['malformed'] + c['wrong_count'] + c['out_of_range']} "
@@ -189,13 +243,28 @@ def cmd_replay(a) -> int:
         mapping = load_mapping(a.mapping, model.classes, model.kinds) if a.mapping else None
     except (ModelError, RecordingError, MappingError) as exc:
         return _err(str(exc))
-    events = replay_events(rec, model, mapping)
-    for e in events:
-        _print_event(e)
-        if mapping:
-            for d in mapping.dispatches(e):
-                print(f"{'':14}→ {d.destination}: {d.message.address} {' '.join(map(str, d.message.args))}")
-    return 0
+    from .service import Pipeline
+    from .sources.replay import ReplaySource
+
+    pipe = Pipeline(model, mapping)
+    src = ReplaySource(rec, 0.1)
+    while True:
+        ended = src.ended
+        events = pipe.stop() if ended else pipe.feed(src.read().freq_hz)
+        for e in events:
+            _print_event(e)
+        for d in pipe.dispatches(events) + (pipe.let_go() if ended else []):
+            print(f"{'':14}→ {d.destination}: {_show(d.message)}")
+        if ended:
+            return 0
+
+
+def _show(message) -> str:
+    """One line for a message value."""
+    from .mapping.messages import OscMessage
+    if isinstance(message, OscMessage):
+        return f"{message.address} {' '.join(map(str, message.args))}"
+    return repr(message)
 
 
 def replay_events(rec, model, mapping=None, block_s: float = 0.1):
@@ -228,18 +297,126 @@ def cmd_simulate(a) -> int:
 
 def cmd_check(a) -> int:
     from .mapping import MappingError, load_mapping
+    from .mapping.rules import describe_destination
     from .recognition import ModelError, load_model
 
     try:
         model = load_model(a.model) if a.model else None
-        mapping = load_mapping(a.file, model.classes if model else None, model.kinds if model else None)
+        mapping = load_mapping(a.file, model.classes if model else None, model.kinds if model else None,
+                               model.channel_names if model else None)
     except (ModelError, MappingError) as exc:
         return _err(str(exc))
-    print(f"{a.file}: OK, {len(mapping.rules)} rules")
+    print(f"{a.file}: OK, {len(mapping.rules)} rules, {len(mapping.controls)} continuous controls"
+          + ("" if model else " (not checked against a model: give --model to check gestures and channels)"))
+    print("destinations:")
+    for name, d in mapping.destinations.items():
+        print(f"  {name:<12} {describe_destination(d)}")
+    if mapping.layers:
+        print(f"layers: {', '.join(mapping.layers)} (first: {mapping.first_layer})")
+    sf = mapping.safety
+    print("safety: " + ", ".join(filter(None, [
+        "starts armed" if sf.start_armed else "starts disarmed",
+        f"hold {sf.arm_posture} {sf.arm_hold_s:g} s to arm/disarm" if sf.arm_posture else "no arming posture",
+        f"disarms after {sf.idle_disarm_s:g} s idle" if sf.idle_disarm_s else "",
+        f"panic gesture {sf.panic_gesture}" if sf.panic_gesture else "panic by control message or SIGUSR1 only"])))
+    if mapping.status:
+        print(f"status: {mapping.status.to} {mapping.status.address}")
+    print(f"  {'line':<5} {'layer':<8} {'gesture':<16} {'on':<16} {'to':<10} does")
     for r in mapping.rules:
-        d = mapping.destinations[r.to]
-        print(f"  line {r.line:<4} {r.gesture:<16} on {r.on:<8} → {r.to} ({d.host}:{d.port}) {r.address} {list(r.args)}")
+        when = f"{r.on} every {r.every_s:g} s" if r.on == "held" else r.on
+        print(f"  {r.line:<5} {r.layer or '*':<8} {r.gesture:<16} {when:<16} {r.to or '-':<10} {r.action.describe()}")
+    for c in mapping.controls:
+        mix = " + ".join(f"{w:g}·{ch}" for ch, w in c.mix)
+        rng = "range file" if c.range_file is not None else f"relaxed {c.relaxed:g} .. closest {c.closest:g}"
+        while_ = f", only while {c.only_while}" if c.only_while else ""
+        print(f"  {c.line:<5} {c.layer or '*':<8} {c.name:<16} {'control':<16} {c.to:<10} {c.action.describe()} "
+              f"from {mix} ({rng}{while_}); at most {c.max_rate_hz:g}/s, steps ≥ {c.min_change:g}; "
+              f"one-euro min_cutoff {c.filter.min_cutoff_hz:g} Hz beta {c.filter.beta:g}")
     return 0
+
+
+def cmd_tune(a) -> int:
+    from .evaluation.tuning import format_point, tune_model
+    from .recognition import ModelError, load_model
+    from .sources import RecordingError, read_recording
+
+    try:
+        model = load_model(a.model)
+        recs = [read_recording(p) for p in a.recordings]
+        for r in recs:
+            model.check_source(len(r.channel_names), r.rate_hz)
+    except (ModelError, RecordingError) as exc:
+        return _err(str(exc))
+    hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
+    print(f"replaying {len(recs)} takes ({hours * 60:.1f} min, {sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
+    result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour)
+    print(f"untuned: {format_point(result.before)}")
+    print(f"tuned:   {format_point(result.after)}")
+    for g, st in result.settings.items():
+        print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops")
+    if hours < 1 / a.max_false_per_hour:
+        print(f"note: {hours * 60:.0f} min of takes can show at most one false trigger per {hours * 60:.0f} min; "
+              f"for a budget of {a.max_false_per_hour:g} per hour, tune on at least {60 / a.max_false_per_hour:.0f} min")
+    out = Path(a.output or a.model)
+    model.decision = {**model.decision, **result.settings}
+    model.save(out)
+    print(f"{out}: decision settings stored")
+    return 0
+
+
+def cmd_range(a) -> int:
+    from .decisions import RangeError, capture_range
+    from .signal import Conditioner
+    from .sources.base import SourceGone
+
+    try:
+        if a.port:
+            from .recognition import ModelError, load_model
+            from .sources.serialport import SerialTextSource
+            model = load_model(a.model) if a.model else None
+            if model is None:
+                return _err("--port needs --model (for the channel count, names and rate)")
+            source = SerialTextSource(a.port, model.n_channels, model.rate_hz, a.baud, model.channel_names)
+            settings, names = model.conditioning, model.channel_names
+        else:
+            source, settings, names = _simulated_range_source(a.seed, a.wearer)
+    except (SourceGone, ValueError) as exc:
+        return _err(str(exc))
+    try:
+        rng = capture_range(source, Conditioner(settings), names, a.seconds, prompt=lambda t: print(t, flush=True))
+    except RangeError as exc:
+        return _err(str(exc))
+    finally:
+        source.close()
+    rng.save(a.out)
+    for n, lo, hi in zip(rng.channel_names, rng.relaxed, rng.closest):
+        print(f"  {n:<14} relaxed {lo:+.4f}  closest {hi:+.4f}  (ΔC/C0)")
+    print(f"{a.out}: written; use it in a mapping's [[control]] as range = \"{a.out}\"")
+    return 0
+
+
+def cmd_bench(a) -> int:
+    from .evaluation.bench import bench_continuous, run_all
+    if a.continuous_only:
+        c = bench_continuous()
+        print(" ".join(f"{k} {v}" for k, v in c.items()))
+    else:
+        run_all()
+    return 0
+
+
+def _simulated_range_source(seed: int, wearer: int):
+    """The simulated wearer standing, then holding hands on hips (near the front antennas)."""
+    import numpy as np
+    from .garment import Jacket
+    from .signal import BandPass
+    from .sources import Recording
+    from .sources.replay import ReplaySource
+
+    jacket = Jacket(seed=seed, wearer=wearer, session=0)
+    take = jacket.perform([("standing", 6.0), ("hands_on_hips", 6.0)])
+    rec = Recording(take.rate_hz, tuple(take.channel_names), take.t_s, take.freq_hz)
+    return ReplaySource(rec, 0.1), BandPass(take.rate_hz), tuple(take.channel_names)
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -251,9 +428,12 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--seed", type=int, default=1)
     d.add_argument("--wearer", type=int, default=0)
     d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
+    d.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
+    d.add_argument("--model", help="use this model of the simulated jacket instead of training one first")
     d.set_defaults(func=cmd_demo)
     s = sub.add_parser("start", help=VERBS["start"], description=VERBS["start"])
     s.add_argument("--config", required=True, help="daemon config file (TOML)")
+    s.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
     s.set_defaults(func=cmd_start)
     f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])
     f.add_argument("recordings", nargs="+", metavar="TAKE")
@@ -278,6 +458,25 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("file", metavar="MAPPING")
     c.add_argument("--model")
     c.set_defaults(func=cmd_check)
+    t = sub.add_parser("tune", help=VERBS["tune"], description=VERBS["tune"])
+    t.add_argument("recordings", nargs="+", metavar="TAKE", help="held-out labelled takes (not used to fit the model)")
+    t.add_argument("--model", required=True)
+    t.add_argument("--max-false-per-hour", type=float, default=1.0, help="false-trigger budget (default 1)")
+    t.add_argument("-o", "--output", help="write the tuned model here (default: update MODEL in place)")
+    t.set_defaults(func=cmd_tune)
+    g = sub.add_parser("range", help=VERBS["range"], description=VERBS["range"] +
+                       ". Without --port it runs on the simulated wearer, to try it out.")
+    g.add_argument("--out", required=True, help="range file to write (JSON)")
+    g.add_argument("--port", help="the garment's serial device")
+    g.add_argument("--model", help="model of this garment (channel names and rate); needed with --port")
+    g.add_argument("--baud", type=int, default=115200)
+    g.add_argument("--seconds", type=float, default=5.0, help="length of each capture, s")
+    g.add_argument("--seed", type=int, default=1)
+    g.add_argument("--wearer", type=int, default=0)
+    g.set_defaults(func=cmd_range)
+    b = sub.add_parser("bench", help=VERBS["bench"], description=VERBS["bench"])
+    b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
+    b.set_defaults(func=cmd_bench)
     return p
 
 

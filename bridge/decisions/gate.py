@@ -2,7 +2,8 @@
 
 A dynamic gesture fires once when k of the last n hops agree on it above its threshold,
 then nothing fires for its refractory time. A posture is "entered" on the same k-of-n rule
-and "left" when k of the last n hops fall below its lower exit threshold (hysteresis).
+and "left" when k of the last n hops fall below its lower exit threshold (hysteresis); while
+it stays held a "held" event repeats every ``held_every_s`` seconds (0: never).
 """
 
 from __future__ import annotations
@@ -12,7 +13,7 @@ from dataclasses import dataclass, replace
 
 import numpy as np
 
-GESTURE, ENTERED, LEFT = "gesture", "entered", "left"
+GESTURE, ENTERED, HELD, LEFT = "gesture", "entered", "held", "left"
 
 
 @dataclass(frozen=True)
@@ -21,10 +22,14 @@ class Event:
 
     t_s: float
     gesture: str
-    kind: str               # "gesture", "entered" or "left"
+    kind: str               # "gesture", "entered", "held", "left"; "control" for continuous values;
+                            # "armed", "disarmed", "panic", "layer" for the safety and layer state
     confidence: float       # mean probability over the agreeing hops, 0..1
-    duration_s: float = 0.0  # how long a posture was held ("left" events)
+    duration_s: float = 0.0  # how long a posture has been held ("held", "left" events), s
     garment: str = ""
+    level: float = 0.0      # "control": the control's value 0..1; otherwise the strongest
+                            # channel's level (ΔC/C0 above baseline) when the event was decided
+    detail: str = ""        # "layer": the layer switched to; "panic"/"armed": what caused it
 
 
 @dataclass(frozen=True)
@@ -36,6 +41,7 @@ class GateSettings:
     agree_n: int = 4             # ... out of the last n
     refractory_s: float = 1.5    # quiet time after a gesture fires, s
     exit_threshold: float = 0.35  # posture: below this a hop counts towards "left"
+    held_every_s: float = 0.0    # posture: repeat a "held" event this often while held, s (0: never)
 
     def __post_init__(self):
         if not 0 < self.threshold <= 1 or not 0 <= self.exit_threshold <= self.threshold:
@@ -44,10 +50,13 @@ class GateSettings:
             raise ValueError("need 1 <= agree_k <= agree_n")
         if self.refractory_s < 0:
             raise ValueError("refractory_s must be >= 0")
+        if self.held_every_s < 0:
+            raise ValueError("held_every_s must be >= 0")
 
     def to_dict(self) -> dict:
         return {"threshold": self.threshold, "agree_k": self.agree_k, "agree_n": self.agree_n,
-                "refractory_s": self.refractory_s, "exit_threshold": self.exit_threshold}
+                "refractory_s": self.refractory_s, "exit_threshold": self.exit_threshold,
+                "held_every_s": self.held_every_s}
 
 
 # A held posture must agree longer before it counts: brief passes through a posture-like
@@ -82,6 +91,7 @@ class Gate:
         self.recent: deque[np.ndarray] = deque(maxlen=n_max)
         self.quiet_until_s = -np.inf
         self.held: dict[str, tuple[float, float]] = {}  # posture -> (entered at, confidence)
+        self.held_next_s: dict[str, float] = {}        # posture -> when its next "held" event is due
 
     def step(self, t_s: float, prob: np.ndarray) -> list[Event]:
         """Take one hop's probabilities (classes,) at stream time t_s; return the events decided."""
@@ -100,10 +110,17 @@ class Gate:
                     low = sum(p[k] < s.exit_threshold for p in hist)
                     if low >= s.agree_k:
                         entered_at, conf = self.held.pop(name)
+                        self.held_next_s.pop(name, None)
                         events.append(Event(t_s, name, LEFT, conf, t_s - entered_at, self.garment))
+                    elif s.held_every_s > 0 and t_s >= self.held_next_s[name] - 1e-9:
+                        entered_at, conf = self.held[name]
+                        # the next one counts from the schedule, not from this hop, so it does not drift
+                        self.held_next_s[name] += s.held_every_s
+                        events.append(Event(t_s, name, HELD, conf, t_s - entered_at, self.garment))
                 elif len(votes) >= s.agree_k:
                     conf = float(np.mean(votes))
                     self.held[name] = (t_s, conf)
+                    self.held_next_s[name] = t_s + s.held_every_s
                     events.append(Event(t_s, name, ENTERED, conf, 0.0, self.garment))
             elif len(votes) >= s.agree_k and t_s >= self.quiet_until_s:
                 events.append(Event(t_s, name, GESTURE, float(np.mean(votes)), 0.0, self.garment))
@@ -114,4 +131,5 @@ class Gate:
         """End every held posture now (stop, disarm, no data): "left" events for each."""
         out = [Event(t_s, n, LEFT, c, t_s - t0, self.garment) for n, (t0, c) in self.held.items()]
         self.held.clear()
+        self.held_next_s.clear()
         return out

@@ -2,33 +2,68 @@
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
-from ..decisions import Event, Gate, gate_settings_for
-from ..mapping import Dispatch, Mapping
+from ..decisions import Controls, Event, Gate, Safety, SafetySettings, gate_settings_for
+from ..mapping import Dispatch, Mapping, Router
 from ..recognition import Model, make_recogniser
 from ..signal import Conditioner
 
 
 class Pipeline:
-    """conditioning → recognition → decisions → mapping for one garment.
+    """conditioning → (continuous controls | recognition → decisions) → mapping for one garment.
 
     ``feed`` takes a block of frequencies (n, channels) in Hz and returns the events it
-    completes. Rows with non-finite or non-positive values are counted and skipped.
+    completes, in time order: "control" events (one per continuous control and sample),
+    the gate's events, and the safety stage's armed/disarmed/panic events. Rows with
+    non-finite or non-positive values are counted and skipped. ``dispatches`` routes events
+    through the mapping (``Router``); ``swap_mapping`` changes the mapping between blocks.
     """
 
-    def __init__(self, model: Model, mapping: Mapping | None = None, garment: str = ""):
+    def __init__(self, model: Model, mapping: Mapping | None = None, garment: str = "",
+                 record_hops: bool = False):
         self.model = model
-        self.mapping = mapping
         self.garment = garment
         self.conditioner = Conditioner(model.conditioning)
         self.recogniser = make_recogniser(model)
-        self.gate = Gate(model.classes, model.kinds, gate_settings_for(model.classes[1:], model.decision, model.kinds), garment)
+        self.base_settings = gate_settings_for(model.classes[1:], model.decision, model.kinds)
+        self.gate = Gate(model.classes, model.kinds, dict(self.base_settings), garment)
+        self.controls = Controls((), garment)
+        self.safety = Safety(SafetySettings(), garment)
+        self.mapping = None
+        self.router = None
         self.samples = 0
         self.skipped = 0
         self.last_probabilities = np.zeros(len(model.classes))
+        self.hops: list | None = [] if record_hops else None  # (t_s, probabilities) per hop, for tuning
+        if mapping is not None:
+            self.swap_mapping(mapping)
 
-    def feed(self, freq_hz: np.ndarray) -> list[Event]:
+    @property
+    def t_s(self) -> float:
+        """Stream time now: samples seen / rate, s."""
+        return self.samples / self.model.rate_hz
+
+    def swap_mapping(self, mapping: Mapping) -> None:
+        """Use ``mapping`` from the next block on (between windows: never inside one)."""
+        first = self.mapping is None
+        self.mapping = mapping
+        if first:
+            self.router = Router(mapping)
+            self.safety = Safety(mapping.safety, self.garment)
+        else:
+            self.router.swap(mapping)
+            self.safety.configure(mapping.safety)
+        every = mapping.held_every_s()
+        self.gate.settings = {c: replace(s, held_every_s=every.get(c, s.held_every_s))
+                              for c, s in self.base_settings.items()}
+        self.controls.configure([c.settings_for(self.model.channel_names) for c in mapping.controls])
+
+    def feed(self, freq_hz: np.ndarray, early=None) -> list[Event]:
+        """Process one block. ``early(events)``, when given, receives the block's "control"
+        events before the classifier runs, so continuous controls do not wait for it."""
         f = np.asarray(freq_hz, dtype=float)
         if f.ndim != 2 or f.shape[1] != self.model.n_channels:
             raise ValueError(f"block has shape {f.shape}; expected (n, {self.model.n_channels})")
@@ -38,22 +73,59 @@ class Pipeline:
             f = f[ok]
         if f.shape[0] == 0:
             return []
+        rate = self.model.rate_hz
+        first = self.samples
         level, motion = self.conditioner.process(f)
+        controls = self.controls.step((first + 1 + np.arange(f.shape[0])) / rate, level, self.gate.held) \
+            if self.controls.settings else []
+        if early is not None and controls:
+            early(controls)
+            controls = []
         ends, probs = self.recogniser.push(level, motion)
         events: list[Event] = []
-        rate = self.model.rate_hz
         for end, p in zip(ends, probs):
-            events += self.gate.step(end / rate, p)
+            t = end / rate
+            decided = self.gate.step(t, p)
+            if decided:
+                i = min(max(int(end) - 1 - first, 0), level.shape[0] - 1)
+                strongest = float(level[i].max())
+                decided = [replace(e, level=strongest) for e in decided]
+            events += decided
+            events += self.safety.step(t, decided, self.gate.held)
+            if self.hops is not None:
+                self.hops.append((t, np.asarray(p, dtype=float)))
         if len(probs):
             self.last_probabilities = probs[-1]
         self.samples += f.shape[0]
+        if controls:
+            events = sorted(controls + events, key=lambda e: e.t_s)  # stable: a hop's events after its samples
         return events
 
+    def command(self, kind: str, detail: str = "") -> list[Event]:
+        """Events for a command from outside the garment (control message, signal):
+        "arm", "disarm", "panic" or "layer" (detail: the layer). They never press keys."""
+        t = self.t_s
+        why = detail or "control message"
+        if kind == "arm":
+            return self.safety.set_armed(t, True, why)
+        if kind == "disarm":
+            return self.safety.set_armed(t, False, why)
+        if kind == "panic":
+            return self.safety.panic(t, why)
+        if kind == "layer":
+            return [Event(t, "", "layer", 1.0, 0.0, self.garment, 0.0, detail)]
+        raise ValueError(f"unknown command {kind!r}; use arm, disarm, panic or layer")
+
     def dispatches(self, events: list[Event]) -> list[Dispatch]:
-        if self.mapping is None:
+        """Messages for these events, plus note-offs that have come due by now."""
+        if self.router is None:
             return []
-        return [d for e in events for d in self.mapping.dispatches(e)]
+        return self.router.route(events) + self.router.due(self.t_s)
 
     def stop(self) -> list[Event]:
         """Release held postures: the "left" events to send before shutting down."""
-        return self.gate.release_all(self.samples / self.model.rate_hz)
+        return self.gate.release_all(self.t_s)
+
+    def let_go(self) -> list[Dispatch]:
+        """Releases of every held note and key and every note-off still due (on stop)."""
+        return self.router.let_go(self.t_s) if self.router else []

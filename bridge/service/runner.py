@@ -1,4 +1,9 @@
-"""The live loop: read a source, run the pipeline, send to outputs, until told to stop."""
+"""The live loop: read a source, run the pipeline, send to outputs, until told to stop.
+
+Between blocks the loop also polls (no threads of its own): a panic asked for by a signal,
+commands from the control inbox, and the mapping watcher. A reloaded mapping is swapped in
+between blocks, so no window is ever decided half by the old mapping and half by the new.
+"""
 
 from __future__ import annotations
 
@@ -21,13 +26,20 @@ class Timing:
 
 @dataclass
 class StopFlag:
-    """Set from a signal handler or another thread to end ``run`` after the current block."""
+    """Set from a signal handler or another thread to end ``run`` after the current block.
+
+    ``request_panic`` (e.g. from SIGUSR1) asks the loop to release every output at once.
+    """
 
     stopped: bool = False
     reason: str = ""
+    panics: int = 0
 
     def set(self, reason: str = "") -> None:
         self.stopped, self.reason = True, reason
+
+    def request_panic(self) -> None:
+        self.panics += 1  # only an integer store: safe from a signal handler
 
 
 @dataclass
@@ -35,39 +47,103 @@ class RunStats:
     blocks: int = 0
     samples: int = 0
     events: int = 0
+    controls: int = 0
+    reloads: int = 0
+    broken_reloads: int = 0
     hop_ms: list = field(default_factory=list)
 
 
+def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
+    """Bring ``outputs`` in line with a reloaded mapping: open new destinations, close
+    removed or changed ones (closing releases what they hold), keep the rest running."""
+    old_d = old.destinations if old is not None else {}
+    for name, d in old_d.items():
+        if name in outputs and new.destinations.get(name) != d:
+            outputs.pop(name).close()
+            report(f"destination {name!r} closed")
+    for name, d in new.destinations.items():
+        if name not in outputs:  # new, changed, or left out before: (re)try
+            try:
+                outputs[name] = open_fn(d)
+                report(f"destination {name!r} opened")
+            except Exception as exc:  # a missing system leaves the others running
+                report(f"destination {name!r} left out: {exc}")
+
+
 def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: StopFlag | None = None,
-        on_event=None, clock=time.monotonic) -> RunStats:
-    """Process until the source ends or ``stop`` is set; held postures are released on the way out.
+        on_event=None, clock=time.monotonic, watcher=None, inbox=None, open_fn=None, report=print) -> RunStats:
+    """Process until the source ends or ``stop`` is set; held postures, notes and keys are
+    released on the way out.
 
     on_event(event, timing) is called for every event after its messages are sent.
+    watcher: a ``MappingWatcher`` polled between blocks; open_fn(destination) opens outputs
+    for destinations a reload adds. inbox: a ``ControlInbox`` polled between blocks.
+    report(text) receives reload results and command notes.
     """
     stop = stop or StopFlag()
     stats = RunStats()
+    panics_seen = stop.panics
 
-    def deliver(events: list[Event], arrived: float) -> None:
-        decided = clock()
-        for d in pipeline.dispatches(events):
+    def send(dispatches) -> None:
+        for d in dispatches:
             out = outputs.get(d.destination)
             if out is not None:
                 out.send(d.message)
+
+    def deliver(events: list[Event], arrived: float) -> None:
+        decided = clock()
+        send(pipeline.dispatches(events))
         sent = clock()
         for e in events:
-            stats.events += 1
+            if e.kind == "control":
+                stats.controls += 1
+            else:
+                stats.events += 1
             if on_event:
                 on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3))
 
+    def poll() -> None:
+        nonlocal panics_seen
+        if stop.panics != panics_seen:
+            panics_seen = stop.panics
+            deliver(pipeline.command("panic", "signal"), clock())
+        if inbox is not None:
+            for kind, detail in inbox.poll():
+                deliver(pipeline.command(kind, detail), clock())
+        if watcher is not None:
+            change = watcher.poll(clock())
+            if change is None:
+                return
+            if change.mapping is None:
+                stats.broken_reloads += 1
+                report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
+                return
+            old = pipeline.mapping
+            pipeline.swap_mapping(change.mapping)
+            stats.reloads += 1
+            if open_fn is not None:
+                reconcile_outputs(outputs, old, change.mapping, open_fn, report)
+            m = change.mapping
+            report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
+                   + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
+        if pipeline.router is not None and pipeline.router.warnings:
+            for w in pipeline.router.warnings:
+                report(w)
+            pipeline.router.warnings.clear()
+
     try:
         while not stop.stopped and not source.ended:
+            poll()
             block = source.read()
             if len(block) == 0:
                 continue
-            events = pipeline.feed(block.freq_hz)
+            events = pipeline.feed(block.freq_hz, early=lambda ev: deliver(ev, block.arrived_s))
             stats.blocks += 1
             stats.samples += len(block)
             deliver(events, block.arrived_s)
     finally:
+        if stop.panics != panics_seen:
+            deliver(pipeline.command("panic", "signal"), clock())
         deliver(pipeline.stop(), clock())
+        send(pipeline.let_go())
     return stats
