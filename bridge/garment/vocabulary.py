@@ -560,7 +560,7 @@ class Repertoire:
         tau = np.arange(n) / max(n - 1, 1)
         near = min_jerk(tau / come) * min_jerk((1.0 - tau) / come)  # 0 far .. 1 closest
         side = 1.0 if rng.random() < 0.5 else -1.0
-        half_width = d.torso_y_m + d.torso_radius_m
+        arm_side = d.shoulder_y_m + d.upper_arm_radius_m + 0.03  # outside of a hanging sleeve, roughly
         if label == "leaning_on_table":
             lean = {POSE["lean_rad"]: 0.35 + rng.normal(0.0, 0.03),
                     **{c: v + rng.normal(0.0, 0.03) for c, v in self._reach("table_left").items()},
@@ -572,14 +572,14 @@ class Repertoire:
             x, y = edge + (1.0 - near) * 1.0, np.zeros(n)
             cols = None
         elif label == "partner_near":
-            gap = rng.uniform(0.03, 0.3)
+            gap = rng.uniform(0.05, 0.35)  # between the other person and the wearer's sleeve
             x = np.full(n, rng.uniform(-0.1, 0.15))
-            y = side * (half_width + PARTNER_RADIUS_M + gap + (1.0 - near) * 1.5)
+            y = side * (arm_side + PARTNER_RADIUS_M + gap + (1.0 - near) * 1.5)
             cols = ("partner_x_m", "partner_y_m")
         elif label == "metal_near":
             gap = rng.uniform(0.02, 0.2)  # from the sleeve hanging at the side
             x = np.full(n, rng.uniform(-0.05, 0.1))
-            y = side * (d.shoulder_y_m + 2 * d.upper_arm_radius_m + 0.03 + STAND_RADIUS_M + gap + (1.0 - near) * 1.5)
+            y = side * (arm_side + STAND_RADIUS_M + gap + (1.0 - near) * 1.5)
             cols = ("stand_x_m", "stand_y_m")
         else:
             raise ValueError(f"unknown surroundings {label!r}")
