@@ -13,7 +13,7 @@ VERBS = {
     "start": "run the live chain from a garment on a serial port, as a foreground daemon",
     "fit": "train a model from take files",
     "replay": "run a take through the live chain as fast as possible and list its events",
-    "simulate": "write a take of the simulated jacket (for training and trying things out)",
+    "simulate": "write takes of the simulated jacket, or serve it as a serial port (no hardware needed)",
     "check": "validate a mapping file against a model and print its rules",
     "tune": "choose each gesture's threshold and debounce from held-out takes; store them in the model",
     "bench": "print speed figures: classifier hops, and a continuous control's added latency and jitter",
@@ -280,18 +280,82 @@ def replay_events(rec, model, mapping=None, block_s: float = 0.1):
     return events + pipe.stop()
 
 
+def _simulated_vocabulary(name: str):
+    from .garment import FULL_GESTURES, FULL_NULL_ACTIVITIES, GESTURES, NULL_ACTIVITIES
+    return (dict(FULL_GESTURES), FULL_NULL_ACTIVITIES) if name == "full" else (dict(GESTURES), NULL_ACTIVITIES)
+
+
 def cmd_simulate(a) -> int:
     import numpy as np
-    from .garment import GESTURES, Jacket, random_script, training_script
+    from .garment import Jacket, LayoutError, load_layout, random_script, training_script
     from .sources import Recording, write_recording
 
-    jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session)
+    if not a.serve and not a.out:
+        return _err("simulate needs --out FILE (or DIR with --wearers), or --serve")
+    for name in ("wearers", "sessions", "repetitions"):
+        if getattr(a, name) is not None and getattr(a, name) < (0 if name == "repetitions" else 1):
+            return _err(f"--{name} must be at least {0 if name == 'repetitions' else 1}")
+    if not (a.duration_s > 0 and a.rate_hz > 0):
+        return _err("--duration-s and --rate-hz must be positive")
+    try:
+        layout = load_layout(a.layout) if a.layout else None
+    except LayoutError as exc:
+        return _err(str(exc))
+    troupe = a.wearers is not None or a.sessions is not None
+    vocabulary = a.vocabulary or ("full" if troupe else "demo")
+    gestures, nulls = _simulated_vocabulary(vocabulary)
+    if a.serve:
+        return _serve(a, layout, gestures, nulls)
+    if troupe:
+        from .garment.troupe import write_troupe
+
+        def show(f):
+            print(f"  {f['file']}: {f['seconds']:.0f} s, {f['gestures']} labelled", flush=True)
+        out = write_troupe(a.out, a.seed, a.wearers or 1, a.sessions or 1, gestures, nulls, a.repetitions or 3,
+                           layout, progress=show)
+        print(f"{out}: troupe of {a.wearers or 1} wearers x {a.sessions or 1} sessions, {vocabulary} vocabulary "
+              f"({len(gestures)} gestures and postures, {len(nulls)} null kinds), listed in troupe.json")
+        return 0
+    jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session, rate_hz=a.rate_hz, layout=layout)
     rng = np.random.default_rng([a.seed, a.wearer, a.session, 3])
-    script = training_script(rng, a.repetitions) if a.repetitions else random_script(rng, a.duration_s)
+    if a.repetitions:
+        script = training_script(rng, a.repetitions, list(gestures), null_activities=nulls)
+    else:
+        script = random_script(rng, a.duration_s, list(gestures), null_activities=nulls)
     take = jacket.perform(script)
-    write_recording(a.out, Recording.from_take(take, GESTURES))
+    write_recording(a.out, Recording.from_take(take, gestures, layout=layout.name if layout else "built-in"))
     print(f"{a.out}: {take.t_s.size / take.rate_hz:.1f} s, {len(take.intervals)} labelled gestures, "
           f"{len(take.channel_names)} channels at {take.rate_hz:g} Hz")
+    return 0
+
+
+def _serve(a, layout, gestures, nulls) -> int:
+    import numpy as np
+    from .garment import Jacket
+    from .garment.device import PseudoGarment
+    from .service import StopFlag
+
+    jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session, rate_hz=a.rate_hz, layout=layout)
+    try:
+        device = PseudoGarment(jacket, np.random.default_rng([a.seed, a.wearer, a.session, 5]), gestures, nulls,
+                               drop_probability=0.0 if a.no_drops else 5e-4,
+                               late_probability=0.0 if a.no_drops else 2e-3)
+    except OSError as exc:
+        return _err(f"cannot open a pseudo-terminal: {exc}")
+    stop = StopFlag()
+    _stop_on_signals(stop)
+    print(device.path, flush=True)  # first line: the port to open (drape start, a serial terminal)
+    print(f"drape: simulated jacket on {device.path}: {len(jacket.channel_names)} channels "
+          f"({', '.join(jacket.channel_names)}) at {jacket.rate_hz:g} Hz, text protocol with device time; "
+          f"Ctrl-C stops", file=sys.stderr, flush=True)
+    try:
+        device.run(stop, a.for_s, on_performed=lambda iv: print(
+            f"{iv.start_s:9.2f} s  performed {iv.label:<16} until {iv.end_s:.2f} s", flush=True))
+    finally:
+        device.close()
+    print(f"drape: stopped{' (' + stop.reason + ')' if stop.reason else ''}; lines sent {device.sent_lines}, "
+          f"discarded with no reader {device.discarded_lines}, samples dropped {device.dropped_samples}",
+          file=sys.stderr, flush=True)
     return 0
 
 
@@ -447,12 +511,24 @@ def build_parser() -> argparse.ArgumentParser:
     r.add_argument("--mapping")
     r.set_defaults(func=cmd_replay)
     m = sub.add_parser("simulate", help=VERBS["simulate"], description=VERBS["simulate"])
-    m.add_argument("--out", required=True, help="take file to write")
+    m.add_argument("--out", help="take file to write (a folder with --wearers/--sessions)")
     m.add_argument("--duration-s", type=float, default=120.0, help="length of a random performance, s")
-    m.add_argument("--repetitions", type=int, default=0, help="instead, each gesture this many times (a training take)")
+    m.add_argument("--repetitions", type=int, default=None,
+                   help="instead, each gesture this many times (a training take; 3 per session in a troupe)")
     m.add_argument("--seed", type=int, default=0)
     m.add_argument("--wearer", type=int, default=0)
     m.add_argument("--session", type=int, default=0)
+    m.add_argument("--wearers", type=int, help="write a troupe: this many wearers (into the folder --out)")
+    m.add_argument("--sessions", type=int, help="troupe: sessions per wearer (the jacket put on anew each time)")
+    m.add_argument("--layout", metavar="FILE", help="cable layout (TOML, see examples/layouts); default: built-in four cables")
+    m.add_argument("--vocabulary", choices=("demo", "full"),
+                   help="demo: the 9 of mappings/demo.toml; full: 15 gestures and postures, 8 null kinds "
+                        "(default: full for a troupe, demo otherwise)")
+    m.add_argument("--rate-hz", type=float, default=100.0, help="counter gates per second (sample rate)")
+    m.add_argument("--serve", action="store_true",
+                   help="act as a garment on a pseudo-terminal in real time; prints its path first")
+    m.add_argument("--for", dest="for_s", type=float, default=None, metavar="SECONDS", help="--serve: stop after this long")
+    m.add_argument("--no-drops", action="store_true", help="--serve: never drop or delay a sample")
     m.set_defaults(func=cmd_simulate)
     c = sub.add_parser("check", help=VERBS["check"], description=VERBS["check"])
     c.add_argument("file", metavar="MAPPING")

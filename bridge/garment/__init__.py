@@ -9,7 +9,12 @@ frequencies, seeded and reproducible.  Modules, from the body outward:
 ``coupling``    cable-to-body capacitance from closed-form handbook formulas
 ``oscillator``  LC resonance, drift and the gated cycle counter
 ``vocabulary``  gestures, postures and null activities as pose trajectories
+``surroundings`` a second person, a grounded stand, a table near the jacket
+``layout``      cable layouts read from TOML files
 ``jacket``      ``Jacket`` (owns the stream state), takes and scripts
+``delivery``    dropped and late samples on the way to the computer
+``device``      the jacket as a pseudo-terminal serial port, in real time
+``troupe``      data sets of several wearers and sessions as take files
 
 Figures with the default constants (seed 0, several wearers and sessions):
 resting channels near 174, 236, 318 and 430 kHz (inductor tolerance moves
@@ -29,11 +34,19 @@ from .jacket import (
     simulate_take,
     training_script,
 )
-from .vocabulary import GESTURES, NULL_ACTIVITIES
+from .layout import GarmentLayout, LayoutError, default_layout, load_layout
+from .vocabulary import FULL_GESTURES, FULL_NULL_ACTIVITIES, GESTURES, NULL_ACTIVITIES, SURROUNDINGS
 
 __all__ = [
     "DEFAULT_RATE_HZ",
+    "FULL_GESTURES",
+    "FULL_NULL_ACTIVITIES",
     "GESTURES",
+    "GarmentLayout",
+    "LayoutError",
+    "SURROUNDINGS",
+    "default_layout",
+    "load_layout",
     "NULL_ACTIVITIES",
     "Interval",
     "Jacket",

@@ -87,11 +87,15 @@ class Fit:
     gap_m: float  # extra cloth gap (cuffs closed, zip open ...)
 
 
-def draw_fit(rng: np.random.Generator, names: tuple[str, ...]) -> dict[str, Fit]:
-    """Draw each cable's placement for one session (jacket put on anew)."""
+def draw_fit(rng: np.random.Generator, names, cables=None) -> dict[str, Fit]:
+    """Draw each cable's placement for one session (jacket put on anew).
+
+    ``cables`` maps names to their layouts (default: the built-in ``LAYOUTS``).
+    """
+    cables = LAYOUTS if cables is None else cables
     fits = {}
     for name in names:
-        sleeve = isinstance(LAYOUTS[name], SleeveLayout)
+        sleeve = isinstance(cables[name], SleeveLayout)
         fits[name] = Fit(
             slide_m=float(np.clip(rng.normal(0.0, 0.012), -0.03, 0.03)),
             turn_rad=float(np.clip(rng.normal(0.0, 0.15 if sleeve else 0.05), -0.4, 0.4)),
@@ -136,12 +140,13 @@ def _panel_points(layout: PanelLayout, fit: Fit, geo, dims: Dimensions, wearer: 
     return points, np.broadcast_to(direction, (n,) + direction.shape)
 
 
-def antenna_points_local(name: str, fit: Fit, geo, dims: Dimensions, wearer: Wearer):
+def antenna_points_local(name, fit: Fit, geo, dims: Dimensions, wearer: Wearer):
     """Static (un-lagged) cable polyline in torso-local axes.
 
+    ``name`` is a built-in cable's name or a ``SleeveLayout`` / ``PanelLayout``.
     Returns (points (n, K, 3), outward normals (n, K, 3)).
     """
-    layout = LAYOUTS[name]
+    layout = LAYOUTS[name] if isinstance(name, str) else name
     if isinstance(layout, SleeveLayout):
         return _sleeve_points(layout, fit, geo, dims, wearer)
     return _panel_points(layout, fit, geo, dims, wearer)

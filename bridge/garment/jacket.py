@@ -21,8 +21,6 @@ import numpy as np
 from scipy import signal
 
 from .antennas import (
-    ANTENNA_ORDER,
-    LAYOUTS,
     SleeveLayout,
     antenna_points_local,
     draw_fit,
@@ -40,7 +38,9 @@ from .oscillator import (
     spread_centres_hz,
     temperature_factor,
 )
-from .vocabulary import GESTURES, NULL_ACTIVITIES, Repertoire
+from .layout import GarmentLayout, default_layout
+from .surroundings import FAR_M, empty_scene, surroundings_capacitance_f
+from .vocabulary import FULL_GESTURES, FULL_NULL_ACTIVITIES, GESTURES, NULL_ACTIVITIES, Repertoire
 
 DEFAULT_RATE_HZ = 100.0
 
@@ -103,18 +103,21 @@ def _rng(seed: int, stream: int, *keys: int) -> np.random.Generator:
     return np.random.default_rng(np.random.SeedSequence([int(seed), stream, *(int(k) for k in keys)]))
 
 
-def _kind(name: str) -> str:
-    return "sleeve" if isinstance(LAYOUTS[name], SleeveLayout) else "panel"
+def _kind(cable) -> str:
+    return "sleeve" if isinstance(cable, SleeveLayout) else "panel"
 
 
-def draw_hardware(rng: np.random.Generator, names: tuple[str, ...]) -> Hardware:
-    """Build the electronics: inductors chosen to spread the channels over 150-500 kHz."""
-    n = len(names)
+def draw_hardware(rng: np.random.Generator, cables) -> Hardware:
+    """Build the electronics: inductors chosen to spread the channels over 150-500 kHz.
+
+    ``cables`` are the layouts of the cables in channel order.
+    """
+    n = len(cables)
     target_hz = spread_centres_hz(n)
     c_design = np.array([
         np.mean(SELF_CAPACITANCE_F) + TUNING_CAPACITANCE_F
-        + series_capacitance_f(DESIGN_COUPLING_F[_kind(name)], DESIGN_BODY_GROUND_F)
-        for name in names
+        + series_capacitance_f(DESIGN_COUPLING_F[_kind(cable)], DESIGN_BODY_GROUND_F)
+        for cable in cables
     ])
     tolerance = np.clip(rng.normal(0.0, INDUCTOR_TOLERANCE, n), -2 * INDUCTOR_TOLERANCE, 2 * INDUCTOR_TOLERANCE)
     return Hardware(
@@ -130,20 +133,25 @@ class Jacket:
     """A simulated wearer in a simulated jacket with its counter; owns all its state."""
 
     def __init__(self, seed: int = 0, wearer: int = 0, session: int = 0, n_antennas: int = 4,
-                 rate_hz: float = DEFAULT_RATE_HZ):
-        if not 1 <= n_antennas <= len(ANTENNA_ORDER):
-            raise ValueError(f"n_antennas must be 1..{len(ANTENNA_ORDER)}, got {n_antennas}")
+                 rate_hz: float = DEFAULT_RATE_HZ, layout: GarmentLayout | None = None):
+        """``layout`` (see ``layout.load_layout``) places the cables; without it, the
+        first ``n_antennas`` cables of the built-in jacket."""
+        if layout is None:
+            layout = default_layout(n_antennas)
+        n_antennas = len(layout.cables)
         if not rate_hz > 0:
             raise ValueError(f"rate_hz must be positive, got {rate_hz}")
         self.seed, self.wearer_id, self.session_id = int(seed), int(wearer), int(session)
-        self.channel_names: tuple[str, ...] = ANTENNA_ORDER[:n_antennas]
+        self.layout = layout
+        self.cables = layout.as_dict()
+        self.channel_names: tuple[str, ...] = layout.channel_names
         self.rate_hz = float(rate_hz)
         self.gate_s = 1.0 / self.rate_hz
-        self.hardware = draw_hardware(_rng(seed, _HARDWARE), self.channel_names)
+        self.hardware = draw_hardware(_rng(seed, _HARDWARE), [self.cables[n] for n in self.channel_names])
         self.wearer = draw_wearer(_rng(seed, _WEARER, wearer))
         self.dims = dimensions(self.wearer)
-        self.fits = draw_fit(_rng(seed, _FIT, wearer, session), self.channel_names)
-        self.repertoire = Repertoire(self.wearer, self.dims, self.fits, self.rate_hz)
+        self.fits = draw_fit(_rng(seed, _FIT, wearer, session), self.channel_names, self.cables)
+        self.repertoire = Repertoire(self.wearer, self.dims, self.fits, self.rate_hz, self.cables)
         # One generator per purpose, each drawn in stream order, so rendering a
         # script in pieces gives exactly the same stream as in one call.
         self._rng = _rng(seed, _MOTION, wearer, session)
@@ -153,7 +161,7 @@ class Jacket:
         # and the coupling in between is interpolated (see _coupling_at).
         self.physics_step = max(1, int(round(self.rate_hz / PHYSICS_MAX_HZ)))
         physics_hz = self.rate_hz / self.physics_step
-        self._filters = [lag_filter(LAYOUTS[name].natural_hz, LAYOUTS[name].damping, physics_hz)
+        self._filters = [lag_filter(self.cables[name].natural_hz, self.cables[name].damping, physics_hz)
                          for name in self.channel_names]
         # Stream state.
         self._index = 0
@@ -162,11 +170,11 @@ class Jacket:
         geo = pose_body(rest, self.dims)
         self._lag_state = []
         for name, (b, a) in zip(self.channel_names, self._filters):
-            points, _ = antenna_points_local(name, self.fits[name], geo, self.dims, self.wearer)
+            points, _ = antenna_points_local(self.cables[name], self.fits[name], geo, self.dims, self.wearer)
             self._lag_state.append(lag_initial_state(b, a, geo.to_world(points)[0]))
-        rest_coupling = self.static_coupling_f(rest)[0]
-        # Last two physics steps (index of the later one, coupling at both), for interpolation.
-        self._tail = (-1, rest_coupling, rest_coupling)
+        rest_added = series_capacitance_f(self.static_coupling_f(rest)[0], self.wearer.body_ground_f)
+        # Last two physics steps (index of the later one, added tank capacitance at both), for interpolation.
+        self._tail = (-1, rest_added, rest_added)
         self._phase = self._jitter_rng.integers(0, PHASE_STEPS_PER_CYCLE, n_antennas)
         self._room_c = float(self._temperature_rng.uniform(18.0, 24.0))
         self._wander_c = float(self._temperature_rng.normal(0.0, WANDER_C))
@@ -184,7 +192,7 @@ class Jacket:
         geo = pose_body(pose, self.dims)
         out = np.empty((geo.ends.shape[0], len(self.channel_names)))
         for j, name in enumerate(self.channel_names):
-            points, _ = antenna_points_local(name, self.fits[name], geo, self.dims, self.wearer)
+            points, _ = antenna_points_local(self.cables[name], self.fits[name], geo, self.dims, self.wearer)
             out[:, j] = antenna_body_capacitance_f(geo.to_world(points), geo.ends, geo.radii_m)
         return out
 
@@ -206,7 +214,7 @@ class Jacket:
         """
         rep = self.repertoire
         base = rep.neutral.copy()
-        layout = LAYOUTS[channel]
+        layout = self.cables[channel]
         if isinstance(layout, SleeveLayout):
             held = layout.side
             hand = "right" if held == "left" else "left"
@@ -242,8 +250,8 @@ class Jacket:
         items = []
         for item in script:
             label, duration_s = item
-            if label not in GESTURES and label not in NULL_ACTIVITIES:
-                raise ValueError(f"unknown label {label!r}; known: {sorted(GESTURES) + list(NULL_ACTIVITIES)}")
+            if label not in FULL_GESTURES and label not in FULL_NULL_ACTIVITIES:
+                raise ValueError(f"unknown label {label!r}; known: {sorted(FULL_GESTURES) + list(FULL_NULL_ACTIVITIES)}")
             if duration_s is not None:
                 duration_s = float(duration_s)
                 if not (np.isfinite(duration_s) and duration_s > 0):
@@ -251,20 +259,29 @@ class Jacket:
             items.append((label, duration_s))
         return items
 
-    def _physics(self, pose: np.ndarray) -> np.ndarray:
-        """Antenna-to-body capacitance (m, ch) at consecutive physics steps; advances the cloth."""
+    def _physics(self, pose: np.ndarray, scene: np.ndarray) -> np.ndarray:
+        """Capacitance added to each tank (m, ch) at consecutive physics steps, F; advances the cloth.
+
+        That is the antenna-to-body capacitance in series with body-to-ground, plus the
+        capacitance to ground through anything in the ``scene`` (m, N_SCENE).
+        """
         geo = pose_body(pose, self.dims)
         coupling = np.empty((pose.shape[0], len(self.channel_names)))
+        direct = np.zeros_like(coupling)
+        present = bool(np.any(scene < FAR_M))
         for j, name in enumerate(self.channel_names):
-            points, _ = antenna_points_local(name, self.fits[name], geo, self.dims, self.wearer)
+            points, _ = antenna_points_local(self.cables[name], self.fits[name], geo, self.dims, self.wearer)
             world = geo.to_world(points)
             b, a = self._filters[j]
             lag, self._lag_state[j] = lag_displacement(world, b, a, self._lag_state[j])
             coupling[:, j] = antenna_body_capacitance_f(world + lag, geo.ends, geo.radii_m)
-        return coupling
+            if present:
+                direct[:, j] = surroundings_capacitance_f(world + lag, scene)
+        return series_capacitance_f(coupling, self.wearer.body_ground_f) + direct
 
-    def _coupling_at(self, pose: np.ndarray, first: int) -> np.ndarray:
-        """Coupling (n, ch) for gates first .. first+n-1 whose poses are ``pose`` (n, N_POSE).
+    def _coupling_at(self, pose: np.ndarray, scene: np.ndarray, first: int) -> np.ndarray:
+        """Added tank capacitance (n, ch) for gates first .. first+n-1 with poses ``pose`` (n, N_POSE)
+        and surroundings ``scene`` (n, N_SCENE).
 
         Physics runs on gates that are multiples of ``physics_step``; gate i
         takes the value interpolated between physics steps m-1 and m, with
@@ -274,7 +291,7 @@ class Jacket:
         k = self.physics_step
         n = pose.shape[0]
         grid = np.arange(-(-first // k) * k, first + n, k)  # physics gates in this chunk
-        values = [self._physics(pose[g - first]) for g in np.array_split(grid, max(1, -(-grid.size // BLOCK)))
+        values = [self._physics(pose[g - first], scene[g - first]) for g in np.array_split(grid, max(1, -(-grid.size // BLOCK)))
                   if g.size]
         m_last, before, last = self._tail
         table = np.concatenate([before[None], last[None]] + values)  # rows for m_last-1, m_last, new ...
@@ -286,11 +303,11 @@ class Jacket:
             self._tail = (int(grid[-1] // k), table[-2], table[-1])
         return out
 
-    def _count(self, coupling: np.ndarray, t_s: np.ndarray) -> np.ndarray:
-        """Counted frequencies (n, ch) for coupling (n, ch); advances temperature and counter."""
+    def _count(self, added_f: np.ndarray, t_s: np.ndarray) -> np.ndarray:
+        """Counted frequencies (n, ch) for added tank capacitance (n, ch); advances temperature and counter."""
         hw = self.hardware
-        n = coupling.shape[0]
-        freq = resonant_frequency_hz(hw.inductance_h, self.capacitance_f(coupling))
+        n = added_f.shape[0]
+        freq = resonant_frequency_hz(hw.inductance_h, hw.self_capacitance_f + hw.tuning_capacitance_f + added_f)
         # Temperature: warming toward body heat plus a slow random wander (AR(1)).
         rho = np.exp(-self.gate_s / WANDER_TIME_S)
         shocks = self._temperature_rng.normal(0.0, WANDER_C * np.sqrt(1.0 - rho * rho), n)
@@ -309,20 +326,22 @@ class Jacket:
         a live source can call it chunk by chunk. Returned t_s continues from the previous call."""
         items = self._check(script)
         start = self._index
-        poses, intervals = [], []
+        poses, scenes, intervals = [], [], []
         for label, duration_s in items:
             if duration_s is None:
                 duration_s = self.repertoire.draw_duration_s(label, self._rng)
             n = max(int(round(duration_s * self.rate_hz)), 1)
             t_s = (self._index + np.arange(n)) / self.rate_hz
-            pose, self._motion = self.repertoire.render(label, n / self.rate_hz, t_s, self._rng, self._motion)
+            pose, scene, self._motion = self.repertoire.render_scene(label, n / self.rate_hz, t_s, self._rng,
+                                                                     self._motion)
             poses.append(pose)
-            if label in GESTURES:
+            scenes.append(empty_scene(n) if scene is None else scene)
+            if label in FULL_GESTURES:
                 intervals.append(Interval(self._index / self.rate_hz, (self._index + n) / self.rate_hz, label))
             self._index += n
         t_all = (start + np.arange(self._index - start)) / self.rate_hz
         if poses:
-            freq_all = self._count(self._coupling_at(np.concatenate(poses), start), t_all)
+            freq_all = self._count(self._coupling_at(np.concatenate(poses), np.concatenate(scenes), start), t_all)
         else:
             freq_all = np.empty((0, len(self.channel_names)))
         return Take(self.rate_hz, self.channel_names, t_all, freq_all, tuple(intervals),
@@ -334,7 +353,7 @@ def random_script(rng: np.random.Generator, duration_s: float, gestures=None, id
     """Gestures at random between idle stretches of null activity, about duration_s long."""
     gestures = list(GESTURES) if gestures is None else list(gestures)
     for g in gestures:
-        if g not in GESTURES:
+        if g not in FULL_GESTURES:
             raise ValueError(f"unknown gesture {g!r}")
     nulls = list(null_activities)
     if not nulls:
@@ -350,21 +369,27 @@ def random_script(rng: np.random.Generator, duration_s: float, gestures=None, id
         if not gestures or total >= duration_s:
             break
         g = gestures[int(rng.integers(len(gestures)))]
-        if total + typical_s[GESTURES[g]] + idle_s[0] > duration_s:
+        if total + typical_s[FULL_GESTURES[g]] + idle_s[0] > duration_s:
             continue
         script.append((g, None))
-        total += typical_s[GESTURES[g]]
+        total += typical_s[FULL_GESTURES[g]]
     return script
 
 
 def training_script(rng: np.random.Generator, repetitions: int = 10, gestures=None,
-                    idle_s=(2.0, 4.0)) -> list[tuple[str, float | None]]:
-    """Each gesture `repetitions` times in shuffled order, separated by null activity (all three kinds)."""
+                    idle_s=(2.0, 4.0), null_activities=NULL_ACTIVITIES) -> list[tuple[str, float | None]]:
+    """Each gesture `repetitions` times in shuffled order, separated by null activity (every kind)."""
     gestures = list(GESTURES) if gestures is None else list(gestures)
+    for g in gestures:
+        if g not in FULL_GESTURES:
+            raise ValueError(f"unknown gesture {g!r}")
+    nulls = list(null_activities)
+    if not nulls:
+        raise ValueError("need at least one null activity")
     order = [g for g in gestures for _ in range(repetitions)]
     rng.shuffle(order)
     n_null = len(order) + 1
-    kinds = [NULL_ACTIVITIES[i % len(NULL_ACTIVITIES)] for i in range(n_null)]
+    kinds = [nulls[i % len(nulls)] for i in range(n_null)]
     rng.shuffle(kinds)
     script: list[tuple[str, float | None]] = [(kinds[0], float(rng.uniform(*idle_s)))]
     for g, kind in zip(order, kinds[1:]):
@@ -374,8 +399,8 @@ def training_script(rng: np.random.Generator, repetitions: int = 10, gestures=No
 
 
 def simulate_take(seed: int = 0, wearer: int = 0, session: int = 0, script=None, duration_s: float = 60.0,
-                  n_antennas: int = 4, rate_hz: float = DEFAULT_RATE_HZ) -> Take:
+                  n_antennas: int = 4, rate_hz: float = DEFAULT_RATE_HZ, layout: GarmentLayout | None = None) -> Take:
     """Render one take; without a script, a random one about ``duration_s`` long."""
     if script is None:
         script = random_script(_rng(seed, _SCRIPT, wearer, session), duration_s)
-    return Jacket(seed, wearer, session, n_antennas, rate_hz).perform(script)
+    return Jacket(seed, wearer, session, n_antennas, rate_hz, layout).perform(script)

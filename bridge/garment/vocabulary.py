@@ -19,7 +19,7 @@ from dataclasses import dataclass, replace
 import numpy as np
 from scipy import signal
 
-from .antennas import Fit, antenna_points_local
+from .antennas import LAYOUTS, Fit, SleeveLayout, antenna_points_local
 from .body import (
     POSE,
     Dimensions,
@@ -42,7 +42,29 @@ GESTURES: dict[str, str] = {
     "hands_on_hips": "posture",
     "hand_on_heart": "posture",
 }
+"""The demo vocabulary (the one ``mappings/demo.toml`` maps): 6 gestures, 3 postures."""
+
 NULL_ACTIVITIES: tuple[str, ...] = ("standing", "walking", "fidgeting")
+"""The demo's null activity: what the wearer does between cues."""
+
+FULL_GESTURES: dict[str, str] = {
+    **GESTURES,
+    "tap_right_sleeve": "gesture",
+    "clap": "gesture",
+    "open_arms": "gesture",
+    "wave_right": "gesture",
+    "arms_up": "posture",
+    "hands_clasped": "posture",
+}
+"""Everything the simulated wearer can perform on cue: 10 gestures, 5 postures."""
+
+SURROUNDINGS: tuple[str, ...] = ("partner_near", "metal_near", "leaning_on_table")
+"""Null activities that bring something else near the jacket (see ``coupling.surroundings_capacitance_f``)."""
+
+FULL_NULL_ACTIVITIES: tuple[str, ...] = NULL_ACTIVITIES + ("talking", "sitting") + SURROUNDINGS
+"""All null kinds: standing, walking, adjusting the jacket (fidgeting), talking with the
+hands, sitting down on a chair, and the disturbances met on stage: a second person coming
+close, a grounded metal stand, a table leaned on."""
 
 # Typical length of each dynamic gesture for a wearer of speed 1, s.
 GESTURE_BASE_S = {
@@ -52,6 +74,10 @@ GESTURE_BASE_S = {
     "tap_left_sleeve": 1.7,
     "push_forward": 1.5,
     "bow": 1.8,
+    "tap_right_sleeve": 1.7,
+    "clap": 1.3,
+    "open_arms": 1.7,
+    "wave_right": 1.9,
 }
 GESTURE_RANGE_S = (0.8, 2.0)  # every drawn dynamic gesture lasts within this range
 POSTURE_HOLD_S = (2.0, 6.0)  # how long a posture is held
@@ -159,8 +185,10 @@ class Repertoire:
     script label into a pose trajectory.  Immutable after construction.
     """
 
-    def __init__(self, wearer: Wearer, dims: Dimensions, fits: dict[str, Fit], rate_hz: float):
+    def __init__(self, wearer: Wearer, dims: Dimensions, fits: dict[str, Fit], rate_hz: float, cables=None):
         self.wearer = wearer
+        # Touch targets use the jacket's own cables where it has them, else the built-in places.
+        self.cables = dict(LAYOUTS if cables is None else cables)
         self.rate_hz = rate_hz
         self._sway_filter = signal.butter(2, min(SWAY_CUTOFF_HZ, 0.4 * rate_hz), fs=rate_hz)
         self._sway_gain = _noise_gain(*self._sway_filter, rate_hz)
@@ -168,6 +196,7 @@ class Repertoire:
         self.fits = fits
         self.neutral = neutral_pose(1)[0]
         self.reach = self._solve_reaches()
+        self._extra: dict[str, dict[int, float]] = {}  # reaches of the full vocabulary, solved when first used
 
     # ----- reach poses -------------------------------------------------------------
     def _torso_target(self, height_frac: float, azimuth_rad: float, standoff_m: float) -> np.ndarray:
@@ -187,7 +216,9 @@ class Repertoire:
             pose[c] = v
         geo = pose_body(pose[None], self.dims)
         name = f"{side}_sleeve"
-        points, normals = antenna_points_local(name, self.fits.get(name, Fit(0.0, 0.0, 0.0)), geo, self.dims,
+        cable = self.cables[name] if isinstance(self.cables.get(name), SleeveLayout) and self.cables[name].fore_fracs \
+            else LAYOUTS[name]
+        points, normals = antenna_points_local(cable, self.fits.get(name, Fit(0.0, 0.0, 0.0)), geo, self.dims,
                                                self.wearer)
         k = points.shape[1] - 3  # middle of the forearm run
         return points[0, k] + normals[0, k] * (self.dims.hand_radius_m + standoff_m)
@@ -195,8 +226,8 @@ class Repertoire:
     def panel_touch_target(self, name: str, standoff_m: float) -> np.ndarray:
         """Hand-centre target on the middle of a torso cable, body neutral."""
         geo = pose_body(self.neutral[None], self.dims)
-        points, normals = antenna_points_local(name, self.fits.get(name, Fit(0.0, 0.0, 0.0)), geo, self.dims,
-                                               self.wearer)
+        points, normals = antenna_points_local(self.cables.get(name, name), self.fits.get(name, Fit(0.0, 0.0, 0.0)),
+                                               geo, self.dims, self.wearer)
         k = points.shape[1] // 2
         return points[0, k] + normals[0, k] * (self.dims.hand_radius_m + standoff_m)
 
@@ -235,12 +266,48 @@ class Repertoire:
         r["fidget_lapel"] = self._solve("left", self._torso_target(0.85, -0.5, 0.04), (-0.4, 0.5, 1.0, 2.2))
         return r
 
+    def _reach(self, name: str) -> dict[int, float]:
+        """A reach pose of the full vocabulary, solved on first use (deterministic, no randomness)."""
+        if name not in self._extra:
+            self._extra[name] = self._solve_extra(name)
+        return self._extra[name]
+
+    def _solve_extra(self, name: str) -> dict[int, float]:
+        d, s = self.dims, self.wearer.scale
+        sh = d.shoulder_z_m
+        if name.startswith("tap_"):  # the left hand taps the right sleeve
+            base = self.neutral.copy()
+            for c, v in self.tap_arm("right").items():
+                base[c] = v
+            standoff = 0.002 if name == "tap_touch_right" else 0.07
+            return self._solve("left", self.sleeve_touch_target("right", standoff), (-0.3, 0.5, 0.9, 1.8), base)
+        if name.startswith("clap_"):
+            _, where, side = name.split("_")
+            sign = 1.0 if side == "left" else -1.0
+            y = sign * (d.hand_radius_m + 0.005 if where == "meet" else 0.14 * s)
+            return self._solve(side, (0.33 * s, y, sh - 0.22 * s), (0.2, 0.9, 0.9, 1.6))
+        if name.startswith("clasp_"):
+            sign = 1.0 if name.endswith("left") else -1.0
+            z = d.torso_low_z_m + 0.3 * (d.torso_high_z_m - d.torso_low_z_m)
+            x = d.torso_radius_m + d.hand_radius_m + 0.06
+            return self._solve(name.split("_")[1], (x, sign * (d.hand_radius_m + 0.01), z), (0.1, 0.5, 1.0, 1.6))
+        if name.startswith("thigh_"):  # seated: hands rest on the thighs, in front of the hips
+            sign = 1.0 if name.endswith("left") else -1.0
+            z = d.torso_low_z_m - 0.02 * s
+            return self._solve(name.split("_")[1], (0.26 * s, sign * 0.11 * s, z), (0.3, 0.5, 0.5, 1.2),
+                               self._seated_base())
+        if name.startswith("table_"):  # leaning: hands flat on a table top in front
+            sign = 1.0 if name.endswith("left") else -1.0
+            return self._solve(name.split("_")[1], self._table_hand_local(sign), (0.2, 0.9, 0.4, 0.3),
+                               self._leaning_base())
+        raise ValueError(f"no reach {name!r}")
+
     # ----- planning -----------------------------------------------------------------
     def draw_duration_s(self, label: str, rng: np.random.Generator) -> float:
         """A drawn length for ``label`` when the script gives none, s."""
-        if label in NULL_ACTIVITIES:
+        if label in FULL_NULL_ACTIVITIES:
             return float(rng.uniform(*NULL_DEFAULT_S))
-        if GESTURES[label] == "posture":
+        if FULL_GESTURES[label] == "posture":
             move = rng.uniform(*POSTURE_MOVE_S, 2) / self.wearer.speed
             return float(np.sum(move) + rng.uniform(*POSTURE_HOLD_S))
         base = GESTURE_BASE_S[label] / self.wearer.speed * rng.uniform(0.88, 1.12)
@@ -248,7 +315,7 @@ class Repertoire:
 
     def keys(self, label: str, duration_s: float, rng: np.random.Generator) -> list[Key]:
         """Key poses of one performance of gesture or posture ``label``."""
-        if GESTURES[label] == "posture":
+        if FULL_GESTURES[label] == "posture":
             return self._posture_keys(label, duration_s, rng)
         keys = self._gesture_keys(label)
         times = _jitter_times(rng, [k.at for k in keys], self.wearer.jitter_frac)
@@ -287,15 +354,37 @@ class Repertoire:
         if label == "bow":
             down = {**_both(0.0, 0.5, 0.35, 0.25), POSE["lean_rad"]: 0.55}
             return [Key(0.0, None), Key(0.4, down), Key(0.6, down), Key(1.0, None)]
+        if label == "tap_right_sleeve":
+            hover, touch = self._reach("tap_hover_right"), self._reach("tap_touch_right")
+            first = {**self.tap_arm("right"), **hover}
+            return [Key(0.0, None), Key(0.22, first, True), Key(0.36, touch, True), Key(0.48, hover, True),
+                    Key(0.6, touch, True), Key(0.74, hover, True), Key(1.0, None)]
+        if label == "clap":
+            apart = {**self._reach("clap_apart_left"), **self._reach("clap_apart_right")}
+            meet = {**self._reach("clap_meet_left"), **self._reach("clap_meet_right")}
+            return [Key(0.0, None), Key(0.3, apart, True), Key(0.42, meet, True), Key(0.54, apart, True),
+                    Key(0.66, meet, True), Key(0.78, apart, True), Key(1.0, None)]
+        if label == "open_arms":
+            wide = _both(1.45, 1.35, 0.0, 0.25)
+            return [Key(0.0, None), Key(0.4, wide), Key(0.62, wide), Key(1.0, None)]
+        if label == "wave_right":
+            a, b = _arm("right", 1.1, 1.55, -0.9, 1.0), _arm("right", 1.35, 1.6, -0.9, 1.7)
+            return [Key(0.0, None), Key(0.25, a), Key(0.37, b), Key(0.49, a), Key(0.61, b), Key(0.73, a),
+                    Key(1.0, None)]
         raise ValueError(f"no key poses for {label!r}")
 
     def _posture_keys(self, label: str, duration_s: float, rng: np.random.Generator) -> list[Key]:
         r = self.reach
-        held = {
-            "arms_crossed": {**r["crossed_left"], **r["crossed_right"]},
-            "hands_on_hips": {**r["hip_left"], **r["hip_right"]},
-            "hand_on_heart": r["heart"],
-        }[label]
+        if label == "arms_up":
+            held = _both(1.25, 2.55, 0.2, 0.25)
+        elif label == "hands_clasped":
+            held = {**self._reach("clasp_left"), **self._reach("clasp_right")}
+        else:
+            held = {
+                "arms_crossed": {**r["crossed_left"], **r["crossed_right"]},
+                "hands_on_hips": {**r["hip_left"], **r["hip_right"]},
+                "hand_on_heart": r["heart"],
+            }[label]
         held = self._vary(Key(0.0, held, True), 1.0, rng)
         move_in, move_out = rng.uniform(*POSTURE_MOVE_S, 2) / self.wearer.speed
         # Moves take at most a third of the posture each when the script forces it short.
@@ -323,7 +412,22 @@ class Repertoire:
 
     def render(self, label: str, duration_s: float, t_s: np.ndarray, rng: np.random.Generator, state: MotionState):
         """Pose trajectory of one script item; returns (pose (n, N_POSE), new state)."""
-        if label in GESTURES:
+        pose, _, state = self.render_scene(label, duration_s, t_s, rng, state)
+        return pose, state
+
+    def render_scene(self, label: str, duration_s: float, t_s: np.ndarray, rng: np.random.Generator,
+                     state: MotionState):
+        """Pose and surroundings of one script item.
+
+        Returns (pose (n, N_POSE), scene (n, N_SCENE) or None when nothing is near, new state).
+        """
+        if label in SURROUNDINGS:
+            return self._surroundings(label, t_s, rng, state)
+        pose, state = self._render(label, duration_s, t_s, rng, state)
+        return pose, None, state
+
+    def _render(self, label, duration_s, t_s, rng, state):
+        if label in FULL_GESTURES:
             keys = self.keys(label, duration_s, rng)
             base, state = self.base_pose(t_s, rng, state)
             return render_keys(base, keys), state
@@ -333,6 +437,10 @@ class Repertoire:
             return self._walk(t_s, rng, state)
         if label == "fidgeting":
             return self._fidget(t_s, rng, state)
+        if label == "talking":
+            return self._talk(t_s, rng, state)
+        if label == "sitting":
+            return self._sit(t_s, rng, state)
         raise ValueError(f"unknown activity {label!r}")
 
     def _envelope(self, n: int, rate_hz: float, ramp_s: float) -> np.ndarray:
@@ -379,3 +487,108 @@ class Repertoire:
             pose[k:k + length] = render_keys(pose[k:k + length], keys)
             k += length + int(rng.uniform(0.2, 1.0) * rate_hz)
         return pose, state
+
+    # ----- more null activity: talking, sitting, surroundings ------------------------
+    def _talk(self, t_s, rng, state: MotionState):
+        """Talking with the hands: forearms come up in front and move in small random beats."""
+        n, rate_hz = t_s.shape[0], self.rate_hz
+        pose, state = self.base_pose(t_s, rng, state)
+        k = int(rng.uniform(0.2, 0.6) * rate_hz)
+        while True:
+            length = int(rng.uniform(0.6, 1.4) / self.wearer.speed * rate_hz)
+            if k + length >= n:
+                break
+            held: dict[int, float] = {}
+            for side in [("left",), ("right",), ("left", "right")][int(rng.integers(3))]:
+                held.update(_arm(side, rng.uniform(0.0, 0.7), rng.uniform(0.25, 0.6), rng.uniform(0.3, 0.8),
+                                 rng.uniform(0.8, 1.5)))
+            keys = [Key(0.0, None), Key(0.35, held), Key(0.7, held), Key(1.0, None)]
+            pose[k:k + length] = render_keys(pose[k:k + length], keys)
+            k += length + int(rng.uniform(0.0, 0.5) * rate_hz)
+        return pose, state
+
+    def _seated_base(self) -> np.ndarray:
+        pose = self.neutral.copy()
+        pose[POSE["lean_rad"]] = 0.12
+        pose[POSE["bob_m"]] = -0.42 * self.wearer.scale  # hips down onto a chair seat
+        return pose
+
+    def _leaning_base(self) -> np.ndarray:
+        pose = self.neutral.copy()
+        pose[POSE["lean_rad"]] = 0.35
+        return pose
+
+    def table_edge_x_m(self) -> float:
+        """Where the table's front edge stands when the wearer leans on it, ahead of the body axis, m."""
+        return self.dims.torso_radius_m + 0.06
+
+    def _table_hand_local(self, sign: float) -> np.ndarray:
+        """Hand target on the table top in torso-local axes, for the leaning base pose."""
+        from .surroundings import TABLE_TOP_Z_M
+        d = self.dims
+        world = np.array([self.table_edge_x_m() + 0.1, sign * 0.2 * self.wearer.scale,
+                          TABLE_TOP_Z_M + d.hand_radius_m])
+        lean = self._leaning_base()[POSE["lean_rad"]]
+        pivot = np.array([0.0, 0.0, d.hip_z_m])
+        c, s = np.cos(lean), np.sin(lean)
+        rot = np.array([[c, 0.0, s], [0.0, 1.0, 0.0], [-s, 0.0, c]])  # rotation_y(lean)
+        return rot.T @ (world - pivot) + pivot
+
+    def _sit(self, t_s, rng, state: MotionState):
+        """Sitting down on a chair, resting the hands on the thighs, and standing up again.
+
+        Legs and chair are not modelled: only the upper body's pose and the hands count.
+        """
+        n = t_s.shape[0]
+        pose, state = self.base_pose(t_s, rng, state)
+        seated = {POSE["lean_rad"]: 0.12 + rng.normal(0.0, 0.03), POSE["bob_m"]: -0.42 * self.wearer.scale,
+                  **self._reach("thigh_left"), **self._reach("thigh_right")}
+        seated = {c: v + (rng.normal(0.0, 0.03) if c not in (POSE["bob_m"], POSE["lean_rad"]) else 0.0)
+                  for c, v in seated.items()}
+        move = min(rng.uniform(0.9, 1.4) / self.wearer.speed / max(n / self.rate_hz, 1e-9), 1.0 / 3.0)
+        keys = [Key(0.0, None), Key(move, seated), Key(1.0 - move, seated), Key(1.0, None)]
+        return render_keys(pose, keys), state
+
+    def _surroundings(self, label, t_s, rng, state: MotionState):
+        """Standing (or leaning on a table) while something comes near; returns (pose, scene, state)."""
+        from .surroundings import PARTNER_RADIUS_M, SCENE, STAND_RADIUS_M, empty_scene
+        n = t_s.shape[0]
+        d = self.dims
+        pose, state = self.base_pose(t_s, rng, state)
+        scene = empty_scene(n)
+        come = min(rng.uniform(0.8, 1.5) / max(n / self.rate_hz, 1e-9), 1.0 / 3.0)
+        tau = np.arange(n) / max(n - 1, 1)
+        near = min_jerk(tau / come) * min_jerk((1.0 - tau) / come)  # 0 far .. 1 closest
+        side = 1.0 if rng.random() < 0.5 else -1.0
+        arm_side = d.shoulder_y_m + d.upper_arm_radius_m + 0.03  # outside of a hanging sleeve, roughly
+        if label == "leaning_on_table":
+            lean = {POSE["lean_rad"]: 0.35 + rng.normal(0.0, 0.03),
+                    **{c: v + rng.normal(0.0, 0.03) for c, v in self._reach("table_left").items()},
+                    **{c: v + rng.normal(0.0, 0.03) for c, v in self._reach("table_right").items()}}
+            keys = [Key(0.0, None), Key(come, lean), Key(1.0 - come, lean), Key(1.0, None)]
+            pose = render_keys(pose, keys)
+            edge = self.table_edge_x_m() + rng.normal(0.0, 0.01)
+            # The wearer steps up to the table: it comes from 1 m away, in the wearer's facing direction.
+            x, y = edge + (1.0 - near) * 1.0, np.zeros(n)
+            cols = None
+        elif label == "partner_near":
+            gap = rng.uniform(0.05, 0.35)  # between the other person and the wearer's sleeve
+            x = np.full(n, rng.uniform(-0.1, 0.15))
+            y = side * (arm_side + PARTNER_RADIUS_M + gap + (1.0 - near) * 1.5)
+            cols = ("partner_x_m", "partner_y_m")
+        elif label == "metal_near":
+            gap = rng.uniform(0.02, 0.2)  # from the sleeve hanging at the side
+            x = np.full(n, rng.uniform(-0.05, 0.1))
+            y = side * (arm_side + STAND_RADIUS_M + gap + (1.0 - near) * 1.5)
+            cols = ("stand_x_m", "stand_y_m")
+        else:
+            raise ValueError(f"unknown surroundings {label!r}")
+        # Positions are given relative to where the wearer faces; the room frame turns with the heading.
+        h = state.heading_rad
+        if cols is None:
+            scene[:, SCENE["table_edge_x_m"]] = x  # the table is met face on
+            scene[:, SCENE["table_heading_rad"]] = h
+        else:
+            scene[:, SCENE[cols[0]]] = np.cos(h) * x - np.sin(h) * y
+            scene[:, SCENE[cols[1]]] = np.sin(h) * x + np.cos(h) * y
+        return pose, scene, state

@@ -1,0 +1,122 @@
+"""The simulated jacket as a serial device: a pseudo-terminal speaking the text-line protocol.
+
+``PseudoGarment`` opens a pseudo-terminal pair and, in the caller's own loop
+(``step``), writes one protocol line per gate when its arrival time comes,
+in real time: ``drape start`` (or any serial terminal) opens ``path`` as if a
+garment were plugged in.  Dropped and late samples come from ``delivery``.
+Nothing runs behind the caller's back: no threads; the caller paces ``step``.
+
+POSIX only (pseudo-terminals).  While nobody has the port open, lines are
+discarded, as a real board's USB serial discards them with no host listening.
+"""
+
+from __future__ import annotations
+
+import os
+import time
+
+import numpy as np
+
+from .delivery import DROP_PROBABILITY, LATE_PROBABILITY, deliver
+from .jacket import Jacket, random_script
+
+
+class PseudoGarment:
+    """A simulated wearer performing at random, readable at ``path``.
+
+    ``gestures`` / ``null_activities`` name what the wearer performs;
+    ``performed`` collects the labelled intervals as they are rendered.
+    """
+
+    def __init__(self, jacket: Jacket, rng: np.random.Generator, gestures, null_activities, chunk_s: float = 10.0,
+                 drop_probability: float = DROP_PROBABILITY, late_probability: float = LATE_PROBABILITY,
+                 with_time: bool = True):
+        if not hasattr(os, "openpty"):
+            raise OSError("pseudo-terminals are not available on this system")
+        from ..sources.textline import format_line  # the protocol's own formatter (lazy: sources import garment)
+
+        self._format = format_line
+        self.jacket, self.rng = jacket, rng
+        self.gestures, self.null_activities = list(gestures), tuple(null_activities)
+        self.chunk_s = chunk_s
+        self.drop_probability, self.late_probability = drop_probability, late_probability
+        self.with_time = with_time
+        self._master, slave = os.openpty()
+        self.path = os.ttyname(slave)
+        try:
+            import tty
+            tty.setraw(slave)  # no echo, no line editing: bytes pass as a serial line's would
+        finally:
+            os.close(slave)  # the client opens the path itself
+        os.set_blocking(self._master, False)
+        self.performed: list = []
+        self.sent_lines = 0
+        self.discarded_lines = 0
+        self.dropped_samples = 0
+        self._pending: list[tuple[float, bytes]] = []
+        self._next = 0
+        self._start: float | None = None
+
+    def _refill(self) -> None:
+        take = self.jacket.perform(random_script(self.rng, self.chunk_s, self.gestures,
+                                                 null_activities=self.null_activities))
+        self.performed.extend(take.intervals)
+        d = deliver(take.t_s, take.freq_hz, take.rate_hz, self.rng, self.drop_probability, self.late_probability)
+        self.dropped_samples += d.dropped
+        lines = [(float(a), self._format(f, t if self.with_time else None))
+                 for a, t, f in zip(d.arrival_s, d.t_s, d.freq_hz)]
+        self._pending = self._pending[self._next:] + lines
+        self._next = 0
+
+    def step(self, now_s: float) -> float:
+        """Write every line due by ``now_s`` (seconds since the first step); returns seconds until the next."""
+        if self._start is None:
+            self._start = now_s
+        t = now_s - self._start
+        while self._next >= len(self._pending) or self._pending[-1][0] <= t:
+            self._refill()
+        chunk = []
+        while self._pending[self._next][0] <= t:
+            chunk.append(self._pending[self._next][1])
+            self._next += 1
+        if chunk:
+            self._write(b"".join(chunk), len(chunk))
+        try:  # whatever the host sends is read and ignored
+            os.read(self._master, 4096)
+        except (BlockingIOError, OSError):
+            pass
+        return max(0.0, self._pending[self._next][0] - t)
+
+    def _write(self, data: bytes, n_lines: int) -> None:
+        try:
+            written = os.write(self._master, data)
+        except (BlockingIOError, OSError):
+            written = 0
+        if written < len(data):  # nobody reading: the rest is lost, as on a real port
+            lost = data[:written].count(b"\n")
+            self.discarded_lines += n_lines - lost
+            self.sent_lines += lost
+        else:
+            self.sent_lines += n_lines
+
+    def run(self, stop, duration_s: float | None = None, clock=time.monotonic, sleep=time.sleep,
+            on_performed=None) -> None:
+        """Serve in real time until ``stop.stopped`` or ``duration_s`` have passed."""
+        start = clock()
+        reported = 0
+        while not stop.stopped:
+            now = clock()
+            if duration_s is not None and now - start >= duration_s:
+                break
+            wait = self.step(now)
+            if on_performed:
+                done = now - (self._start or now)
+                while reported < len(self.performed) and self.performed[reported].end_s <= done:
+                    on_performed(self.performed[reported])
+                    reported += 1
+            sleep(min(wait, 0.05))
+
+    def close(self) -> None:
+        if self._master is not None:
+            os.close(self._master)
+            self._master = None
