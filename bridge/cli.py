@@ -15,6 +15,8 @@ VERBS = {
     "replay": "run a take through the live chain as fast as possible and list its events",
     "simulate": "write a take of the simulated jacket (for training and trying things out)",
     "check": "validate a mapping file against a model and print its rules",
+    "ports": "list serial ports with their USB ids and serial numbers",
+    "capture": "record a new wearer: prompts each gesture in turn and saves a labelled take as it goes",
 }
 
 
@@ -116,13 +118,29 @@ def cmd_demo(a) -> int:
     return 0
 
 
+def open_garment_source(cfg, model, on_change=None):
+    """The daemon's source for a config: a serial port that is reopened when it comes back,
+    or OSC over UDP. Raises SourceGone (OSC port busy) or ValueError (bad OSC layout)."""
+    from .sources.oscinput import OscUdpSource
+    from .sources.reconnect import ReconnectingSource
+    from .sources.serialport import SerialSource
+
+    if cfg.input == "osc":
+        return OscUdpSource(cfg.listen, cfg.address, cfg.arguments, model.rate_hz, model.channel_names, cfg.resample)
+    return ReconnectingSource(
+        lambda: SerialSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names,
+                             cfg.protocol, cfg.timestamp, cfg.resample),
+        model.rate_hz, model.channel_names, on_change=on_change)
+
+
 def cmd_start(a) -> int:
     from .mapping import MappingError, load_mapping
     from .recognition import ModelError, load_model
     from .service import Pipeline, StopFlag, run
     from .service.config import ConfigError, load_config
     from .sources.base import SourceGone
-    from .sources.serialport import SerialTextSource
+    from .sources.protocols import describe_counters
+    from .sources.textline import ProtocolUndecided
 
     try:
         cfg = load_config(a.config)
@@ -130,26 +148,58 @@ def cmd_start(a) -> int:
         mapping = load_mapping(cfg.mapping, model.classes, model.kinds) if cfg.mapping else None
     except (ConfigError, ModelError, MappingError) as exc:
         return _err(str(exc))
+
+    def said(connected, message):
+        print(f"drape: {cfg.port}: {message}", file=sys.stderr, flush=True)
+
     try:
-        source = SerialTextSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names)
-    except SourceGone as exc:
+        source = open_garment_source(cfg, model)
+    except (SourceGone, ValueError) as exc:
         return _err(str(exc))
+    where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
     outputs = _open_outputs(mapping) if mapping else {}
     stop = StopFlag()
     _stop_on_signals(stop)
-    print(f"drape: {cfg.name} on {cfg.port}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
+    print(f"drape: {cfg.name} on {where}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
+    if not source.connected:
+        print(f"drape: waiting for the garment ({source.last_error})", file=sys.stderr, flush=True)
+    if hasattr(source, "on_change"):
+        source.on_change = said
+
+    def status(state, reason):
+        print(f"drape: {state}" + (f" ({reason}); postures released, outputs held" if reason else ""),
+              file=sys.stderr, flush=True)
+
+    code = 0
     try:
-        run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event)
+        run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event,
+            stall_s=cfg.stall_s, on_status=status)
+    except ProtocolUndecided as exc:
+        print(f"drape: {exc}", file=sys.stderr)
+        code = 2
     except SourceGone as exc:
         print(f"drape: {exc}", file=sys.stderr)
-        return 1
+        code = 1
     finally:
         source.close()
         _close_outputs(outputs)
-        c = source.counters()
-        print(f"drape: stopped; lines good {c['good']}, skipped {c['malformed'] + c['wrong_count'] + c['out_of_range']} "
-              f"(malformed {c['malformed']}, wrong count {c['wrong_count']}, out of range {c['out_of_range']})",
-              file=sys.stderr, flush=True)
+        print(f"drape: stopped; {describe_counters(source.counters())}", file=sys.stderr, flush=True)
+    return code
+
+
+def cmd_ports(a) -> int:
+    from .sources.serialport import list_serial_ports
+
+    ports = list_serial_ports()
+    if not ports:
+        print("no serial ports found (is the garment plugged in? on Linux, is your user in the dialout group?)")
+        return 0
+    for p in ports:
+        ident = f"{p.vid:04x}:{p.pid:04x}" if p.vid is not None else "-"
+        print(f"{p.device:<22} usb {ident:<10} serial {p.serial_number or '-':<20} {p.description}"
+              + (f" ({p.manufacturer})" if p.manufacturer else ""))
+        if p.usb_id:
+            print(f"{'':22} config: port = \"{p.usb_id}\"")
     return 0
 
 
@@ -278,6 +328,8 @@ def build_parser() -> argparse.ArgumentParser:
     c.add_argument("file", metavar="MAPPING")
     c.add_argument("--model")
     c.set_defaults(func=cmd_check)
+    o = sub.add_parser("ports", help=VERBS["ports"], description=VERBS["ports"])
+    o.set_defaults(func=cmd_ports)
     return p
 
 

@@ -8,6 +8,7 @@ from dataclasses import dataclass, field
 from ..decisions import Event
 from ..outputs import Output
 from ..sources.base import Source
+from ..sources.health import NO_DATA, STREAMING, Watchdog
 from .pipeline import Pipeline
 
 
@@ -35,17 +36,23 @@ class RunStats:
     blocks: int = 0
     samples: int = 0
     events: int = 0
+    holds: int = 0  # times the outputs were held safe because data stopped
     hop_ms: list = field(default_factory=list)
 
 
 def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: StopFlag | None = None,
-        on_event=None, clock=time.monotonic) -> RunStats:
+        on_event=None, clock=time.monotonic, stall_s: float | None = None, on_status=None) -> RunStats:
     """Process until the source ends or ``stop`` is set; held postures are released on the way out.
 
     on_event(event, timing) is called for every event after its messages are sent.
+    stall_s: when set, a watchdog declares "no data" once the source is disconnected or has
+    given no sample for this long (s); held postures are then released (once) and the loop
+    keeps reading, resuming when samples come back. on_status(status, reason) hears each change.
     """
     stop = stop or StopFlag()
     stats = RunStats()
+    watchdog = Watchdog(stall_s) if stall_s else None
+    reported = None
 
     def deliver(events: list[Event], arrived: float) -> None:
         decided = clock()
@@ -62,6 +69,15 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     try:
         while not stop.stopped and not source.ended:
             block = source.read()
+            if watchdog is not None:
+                now = watchdog.step(clock(), len(block), getattr(source, "connected", True))
+                if now != reported:
+                    if reported is not None and reported[0] == STREAMING and now[0] == NO_DATA:
+                        stats.holds += 1  # hold outputs safe: let go of every posture, once
+                        deliver(pipeline.stop(), clock())
+                    if on_status and (reported is not None or now[0] == STREAMING or now[1] == "device gone"):
+                        on_status(*now)
+                    reported = now
             if len(block) == 0:
                 continue
             events = pipeline.feed(block.freq_hz)
