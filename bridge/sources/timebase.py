@@ -32,7 +32,7 @@ class DeviceClock:
     """
 
     nominal_period_s: float
-    gap_factor: float = 2.5
+    gap_factor: float = 1.5  # a step this many periods long means at least one sample is missing
     jump_s: float = 2.0
     window_s: float = 2.0
     windows: int = 30
