@@ -133,3 +133,39 @@ def test_interrupted_capture_leaves_a_readable_take(tmp_path):
         assert len(rec.intervals) >= 1 and rec.freq_hz.shape[0] > 100 and "Traceback" not in stderr
         if sig == signal.SIGINT:
             assert proc.returncode == 0 and "saved" in stdout and "SIGINT" in stdout
+
+
+def test_capture_from_a_port_detects_the_layout_and_records(tmp_path, capsys):
+    # A garment on a pty sending 30 s of the simulated jacket as text lines with a header and
+    # device time; capture finds the channels and the time column itself.
+    import os
+    import threading
+    from bridge.garment import Jacket, random_script
+    from bridge.sources import format_line
+
+    take = Jacket(seed=5).perform(random_script(np.random.default_rng(5), 30.0))
+    data = ("t_s," + ",".join(take.channel_names) + "\n").encode() + b"".join(
+        format_line(f, t) for t, f in zip(take.t_s, take.freq_hz))
+    master, slave = os.openpty()
+    out = tmp_path / "port.take"
+    argv = ["capture", "--port", os.ttyname(slave), "--yes", "--no-keys", "--reps", "1", "--gestures",
+            "raise_right,bow", "--lead-s", "1", "--countdown-s", "1", "--rest-s", "1", "--out", str(out)]
+    def garment():
+        time.sleep(1.0)  # capture has the port open (raw mode) by then
+        try:
+            for i in range(0, len(data), 4096):
+                os.write(master, data[i:i + 4096])
+        except OSError:  # capture finished and the pty was closed: the rest is not needed
+            pass
+
+    threading.Thread(target=garment, daemon=True).start()
+    try:
+        code = main(argv)
+    finally:
+        os.close(master)
+        os.close(slave)
+    assert code == 0, capsys.readouterr()
+    rec = read_recording(out)
+    assert rec.channel_names == take.channel_names and len(rec.intervals) == 2
+    assert sorted(iv.label for iv in rec.intervals) == ["bow", "raise_right"]
+    np.testing.assert_allclose(rec.freq_hz[:100], take.freq_hz[:100], atol=0.06)
