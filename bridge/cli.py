@@ -18,6 +18,8 @@ VERBS = {
     "tune": "choose each gesture's threshold and debounce from held-out takes; store them in the model",
     "bench": "print speed figures: classifier hops, and a continuous control's added latency and jitter",
     "range": "capture a wearer's level range (relaxed, then closest) for continuous controls",
+    "ports": "list serial ports with their USB ids and serial numbers",
+    "capture": "record a new wearer: prompts each gesture in turn and saves a labelled take as it goes",
 }
 
 
@@ -163,13 +165,29 @@ def cmd_demo(a) -> int:
     return 0
 
 
+def open_garment_source(cfg, model, on_change=None):
+    """The daemon's source for a config: a serial port that is reopened when it comes back,
+    or OSC over UDP. Raises SourceGone (OSC port busy) or ValueError (bad OSC layout)."""
+    from .sources.oscinput import OscUdpSource
+    from .sources.reconnect import ReconnectingSource
+    from .sources.serialport import SerialSource
+
+    if cfg.input == "osc":
+        return OscUdpSource(cfg.listen, cfg.address, cfg.arguments, model.rate_hz, model.channel_names, cfg.resample)
+    return ReconnectingSource(
+        lambda: SerialSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names,
+                             cfg.protocol, cfg.timestamp, cfg.resample),
+        model.rate_hz, model.channel_names, on_change=on_change)
+
+
 def cmd_start(a) -> int:
     from .mapping import MappingError, MappingWatcher
     from .recognition import ModelError, load_model
     from .service import Pipeline, StopFlag, run
     from .service.config import ConfigError, load_config
     from .sources.base import SourceGone
-    from .sources.serialport import SerialTextSource
+    from .sources.protocols import describe_counters
+    from .sources.textline import ProtocolUndecided
 
     try:
         cfg = load_config(a.config)
@@ -181,30 +199,186 @@ def cmd_start(a) -> int:
         return _err(str(exc))
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
+
+    def said(connected, message):
+        print(f"drape: {cfg.port}: {message}", file=sys.stderr, flush=True)
+
     try:
-        source = SerialTextSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names)
-    except SourceGone as exc:
+        source = open_garment_source(cfg, model)
+    except (SourceGone, ValueError) as exc:
         return _err(str(exc))
+    where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
     outputs = _open_outputs(mapping) if mapping else {}
     stop = StopFlag()
     _stop_on_signals(stop)
-    print(f"drape: {cfg.name} on {cfg.port}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
+    print(f"drape: {cfg.name} on {where}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
+    if not source.connected:
+        print(f"drape: waiting for the garment ({source.last_error})", file=sys.stderr, flush=True)
+    if hasattr(source, "on_change"):
+        source.on_change = said
+
+    def status(state, reason):
+        print(f"drape: {state}" + (f" ({reason}); postures released, outputs held" if reason else ""),
+              file=sys.stderr, flush=True)
+
+    code = 0
     try:
         run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event,
-            watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report)
+            watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report,
+            stall_s=cfg.stall_s, on_status=status)
+    except ProtocolUndecided as exc:
+        print(f"drape: {exc}", file=sys.stderr)
+        code = 2
     except SourceGone as exc:
         print(f"drape: {exc}", file=sys.stderr)
-        return 1
+        code = 1
     finally:
         source.close()
         if inbox:
             inbox.close()
         _close_outputs(outputs)
-        c = source.counters()
-        print(f"drape: stopped; lines good {c['good']}, skipped {c['malformed'] + c['wrong_count'] + c['out_of_range']} "
-              f"(malformed {c['malformed']}, wrong count {c['wrong_count']}, out of range {c['out_of_range']})",
-              file=sys.stderr, flush=True)
+        print(f"drape: stopped; {describe_counters(source.counters())}", file=sys.stderr, flush=True)
+    return code
+
+
+def cmd_ports(a) -> int:
+    from .sources.serialport import list_serial_ports
+
+    ports = list_serial_ports()
+    if not ports:
+        print("no serial ports found (is the garment plugged in? on Linux, is your user in the dialout group?)")
+        return 0
+    for p in ports:
+        ident = f"{p.vid:04x}:{p.pid:04x}" if p.vid is not None else "-"
+        print(f"{p.device:<22} usb {ident:<10} serial {p.serial_number or '-':<20} {p.description}"
+              + (f" ({p.manufacturer})" if p.manufacturer else ""))
+        if p.usb_id:
+            print(f"{'':22} config: port = \"{p.usb_id}\"")
     return 0
+
+
+class _Keys:
+    """Keys pressed, without waiting: single keys from a terminal (cbreak mode), or lines from a
+    pipe (each line's first letter is a key), so capture can be driven by a script."""
+
+    def __init__(self, stream=None):
+        self.stream = stream
+        self.saved = None
+        self.open = self.stream is not None and not self.stream.closed
+        if self.open and self.stream.isatty():
+            import termios
+            import tty
+            self.saved = termios.tcgetattr(self.stream.fileno())
+            tty.setcbreak(self.stream.fileno())
+
+    def __call__(self) -> list[str]:
+        import os
+        import select
+        if not self.open:
+            return []
+        out = []
+        while select.select([self.stream], [], [], 0)[0]:
+            data = os.read(self.stream.fileno(), 64).decode("utf-8", "replace")
+            if not data:  # end of input: no more keys
+                self.open = False
+                break
+            out += [c for c in data if c.strip()] if self.saved else [l for l in data.splitlines() if l.strip()]
+        return out
+
+    def close(self) -> None:
+        if self.saved is not None:
+            import termios
+            termios.tcsetattr(self.stream.fileno(), termios.TCSADRAIN, self.saved)
+            self.saved = None
+
+
+def cmd_capture(a) -> int:
+    import numpy as np
+    from .garment import GESTURES
+    from .service import StopFlag
+    from .service.capture import CaptureSession, CaptureSettings, capture_plan, run_capture
+    from .sources import RecordingWriter
+    from .sources.base import SourceGone
+    from .sources.protocols import describe_counters
+    from .sources.textline import ProtocolUndecided
+
+    if bool(a.simulated) == bool(a.port):
+        return _err("capture needs --port PORT (a garment) or --simulated (the built-in jacket)")
+    gestures = [g.strip() for g in a.gestures.split(",") if g.strip()] if a.gestures else list(GESTURES)
+    postures = {p.strip() for p in (a.postures or "").split(",") if p.strip()}
+    kinds = {g: ("posture" if g in postures else GESTURES.get(g, "gesture")) for g in gestures}
+    if a.simulated:
+        unknown = [g for g in gestures if g not in GESTURES]
+        if unknown:
+            return _err(f"the simulated wearer knows {', '.join(GESTURES)}; not {', '.join(unknown)}")
+    if a.reps < 1 or not gestures:
+        return _err("capture needs at least one gesture and --reps of 1 or more")
+    interactive = sys.stdin is not None and sys.stdin.isatty() and not a.yes
+    wearer, session = a.wearer, a.session
+    if interactive:
+        wearer = input(f"wearer [{wearer}]: ").strip() or wearer
+        session = input(f"session [{session}]: ").strip() or session
+    out = Path(a.out or f"{wearer}-{session}.take")
+    if out.exists() and not a.overwrite:
+        return _err(f"{out} exists; choose another --out or pass --overwrite")
+
+    stop = StopFlag()
+    if a.simulated:
+        from .sources.simulated import PromptedSimulatedSource
+        source = PromptedSimulatedSource(seed=a.seed, wearer=a.sim_wearer, session=a.sim_session, realtime=not a.fast)
+        layout = "simulated jacket"
+    else:
+        from .sources.serialport import SerialSource
+        try:
+            source = SerialSource(a.port, a.channels, a.rate_hz, a.baud, None, a.protocol,
+                                  {"yes": True, "no": False}.get(a.timestamp))
+        except SourceGone as exc:
+            return _err(str(exc))
+        layout = a.layout
+    try:
+        first = None
+        if not a.simulated:  # the take's header needs the channels: wait for the first samples
+            t0 = time.monotonic()
+            while first is None or len(first) == 0:
+                first = source.read()
+                if time.monotonic() - t0 > a.wait_s:
+                    return _err(f"no samples from {a.port} within {a.wait_s:g} s ({describe_counters(source.counters())})")
+        rng = np.random.default_rng(a.seed)
+        plan = capture_plan(rng, gestures, a.reps)
+        settings = CaptureSettings(a.reps, a.countdown_s, a.window_s, a.hold_s, (a.rest_s, a.rest_s * 2), a.lead_s)
+        writer = RecordingWriter(out, source.rate_hz, source.channel_names, wearer, session, layout, kinds)
+    except (SourceGone, ProtocolUndecided) as exc:
+        source.close()
+        return _err(str(exc))
+    sess = CaptureSession(plan, kinds, settings, writer, rng, getattr(source, "prompt", None))
+    tty_out = sys.stdout.isatty()
+    keys = _Keys(None if a.no_keys else sys.stdin)
+    _stop_on_signals(stop)
+
+    def text(line):
+        print(("\r\033[K" if tty_out else "") + line, flush=True)
+
+    def status(line):
+        if tty_out:
+            print("\r\033[K" + line, end="", flush=True)
+
+    print(f"capturing {len(gestures)} gestures x {a.reps} into {out} ({len(source.channel_names)} channels at "
+          f"{source.rate_hz:g} Hz); keys: r redo last, s skip, q finish", flush=True)
+    code = 0
+    try:
+        if first is not None:
+            writer.samples(np.arange(len(first)) / source.rate_hz, first.freq_hz)
+        run_capture(source, sess, writer, stop, text, status, keys)
+    except (SourceGone, ProtocolUndecided) as exc:
+        text(f"drape: {exc}; the take so far is saved")
+        code = 1
+    finally:
+        keys.close()
+        writer.close()
+        source.close()
+    why = f" ({stop.reason})" if stop.reason else " (finished early)" if sess.finished_early else ""
+    text(f"saved {out}{why}: {len(sess.done)} labelled, {len(sess.skipped)} skipped, {sess.redone} redone")
+    return code
 
 
 def cmd_fit(a) -> int:
@@ -553,6 +727,38 @@ def build_parser() -> argparse.ArgumentParser:
     b = sub.add_parser("bench", help=VERBS["bench"], description=VERBS["bench"])
     b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
     b.set_defaults(func=cmd_bench)
+    o = sub.add_parser("ports", help=VERBS["ports"], description=VERBS["ports"])
+    o.set_defaults(func=cmd_ports)
+    g = sub.add_parser("capture", help=VERBS["capture"], description=VERBS["capture"] +
+                       ". Keys while it runs: r redo the last prompt, s skip, q finish; Ctrl-C stops and keeps the take.")
+    g.add_argument("--port", help="the garment's serial port (path, usb:VID:PID[:SERIAL] or serial:SERIAL)")
+    g.add_argument("--simulated", action="store_true", help="the built-in simulated jacket; its wearer follows the prompts")
+    g.add_argument("--out", help="take file to write (default WEARER-SESSION.take)")
+    g.add_argument("--overwrite", action="store_true", help="replace an existing take file")
+    g.add_argument("--wearer", default="wearer1")
+    g.add_argument("--session", default=time.strftime("%Y%m%d-%H%M"))
+    g.add_argument("--yes", action="store_true", help="ask nothing: take wearer and session from the options")
+    g.add_argument("--gestures", help="comma-separated names to prompt (default: the built-in vocabulary)")
+    g.add_argument("--postures", help="which of the names are postures (held); built-in names know their kind")
+    g.add_argument("--reps", type=int, default=5, help="repetitions of each gesture")
+    g.add_argument("--countdown-s", type=float, default=3.0)
+    g.add_argument("--window-s", type=float, default=3.0, help="time given to perform a gesture, s")
+    g.add_argument("--hold-s", type=float, default=5.0, help="time a posture is held, s")
+    g.add_argument("--rest-s", type=float, default=2.0, help="shortest rest between prompts, s (up to twice this)")
+    g.add_argument("--lead-s", type=float, default=4.0, help="null activity recorded before the first prompt, s")
+    g.add_argument("--seed", type=int, default=0, help="seeds the prompt order (and the simulated jacket)")
+    g.add_argument("--fast", action="store_true", help="simulated: run as fast as possible")
+    g.add_argument("--sim-wearer", type=int, default=0)
+    g.add_argument("--sim-session", type=int, default=0)
+    g.add_argument("--no-keys", action="store_true", help="ignore standard input")
+    g.add_argument("--protocol", choices=("auto", "text", "frames"), default="auto")
+    g.add_argument("--channels", type=int, help="channels per sample (default: detect)")
+    g.add_argument("--timestamp", choices=("yes", "no"), help="text lines start with the device time (default: detect)")
+    g.add_argument("--rate-hz", type=float, default=100.0, help="sample rate to record at, Hz")
+    g.add_argument("--baud", type=int, default=115200)
+    g.add_argument("--layout", default="", help="garment or antenna layout, kept in the take")
+    g.add_argument("--wait-s", type=float, default=5.0, help="give up when the port sends nothing for this long, s")
+    g.set_defaults(func=cmd_capture)
     return p
 
 

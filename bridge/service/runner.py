@@ -13,6 +13,7 @@ from dataclasses import dataclass, field
 from ..decisions import Event
 from ..outputs import Output
 from ..sources.base import Source
+from ..sources.health import NO_DATA, STREAMING, Watchdog
 from .pipeline import Pipeline
 
 
@@ -50,6 +51,7 @@ class RunStats:
     controls: int = 0
     reloads: int = 0
     broken_reloads: int = 0
+    holds: int = 0  # times the outputs were held safe because data stopped
     hop_ms: list = field(default_factory=list)
 
 
@@ -71,7 +73,8 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
 
 
 def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: StopFlag | None = None,
-        on_event=None, clock=time.monotonic, watcher=None, inbox=None, open_fn=None, report=print) -> RunStats:
+        on_event=None, clock=time.monotonic, watcher=None, inbox=None, open_fn=None, report=print,
+        stall_s: float | None = None, on_status=None) -> RunStats:
     """Process until the source ends or ``stop`` is set; held postures, notes and keys are
     released on the way out.
 
@@ -79,10 +82,15 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     watcher: a ``MappingWatcher`` polled between blocks; open_fn(destination) opens outputs
     for destinations a reload adds. inbox: a ``ControlInbox`` polled between blocks.
     report(text) receives reload results and command notes.
+    stall_s: when set, a watchdog declares "no data" once the source is disconnected or has
+    given no sample for this long (s); held postures are then released (once) and the loop
+    keeps reading, resuming when samples come back. on_status(status, reason) hears each change.
     """
     stop = stop or StopFlag()
     stats = RunStats()
     panics_seen = stop.panics
+    watchdog = Watchdog(stall_s) if stall_s else None
+    reported = None
 
     def send(dispatches) -> None:
         for d in dispatches:
@@ -135,6 +143,15 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
         while not stop.stopped and not source.ended:
             poll()
             block = source.read()
+            if watchdog is not None:
+                now = watchdog.step(clock(), len(block), getattr(source, "connected", True))
+                if now != reported:
+                    if reported is not None and reported[0] == STREAMING and now[0] == NO_DATA:
+                        stats.holds += 1  # hold outputs safe: let go of every posture, once
+                        deliver(pipeline.stop(), clock())
+                    if on_status and (reported is not None or now[0] == STREAMING or now[1] == "device gone"):
+                        on_status(*now)
+                    reported = now
             if len(block) == 0:
                 continue
             events = pipeline.feed(block.freq_hz, early=lambda ev: deliver(ev, block.arrived_s))

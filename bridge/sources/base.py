@@ -31,11 +31,13 @@ class Source:
     """Base class. ``read`` waits briefly and returns a Block (possibly empty).
 
     ``ended`` becomes True when a finite source (a file, a fixed-length simulation) is exhausted.
+    ``connected`` is False while a device is away (a reconnecting source keeps trying meanwhile).
     """
 
     rate_hz: float
     channel_names: tuple[str, ...]
     ended: bool = False
+    connected: bool = True
 
     @property
     def n_channels(self) -> int:

@@ -5,10 +5,14 @@
     t_s,left_sleeve,right_sleeve,...
     0.0000,181234.0,...
     #label {"start_s": 3.2, "end_s": 4.5, "label": "raise_right"}
+    #void {"start_s": 3.2, "end_s": 4.5, "label": "raise_right"}
 
 Lines starting with '#' carry metadata and labels (labels may come anywhere, appended as
 gestures end); the rest is CSV that spreadsheet tools read with '#' as comment. The writer
-flushes at least once a second, so a crash loses at most the last second.
+flushes at least once a second, so a crash loses at most the last second. A ``#void`` line
+withdraws an earlier label with the same start, end and name (guided capture writes one when
+the wearer asks to redo a take: the file stays append-only). The full description of the
+format, version 1, is in docs/acquisition.md.
 """
 
 from __future__ import annotations
@@ -79,6 +83,11 @@ class RecordingWriter:
         self.fh.write(f"#label {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
         self._maybe_flush()
 
+    def void(self, start_s: float, end_s: float, label: str) -> None:
+        """Withdraw a label written earlier (same start, end and name)."""
+        self.fh.write(f"#void {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
+        self._maybe_flush()
+
     def _maybe_flush(self) -> None:
         now = time.monotonic()
         if now - self._last_flush >= self.flush_s:
@@ -133,15 +142,21 @@ def read_recording(path: str | Path) -> Recording:
                 raise RecordingError(f"{path}:{no}: metadata needs channels and a positive rate_hz")
             n_cols = len(channels) + 1
             continue
-        if s.startswith("#label "):
+        if s.startswith("#label ") or s.startswith("#void "):
+            void = s.startswith("#void ")
             try:
-                d = json.loads(s[7:])
+                d = json.loads(s[6:] if void else s[7:])
                 lab = Label(float(d["start_s"]), float(d["end_s"]), str(d["label"]))
             except (json.JSONDecodeError, KeyError, TypeError, ValueError) as exc:
                 raise RecordingError(f"{path}:{no}: label line unreadable ({exc})") from None
             if not (math.isfinite(lab.start_s) and lab.end_s > lab.start_s):
                 raise RecordingError(f"{path}:{no}: label needs start_s < end_s")
-            labels.append(lab)
+            if void:
+                if lab not in labels:
+                    raise RecordingError(f"{path}:{no}: #void names no earlier label")
+                labels.remove(lab)
+            else:
+                labels.append(lab)
             continue
         if s.startswith("#") or s.startswith("t_s"):
             continue

@@ -1,51 +1,154 @@
-"""A garment on a serial port speaking the text-line protocol."""
+"""A garment on a serial port: finding the port, reading either protocol, keeping time.
+
+A config names a port by its path (``/dev/ttyACM0``, ``COM4``), or by its USB identity so a
+garment plugged into another socket is still found:
+
+    usb:2341:8037             vendor id : product id (hex), the first such device
+    usb:2341:8037:5A3F2B11    ... with this USB serial number
+    serial:5A3F2B11           any device with this USB serial number
+
+pyserial URLs (``loop://``, ``socket://host:port``) are passed through.
+"""
 
 from __future__ import annotations
 
 import time
+from dataclasses import dataclass
 
 import numpy as np
 import serial
+from serial.tools import list_ports
 
 from .base import Block, Source, SourceGone, empty_block
-from .textline import TextLineParser
+from .protocols import StreamDecoder
+from .timebase import DeviceClock, Resampler
 
 
-class SerialTextSource(Source):
-    """Reads protocol lines from a serial device (or a pseudo-terminal) as they arrive.
+@dataclass(frozen=True)
+class PortInfo:
+    """One serial port as the system lists it. vid/pid are None for non-USB ports."""
 
-    Samples without a device time get t = sample count / rate_hz.
+    device: str
+    vid: int | None
+    pid: int | None
+    serial_number: str | None
+    description: str
+    manufacturer: str | None
+
+    @property
+    def usb_id(self) -> str:
+        """The spec a config can use to find this device again ("" for non-USB ports)."""
+        if self.vid is None or self.pid is None:
+            return ""
+        base = f"usb:{self.vid:04x}:{self.pid:04x}"
+        return f"{base}:{self.serial_number}" if self.serial_number else base
+
+
+def list_serial_ports() -> list[PortInfo]:
+    return [PortInfo(p.device, p.vid, p.pid, p.serial_number, p.description or "", p.manufacturer)
+            for p in sorted(list_ports.comports(), key=lambda p: p.device)]
+
+
+def resolve_port(spec: str, ports: list[PortInfo] | None = None) -> str:
+    """The device path for a port spec (see the module docstring); SourceGone when absent."""
+    spec = spec.strip()
+    if "://" in spec or not (spec.startswith("usb:") or spec.startswith("serial:")):
+        return spec
+    ports = list_serial_ports() if ports is None else ports
+    kind, _, rest = spec.partition(":")
+    if kind == "serial":
+        found = [p for p in ports if p.serial_number and p.serial_number == rest]
+    else:
+        parts = rest.split(":", 2)
+        try:
+            vid, pid = int(parts[0], 16), int(parts[1], 16)
+        except (ValueError, IndexError):
+            raise ValueError(f"port {spec!r}: expected usb:VID:PID or usb:VID:PID:SERIAL with hex ids") from None
+        found = [p for p in ports if p.vid == vid and p.pid == pid
+                 and (len(parts) < 3 or p.serial_number == parts[2])]
+    if not found:
+        raise SourceGone(f"no serial device matches {spec} (see `drape ports`)")
+    return found[0].device
+
+
+class SerialSource(Source):
+    """Reads a garment's samples from a serial device (or a pseudo-terminal) as they arrive.
+
+    protocol: "auto", "text" or "frames". n_channels: None to detect it (text header or the
+    first lines; frames say it). rate_hz: the rate the consumer wants, Hz (the model's).
+    With device times (frames, or text lines that carry one) the stream is resampled onto a
+    grid at rate_hz unless ``resample`` is False; samples without device time get
+    t = sample count / rate_hz. Raises SourceGone when the port cannot be opened or fails,
+    ProtocolUndecided (from ``read``) when the stream's layout cannot be told.
     """
 
-    def __init__(self, port: str, n_channels: int, rate_hz: float, baud: int = 115200,
-                 channel_names=None, timeout_s: float = 0.02):
+    def __init__(self, port: str, n_channels: int | None = None, rate_hz: float = 100.0, baud: int = 115200,
+                 channel_names=None, protocol: str = "auto", timestamp: bool | None = None,
+                 resample: bool = True, timeout_s: float = 0.02, clock=time.monotonic):
         self.port = port
         self.rate_hz = float(rate_hz)
-        self.channel_names = tuple(channel_names or (f"ch{i + 1}" for i in range(n_channels)))
-        self.parser = TextLineParser(n_channels)
+        self._names = tuple(channel_names) if channel_names else None
+        if self._names and n_channels is None:
+            n_channels = len(self._names)
+        self.decoder = StreamDecoder(protocol, n_channels, timestamp)
+        self.resample = resample
+        self.clock = clock
+        self.device_clock = DeviceClock(1.0 / self.rate_hz)
+        self.resampler = Resampler(self.rate_hz)
+        self.count = 0
         try:
-            self.serial = serial.Serial(port, baud, timeout=timeout_s)
+            self.device = resolve_port(port)
+            if "://" in self.device:
+                self.serial = serial.serial_for_url(self.device, baud, timeout=timeout_s)
+            else:
+                self.serial = serial.Serial(self.device, baud, timeout=timeout_s)
         except (serial.SerialException, OSError) as exc:
             raise SourceGone(f"cannot open serial port {port}: {exc}") from None
-        self.count = 0
+
+    @property
+    def channel_names(self) -> tuple[str, ...]:
+        n = self.decoder.decided_channels
+        if self._names:
+            return self._names
+        header = self.decoder.header_names
+        if header and (n is None or len(header) == n):
+            return tuple(header)
+        return tuple(f"ch{i + 1}" for i in range(n or 0))
 
     def read(self) -> Block:
         try:
             data = self.serial.read(max(1, self.serial.in_waiting))
-        except (serial.SerialException, OSError) as exc:
+        except (serial.SerialException, OSError, TypeError) as exc:
+            # pyserial raises TypeError from in_waiting on a port closed under it
             raise SourceGone(f"serial port {self.port} failed: {exc}") from None
-        now = time.monotonic()
-        samples = self.parser.feed(data) if data else []
+        now = self.clock()
+        samples = self.decoder.feed(data) if data else []
+        n_ch = self.decoder.decided_channels or 0
         if not samples:
-            return empty_block(self.n_channels, now)
-        t = np.array([s[0] if s[0] is not None else (self.count + i) / self.rate_hz for i, s in enumerate(samples)])
-        self.count += len(samples)
-        return Block(t, np.array([s[1] for s in samples], dtype=float), now)
+            return empty_block(n_ch, now)
+        f = np.array([s[1] for s in samples], dtype=float)
+        if all(s[0] is not None for s in samples):
+            t = np.array([s[0] for s in samples], dtype=float)
+            self.device_clock.update(t, now)
+            if self.resample:
+                t, f = self.resampler.process(t, f)
+        else:
+            t = (self.count + np.arange(len(samples))) / self.rate_hz
+        self.count += len(t)
+        return Block(t, f, now)
 
     def counters(self) -> dict:
-        st = self.parser.stats
-        return {"good": st.good, "malformed": st.malformed, "wrong_count": st.wrong_count,
-                "out_of_range": st.out_of_range}
+        c = self.decoder.counters()
+        c.update(gaps=self.device_clock.gaps, missing=self.device_clock.missing, jumps=self.device_clock.jumps)
+        return c
 
     def close(self) -> None:
         self.serial.close()
+
+
+class SerialTextSource(SerialSource):
+    """The text-line protocol with a stated channel count (kept for existing callers)."""
+
+    def __init__(self, port: str, n_channels: int, rate_hz: float, baud: int = 115200,
+                 channel_names=None, timeout_s: float = 0.02):
+        super().__init__(port, n_channels, rate_hz, baud, channel_names, "text", None, True, timeout_s)

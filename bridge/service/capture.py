@@ -1,0 +1,228 @@
+"""Guided capture: prompt a wearer through each gesture, record the whole stream, label as it goes.
+
+The session runs on stream time (samples received / rate), not the wall clock, so a garment,
+a real-time simulation and a fast simulation all behave the same. For each prompt:
+
+    countdown  "next: NAME" for countdown_s (the wearer gets ready; null activity)
+    perform    "now: NAME" for window_s (gestures) or hold_s (postures); the label covers it
+    rest       a random stretch of null activity before the next countdown
+
+Everything is written as it arrives (RecordingWriter: a crash loses at most a second). Keys:
+``r`` redo the last prompt (its label is withdrawn and it is asked again next), ``s`` skip
+the current (or coming) prompt, ``q`` finish early.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass, field
+
+import numpy as np
+
+COUNTDOWN, PERFORM, REST, DONE = "countdown", "perform", "rest", "done"
+
+
+@dataclass(frozen=True)
+class CaptureSettings:
+    """Times in seconds of stream time."""
+
+    repetitions: int = 5
+    countdown_s: float = 3.0
+    window_s: float = 3.0      # time given for a gesture after "now"
+    hold_s: float = 5.0        # time a posture is held after "now"
+    rest_s: tuple = (2.0, 4.0)
+    lead_s: float = 4.0        # null activity before the first countdown
+
+
+def capture_plan(rng: np.random.Generator, gestures, repetitions: int) -> list[str]:
+    """Each gesture ``repetitions`` times: rounds of a shuffled order, never the same twice in a row."""
+    gestures = list(gestures)
+    plan: list[str] = []
+    for _ in range(repetitions):
+        order = [gestures[i] for i in rng.permutation(len(gestures))]
+        if plan and len(order) > 1 and order[0] == plan[-1]:
+            order[0], order[1] = order[1], order[0]
+        plan += order
+    return plan
+
+
+@dataclass
+class CaptureSession:
+    """The prompting state machine. ``advance(now_s)`` moves it along stream time and returns
+    announcements (one line each); ``key(k)`` applies a key. ``writer`` receives labels and
+    voids; ``prompt(label, within_s)`` (optional) is told at each "now" (a simulated wearer).
+    """
+
+    plan: list
+    kinds: dict
+    settings: CaptureSettings
+    writer: object
+    rng: np.random.Generator
+    prompt: object = None
+    phase: str = REST
+    index: int = 0                 # the prompt under way or coming
+    phase_end_s: float = 0.0
+    go_s: float = 0.0
+    done: list = field(default_factory=list)      # (start_s, end_s, label) written
+    skipped: list = field(default_factory=list)
+    redone: int = 0
+    finished_early: bool = False
+    locate: object = None          # locate(start_s, end_s) -> (a_s, b_s) or None: where the movement was
+
+    def __post_init__(self):
+        self.phase_end_s = self.settings.lead_s
+        self.total = len(self.plan)
+
+    def window_s(self, label: str) -> float:
+        return self.settings.hold_s if self.kinds.get(label) == "posture" else self.settings.window_s
+
+    @property
+    def current(self) -> str | None:
+        return self.plan[self.index] if self.index < len(self.plan) else None
+
+    def advance(self, now_s: float) -> list[str]:
+        out = []
+        while self.phase != DONE and now_s >= self.phase_end_s:
+            t = self.phase_end_s
+            if self.phase == REST:
+                if self.current is None:
+                    self.phase = DONE
+                    out.append("all prompts done")
+                    break
+                self.phase, self.phase_end_s = COUNTDOWN, t + self.settings.countdown_s
+                out.append(f"next: {self.current}")
+            elif self.phase == COUNTDOWN:
+                label = self.current
+                self.phase, self.go_s = PERFORM, t
+                self.phase_end_s = t + self.window_s(label)
+                if self.prompt:
+                    self.prompt(label, self.window_s(label))
+                out.append(f"now: {label}" + (" (hold it)" if self.kinds.get(label) == "posture" else ""))
+            elif self.phase == PERFORM:
+                label = self.current
+                span = self.locate(self.go_s, self.phase_end_s) if self.locate else None
+                a, b = span if span else (self.go_s, self.phase_end_s)
+                a, b = round(a, 4), round(b, 4)
+                self.writer.label(a, b, label)
+                self.done.append((a, b, label))
+                self.index += 1
+                self.phase, self.phase_end_s = REST, t + float(self.rng.uniform(*self.settings.rest_s))
+                note = "" if span or not self.locate else "; no clear movement seen, r to redo"
+                out.append(f"done: {label} {a:.1f}-{b:.1f} s ({self.progress_text()}{note})")
+        return out
+
+    def key(self, k: str, now_s: float) -> list[str]:
+        k = k.strip().lower()[:1]
+        if k == "q":
+            self.phase, self.finished_early = DONE, True
+            return ["finishing early"]
+        if k == "s":
+            if self.current is None or self.phase == DONE:
+                return []
+            label = self.plan.pop(self.index)
+            self.skipped.append(label)
+            if self.phase in (COUNTDOWN, PERFORM):
+                self.phase, self.phase_end_s = REST, now_s + self.settings.rest_s[0]
+            return [f"skipped: {label}"]
+        if k == "r":
+            if self.phase == PERFORM:  # redo the one under way: no label, ask again after a rest
+                self.redone += 1
+                self.phase, self.phase_end_s = REST, now_s + self.settings.rest_s[0]
+                return [f"again: {self.current} (after a short rest)"]
+            if not self.done:
+                return []
+            start, end, label = self.done.pop()
+            self.writer.void(start, end, label)
+            self.redone += 1
+            self.index -= 1  # the plan keeps its entry: step back onto it
+            if self.phase == COUNTDOWN:  # the coming prompt waits; the redone one comes first
+                self.phase, self.phase_end_s = REST, now_s + self.settings.rest_s[0]
+            return [f"again: {label} (its last take withdrawn)"]
+        return []
+
+    def progress_text(self) -> str:
+        return f"{len(self.done)}/{len(self.plan)}"
+
+    def status_line(self, now_s: float, width: int = 24) -> str:
+        """The line shown under the announcements: progress bar, phase and countdown."""
+        n_all = max(1, len(self.plan))
+        filled = int(round(width * len(self.done) / n_all))
+        bar = "[" + "#" * filled + "." * (width - filled) + f"] {self.progress_text()}"
+        left = max(0.0, self.phase_end_s - now_s)
+        if self.phase == COUNTDOWN:
+            return f"{bar}  next: {self.current} in {int(np.ceil(left))}"
+        if self.phase == PERFORM:
+            span = self.window_s(self.current)
+            k = int(round(10 * (1 - left / span)))
+            return f"{bar}  NOW: {self.current} " + ">" * k + " " * (10 - k)
+        if self.phase == REST:
+            return f"{bar}  rest, stand easy ({left:.0f} s)"
+        return f"{bar}  done"
+
+
+def movement_span(freq_hz: np.ndarray, rate_hz: float, go_index: int, baseline_s: float = 1.0,
+                  min_z: float = 8.0, fraction: float = 0.25, pad_s: float = 0.0) -> tuple[int, int] | None:
+    """Where in ``freq_hz[go_index:]`` the wearer moved: (first, last) sample index, or None.
+
+    The ``baseline_s`` before go_index is the still reference: per channel, log-frequency
+    deviation from its median, in units of its robust spread (MAD; at least one count of the
+    counter). A sample is active when the largest deviation, smoothed over 0.1 s, exceeds
+    ``fraction`` of the peak and ``min_z``; the span runs from the first to the last active
+    sample, padded by pad_s. None when nothing stands out (the wearer did not move).
+    """
+    nb = max(2, int(round(baseline_s * rate_hz)))
+    lo = max(0, go_index - nb)
+    x = np.log(np.asarray(freq_hz, dtype=float))
+    base = x[lo:go_index] if go_index - lo >= 2 else x[go_index:go_index + 2]
+    med = np.median(base, axis=0)
+    mad = 1.4826 * np.median(np.abs(base - med), axis=0)
+    floor = rate_hz / np.exp(med)  # one count of a counter gated at 1/rate, as a log step
+    z = np.max(np.abs(x[go_index:] - med) / np.maximum(mad, floor), axis=1)
+    k = max(1, int(round(0.1 * rate_hz)))
+    z = np.convolve(z, np.ones(k) / k, mode="same")
+    if z.size == 0 or z.max() < min_z:
+        return None
+    active = np.flatnonzero(z >= max(min_z, fraction * z.max()))
+    pad = int(round(pad_s * rate_hz))
+    return go_index + max(0, active[0] - pad), go_index + min(z.size - 1, active[-1] + pad)
+
+
+def run_capture(source, session: CaptureSession, writer, stop=None, on_text=None, on_status=None, keys=None):
+    """Read ``source`` into ``writer`` until the session is done or ``stop`` is set.
+
+    Samples are written with stream time t = index / rate (a uniform grid), the time the
+    labels use. keys(): returns keys pressed since the last call (may be empty). on_text(line)
+    hears announcements; on_status(line) the status line about ten times a second of stream.
+    Returns the number of samples written.
+    """
+    n = 0
+    rate = source.rate_hz
+    last_status = -1
+    keep = int(round(30 * rate))  # recent samples, for locating the movement in each window
+    recent = np.empty((0, len(source.channel_names)))
+
+    def locate(start_s, end_s):
+        first = n - recent.shape[0]
+        a, b = int(round(start_s * rate)) - first, int(round(end_s * rate)) - first
+        if a < 0 or b > recent.shape[0]:
+            return None
+        span = movement_span(recent[:b], rate, a)
+        return None if span is None else ((first + span[0]) / rate, (first + span[1] + 1) / rate)
+
+    session.locate = locate
+    while session.phase != DONE and not (stop is not None and stop.stopped) and not source.ended:
+        block = source.read()
+        if len(block):
+            writer.samples((n + np.arange(len(block))) / rate, block.freq_hz)
+            n += len(block)
+            recent = np.concatenate([recent, block.freq_hz])[-keep:]
+        now = n / rate
+        for k in (keys() if keys else []):
+            for line in session.key(k, now):
+                on_text and on_text(line)
+        for line in session.advance(now):
+            on_text and on_text(line)
+        tick = int(now * 10)
+        if on_status and tick != last_status:
+            last_status = tick
+            on_status(session.status_line(now))
+    return n
