@@ -105,12 +105,21 @@ class StubPipeline:
         self.stops = 0
         self.holding = False
 
-    def feed(self, f):
+    mapping = None
+    router = None
+
+    def feed(self, f, early=None):
         self.fed += len(f)
         self.holding = True
         return []
 
     def dispatches(self, events):
+        return []
+
+    def command(self, kind, detail=""):
+        return []
+
+    def let_go(self):
         return []
 
     def stop(self):
