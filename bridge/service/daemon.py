@@ -209,10 +209,13 @@ class Service:
             g.shift = ShiftDetector(g.model.rate_hz) if self.config.detect_shift else None
             self.begin_hold(g, CALIBRATING, "hold still: calibrating")
             g.reader = Reader(i, g.source, self.q)
-            g.reader.start()
             where = "simulated jacket" if cfg.simulated else (cfg.port or f"OSC {cfg.listen}")
             log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).name,
                      len(g.model.classes) - 1, cfg.mapping.name if cfg.mapping else "none")
+
+        for g in self.garments:  # read only once every model is ready: none waits on another's training
+            if g.reader is not None and g.state != FAILED:
+                g.reader.start()
 
     def fail(self, g: Garment, why: str) -> None:
         g.state, g.note = FAILED, why

@@ -42,11 +42,13 @@ class StatusView:
     uptime_s: float = 0.0
     pid: int = 0
     heard_alive: bool = False
+    expected: int = 0          # garments the daemon runs (from its heartbeat)
 
     def take(self, address: str, args: list) -> None:
         parts = address.split("/")
         if address == "/drape/alive" and len(args) >= 3:
             self.uptime_s, self.pid, self.heard_alive = float(args[0]), int(args[2]), True
+            self.expected = int(args[1])
             return
         if len(parts) != 5 or parts[1] != "drape" or parts[2] != "g":
             return
@@ -116,7 +118,7 @@ def watch(host: str, port: int, once: bool = False, wait_s: float = 5.0, out=Non
                 ready, _, _ = select.select([sock], [], [], 0)
             now = time.monotonic()
             if once:
-                complete = view.heard_alive and view.garments and all(
+                complete = view.heard_alive and len(view.garments) >= max(1, view.expected) and all(
                     g.state != "?" and (g.levels or g.state != "running") for g in view.garments.values())
                 if complete or now - started > wait_s:
                     out.write(render(view) + "\n")
@@ -162,7 +164,8 @@ def send_command(to: str, what: str, layer: str = "", garment: str = "", token: 
             except (OSError, ParseError, IndexError, ValueError):
                 break
             view.take(m.address, list(m.params))
-            if view.heard_alive and view.garments and all(g.channels or g.state == "failed" for g in view.garments.values()):
+            if view.heard_alive and len(view.garments) >= view.expected and all(
+                    g.channels or g.state == "failed" for g in view.garments.values()):
                 break
         return render(view).splitlines() if view.heard_alive else []
     finally:
