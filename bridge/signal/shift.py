@@ -25,8 +25,8 @@ class ShiftDetector:
     """
 
     rate_hz: float
-    threshold: float = 0.004      # relative frequency step, |Δf/f| (≈ half of ΔC/C0)
-    sustain_s: float = 2.5        # longer than a gesture, shorter than a show's patience
+    threshold: float = 0.008      # relative frequency step, |Δf/f| (≈ half of ΔC/C0)
+    sustain_s: float = 4.0        # longer than a gesture; a posture is held by the gate by then
     fast_tau_s: float = 0.2
     slow_tau_s: float = 20.0
     fast: np.ndarray | None = None
