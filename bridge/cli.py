@@ -20,6 +20,8 @@ VERBS = {
     "range": "capture a wearer's level range (relaxed, then closest) for continuous controls",
     "ports": "list serial ports with their USB ids and serial numbers",
     "capture": "record a new wearer: prompts each gesture in turn and saves a labelled take as it goes",
+    "watch": "a live terminal view of a running daemon, from its status stream",
+    "send": "send a command to a running daemon's control port (arm, disarm, panic, layer, ...)",
 }
 
 
@@ -180,7 +182,60 @@ def open_garment_source(cfg, model, on_change=None):
         model.rate_hz, model.channel_names, on_change=on_change)
 
 
+def _uses_service(path) -> bool:
+    """Several garments, or the service's own tables: the service loop (bridge.service.daemon)."""
+    import tomllib
+    try:
+        doc = tomllib.loads(Path(path).read_text(encoding="utf-8"))
+    except (OSError, ValueError):
+        return False
+    return isinstance(doc.get("garment"), list) or any(k in doc for k in ("control", "status", "calibration"))
+
+
+def cmd_serve(a) -> int:
+    """`drape start` for a config with [[garment]] tables: every garment in one process."""
+    import logging
+    from .service.config import ConfigError, load_service
+    from .service.control import TokenMissing
+    from .service.daemon import Service
+    from .service.runner import StopFlag
+
+    logging.basicConfig(level=getattr(logging, a.log_level.upper()), stream=sys.stderr,
+                        format="%(asctime)s %(levelname)s %(message)s")
+    log = logging.getLogger("drape")
+    try:
+        cfg = load_service(a.config)
+        if a.listen:
+            from dataclasses import replace
+            cfg = replace(cfg, listen=a.listen)
+    except ConfigError as exc:
+        return _err(str(exc))
+    stop = StopFlag()
+    service = Service(cfg, _open_one, stop)
+    try:
+        service.open_control()
+    except TokenMissing as exc:
+        return _err(f"refusing to start: {exc}")
+    except (ValueError, OSError) as exc:
+        return _err(f"control port {cfg.listen}: {exc}")
+    _stop_on_signals(stop)
+    if hasattr(signal, "SIGHUP"):  # reload every garment's mapping
+        def hup(*_):
+            service.reloads_asked += 1
+        signal.signal(signal.SIGHUP, hup)
+    service.start_garments()
+    if cfg.status_to:
+        log.info("status stream to %s", ", ".join(cfg.status_to))
+    log.info("running %d garment(s); SIGTERM or Ctrl-C stops, SIGHUP reloads mappings, SIGUSR1 panics",
+             len(service.garments))
+    service.serve()
+    log.info("stopped%s", f" ({stop.reason})" if stop.reason else "")
+    return 0
+
+
 def cmd_start(a) -> int:
+    if _uses_service(a.config):
+        return cmd_serve(a)
     from .mapping import MappingError, MappingWatcher
     from .recognition import ModelError, load_model
     from .service import Pipeline, StopFlag, run
@@ -657,6 +712,27 @@ def _simulated_range_source(seed: int, wearer: int):
     return ReplaySource(rec, 0.1), BandPass(take.rate_hz), tuple(take.channel_names)
 
 
+def cmd_watch(a) -> int:
+    from .service.watch import watch
+    return watch(a.host, a.port, once=a.once, wait_s=a.wait_s)
+
+
+def cmd_send(a) -> int:
+    from .service.watch import send_command
+    to = f"127.0.0.1:{a.port}" if a.port else a.to
+    if a.what == "layer" and not a.layer:
+        return _err("send layer needs the layer's name: drape send layer NAME")
+    try:
+        lines = send_command(to, a.what, a.layer or "", a.garment, a.token)
+    except (ValueError, OSError) as exc:
+        return _err(str(exc))
+    for line in lines:
+        print(line)
+    if a.what == "status" and not lines:
+        return _err(f"no reply from {to} (is the daemon running? right token?)")
+    return 0
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="drape", description="Postures and gestures from textile antennas, as live control messages.")
     sub = p.add_subparsers(dest="verb", metavar="VERB")
@@ -672,7 +748,25 @@ def build_parser() -> argparse.ArgumentParser:
     s = sub.add_parser("start", help=VERBS["start"], description=VERBS["start"])
     s.add_argument("--config", required=True, help="daemon config file (TOML)")
     s.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
+    s.add_argument("--log-level", default="info", choices=("debug", "info", "warning", "error"),
+                   help="with [[garment]] configs: how much to log to stderr")
     s.set_defaults(func=cmd_start)
+    w = sub.add_parser("watch", help=VERBS["watch"], description=VERBS["watch"] +
+                       ". Add this address to the daemon's [status] to = [...] list.")
+    w.add_argument("--port", type=int, default=9200, help="UDP port the status stream comes to (default 9200)")
+    w.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
+    w.add_argument("--once", action="store_true", help="print one plain frame once every garment was heard, then exit")
+    w.add_argument("--wait-s", type=float, default=5.0, help="--once: give up after this long, s")
+    w.set_defaults(func=cmd_watch)
+    n = sub.add_parser("send", help=VERBS["send"], description=VERBS["send"] +
+                       ". Network commands never press keys.")
+    n.add_argument("what", choices=("arm", "disarm", "panic", "layer", "reload", "rebaseline", "status"))
+    n.add_argument("layer", nargs="?", help="layer: the layer's name")
+    n.add_argument("--garment", default="", help="only this garment (default: every garment)")
+    n.add_argument("--to", default="127.0.0.1:9100", help="the daemon's control port (default 127.0.0.1:9100)")
+    n.add_argument("--port", type=int, help="shorthand for --to 127.0.0.1:PORT")
+    n.add_argument("--token", default="", help="the shared token, when the daemon's port has one")
+    n.set_defaults(func=cmd_send)
     f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])
     f.add_argument("recordings", nargs="+", metavar="TAKE")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")

@@ -73,3 +73,13 @@ class MappingWatcher:
         self._broken_sig = self._reported_sig = None
         self.mapping = mapping
         return Reload(mapping)
+
+    def reload_now(self) -> Reload:
+        """Read the file again whether or not it changed (a reload asked for by a signal or
+        a control message): the new mapping, or the problems (the last good one stays)."""
+        self._sig, self._next_s, self._reported_sig = None, float("-inf"), None
+        found = self.poll(float("-inf"))
+        if found is None:  # broken: poll keeps the problems for the next look; say them now
+            self._reported_sig = self._sig
+            return Reload(None, tuple(self._problems))
+        return found

@@ -68,3 +68,99 @@ class ControlInbox:
 
     def close(self) -> None:
         self.sock.close()
+
+
+# ---- the daemon's control port: several garments, a token off loopback, replies ----
+
+PORT_COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic",
+                 "/drape/layer": "layer", "/drape/reload": "reload", "/drape/rebaseline": "rebaseline",
+                 "/drape/status": "status"}
+LOOPBACK = ("127.0.0.1", "::1", "localhost")
+
+
+class TokenMissing(ValueError):
+    pass
+
+
+class ControlPort:
+    """The daemon's command port (OSC over UDP, polled by the loop; no thread).
+
+    Messages (arguments in brackets are optional):
+
+        /drape/arm [GARMENT]          /drape/disarm [GARMENT]      /drape/panic [GARMENT]
+        /drape/layer NAME [GARMENT]   /drape/reload [GARMENT]      /drape/rebaseline [GARMENT]
+        /drape/status                 (the state is sent back to the sender's address)
+
+    No GARMENT: every garment. When the port has a token, every message starts with it as its
+    first argument. Binding another address than loopback without a token raises TokenMissing:
+    anyone on the network could otherwise disarm a show or trigger a panic. None of these
+    commands can press a key: keys are pressed only by rules the garment's gestures trigger.
+    ``poll`` returns [(command, detail, garment, sender)].
+    """
+
+    def __init__(self, host: str, port: int, token: str = ""):
+        if host not in LOOPBACK and not token:
+            raise TokenMissing(f"the control port would listen on {host}, reachable from the network: "
+                               "set [control] token in the config (or listen on 127.0.0.1)")
+        self.token = token
+        self.sock = socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET, socket.SOCK_DGRAM)
+        self.sock.bind((host, port))
+        self.sock.setblocking(False)
+        self.address = self.sock.getsockname()
+        self.ignored = 0
+        self.last_ignored = ""
+
+    def _bad(self, why: str) -> None:
+        self.ignored += 1
+        self.last_ignored = why
+
+    def poll(self, max_messages: int = 64) -> list[tuple[str, str, str, tuple]]:
+        import hmac
+        out = []
+        for _ in range(max_messages):
+            try:
+                data, peer = self.sock.recvfrom(65536)
+            except (BlockingIOError, InterruptedError):
+                break
+            except OSError as exc:  # e.g. an ICMP error from an earlier reply
+                self._bad(str(exc))
+                continue
+            try:
+                msg = OscMessage(data)
+            except (ParseError, IndexError, ValueError):
+                self._bad("not an OSC message")
+                continue
+            cmd = PORT_COMMANDS.get(msg.address)
+            if cmd is None:
+                self._bad(f"unknown address {msg.address}; use {', '.join(PORT_COMMANDS)}")
+                continue
+            args = list(msg.params)
+            if self.token:
+                given = args.pop(0) if args and isinstance(args[0], str) else ""
+                if not hmac.compare_digest(given.encode(), self.token.encode()):
+                    self._bad(f"{msg.address} from {peer[0]} without the right token")
+                    continue
+            if not all(isinstance(a, str) for a in args):
+                self._bad(f"{msg.address} takes only strings")
+                continue
+            detail = ""
+            if cmd == "layer":
+                if not args:
+                    self._bad("/drape/layer needs the layer's name")
+                    continue
+                detail = args.pop(0)
+            if len(args) > 1:
+                self._bad(f"{msg.address}: too many arguments")
+                continue
+            out.append((cmd, detail, args[0] if args else "", peer))
+        return out
+
+    def reply(self, peer, dgrams) -> None:
+        for d in dgrams:
+            try:
+                self.sock.sendto(d, peer)
+            except OSError:
+                pass
+
+    def close(self) -> None:
+        self.sock.close()

@@ -1,0 +1,474 @@
+"""The daemon in service: several garments in one process, a control port, a status stream.
+
+One loop runs every garment's pipeline. Each source gets a reader thread that only moves
+blocks into one bounded queue shared by all garments: a serial read waits up to its timeout
+and the simulated jacket sleeps to keep time, so polling N sources from one thread would add
+up to N waits of latency; with readers the loop wakes as soon as any garment's block arrives,
+and every stage's state is still touched by this one thread only. A reader whose queue is
+full drops the block and counts it (the loop has fallen behind; old samples are worth less
+than a live stream).
+
+Each garment is a ``Garment``: its pipeline, outputs, mapping watcher, watchdog and its
+calibration state ("calibrating" at start and on rebaseline: a hold-still capture sets each
+channel's resting frequency; "settling" after a sudden sustained shift: the same, reported).
+While calibrating or settling the pipeline sees no samples, so no gesture can fire; its
+stream time still advances so note-offs come due.
+
+One garment failing (model missing, device gone for good, OSC port busy) is reported and
+marked "failed"; the others keep running.
+"""
+
+from __future__ import annotations
+
+import logging
+import os
+import queue
+import threading
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+
+from ..signal.shift import ShiftDetector
+from ..sources.health import NO_DATA, STREAMING, Watchdog
+from . import status as st
+from .pipeline import Pipeline
+from .runner import StopFlag, reconcile_outputs
+
+log = logging.getLogger("drape")
+
+CALIBRATING, SETTLING, RUNNING, FAILED = "calibrating", "settling", "running", "failed"
+
+
+@dataclass
+class Latency:
+    """One event's times: host monotonic seconds of its last sample's arrival, of the
+    decision and of the hand-over of its messages to the outputs' queues."""
+
+    arrived_s: float
+    decided_s: float
+    sent_s: float
+
+    @property
+    def decide_ms(self) -> float:
+        return (self.decided_s - self.arrived_s) * 1e3
+
+    @property
+    def send_ms(self) -> float:
+        return (self.sent_s - self.arrived_s) * 1e3
+
+
+class Reader(threading.Thread):
+    """Reads one source into the shared queue until stopped, the source ends or fails."""
+
+    def __init__(self, index: int, source, q: queue.Queue):
+        super().__init__(daemon=True, name=f"reader-{index}")
+        self.index, self.source, self.q = index, source, q
+        self.halt = threading.Event()
+        self.dropped = 0
+        self.error = ""
+
+    def run(self) -> None:
+        try:
+            while not self.halt.is_set() and not self.source.ended:
+                block = self.source.read()
+                try:
+                    self.q.put_nowait((self.index, block))
+                except queue.Full:
+                    self.dropped += len(block)
+        except Exception as exc:  # device gone for good, a protocol nobody can read
+            self.error = str(exc) or type(exc).__name__
+            self.q.put((self.index, None))
+
+
+@dataclass
+class Garment:
+    name: str
+    cfg: object
+    model: object = None
+    pipeline: Pipeline | None = None
+    source: object = None
+    reader: Reader | None = None
+    outputs: dict = field(default_factory=dict)
+    watcher: object = None
+    watchdog: Watchdog | None = None
+    shift: ShiftDetector | None = None
+    state: str = CALIBRATING
+    note: str = ""
+    hold: list = field(default_factory=list)   # samples of the hold-still capture under way
+    hold_n: int = 0                             # samples it needs
+    last_freq: np.ndarray | None = None
+    recent: list = field(default_factory=list)  # (host time, samples) for the rate figure
+    latencies_ms: list = field(default_factory=list)
+
+    @property
+    def flowing(self) -> bool:
+        return self.watchdog is not None and self.watchdog.status == STREAMING
+
+    def rate_hz(self, now_s: float) -> float:
+        self.recent = [(t, n) for t, n in self.recent if now_s - t <= 2.0]
+        if len(self.recent) < 2:
+            return 0.0
+        span = now_s - self.recent[0][0]
+        return sum(n for _, n in self.recent[1:]) / span if span > 0 else 0.0
+
+    def dropped(self) -> int:
+        n = self.reader.dropped if self.reader else 0
+        if self.source is not None and hasattr(self.source, "counters"):
+            try:
+                c = self.source.counters()
+                n += int(getattr(c, "dropped", 0) or 0) if not isinstance(c, dict) else int(c.get("dropped", 0))
+            except Exception:
+                pass
+        return n + (self.pipeline.skipped if self.pipeline else 0)
+
+
+def train_simulated_model(cfg, path: Path):
+    """A small model of a simulated garment's wearer, saved to ``path`` for the next start."""
+    from ..garment import GESTURES, Jacket, training_script
+    from ..recognition import fit_linear
+    from ..sources import Recording
+    takes = []
+    for session in range(2):
+        jacket = Jacket(seed=cfg.seed, wearer=cfg.wearer, session=session)
+        rng = np.random.default_rng([cfg.seed, cfg.wearer, session, 11])
+        script = training_script(rng, 4) + [(a, 20.0) for a in ("standing", "walking", "fidgeting")]
+        takes.append(Recording.from_take(jacket.perform(script), GESTURES))
+    model = fit_linear(takes, dict(GESTURES))
+    path.parent.mkdir(parents=True, exist_ok=True)
+    model.save(path)
+    return model
+
+
+def open_source(cfg, model):
+    if cfg.simulated:
+        from ..sources.simulated import SimulatedSource
+        return SimulatedSource(seed=cfg.seed + 1, wearer=cfg.wearer, session=2, realtime=True)
+    from ..cli import open_garment_source  # the one place that knows serial and OSC sources
+    return open_garment_source(cfg, model)
+
+
+class Service:
+    """Runs the garments of a ``ServiceConfig`` until ``stop`` is set (see module doc).
+
+    open_fn(destination) opens an output (``bridge.outputs.open_output``); clock is the host
+    monotonic clock. ``serve()`` returns when stopped, with every output closed.
+    """
+
+    def __init__(self, config, open_fn, stop: StopFlag | None = None, clock=time.monotonic,
+                 on_event=None):
+        self.config = config
+        self.open_fn = open_fn
+        self.stop = stop or StopFlag()
+        self.clock = clock
+        self.on_event = on_event
+        self.q: queue.Queue = queue.Queue(maxsize=256 * max(1, len(config.garments)))
+        self.garments: list[Garment] = []
+        self.status = st.StatusStream(config.status_to)
+        self.control = None
+        self.reloads_asked = 0       # SIGHUP: an integer store, safe from a signal handler
+        self._reloads_seen = 0
+        self.started_s = clock()
+
+    # -- start ----------------------------------------------------------------------------
+
+    def open_control(self) -> None:
+        from .control import ControlPort, parse_host_port
+        host, port = parse_host_port(self.config.listen)
+        self.control = ControlPort(host, port, self.config.token)  # TokenMissing: refuse to start
+        h, p = self.control.address[:2]
+        log.info("control port %s:%s (arm, disarm, panic, layer, reload, rebaseline, status); never presses keys", h, p)
+        if self.config.token:
+            log.info("control port needs the shared token from the config on every message")
+
+    def start_garments(self) -> None:
+        from ..mapping import MappingError, MappingWatcher
+        from ..recognition import ModelError, load_model
+        for i, cfg in enumerate(self.config.garments):
+            g = Garment(cfg.name, cfg)
+            self.garments.append(g)
+            try:
+                if cfg.simulated and not Path(cfg.model).is_file():
+                    log.info("%s: no model at %s; training one on the simulated wearer (about half a minute)",
+                             g.name, cfg.model)
+                    g.model = train_simulated_model(cfg, Path(cfg.model))
+                else:
+                    g.model = load_model(cfg.model)
+                g.watcher = MappingWatcher(cfg.mapping, g.model.classes, g.model.kinds,
+                                           g.model.channel_names) if cfg.mapping else None
+                mapping = g.watcher.mapping if g.watcher else None
+                g.pipeline = Pipeline(g.model, mapping, g.name)
+                if mapping is not None:
+                    reconcile_outputs(g.outputs, None, mapping, self.open_fn, lambda t: log.info("%s: %s", g.name, t))
+                g.source = open_source(cfg, g.model)
+            except (ModelError, MappingError, OSError, ValueError) as exc:
+                self.fail(g, str(exc))
+                continue
+            g.watchdog = Watchdog(cfg.stall_s)
+            g.shift = ShiftDetector(g.model.rate_hz) if self.config.detect_shift else None
+            self.begin_hold(g, CALIBRATING, "hold still: calibrating")
+            g.reader = Reader(i, g.source, self.q)
+            where = "simulated jacket" if cfg.simulated else (cfg.port or f"OSC {cfg.listen}")
+            log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).name,
+                     len(g.model.classes) - 1, cfg.mapping.name if cfg.mapping else "none")
+
+        for g in self.garments:  # read only once every model is ready: none waits on another's training
+            if g.reader is not None and g.state != FAILED:
+                g.reader.start()
+
+    def fail(self, g: Garment, why: str) -> None:
+        g.state, g.note = FAILED, why
+        log.error("%s: %s; the other garments carry on", g.name, why)
+        self.status.send([st.notice(g.name, f"failed: {why}")])
+        if g.pipeline is not None:
+            self.deliver(g, g.pipeline.stop(), self.clock())
+            self.send(g, g.pipeline.let_go())
+
+    def begin_hold(self, g: Garment, state: str, why: str) -> None:
+        """Start a hold-still capture: no samples reach the pipeline until it is done."""
+        if g.pipeline is not None:
+            self.deliver(g, g.pipeline.stop(), self.clock())  # nothing stays held through it
+        g.state, g.note, g.hold = state, why, []
+        g.hold_n = max(1, int(round(max(self.config.hold_still_s, 0.05) * g.model.rate_hz)))
+
+    def end_hold(self, g: Garment) -> None:
+        """The capture's median per channel becomes the resting frequency; the chain restarts."""
+        from ..recognition import make_recogniser
+        from ..signal import ConditionerState
+        f = np.concatenate(g.hold)
+        p = g.pipeline
+        p.conditioner.state = ConditionerState(np.median(f, axis=0))
+        p.recogniser = make_recogniser(p.model)  # no window mixes old and new rest
+        if g.shift:
+            g.shift.reset()
+        log.info("%s: baseline set from %.1f s of holding still", g.name, f.shape[0] / g.model.rate_hz)
+        g.state, g.note, g.hold = RUNNING, "", []
+
+    # -- the loop ---------------------------------------------------------------------------
+
+    def serve(self) -> None:
+        next_levels = next_state = next_alive = self.clock()
+        levels_every = 1.0 / self.config.levels_hz
+        try:
+            while not self.stop.stopped:
+                try:
+                    item = self.q.get(timeout=0.02)
+                except queue.Empty:
+                    item = None
+                while item is not None:
+                    self.take(*item)
+                    try:
+                        item = self.q.get_nowait()
+                    except queue.Empty:
+                        item = None
+                now = self.clock()
+                self.housekeeping(now)
+                if now >= next_levels:
+                    next_levels = now + levels_every
+                    self.send_levels()
+                if now >= next_state:
+                    next_state = now + 0.5
+                    self.status.send(self.state_messages(now))
+                if now >= next_alive:
+                    next_alive = now + 1.0
+                    self.status.send([st.alive(now - self.started_s, len(self.garments), os.getpid())])
+        finally:
+            self.shutdown()
+
+    def take(self, index: int, block) -> None:
+        g = self.garments[index]
+        if g.state == FAILED:
+            return
+        if block is None:
+            self.fail(g, g.reader.error)
+            return
+        now = self.clock()
+        n = len(block)
+        step = g.watchdog.step(now, n, getattr(g.source, "connected", True))
+        if n == 0:
+            self.watch(g, step)
+            return
+        self.watch(g, step)
+        g.recent.append((now, n))
+        g.last_freq = block.freq_hz[-1]
+        if g.state in (CALIBRATING, SETTLING):
+            g.hold.append(block.freq_hz)
+            g.pipeline.samples += n  # stream time goes on: note-offs come due
+            self.send(g, g.pipeline.dispatches([]))
+            if sum(len(h) for h in g.hold) >= g.hold_n:
+                self.end_hold(g)
+            return
+        if g.shift is not None:
+            moved = g.shift.step(block.freq_hz)
+            if moved and not g.pipeline.gate.held:
+                names = ", ".join(g.model.channel_names[i] for i in moved)
+                why = f"sudden lasting change on {names} (something near the garment?); re-settling"
+                log.warning("%s: %s", g.name, why)
+                self.status.send([st.notice(g.name, why)])
+                self.begin_hold(g, SETTLING, why)
+                g.hold.append(block.freq_hz)
+                g.pipeline.samples += n
+                return
+        events = g.pipeline.feed(block.freq_hz, early=lambda ev: self.deliver(g, ev, block.arrived_s))
+        self.deliver(g, events, block.arrived_s)
+
+    def watch(self, g: Garment, step) -> None:
+        status, reason = step
+        if status == NO_DATA and reason and g.note != reason and g.state == RUNNING:
+            log.warning("%s: no data (%s); postures released, outputs held", g.name, reason)
+            self.deliver(g, g.pipeline.stop(), self.clock())
+            g.note = reason
+        elif status == STREAMING and g.note and g.state == RUNNING:
+            log.info("%s: data flowing again", g.name)
+            g.note = ""
+
+    def send(self, g: Garment, dispatches) -> None:
+        for d in dispatches:
+            out = g.outputs.get(d.destination)
+            if out is not None:
+                out.send(d.message)
+
+    def deliver(self, g: Garment, events, arrived_s: float) -> None:
+        if not events:
+            return
+        decided = self.clock()
+        self.send(g, g.pipeline.dispatches(events))
+        sent = self.clock()
+        lat = Latency(arrived_s, decided, sent)
+        out = []
+        for e in events:
+            if e.kind == "control":
+                continue
+            g.latencies_ms.append(lat.send_ms)
+            del g.latencies_ms[:-1000]
+            out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms))
+            log.info("%s: %s %s%s at %.2f s; decided %.2f ms, sent %.2f ms after its last sample arrived",
+                     g.name, e.kind, e.gesture, f" {e.detail}" if e.detail else "", e.t_s, lat.decide_ms, lat.send_ms)
+            if self.on_event:
+                self.on_event(g.name, e, lat)
+        self.status.send(out)
+
+    def housekeeping(self, now: float) -> None:
+        if self.stop.panics:
+            self.stop.panics = 0
+            for g in self.live():
+                self.deliver(g, g.pipeline.command("panic", "signal"), now)
+        if self.reloads_asked != self._reloads_seen:
+            self._reloads_seen = self.reloads_asked
+            self.command("reload", "", "", None)
+        if self.control is not None:
+            for cmd, detail, target, peer in self.control.poll():
+                self.command(cmd, detail, target, peer)
+            if self.control.ignored:
+                log.warning("control message ignored: %s", self.control.last_ignored)
+                self.control.ignored = 0
+        for g in self.live():
+            if g.watcher is not None:
+                change = g.watcher.poll(now)
+                if change is not None:
+                    self.apply_reload(g, change)
+            if g.state != RUNNING and g.state != FAILED:  # stream time may move while holding
+                self.send(g, g.pipeline.dispatches([]))
+            r = g.pipeline.router
+            if r is not None and r.warnings:
+                for w in r.warnings:
+                    log.warning("%s: %s", g.name, w)
+                r.warnings.clear()
+
+    def live(self) -> list[Garment]:
+        return [g for g in self.garments if g.state != FAILED and g.pipeline is not None]
+
+    def command(self, cmd: str, detail: str, target: str, peer) -> None:
+        chosen = [g for g in self.live() if not target or g.name == target]
+        if target and not chosen:
+            log.warning("control message for %r: no such running garment (have %s)", target,
+                        ", ".join(g.name for g in self.garments))
+            return
+        if cmd == "status":
+            if peer is not None and self.control is not None:
+                now = self.clock()
+                self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
+                                   + self.state_messages(now))
+            return
+        log.info("control: %s%s for %s", cmd, f" {detail}" if detail else "", target or "every garment")
+        for g in chosen:
+            if cmd == "reload":
+                if g.watcher is not None:
+                    self.apply_reload(g, g.watcher.reload_now())
+            elif cmd == "rebaseline":
+                self.begin_hold(g, CALIBRATING, "hold still: re-baselining")
+            else:  # arm, disarm, panic, layer: Pipeline.command never presses keys
+                self.deliver(g, g.pipeline.command(cmd, detail), self.clock())
+
+    def apply_reload(self, g: Garment, change) -> None:
+        if change.mapping is None:
+            text = "mapping not reloaded, the last good one keeps running; fix: " + "; ".join(change.problems)
+            log.error("%s: %s", g.name, text)
+            self.status.send([st.notice(g.name, text)])
+            return
+        old = g.pipeline.mapping
+        g.pipeline.swap_mapping(change.mapping)
+        reconcile_outputs(g.outputs, old, change.mapping, self.open_fn, lambda t: log.info("%s: %s", g.name, t))
+        text = f"mapping reloaded: {len(change.mapping.rules)} rules"
+        log.info("%s: %s", g.name, text)
+        self.status.send([st.notice(g.name, text)])
+
+    # -- status -------------------------------------------------------------------------------
+
+    def state_messages(self, now: float) -> list[bytes]:
+        out = []
+        for g in self.garments:
+            p = g.pipeline
+            armed = bool(p.router.armed) if p is not None and p.router is not None else bool(p and p.safety.armed)
+            layer = p.router.layer if p is not None and p.router is not None else ""
+            channels = g.model.channel_names if g.model is not None else ()
+            out += st.garment_state(g.name, g.state, armed, layer, g.flowing and g.state != FAILED,
+                                    g.rate_hz(now), g.dropped(), p.samples if p else 0, g.note, channels)
+        return out
+
+    def send_levels(self) -> None:
+        out = []
+        for g in self.live():
+            c = g.pipeline.conditioner.state
+            if g.last_freq is None or c.centre_hz is None or g.state != RUNNING:
+                continue
+            from ..signal import relative_capacitance
+            level = relative_capacitance(g.last_freq[None, :], c.centre_hz)[0]
+            if c.baseline is not None:
+                level = level - c.baseline
+            out.append(st.levels(g.name, level))
+            out.append(st.top(g.name, g.model.classes, g.pipeline.last_probabilities))
+        self.status.send(out)
+
+    # -- stop ---------------------------------------------------------------------------------
+
+    def shutdown(self) -> None:
+        """Stop readers, release everything held, close every garment's outputs (closing
+        sends notes off, keys up, lights to their safe levels, sACN stream terminated)."""
+        for g in self.garments:
+            if g.reader is not None:
+                g.reader.halt.set()
+        for g in self.garments:
+            try:
+                if g.pipeline is not None:
+                    self.deliver(g, g.pipeline.stop(), self.clock())
+                    self.send(g, g.pipeline.let_go())
+            finally:
+                for name, o in g.outputs.items():
+                    o.close()
+                    s = o.stats
+                    log.info("%s: output %s: sent %d, dropped %d%s", g.name, name, s.sent, s.dropped,
+                             f"; last error: {s.last_error}" if s.last_error else "")
+                g.outputs.clear()
+        for g in self.garments:
+            if g.reader is not None:
+                g.reader.join(timeout=2.0)
+            if g.source is not None:
+                try:
+                    g.source.close()
+                except Exception:
+                    pass
+        if self.control is not None:
+            self.control.close()
+        self.status.close()

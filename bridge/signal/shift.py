@@ -1,0 +1,62 @@
+"""Sudden sustained shifts: something arrived near the antennas and stayed.
+
+A metal chair, a table edge or a second person close by moves some channels' resting
+frequency by a step that then holds. A gesture moves them too, but comes back within a
+second or two. The detector compares a fast and a slow running mean of each channel's log
+frequency (dimensionless relative change); a channel whose fast mean stays more than
+``threshold`` away from its slow mean for ``sustain_s`` reports a shift. Postures also hold
+a step: the caller ignores shifts while the gate holds a posture.
+
+State in, state out in the manner of ``scipy.signal``: ``ShiftDetector`` owns all of it.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+
+@dataclass
+class ShiftDetector:
+    """``step(freq_hz)`` over blocks (n, channels) of Hz; returns the channels (indices) that
+    shifted, once per shift (empty tuple otherwise). ``reset()`` forgets the reference (after
+    a re-baseline). Times in seconds of stream time.
+    """
+
+    rate_hz: float
+    threshold: float = 0.008      # relative frequency step, |Δf/f| (≈ half of ΔC/C0)
+    sustain_s: float = 4.0        # longer than a gesture; a posture is held by the gate by then
+    fast_tau_s: float = 0.2
+    slow_tau_s: float = 20.0
+    fast: np.ndarray | None = None
+    slow: np.ndarray | None = None
+    over_n: int = 0
+    shifts: int = 0
+
+    def reset(self) -> None:
+        self.fast = self.slow = None
+        self.over_n = 0
+
+    def step(self, freq_hz: np.ndarray) -> tuple[int, ...]:
+        x = np.log(np.asarray(freq_hz, dtype=float))
+        if x.shape[0] == 0:
+            return ()
+        if self.fast is None:
+            self.fast, self.slow = x[0].copy(), x[0].copy()
+        af = float(np.exp(-1.0 / (self.fast_tau_s * self.rate_hz)))
+        as_ = float(np.exp(-1.0 / (self.slow_tau_s * self.rate_hz)))
+        need = int(round(self.sustain_s * self.rate_hz))
+        found: tuple[int, ...] = ()
+        for row in x:  # per sample: a few channels, cheap next to the classifier
+            self.fast = af * self.fast + (1 - af) * row
+            if self.over_n == 0:  # the reference follows drift only while nothing stands out
+                self.slow = as_ * self.slow + (1 - as_) * row
+            over = np.abs(self.fast - self.slow) > self.threshold
+            self.over_n = self.over_n + 1 if over.any() else 0
+            if self.over_n >= need and not found:
+                found = tuple(int(i) for i in np.flatnonzero(over))
+                self.shifts += 1
+                self.slow = self.fast.copy()  # the new rest: report once
+                self.over_n = 0
+        return found
