@@ -63,27 +63,28 @@ def take_windows(rec, model) -> tuple[np.ndarray, np.ndarray]:
     return y[keep], pred
 
 
-def evaluate_takes(model, recs, progress=None, block_s: float = 5.0) -> dict:
+def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: bool = True) -> dict:
     """Window and event scores of a model on takes it was not trained on.
 
     Returns classification_scores(...) plus "events" (``events.summarise``) and "takes":
     per take its name, the events decided and the truth (for the report's timeline).
+    With ``events`` False the takes are not replayed (window scores only).
     """
     ys, ps, per_take, scored = [], [], [], []
     for i, rec in enumerate(recs):
         y, p = take_windows(rec, model)
         ys.append(y); ps.append(p)
-        events = replay_events(rec, model, None, block_s)
+        decided = replay_events(rec, model, None, block_s) if events else []
         duration = rec.freq_hz.shape[0] / rec.rate_hz
         truth = [Span(iv.start_s, iv.end_s, iv.label) for iv in rec.intervals]
-        s = score_take(truth, events, model.windows.window_s, duration, model.kinds)
+        s = score_take(truth, decided, model.windows.window_s, duration, model.kinds)
         scored.append(s)
-        per_take.append({"rec": rec, "events": events, "truth": truth, "latency_s": s["latency_s"]})
+        per_take.append({"rec": rec, "events": decided, "truth": truth, "latency_s": s["latency_s"]})
         if progress:
             progress(i + 1, len(recs))
     out = classification_scores(np.concatenate(ys), np.concatenate(ps), model.classes)
-    out["events"] = summarise(scored)
-    out["takes"] = per_take
+    out["events"] = summarise(scored) if events else None
+    out["takes"] = per_take if events else []
     return out
 
 
@@ -101,7 +102,7 @@ def groups_of(recs, scheme: str) -> list[str]:
 
 
 def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "linear", settings=None,
-                   progress=None, **options) -> dict:
+                   progress=None, events: bool = True, **options) -> dict:
     """Train on all but one group, score the held-out group's takes; repeat for each group.
 
     Returns the pooled classification_scores, "events" (pooled over all held-out takes),
@@ -123,12 +124,12 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
         if tuple(model.classes) != tuple(classes):
             raise ValueError(f"holding out {grp!r} leaves a class untrained; every gesture must appear in "
                              "takes of at least two groups")
-        res = evaluate_takes(model, test)
+        res = evaluate_takes(model, test, events=events)
         c = np.array(res["confusion"])
         conf = c if conf is None else conf + c
         folds.append({"held_out": grp, "takes": len(test), "accuracy": res["accuracy"], "macro_f1": res["macro_f1"],
-                      "event_recall": res["events"]["event_recall"],
-                      "false_triggers_per_null_hour": res["events"]["false_triggers_per_null_hour"]})
+                      "event_recall": res["events"]["event_recall"] if events else None,
+                      "false_triggers_per_null_hour": res["events"]["false_triggers_per_null_hour"] if events else None})
         window_s = model.windows.window_s
         for t in res["takes"]:
             scored.append(score_take(t["truth"], t["events"], window_s, t["rec"].freq_hz.shape[0] / t["rec"].rate_hz,
@@ -139,7 +140,7 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
     yy = np.repeat(np.arange(len(classes)), conf.sum(axis=1))
     pp = np.concatenate([np.repeat(np.arange(len(classes)), row) for row in conf])
     out = classification_scores(yy, pp, classes)
-    out["events"] = summarise(scored)
+    out["events"] = summarise(scored) if events else None
     out.update(scheme=scheme, classifier=classifier, folds=folds, takes=takes)
     return out
 
