@@ -42,8 +42,7 @@ class Pipeline:
         ends, probs = self.recogniser.push(level, motion)
         events: list[Event] = []
         rate = self.model.rate_hz
-        for end, p in zip(ends, probs):
-            events += self.gate.step(end / rate, p)
+        events += self.gate.step_many(np.asarray(ends, dtype=float) / rate, probs)
         if len(probs):
             self.last_probabilities = probs[-1]
         self.samples += f.shape[0]
