@@ -92,3 +92,22 @@ def test_scheme_needs_the_metadata_it_groups_by(small_troupe):
     one = [Recording(r.rate_hz, r.channel_names, r.t_s, r.freq_hz, r.intervals, "", r.session) for r in small_troupe]
     with pytest.raises(ValueError, match="wearer in its metadata"):
         cross_validate(one, dict(GESTURES), "leave-wearer-out")
+
+
+def test_report_writes_a_page_with_its_pictures(tmp_path, capsys):
+    pytest.importorskip("matplotlib", reason="the report's pictures need the plot extra (matplotlib)")
+    from bridge.evaluation.events import Span
+    from bridge.evaluation.heldout import classification_scores
+    from bridge.evaluation.report import write_report
+    from bridge.decisions import Event
+    rec = Recording(100.0, ("a", "b"), np.arange(3000) / 100.0, 2e5 + np.random.default_rng(0).normal(0, 50, (3000, 2)),
+                    wearer="wearer0", session="session1")
+    result = classification_scores([0, 1, 1, 2], [0, 1, 2, 2], ("null", "bow", "sweep_across"))
+    result["takes"] = [{"rec": rec, "truth": [Span(5.0, 6.5, "bow")], "events": [Event(6.8, "bow", "gesture", 0.9)],
+                        "latency_s": [0.3]}]
+    page = write_report(result, tmp_path / "rep", "a test report")
+    text = page.read_text()
+    for png in ("confusion.png", "per_class.png", "timeline.png", "latency.png"):
+        assert f"src='{png}'" in text
+        assert (tmp_path / "rep" / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, RFC 2083)
+    assert "Accuracy 0.750" in text and "wearer0" in text
