@@ -40,10 +40,21 @@ def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties) -> list[t
     targets = np.eye(n_classes)[y]
     xm, ym = x.mean(axis=0), targets.mean(axis=0)
     xc = x - xm
+    m, d = xc.shape
+    out = []
+    if m < d:
+        # Fewer windows than features: the same solution from a thin SVD of the m × d data
+        # (x'x has the squared singular values as eigenvalues, the other d − m are zero).
+        u, sv, vt = np.linalg.svd(xc, full_matrices=False)
+        proj = u.T @ (targets - ym)
+        ref = max(float((sv * sv).sum() / d), 1e-12)
+        for lam in penalties:
+            w = vt.T @ ((sv / (sv * sv + lam * ref))[:, None] * proj)
+            out.append((w, ym - xm @ w))
+        return out
     evals, evecs = np.linalg.eigh(xc.T @ xc)
     proj = evecs.T @ (xc.T @ (targets - ym))
     ref = max(float(evals.mean()), 1e-12)
-    out = []
     for lam in penalties:
         w = evecs @ (proj / (evals + lam * ref)[:, None])
         out.append((w, ym - xm @ w))
