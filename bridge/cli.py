@@ -15,8 +15,9 @@ VERBS = {
     "replay": "run a take through the live chain as fast as possible and list its events",
     "simulate": "write takes of the simulated jacket, or serve it as a serial port (no hardware needed)",
     "check": "validate a mapping file against a model and print its rules",
+    "evaluate": "estimate accuracy on new sessions or unseen wearers, or score a model on held-out data",
     "tune": "choose each gesture's threshold and debounce from held-out takes; store them in the model",
-    "bench": "print speed figures: classifier hops, and a continuous control's added latency and jitter",
+    "bench": "print speed figures: classifier hops, replay speed, fit time, a continuous control's latency and jitter",
     "range": "capture a wearer's level range (relaxed, then closest) for continuous controls",
     "ports": "list serial ports with their USB ids and serial numbers",
     "capture": "record a new wearer: prompts each gesture in turn and saves a labelled take as it goes",
@@ -436,26 +437,157 @@ def cmd_capture(a) -> int:
     return code
 
 
-def cmd_fit(a) -> int:
-    from .recognition import TrainingSettings, fit_linear
-    from .sources import RecordingError, read_recording
+def _progress(desc: str):
+    """A progress callback (done, total) drawing a tqdm bar on stderr, and its closer.
 
+    Without tqdm (the ``progress`` extra) the work runs without a bar.
+    """
     try:
-        recs = [read_recording(p) for p in a.recordings]
-    except RecordingError as exc:
-        return _err(str(exc))
+        from tqdm import tqdm
+    except ImportError:
+        return None, lambda: None
+    bar = tqdm(desc=desc, file=sys.stderr, leave=False, disable=None, unit="step")
+
+    def step(done: int, total: int) -> None:
+        bar.total = total
+        bar.n = done
+        bar.refresh()
+    return step, bar.close
+
+
+def _read_takes(paths):
+    from .sources import read_recording
+    recs = [read_recording(p) for p in paths]
     kinds = {}
     for r in recs:
         kinds.update(r.kinds)
+    return recs, kinds
+
+
+def _read_ts_cases(path):
+    from .sources.ts_format import TsFormatError, read_ts
     try:
-        model = fit_linear(recs, kinds, TrainingSettings(window_s=a.window_s, hop_s=a.hop_s))
-    except ValueError as exc:
+        return read_ts(path)
+    except FileNotFoundError:
+        raise TsFormatError(f"{path}: no such .ts file") from None
+
+
+def cmd_fit(a) -> int:
+    from .recognition import TrainingSettings, fit_cases, fit_recordings
+    from .sources import RecordingError
+    from .sources.ts_format import TsFormatError, stack_cases
+
+    if bool(a.recordings) == bool(a.ts):
+        return _err("give take files or --ts TRAIN.ts (one of the two)")
+    step, close = _progress(f"fitting {a.classifier}")
+    try:
+        if a.ts:
+            X_list, y, meta = _read_ts_cases(a.ts)
+            X = stack_cases(X_list)
+            classes = sorted(set(y.tolist()))
+            if step:
+                step(0, 1)
+            model = fit_cases(a.classifier, X, y, classes)
+            source = f"{len(y)} cases of {a.ts}"
+        else:
+            recs, kinds = _read_takes(a.recordings)
+            model = fit_recordings(a.classifier, recs, kinds, TrainingSettings(window_s=a.window_s, hop_s=a.hop_s),
+                                   progress=step)
+            source = f"{len(recs)} takes"
+    except (RecordingError, TsFormatError, ValueError) as exc:
+        close()
         return _err(str(exc))
+    close()
     model.save(a.output)
     s = model.summary
-    print(f"{a.output}: {len(model.classes) - 1} gestures from {s['recordings']} takes; "
-          f"cross-validated window accuracy {s['cross_validated_window_accuracy']:.3f}, "
-          f"calibration error {s['calibration_error']:.3f}")
+    key = next((k for k in ("cross_validated_window_accuracy", "held_out_accuracy", "leave_one_out_accuracy") if k in s), None)
+    estimate = f"{key.replace('_', ' ')} {s[key]:.3f}" if key else "no held-out estimate (one take)"
+    cal = f", calibration error {s['calibration_error']:.3f}" if "calibration_error" in s else ""
+    print(f"{a.output}: {a.classifier}, {len(model.classes) - 1} classes from {source}; {estimate}{cal}")
+    return 0
+
+
+def _json_ready(result: dict) -> dict:
+    return {k: v for k, v in result.items() if k != "takes"}
+
+
+def _print_result(result: dict) -> None:
+    print(f"accuracy {result['accuracy']:.3f}, macro F1 {result['macro_f1']:.3f} over {result['windows']} windows")
+    for c, v in result["per_class"].items():
+        print(f"  {c:<16} precision {v['precision']:.3f}  recall {v['recall']:.3f}  F1 {v['f1']:.3f}  ({v['support']})")
+    for f in result.get("folds", []):
+        print(f"  held out {f['held_out']!s:<10} accuracy {f['accuracy']:.3f}  macro F1 {f['macro_f1']:.3f}  "
+              f"event recall {f['event_recall']}  false triggers/h {f['false_triggers_per_null_hour']}")
+    e = result.get("events")
+    if e:
+        print(f"events: {e['true_events']} performed, {e['true_correct']} correct, {e['true_deleted']} deleted, "
+              f"{e['true_fragmented'] + e['true_frag_merged']} fragmented, {e['true_merged'] + e['true_frag_merged']} merged; "
+              f"{e['detections']} decided, {e['detected_inserted']} inserted (false triggers)")
+        lat = e["latency_s"]
+        print(f"event recall {e['event_recall']}, precision {e['event_precision']}, "
+              f"false triggers {e['false_triggers_per_null_hour']} per hour of null activity ({e['null_hours']:.2f} h); "
+              f"latency gesture end → event median {lat['median']} s, p95 {lat['p95']} s")
+
+
+def cmd_evaluate(a) -> int:
+    from .evaluation.heldout import cross_validate, evaluate_cases, evaluate_takes
+    from .recognition import ModelError, TrainingSettings, load_model
+    from .sources import RecordingError
+    from .sources.ts_format import TsFormatError
+
+    step, close = _progress("evaluating")
+    try:
+        if a.model:
+            model = load_model(a.model)
+            if a.ts:
+                X_list, y, _ = _read_ts_cases(a.ts)
+                result = evaluate_cases(model, X_list, y)
+                title = f"{a.model} on {a.ts}"
+            elif a.recordings:
+                recs, _ = _read_takes(a.recordings)
+                for r in recs:
+                    model.check_source(len(r.channel_names), r.rate_hz)
+                result = evaluate_takes(model, recs, progress=step)
+                title = f"{a.model} on {len(recs)} takes"
+            else:
+                close()
+                return _err("with --model, give take files or --ts TEST.ts to score it on")
+        else:
+            if not a.recordings or not a.scheme:
+                close()
+                return _err("give take files and --scheme leave-session-out or leave-wearer-out (or --model M with held-out data)")
+            recs, kinds = _read_takes(a.recordings)
+            result = cross_validate(recs, kinds, a.scheme, a.classifier,
+                                    TrainingSettings(window_s=a.window_s, hop_s=a.hop_s), progress=step)
+            title = f"{a.classifier}, {a.scheme}, {len(recs)} takes"
+    except (ModelError, RecordingError, TsFormatError, ValueError) as exc:
+        close()
+        return _err(str(exc))
+    close()
+    if a.report:
+        from .evaluation.report import write_report
+        try:
+            page = write_report(result, a.report, title, "drape " + " ".join(sys.argv[1:]))
+        except ImportError as exc:
+            return _err(str(exc))
+        print(f"report: {page}", file=sys.stderr)
+    if a.json:
+        import json
+        print(json.dumps(_json_ready(result), indent=1, default=str))
+    else:
+        print(title)
+        _print_result(result)
+    return 0
+
+
+def cmd_bench(a) -> int:
+    from .evaluation.bench import bench_continuous, run_all
+    if a.continuous_only:
+        c = bench_continuous()
+        print(" ".join(f"{k} {v}" for k, v in c.items()))
+        return 0
+    run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
+            classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")))
     return 0
 
 
@@ -497,16 +629,9 @@ def _show(message) -> str:
 
 
 def replay_events(rec, model, mapping=None, block_s: float = 0.1):
-    """Events the live chain decides over a whole take, fed in blocks like a live source."""
-    from .service import Pipeline
-    from .sources.replay import ReplaySource
-
-    pipe = Pipeline(model, mapping)
-    src = ReplaySource(rec, block_s)
-    events = []
-    while not src.ended:
-        events += pipe.feed(src.read().freq_hz)
-    return events + pipe.stop()
+    """Events the live chain decides over a whole take (see ``bridge.service.replay_events``)."""
+    from .service import replay_events as replay
+    return replay(rec, model, mapping, block_s)
 
 
 def _simulated_vocabulary(name: str):
@@ -524,7 +649,7 @@ def cmd_simulate(a) -> int:
     for name in ("wearers", "sessions", "repetitions"):
         if getattr(a, name) is not None and getattr(a, name) < (0 if name == "repetitions" else 1):
             return _err(f"--{name} must be at least {0 if name == 'repetitions' else 1}")
-    if not (a.duration_s > 0 and a.rate_hz > 0):
+    if not ((a.duration_s is None or a.duration_s > 0) and a.rate_hz > 0):
         return _err("--duration-s and --rate-hz must be positive")
     try:
         layout = load_layout(a.layout) if a.layout else None
@@ -547,10 +672,11 @@ def cmd_simulate(a) -> int:
         return 0
     jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session, rate_hz=a.rate_hz, layout=layout)
     rng = np.random.default_rng([a.seed, a.wearer, a.session, 3])
-    if a.repetitions:
-        script = training_script(rng, a.repetitions, list(gestures), null_activities=nulls)
-    else:
-        script = random_script(rng, a.duration_s, list(gestures), null_activities=nulls)
+    # Training repetitions, then ordinary movement (null activity), then a random performance.
+    script = training_script(rng, a.repetitions, list(gestures), null_activities=nulls) if a.repetitions else []
+    script += [(activity, a.null_s / 3) for activity in ("standing", "walking", "fidgeting")] if a.null_s else []
+    if a.duration_s or not script:
+        script += random_script(rng, a.duration_s or 120.0, list(gestures), null_activities=nulls)
     take = jacket.perform(script)
     write_recording(a.out, Recording.from_take(take, gestures, layout=layout.name if layout else "built-in"))
     print(f"{a.out}: {take.t_s.size / take.rate_hz:.1f} s, {len(take.intervals)} labelled gestures, "
@@ -688,16 +814,6 @@ def cmd_range(a) -> int:
     return 0
 
 
-def cmd_bench(a) -> int:
-    from .evaluation.bench import bench_continuous, run_all
-    if a.continuous_only:
-        c = bench_continuous()
-        print(" ".join(f"{k} {v}" for k, v in c.items()))
-    else:
-        run_all()
-    return 0
-
-
 def _simulated_range_source(seed: int, wearer: int):
     """The simulated wearer standing, then holding hands on hips (near the front antennas)."""
     import numpy as np
@@ -767,12 +883,36 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("--port", type=int, help="shorthand for --to 127.0.0.1:PORT")
     n.add_argument("--token", default="", help="the shared token, when the daemon's port has one")
     n.set_defaults(func=cmd_send)
+    from .recognition.classifiers import CLASSIFIERS
     f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])
-    f.add_argument("recordings", nargs="+", metavar="TAKE")
+    f.add_argument("recordings", nargs="*", metavar="TAKE")
+    f.add_argument("--ts", metavar="TRAIN.ts", help="train on the cases of a .ts file instead of takes")
+    f.add_argument("--classifier", choices=tuple(CLASSIFIERS), default="linear",
+                   help="linear (default, tiny), minirocket (convolution features) or dtw (few-shot templates)")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
     f.add_argument("--window-s", type=float, default=2.0, help="window length, s")
     f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
     f.set_defaults(func=cmd_fit)
+    e = sub.add_parser("evaluate", help=VERBS["evaluate"], description=VERBS["evaluate"])
+    e.add_argument("recordings", nargs="*", metavar="TAKE")
+    e.add_argument("--scheme", choices=("leave-session-out", "leave-wearer-out"),
+                   help="hold out each session (new recordings of known wearers) or each wearer (unseen wearers)")
+    e.add_argument("--classifier", choices=tuple(CLASSIFIERS), default="linear")
+    e.add_argument("--model", help="score this model on held-out takes or --ts cases instead")
+    e.add_argument("--ts", metavar="TEST.ts", help="cases to score --model on (resampled to its window)")
+    e.add_argument("--json", action="store_true", help="print a machine-readable summary")
+    e.add_argument("--report", metavar="DIR", help="write an HTML report with pictures into DIR (needs matplotlib)")
+    e.add_argument("--window-s", type=float, default=2.0, help="window length, s")
+    e.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
+    e.set_defaults(func=cmd_evaluate)
+    b = sub.add_parser("bench", help=VERBS["bench"], description=VERBS["bench"])
+    b.add_argument("--channels", type=int, nargs="+", default=[4, 8])
+    b.add_argument("--hops", type=int, default=200, help="hops timed per classifier and channel count")
+    b.add_argument("--replay-s", type=float, default=300.0, help="length of the replayed take, s (0 to skip)")
+    b.add_argument("--fit-minutes", type=float, default=30.0, help="minutes of 4-channel data to time fitting on (0 to skip)")
+    b.add_argument("--classifier", action="append", choices=tuple(CLASSIFIERS), help="only this one (repeatable)")
+    b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
+    b.set_defaults(func=cmd_bench)
     r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
     r.add_argument("recording", metavar="TAKE")
     r.add_argument("--model", required=True)
@@ -780,9 +920,11 @@ def build_parser() -> argparse.ArgumentParser:
     r.set_defaults(func=cmd_replay)
     m = sub.add_parser("simulate", help=VERBS["simulate"], description=VERBS["simulate"])
     m.add_argument("--out", help="take file to write (a folder with --wearers/--sessions)")
-    m.add_argument("--duration-s", type=float, default=120.0, help="length of a random performance, s")
+    m.add_argument("--duration-s", type=float, default=None,
+                   help="length of a random performance, s (default 120 when nothing else is asked for)")
     m.add_argument("--repetitions", type=int, default=None,
-                   help="instead, each gesture this many times (a training take; 3 per session in a troupe)")
+                   help="each gesture this many times first (a training take; 3 per session in a troupe)")
+    m.add_argument("--null-s", type=float, default=0.0, help="then this long of ordinary movement (standing, walking, fidgeting), s")
     m.add_argument("--seed", type=int, default=0)
     m.add_argument("--wearer", type=int, default=0)
     m.add_argument("--session", type=int, default=0)
@@ -818,9 +960,6 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--seed", type=int, default=1)
     g.add_argument("--wearer", type=int, default=0)
     g.set_defaults(func=cmd_range)
-    b = sub.add_parser("bench", help=VERBS["bench"], description=VERBS["bench"])
-    b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
-    b.set_defaults(func=cmd_bench)
     o = sub.add_parser("ports", help=VERBS["ports"], description=VERBS["ports"])
     o.set_defaults(func=cmd_ports)
     g = sub.add_parser("capture", help=VERBS["capture"], description=VERBS["capture"] +

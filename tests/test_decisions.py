@@ -64,3 +64,28 @@ def test_settings_reject_nonsense():
         GateSettings(agree_k=5, agree_n=3)
     with pytest.raises(ValueError):
         GateSettings(threshold=0.3, exit_threshold=0.5)
+
+
+def test_a_block_of_hops_decides_exactly_as_hop_by_hop():
+    # step_many is an optimisation of calling step per hop: same events on random streams
+    # with bursts of agreement, postures held across block boundaries and refractory time.
+    from bridge.decisions import Gate
+    classes = ("null", "a", "b", "p")
+    kinds = {"a": "gesture", "b": "gesture", "p": "posture"}
+    rng = np.random.default_rng(1)
+    for trial in range(20):
+        n = 400
+        logits = rng.normal(0, 1, (n, 4))
+        for _ in range(12):
+            s = int(rng.integers(0, n - 30))
+            logits[s:s + int(rng.integers(2, 30)), int(rng.integers(1, 4))] += 4.0
+        p = np.exp(logits) / np.exp(logits).sum(axis=1, keepdims=True)
+        t = np.arange(n) * 0.05
+        one, many = Gate(classes, kinds), Gate(classes, kinds)
+        want = [e for i in range(n) for e in one.step(float(t[i]), p[i])]
+        got, a = [], 0
+        while a < n:
+            b = min(n, a + int(rng.integers(1, 60)))
+            got += many.step_many(t[a:b], p[a:b])
+            a = b
+        assert got == want and len(want) > 3

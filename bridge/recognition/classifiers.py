@@ -22,7 +22,7 @@ import numpy as np
 from ..signal import BandPass
 from .dtw import class_distances_pruned, envelope, fit_templates, per_class_min, distance_matrix, scores_from_distances
 from .features import window_features
-from .linear import expected_calibration_error, fit_lda, fit_temperature, probabilities
+from .linear import expected_calibration_error, fit_temperature, probabilities
 from .minirocket import RollingMiniRocket, fit_minirocket, minirocket_transform
 from .model import NULL, STREAMS, DtwModel, MiniRocketModel, Model
 from .recogniser import Recogniser
@@ -107,29 +107,23 @@ def _common(X: np.ndarray, full: tuple[str, ...], options: dict) -> dict:
 
 # --- linear -------------------------------------------------------------------------------
 
-def fit_linear_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], shrinkage: float = 0.2, **options) -> Model:
-    """The window-feature linear discriminant on cases; temperature from 5-fold held-out scores."""
+def fit_linear_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], shrinkage: float = 0.2,
+                     fourier_features: int = 0, **options) -> Model:
+    """The window-feature linear model on cases (``training.fit_feature_model``), stratified 5-fold.
+
+    Plain shrinkage discriminant by default (few cases); ``fourier_features`` > 0 uses the
+    random Fourier map and ridge as training on recordings does.
+    """
+    from .training import TrainingSettings, fit_feature_model
     if options.get("stream", "level") != "level":
         raise ValueError("the linear classifier reads level and motion itself; stream must be 'level'")
-    k = len(full)
-    x = window_features(case_windows(X))
-    mean = x.mean(axis=0)
-    scale = x.std(axis=0)
-    scale[scale < 1e-12] = 1.0
-    z = (x - mean) / scale
-    held = np.zeros((len(y), k))
-    folds = _folds(y)
-    for f in np.unique(folds):
-        tr = folds != f
-        w, b = fit_lda(z[tr], y[tr], k, shrinkage)
-        held[~tr] = z[~tr] @ w + b
-    temperature = fit_temperature(held, y)
-    prob = probabilities(held, temperature)
-    w, b = fit_lda(z, y, k, shrinkage)
-    common = _common(X, full, options)
-    return Model(**common, feature_mean=mean, feature_scale=scale, weights=w, bias=b, temperature=temperature,
+    settings = TrainingSettings(shrinkage=shrinkage, fourier_features=fourier_features)
+    fit = fit_feature_model(window_features(case_windows(X)), y, _folds(y), len(full), settings)
+    prob = fit.pop("held_prob")
+    note = fit.pop("note")
+    return Model(**_common(X, full, options), **fit,
                  summary={"cases": int(len(y)), "held_out_accuracy": round(float((prob.argmax(1) == y).mean()), 4),
-                          "calibration_error": round(expected_calibration_error(prob, y), 4), "shrinkage": shrinkage})
+                          **note})
 
 
 def _linear_scores(model: Model, X: np.ndarray) -> np.ndarray:
@@ -280,18 +274,35 @@ def make_recogniser(model):
     return _entry(model.classifier)["recogniser"](model)
 
 
-def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, stream: str = "both",
-                   null_per_class: int = 20, **options):
-    """Fit classifier ``name`` on windows of labelled recordings (as ``training.fit_linear`` does).
+# Settings for recordings, chosen for live use on a laptop or small board: the motion stream
+# only (the band-passed one: no drift to learn), fewer convolution features, and at most
+# ``cases_per_class`` windows per class (evenly spread) so the ridge fit stays in seconds.
+RECORDING_DEFAULTS = {
+    "minirocket": {"stream": "motion", "n_features": 2_000, "cases_per_class": 300},
+    "dtw": {"stream": "motion", "cases_per_class": 60, "templates_per_class": 5, "band": 0.1},
+}
 
-    Windows are labelled by ``training.label_windows``; ambiguous ones are left out. For
-    ``dtw``, null windows are thinned to ``null_per_class`` times the number of classes.
+
+def _thin(y: np.ndarray, per_class: int) -> np.ndarray:
+    """Indices keeping at most ``per_class`` cases of each class, evenly spread in order."""
+    keep = []
+    for c in np.unique(y):
+        idx = np.flatnonzero(y == c)
+        if len(idx) > per_class:
+            idx = idx[np.linspace(0, len(idx) - 1, per_class).astype(int)]
+        keep.append(idx)
+    return np.sort(np.concatenate(keep))
+
+
+def recording_windows(recordings, kinds: dict[str, str], settings=None, progress=None):
+    """Labelled windows of recordings, the way every classifier is trained on them.
+
+    Returns (windows (m, 2, length, channels), labels (m,) class indices, recording index
+    (m,), classes, conditioning, spec). Windows are labelled by ``training.label_windows``;
+    ambiguous ones are left out. progress(done, total) is called after each recording.
     """
     from .training import TrainingSettings, condition_recording, label_windows
     from .windows import all_windows
-    if name == "linear":
-        from .training import fit_linear
-        return fit_linear(recordings, kinds, settings or TrainingSettings())
     settings = settings or TrainingSettings()
     recordings = list(recordings)
     if not recordings:
@@ -299,29 +310,88 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     rate = recordings[0].rate_hz
     channels = tuple(recordings[0].channel_names)
     labels = sorted({iv.label for r in recordings for iv in r.intervals})
+    if not labels:
+        raise ValueError("the recordings hold no labelled gestures")
+    unknown = [l for l in labels if l not in kinds]
+    if unknown:
+        raise ValueError(f"labels without a kind (gesture or posture): {', '.join(unknown)}")
     classes = (NULL, *labels)
     conditioning = BandPass(rate, settings.low_hz, settings.high_hz, settings.order, settings.baseline_tau_s)
     spec = WindowSpec(rate, settings.window_s, settings.hop_s)
-    cases, ys = [], []
-    for r in recordings:
+    ws, ys, gs = [], [], []
+    for i, r in enumerate(recordings):
         if tuple(r.channel_names) != channels or abs(r.rate_hz - rate) > 1e-6 * rate:
-            raise ValueError("all recordings must share channels and rate")
+            raise ValueError("all recordings must share channels and rate; "
+                             f"got {tuple(r.channel_names)} at {r.rate_hz} Hz and {channels} at {rate} Hz")
         streams = condition_recording(r, conditioning)
         w, ends = all_windows(spec, streams[0], streams[1])
         y = label_windows(ends, spec.length, rate, r.intervals, classes, kinds)
         keep = y >= 0
-        cases.append(windows_to_cases(w[keep], stream))
-        ys.append(y[keep])
-    X = np.concatenate(cases)
-    y = np.concatenate(ys)
-    if name == "dtw":
-        nulls = np.flatnonzero(y == 0)
-        cap = null_per_class * (len(classes) - 1)
-        if len(nulls) > cap:
-            drop = np.setdiff1d(nulls, nulls[np.linspace(0, len(nulls) - 1, cap).astype(int)])
-            keep = np.setdiff1d(np.arange(len(y)), drop)
-            X, y = X[keep], y[keep]
-        options.setdefault("templates_per_class", 5)
-    names = np.array(classes)[y]
-    return fit_cases(name, X, names, labels, kinds={c: kinds[c] for c in labels}, channel_names=channels,
-                     conditioning=conditioning, windows=spec, stream=stream, **options)
+        ws.append(w[keep]); ys.append(y[keep]); gs.append(np.full(int(keep.sum()), i))
+        if progress:
+            progress(i + 1, len(recordings))
+    return np.concatenate(ws), np.concatenate(ys), np.concatenate(gs), classes, conditioning, spec
+
+
+def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, progress=None, **options):
+    """Fit classifier ``name`` on labelled recordings: the one way ``drape fit`` trains each.
+
+    ``linear`` is ``training.fit_linear`` (window features, random Fourier map, ridge; held
+    out by recording). The others fit on the windows of ``recording_windows`` with
+    ``RECORDING_DEFAULTS`` (overridable through options); their summary carries a
+    held-out window accuracy estimated by recording (2 to 5 folds) when there are several.
+    """
+    from .training import TrainingSettings, fit_linear
+    settings = settings or TrainingSettings()
+    if name == "linear":
+        return fit_linear(recordings, kinds, settings, progress=progress)
+    _entry(name)
+    opts = {**RECORDING_DEFAULTS.get(name, {}), **options}
+    per_class = opts.pop("cases_per_class", None)
+    stream = opts.pop("stream", "both")
+    estimate = opts.pop("estimate", True)
+    w, y, g, classes, conditioning, spec = recording_windows(recordings, kinds, settings, progress)
+    missing = [c for k, c in enumerate(classes) if not (y == k).any()]
+    if missing:
+        raise ValueError(f"no usable windows for: {', '.join(missing)} (recordings too short or gestures longer than the window)")
+    if per_class:
+        keep = _thin(y, per_class)
+        w, y, g = w[keep], y[keep], g[keep]
+    labels = list(classes[1:])
+    channels = tuple(recordings[0].channel_names)
+
+    def fit(sel):
+        return fit_cases(name, windows_to_cases(w[sel], stream), np.array(classes)[y[sel]], labels,
+                         kinds={c: kinds[c] for c in labels}, channel_names=channels, conditioning=conditioning,
+                         windows=spec, stream=stream, **opts)
+
+    model = fit(np.ones(len(y), bool))
+    model.summary["recordings"] = len(set(g.tolist()))
+    groups = np.unique(g)
+    if estimate and len(groups) > 1:
+        folds = groups % min(5, len(groups))
+        fold_of = folds[np.searchsorted(groups, g)]
+        correct = 0
+        for f in np.unique(fold_of):
+            held = fold_of == f
+            if len(np.unique(y[~held])) < len(classes):
+                continue
+            m = fit(~held)
+            correct += int((window_scores(m, w[held]).argmax(axis=1) == y[held]).sum())
+            total = model.summary.setdefault("_held", 0)
+            model.summary["_held"] = total + int(held.sum())
+        n = model.summary.pop("_held", 0)
+        if n:
+            model.summary["cross_validated_window_accuracy"] = round(correct / n, 4)
+    return model
+
+
+def window_scores(model, windows: np.ndarray) -> np.ndarray:
+    """Uncalibrated scores (m, classes) of conditioned (level, motion) windows (m, 2, length, channels).
+
+    The batch form of what each live recogniser computes per hop.
+    """
+    windows = np.asarray(windows, dtype=float)
+    if model.classifier == "linear":
+        return model.scores(window_features(windows))
+    return scores(model, windows_to_cases(windows, model.stream))

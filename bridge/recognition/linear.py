@@ -36,8 +36,8 @@ def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties, folds: np
               ) -> tuple[np.ndarray, np.ndarray, float, np.ndarray | None]:
     """Ridge regression onto one-hot classes; the penalty is chosen on held-out folds.
 
-    x: (m, d) features; y: (m,) class indices; penalties: relative to the mean feature
-    energy, so they do not depend on d; folds: (m,) group per row, or None to take the first
+    x: (m, d) features; y: (m,) class indices; penalties: relative to the mean eigenvalue
+    of the centred XᵀX, so they do not depend on d; the bias is not shrunk; folds: (m,) group per row, or None to take the first
     penalty. Per-fold Gram matrices are summed once, so each trial costs one Cholesky solve.
     Returns (weights (d, k), bias (k,), chosen penalty, held-out scores (m, k) or None).
     """
@@ -47,9 +47,10 @@ def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties, folds: np
     unpenalised = np.zeros(d + 1)
     unpenalised[:d] = 1.0  # the bias column is not shrunk
 
-    def solve(gram, rhs, lam, rows):
-        energy = max(float(np.trace(gram[:d, :d])) / (d * max(rows, 1)), 1e-12)
-        return linalg.solve(gram + np.diag(lam * energy * rows * unpenalised), rhs, assume_a="pos")
+    def solve(gram, rhs, lam):
+        # Mean eigenvalue of the centred XᵀX, from the Gram of [X, 1]: trace − |Σx|²/n.
+        energy = max(float(np.trace(gram[:d, :d]) - gram[d, :d] @ gram[d, :d] / gram[d, d]) / d, 1e-12)
+        return linalg.solve(gram + np.diag(lam * energy * unpenalised), rhs, assume_a="pos")
 
     groups = np.unique(folds) if folds is not None else np.zeros(1)
     parts = []
@@ -63,11 +64,11 @@ def fit_ridge(x: np.ndarray, y: np.ndarray, n_classes: int, penalties, folds: np
         for lam in penalties:
             held = np.zeros((m, n_classes))
             for sel, g, r in parts:
-                held[sel] = xa[sel] @ solve(gram_all - g, rhs_all - r, lam, m - sel.sum())
+                held[sel] = xa[sel] @ solve(gram_all - g, rhs_all - r, lam)
             acc = float((held.argmax(axis=1) == y).mean())
             if acc > best_acc:
                 best, best_acc, held_best = lam, acc, held
-    w = solve(gram_all, rhs_all, best, m)
+    w = solve(gram_all, rhs_all, best)
     return w[:d], w[d], float(best), held_best
 
 

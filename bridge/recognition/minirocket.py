@@ -215,10 +215,14 @@ class RollingMiniRocket:
     """MiniRocket features of the latest window of a stream, updated per hop.
 
     State: a ring of the last ``length + hop`` samples (channels × ring), the count of
-    samples seen and, per dilation, the running counts (84, features, 9 bands) of positive
+    samples seen and the running counts (n_features, 9 bands) of positive
     convolution-minus-bias values. ``push`` takes a block (n, channels) and returns the
     features (hops, n_features) of each window completed and the count of samples seen at
     each window's end, like ``Windower.push``.
+
+    Per hop, the positions entering and leaving every band of every dilation are gathered
+    into one batch (their offsets from the window start are the same every hop, so they
+    are worked out once), convolved together, and compared with each dilation's biases.
     """
 
     def __init__(self, params: MiniRocketParams, hop: int):
@@ -227,11 +231,20 @@ class RollingMiniRocket:
         self.ring_len = params.length + self.hop
         self.ring = np.zeros((params.n_channels, self.ring_len))
         self.seen = 0
-        self.counts = [np.zeros((N_KERNELS, int(f), 9)) for f in params.features_per_kernel]
+        self.counts = np.zeros((params.n_features, 9))
         self.beta = kernel_positions()
         self.band_taps = _band_taps()
         self.layouts = [_band_layout(params.length, int(d)) for d in params.dilations]
         self.window_start = None
+        offs = params.offsets()
+        self.offs = offs
+        n = params.length
+        self.f_padded = np.concatenate([np.repeat(params.padded(di), int(f)) for di, f in enumerate(params.features_per_kernel)])
+        self.f_interior = np.concatenate([np.full(N_KERNELS * int(f), float(n - 8 * int(d)))
+                                          for d, f in zip(params.dilations, params.features_per_kernel)])
+        self.bias_blocks = [params.biases[offs[di]:offs[di + 1]].reshape(N_KERNELS, int(f))
+                            for di, f in enumerate(params.features_per_kernel)]
+        self.steady = self._moves(0, self.hop)   # a move by one hop from a window starting at 0
 
     def _next_emit(self) -> int:
         n = self.params.length
@@ -257,52 +270,78 @@ class RollingMiniRocket:
             return np.empty((0, self.params.n_features)), []
         return np.stack(out), ends
 
-    def _advance(self, start: int) -> np.ndarray:
-        """Move the window to [start, start + length) and return its features."""
-        prev = self.window_start
-        n = self.params.length
-        offs = self.params.offsets()
-        feats = np.empty(self.params.n_features)
+    def _moves(self, prev: int | None, start: int) -> dict:
+        """Positions entering (+1) and leaving (−1) each band when the window moves from
+        ``prev`` to ``start`` (None: the first window), for all dilations in order."""
+        pos, band, sign, dil, seg = [], [], [], [], [0]
         for di, d in enumerate(self.params.dilations):
-            d = int(d)
             rel, lens = self.layouts[di]
-            pos, band, sign = [], [], []
+            count = 0
             for bi in range(9):
                 a_new, b_new = start + rel[bi], start + rel[bi] + lens[bi]
                 if prev is None:
-                    enter = np.arange(a_new, b_new)
-                    leave = np.empty(0, dtype=np.int64)
+                    enter, leave = np.arange(a_new, b_new), np.empty(0, dtype=np.int64)
                 else:
                     a_old, b_old = prev + rel[bi], prev + rel[bi] + lens[bi]
                     enter = np.arange(max(a_new, b_old), b_new)
                     leave = np.arange(a_old, min(b_old, a_new))
-                pos += [enter, leave]
-                band += [np.full(len(enter), bi), np.full(len(leave), bi)]
-                sign += [np.ones(len(enter)), -np.ones(len(leave))]
-            pos = np.concatenate(pos)
-            if len(pos):
-                band = np.concatenate(band)
-                sign = np.concatenate(sign)
-                self._count(di, d, pos, band, sign)
-            f = int(self.params.features_per_kernel[di])
-            c = self.counts[di]
-            pad = self.params.padded(di)
-            ppv = np.where(pad[:, None], c.sum(axis=2) / float(n), c[:, :, 4] / float(n - 8 * d))
-            feats[offs[di]:offs[di + 1]] = ppv.reshape(N_KERNELS * f)
-        self.window_start = start
-        return feats
+                for p_, s_ in ((enter, 1.0), (leave, -1.0)):
+                    pos.append(p_); band.append(np.full(len(p_), bi)); sign.append(np.full(len(p_), s_))
+                    count += len(p_)
+            dil.append(np.full(count, int(d)))
+            seg.append(seg[-1] + count)
+        pos = np.concatenate(pos).astype(np.int64)
+        band = np.concatenate(band).astype(np.int64)
+        d_p = np.concatenate(dil).astype(np.int64)
+        di_p = np.repeat(np.arange(len(self.params.dilations)), np.diff(seg))
+        weights = []
+        sign = np.concatenate(sign)
+        for di in range(len(self.params.dilations)):
+            a, b = seg[di], seg[di + 1]
+            w = np.zeros((b - a, 9))
+            w[np.arange(b - a), band[a:b]] = sign[a:b]
+            weights.append(w)
+        return {"pos": pos, "tap_offset": (np.arange(KERNEL_LENGTH)[:, None] - 4) * d_p[None, :],
+                "inside": np.ascontiguousarray(self.band_taps[band].T),
+                "mask": np.ascontiguousarray(self.params.channel_mask[di_p].transpose(1, 2, 0)),
+                "seg": seg, "weights": weights}
 
-    def _count(self, di: int, d: int, pos: np.ndarray, band: np.ndarray, sign: np.ndarray) -> None:
-        """Add sign × (convolution > bias) at absolute positions pos, each in its band's variant."""
-        f = int(self.params.features_per_kernel[di])
-        offs = self.params.offsets()
-        b = self.params.biases[offs[di]:offs[di + 1]].reshape(N_KERNELS, f)
-        tap_pos = pos[None, :] + (np.arange(KERNEL_LENGTH)[:, None] - 4) * d      # (9, P)
-        inside = self.band_taps[band].T                                            # (9, P)
-        vals = self.ring[:, tap_pos % self.ring_len]                                # (ch, 9, P)
-        taps = np.where(inside[None], vals, 0.0).transpose(1, 0, 2)                # (9, ch, P)
-        conv = _conv(taps, self.params.channel_mask[di], self.beta)                # (84, P)
-        positive = (conv[:, None, :] > b[:, :, None]).astype(float)                # (84, f, P)
-        weight = np.zeros((len(pos), 9))
-        weight[np.arange(len(pos)), band] = sign
-        self.counts[di] += positive @ weight
+    def _advance(self, start: int) -> np.ndarray:
+        """Move the window to [start, start + length) and return its features."""
+        prev = self.window_start
+        mv = self.steady if prev is not None and start - prev == self.hop else self._moves(prev, start)
+        pos = mv["pos"] + prev if mv is self.steady else mv["pos"]
+        if len(pos):
+            self._count(mv, pos)
+        n = self.params.length
+        c = self.counts
+        self.window_start = start
+        return np.where(self.f_padded, c.sum(axis=1) / float(n), c[:, 4] / self.f_interior)
+
+    def _count(self, mv: dict, pos: np.ndarray) -> None:
+        """Add sign × (convolution > bias) at absolute positions pos, each in its band's variant.
+
+        The convolution follows ``_conv``'s order of additions exactly (with a channel mask
+        per position), so the counts match the batch transform bit for bit.
+        """
+        tap_pos = pos[None, :] + mv["tap_offset"]                                   # (9, P)
+        vals = self.ring.T[tap_pos % self.ring_len]                                 # (9, P, ch)
+        taps = np.ascontiguousarray(np.where(mv["inside"][:, :, None], vals, 0.0).transpose(0, 2, 1))  # (9, ch, P)
+        alpha = taps[0]
+        for k in range(1, KERNEL_LENGTH):
+            alpha = alpha + taps[k]
+        beta = self.beta
+        gamma = taps[beta[:, 0]] + taps[beta[:, 1]]
+        gamma = gamma + taps[beta[:, 2]]
+        per_channel = 3.0 * gamma - alpha[None]                                     # (84, ch, P)
+        mask = mv["mask"]                                                           # (84, ch, P)
+        conv = mask[:, 0] * per_channel[:, 0]
+        for ch in range(1, taps.shape[1]):
+            conv = conv + mask[:, ch] * per_channel[:, ch]
+        seg = mv["seg"]
+        for di, b in enumerate(self.bias_blocks):
+            a, z = seg[di], seg[di + 1]
+            if z == a:
+                continue
+            positive = (conv[:, None, a:z] > b[:, :, None]).reshape(-1, z - a).astype(float)
+            self.counts[self.offs[di]:self.offs[di + 1]] += positive @ mv["weights"][di]

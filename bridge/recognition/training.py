@@ -72,6 +72,44 @@ def recording_features(rec, model_like: tuple[BandPass, WindowSpec]) -> tuple[np
     return window_features(windows), ends
 
 
+def fit_feature_model(x: np.ndarray, y: np.ndarray, folds: np.ndarray, n_classes: int,
+                      settings: TrainingSettings = TrainingSettings()) -> dict:
+    """The linear recogniser's arithmetic on window features, shared by every way of training it.
+
+    x: (m, d) window features; y: (m,) class indices; folds: (m,) group per window for
+    held-out scores. Standardises, applies the random Fourier map when
+    ``settings.fourier_features`` (ridge, penalty chosen on held-out scores) or else a
+    shrinkage discriminant, and fits the temperature on held-out scores. Returns the
+    Model's array fields, ``temperature``, ``held_prob`` (m, classes) and ``note``.
+    """
+    k = n_classes
+    mean = x.mean(axis=0)
+    scale = x.std(axis=0)
+    scale[scale < 1e-12] = 1.0
+    z = (x - mean) / scale
+    projection = phase = None
+    if settings.fourier_features:
+        rng = np.random.default_rng(settings.seed)
+        projection = rng.normal(0.0, settings.fourier_scale / np.sqrt(z.shape[1]), (z.shape[1], settings.fourier_features))
+        phase = rng.uniform(0.0, 2 * np.pi, settings.fourier_features)
+        z = fourier_map(z, projection, phase)
+        weights, bias, best, held_scores = fit_ridge(z, y, k, list(settings.ridge), folds)
+        note = {"fourier_features": settings.fourier_features, "ridge": best}
+    else:
+        held_scores = np.zeros((len(y), k))
+        for f in np.unique(folds):
+            tr = folds != f
+            w, b = fit_lda(z[tr], y[tr], k, settings.shrinkage)
+            held_scores[~tr] = z[~tr] @ w + b
+        weights, bias = fit_lda(z, y, k, settings.shrinkage)
+        note = {"shrinkage": settings.shrinkage}
+    temperature = fit_temperature(held_scores, y)
+    held_prob = probabilities(held_scores, temperature)
+    note["calibration_error"] = round(expected_calibration_error(held_prob, y), 4)
+    return dict(feature_mean=mean, feature_scale=scale, weights=weights, bias=bias, temperature=temperature,
+                projection=projection, phase=phase, held_prob=held_prob, note=note)
+
+
 def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = TrainingSettings(),
                progress=None) -> Model:
     """Train a linear recogniser on continuous recordings with labelled intervals.
@@ -110,33 +148,12 @@ def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = T
     missing = [c for k, c in enumerate(classes) if not (y == k).any()]
     if missing:
         raise ValueError(f"no usable windows for: {', '.join(missing)} (recordings too short or gestures longer than the window)")
-    mean = x.mean(axis=0)
-    scale = x.std(axis=0)
-    scale[scale < 1e-12] = 1.0
-    z = (x - mean) / scale
-    projection = phase = None
-    if settings.fourier_features:
-        rng = np.random.default_rng(settings.seed)
-        projection = rng.normal(0.0, settings.fourier_scale / np.sqrt(z.shape[1]), (z.shape[1], settings.fourier_features))
-        phase = rng.uniform(0.0, 2 * np.pi, settings.fourier_features)
-        z = fourier_map(z, projection, phase)
     # Held-out scores choose the penalty, fit the temperature and give the estimate: by
     # recording where there are several, else by contiguous fifths of the one recording.
     folds = g if len(recordings) > 1 else np.minimum((np.arange(len(y)) * 5) // len(y), 4)
-    k = len(classes)
-    if settings.fourier_features:
-        weights, bias, best, held_scores = fit_ridge(z, y, k, list(settings.ridge), folds)
-        model_note = {"fourier_features": settings.fourier_features, "ridge": best}
-    else:
-        held_scores = np.zeros((len(y), k))
-        for f in np.unique(folds):
-            tr = folds != f
-            w, b = fit_lda(z[tr], y[tr], k, settings.shrinkage)
-            held_scores[~tr] = z[~tr] @ w + b
-        weights, bias = fit_lda(z, y, k, settings.shrinkage)
-        model_note = {"shrinkage": settings.shrinkage}
-    temperature = fit_temperature(held_scores, y)
-    held_prob = probabilities(held_scores, temperature)
+    fit = fit_feature_model(x, y, folds, len(classes), settings)
+    held_prob = fit.pop("held_prob")
+    model_note = fit.pop("note")
     cv_accuracy = float((held_prob.argmax(axis=1) == y).mean())
     counts = {c: int((y == k).sum()) for k, c in enumerate(classes)}
     return Model(
@@ -145,18 +162,11 @@ def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = T
         channel_names=channels,
         conditioning=conditioning,
         windows=spec,
-        feature_mean=mean,
-        feature_scale=scale,
-        weights=weights,
-        bias=bias,
-        temperature=temperature,
-        projection=projection,
-        phase=phase,
+        **fit,
         summary={
             "recordings": len(recordings),
             "windows_per_class": counts,
             "cross_validated_window_accuracy": round(cv_accuracy, 4),
-            "calibration_error": round(expected_calibration_error(held_prob, y), 4),
             **model_note,
         },
     )

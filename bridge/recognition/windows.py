@@ -53,40 +53,28 @@ class Windower:
         """
         L, hop = self.spec.length, self.spec.hop
         n = streams[0].shape[0]
-        out, ends = [], []
-        start = 0
-        # Walk hop boundaries inside this block; copying only whole windows keeps it O(n).
-        while start < n:
-            next_end = self._next_emit()
-            take = min(n - start, next_end - self.seen)
-            block = np.stack([s[start:start + take] for s in streams])
-            self._append(block)
-            start += take
-            if self.seen == next_end:
-                out.append(self._window())
-                ends.append(self.seen)
-        if not out:
+        first = self._next_emit()
+        ends = list(range(first, self.seen + n + 1, hop))
+        if n == 0:
             return np.empty((0, len(streams), L, self.ring.shape[2])), []
-        return np.stack(out), ends
+        # All windows of the block at once from the ring followed by the block: the window
+        # ending at absolute sample e starts at position e - seen of that buffer.
+        ext = np.concatenate([self.ring, np.stack([np.asarray(s, dtype=float) for s in streams])], axis=1)
+        if ends:
+            view = np.lib.stride_tricks.sliding_window_view(ext, L, axis=1)   # (streams, n+1, ch, L)
+            w = view[:, np.asarray(ends) - self.seen]                         # (streams, m, ch, L)
+            windows = np.ascontiguousarray(w.transpose(1, 0, 3, 2))
+        else:
+            windows = np.empty((0, len(streams), L, self.ring.shape[2]))
+        self.ring = ext[:, -L:].copy()
+        self.seen += n
+        return windows, ends
 
     def _next_emit(self) -> int:
         L, hop = self.spec.length, self.spec.hop
         if self.seen < L:
             return L
         return self.seen + hop - ((self.seen - L) % hop)
-
-    def _append(self, block: np.ndarray) -> None:
-        k = block.shape[1]
-        L = self.spec.length
-        if k >= L:
-            self.ring[:] = block[:, -L:]
-        elif k:
-            self.ring = np.roll(self.ring, -k, axis=1)
-            self.ring[:, -k:] = block
-        self.seen += k
-
-    def _window(self) -> np.ndarray:
-        return self.ring.copy()
 
 
 def all_windows(spec: WindowSpec, *streams: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

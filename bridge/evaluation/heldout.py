@@ -1,0 +1,167 @@
+"""How well a classifier will do on new sessions and on wearers it has never seen.
+
+Schemes over take files, grouped by the wearer and session their metadata name:
+
+- ``leave-session-out``: each distinct session label in turn is held out (all wearers'
+  takes of it), the model is trained on the rest: new recordings of known wearers.
+- ``leave-wearer-out``: each wearer in turn is held out: people the model never saw.
+
+Held-out takes are scored per window (accuracy, macro F1, per-class scores, confusion)
+and per event: each take is replayed through the live pipeline (``bridge.service``) so
+its decisions are the ones the daemon would make, and scored by ``events``.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from ..recognition.classifiers import window_scores
+from ..recognition.training import condition_recording, label_windows
+from ..recognition.windows import all_windows
+from ..service import replay_events
+from .events import Span, score_take, summarise
+
+SCHEMES = {"leave-session-out": "session", "leave-wearer-out": "wearer"}
+
+
+def classification_scores(y_true, y_pred, classes) -> dict:
+    """accuracy, macro_f1, per_class {precision, recall, f1, support}, confusion (rows true, columns predicted)."""
+    k = len(classes)
+    y_true = np.asarray(y_true, dtype=int)
+    y_pred = np.asarray(y_pred, dtype=int)
+    conf = np.zeros((k, k), dtype=int)
+    np.add.at(conf, (y_true, y_pred), 1)
+    per_class, f1s = {}, []
+    for i, c in enumerate(classes):
+        tp = conf[i, i]
+        p = tp / conf[:, i].sum() if conf[:, i].sum() else 0.0
+        r = tp / conf[i].sum() if conf[i].sum() else 0.0
+        f = 2 * p * r / (p + r) if p + r else 0.0
+        per_class[c] = {"precision": round(float(p), 4), "recall": round(float(r), 4), "f1": round(float(f), 4),
+                        "support": int(conf[i].sum())}
+        if conf[i].sum():
+            f1s.append(f)
+    return {"accuracy": round(float(np.trace(conf) / max(1, conf.sum())), 4),
+            "macro_f1": round(float(np.mean(f1s)) if f1s else 0.0, 4),
+            "per_class": per_class, "classes": list(classes), "confusion": conf.tolist(), "windows": int(conf.sum())}
+
+
+def take_windows(rec, model) -> tuple[np.ndarray, np.ndarray]:
+    """Labelled windows of one take as the model sees them: (true class index, predicted index).
+
+    Ambiguous windows are left out; labels the model does not know count as null.
+    """
+    streams = condition_recording(rec, model.conditioning)
+    w, ends = all_windows(model.windows, streams[0], streams[1])
+    kinds = {**model.kinds, **{iv.label: model.kinds.get(iv.label, "gesture") for iv in rec.intervals}}
+    known = [iv for iv in rec.intervals if iv.label in model.kinds]
+    y = label_windows(ends, model.windows.length, model.rate_hz, known, model.classes, kinds)
+    keep = y >= 0
+    if not keep.any():
+        return y[keep], y[keep]
+    pred = window_scores(model, w[keep]).argmax(axis=1)
+    return y[keep], pred
+
+
+def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: bool = True) -> dict:
+    """Window and event scores of a model on takes it was not trained on.
+
+    Returns classification_scores(...) plus "events" (``events.summarise``) and "takes":
+    per take its name, the events decided and the truth (for the report's timeline).
+    With ``events`` False the takes are not replayed (window scores only).
+    """
+    ys, ps, per_take, scored = [], [], [], []
+    for i, rec in enumerate(recs):
+        y, p = take_windows(rec, model)
+        ys.append(y); ps.append(p)
+        decided = replay_events(rec, model, None, block_s) if events else []
+        duration = rec.freq_hz.shape[0] / rec.rate_hz
+        truth = [Span(iv.start_s, iv.end_s, iv.label) for iv in rec.intervals]
+        s = score_take(truth, decided, model.windows.window_s, duration, model.kinds)
+        scored.append(s)
+        per_take.append({"rec": rec, "events": decided, "truth": truth, "latency_s": s["latency_s"]})
+        if progress:
+            progress(i + 1, len(recs))
+    out = classification_scores(np.concatenate(ys), np.concatenate(ps), model.classes)
+    out["events"] = summarise(scored) if events else None
+    out["takes"] = per_take if events else []
+    return out
+
+
+def groups_of(recs, scheme: str) -> list[str]:
+    """The group label of each take under a scheme (its wearer or its session)."""
+    if scheme not in SCHEMES:
+        raise ValueError(f"unknown scheme {scheme!r}; choose {', '.join(SCHEMES)}")
+    field = SCHEMES[scheme]
+    labels = [str(getattr(r, field) or "") for r in recs]
+    if any(not l for l in labels):
+        raise ValueError(f"{scheme} needs every take's {field} in its metadata; some takes have none")
+    if len(set(labels)) < 2:
+        raise ValueError(f"{scheme} needs takes of at least two {field}s; all are {labels[0]!r}")
+    return labels
+
+
+def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "linear", settings=None,
+                   progress=None, events: bool = True, **options) -> dict:
+    """Train on all but one group, score the held-out group's takes; repeat for each group.
+
+    Returns the pooled classification_scores, "events" (pooled over all held-out takes),
+    "folds" (per group: accuracy, macro F1, event recall, false triggers per null hour),
+    "scheme", "classifier" and "takes" (for the report).
+    """
+    from ..recognition.classifiers import fit_recordings
+    recs = list(recs)
+    labels = groups_of(recs, scheme)
+    order = sorted(set(labels))
+    conf, folds, takes, scored = None, [], [], []
+    classes = None
+    for n, grp in enumerate(order):
+        train = [r for r, l in zip(recs, labels) if l != grp]
+        test = [r for r, l in zip(recs, labels) if l == grp]
+        extra = {} if classifier == "linear" else {"estimate": False}
+        model = fit_recordings(classifier, train, kinds, settings, **extra, **options)
+        classes = classes or model.classes
+        if tuple(model.classes) != tuple(classes):
+            raise ValueError(f"holding out {grp!r} leaves a class untrained; every gesture must appear in "
+                             "takes of at least two groups")
+        res = evaluate_takes(model, test, events=events)
+        c = np.array(res["confusion"])
+        conf = c if conf is None else conf + c
+        folds.append({"held_out": grp, "takes": len(test), "accuracy": res["accuracy"], "macro_f1": res["macro_f1"],
+                      "event_recall": res["events"]["event_recall"] if events else None,
+                      "false_triggers_per_null_hour": res["events"]["false_triggers_per_null_hour"] if events else None})
+        window_s = model.windows.window_s
+        for t in res["takes"]:
+            scored.append(score_take(t["truth"], t["events"], window_s, t["rec"].freq_hz.shape[0] / t["rec"].rate_hz,
+                                     model.kinds))
+        takes += res["takes"]
+        if progress:
+            progress(n + 1, len(order))
+    yy = np.repeat(np.arange(len(classes)), conf.sum(axis=1))
+    pp = np.concatenate([np.repeat(np.arange(len(classes)), row) for row in conf])
+    out = classification_scores(yy, pp, classes)
+    out["events"] = summarise(scored) if events else None
+    out.update(scheme=scheme, classifier=classifier, folds=folds, takes=takes)
+    return out
+
+
+def evaluate_cases(model, X_list, y, length: int | None = None) -> dict:
+    """Scores of a model on cases from a .ts file; unequal lengths are resampled to the model's window.
+
+    Case labels the model does not know raise ValueError.
+    """
+    from ..recognition.classifiers import predict_proba
+    from ..sources.ts_format import stack_cases
+    n = model.windows.length
+    lengths = {c.shape[1] for c in X_list}
+    X = stack_cases(X_list, n if lengths != {n} else None)
+    want = model.n_channels * (2 if getattr(model, "stream", "level") == "both" else 1)
+    if X.shape[1] != want:
+        raise ValueError(f"cases have {X.shape[1]} dimensions; the model reads {want}")
+    index = {c: i for i, c in enumerate(model.classes)}
+    unknown = sorted(set(map(str, y)) - set(index))
+    if unknown:
+        raise ValueError(f"case labels the model does not know: {', '.join(unknown)}")
+    yi = np.array([index[str(v)] for v in y])
+    pred = predict_proba(model, X).argmax(axis=1)
+    return classification_scores(yi, pred, model.classes)
