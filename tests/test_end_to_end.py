@@ -13,29 +13,17 @@ from pythonosc.dispatcher import Dispatcher
 from pythonosc.osc_server import ThreadingOSCUDPServer
 
 from bridge.cli import main, replay_events
+from bridge.evaluation.matching import match_events as shared_match
 from bridge.garment import GESTURES, Jacket, random_script
 from bridge.sources import Recording, format_line, write_recording
 
 from conftest import ROOT, drape_cmd
 
 
-def match_events(events, intervals, slack_s=2.5):
-    """Truth intervals recognised, and events that match no interval (false triggers).
-
-    A dynamic gesture's event counts if decided from its start to slack_s after its end
-    (the window must first hold the whole gesture); a posture's "entered" event likewise.
-    """
-    firing = [e for e in events if e.kind in ("gesture", "entered")]
-    used = set()
-    hits = 0
-    for iv in intervals:
-        for i, e in enumerate(firing):
-            if i not in used and e.gesture == iv.label and iv.start_s <= e.t_s <= iv.end_s + slack_s:
-                used.add(i)
-                hits += 1
-                break
-    false = [e for i, e in enumerate(firing) if i not in used]
-    return hits, false
+def match_events(events, intervals):
+    """(intervals recognised, false triggers) by the project's matcher (bridge.evaluation.matching)."""
+    m = shared_match(events, intervals, slack_s=2.5)
+    return len(m.hits), list(m.false)
 
 
 @pytest.fixture(scope="module")

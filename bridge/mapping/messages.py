@@ -206,18 +206,6 @@ class Destination:
 
 
 @dataclass(frozen=True)
-class Rule:
-    """On an event of `on` kind for `gesture`, send an OSC message to `to`."""
-
-    gesture: str
-    on: str
-    to: str
-    address: str
-    args: tuple
-    line: int = 0
-
-
-@dataclass(frozen=True)
 class Dispatch:
     """A message bound for a named destination, with the time its event was decided."""
 
