@@ -586,6 +586,10 @@ def cmd_bench(a) -> int:
         c = bench_continuous()
         print(" ".join(f"{k} {v}" for k, v in c.items()))
         return 0
+    if a.live:
+        from .evaluation.bench import bench_live
+        bench_live(a.live_s)
+        return 0
     run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
             classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")))
     return 0
@@ -912,6 +916,9 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--fit-minutes", type=float, default=30.0, help="minutes of 4-channel data to time fitting on (0 to skip)")
     b.add_argument("--classifier", action="append", choices=tuple(CLASSIFIERS), help="only this one (repeatable)")
     b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
+    b.add_argument("--live", action="store_true",
+                   help="end to end instead: the simulated jacket through a pty into `drape start`, out to loopback OSC")
+    b.add_argument("--live-s", type=float, default=30.0, help="--live: seconds of stream")
     b.set_defaults(func=cmd_bench)
     r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
     r.add_argument("recording", metavar="TAKE")

@@ -208,3 +208,83 @@ def run_all(channels=(4, 8), hops: int = 200, replay_s: float = 300.0, fit_minut
 
 if __name__ == "__main__":
     run_all()
+
+
+def bench_live(seconds: float = 30.0, print_fn=print) -> dict:
+    """End to end through a real pseudo-terminal: the simulated jacket written as text lines in
+    real time → `drape start` (a separate process) → OSC to a loopback python-osc receiver.
+
+    Reports the daemon's own arrival → send figure per event (its processing overhead, ms),
+    the receiver's view (OSC datagram received minus the write time of the newest line before
+    it: an upper bound on end to end, ms) and the daemon's memory (VmHWM, MB, Linux).
+    Targets on a laptop-class machine: overhead p99 ≤ 5 ms; memory ≤ 150 MB for 4 garments.
+    """
+    import os
+    import re
+    import subprocess
+    import sys
+    import tempfile
+    import threading
+    from pathlib import Path
+
+    from pythonosc.dispatcher import Dispatcher
+    from pythonosc.osc_server import ThreadingOSCUDPServer
+
+    from ..cli import train_simulated
+    from ..sources import format_line
+    from ..sources.simulated import SimulatedSource
+
+    got: list[float] = []
+    disp = Dispatcher()
+    disp.set_default_handler(lambda *_: got.append(time.monotonic()))
+    server = ThreadingOSCUDPServer(("127.0.0.1", 0), disp)
+    threading.Thread(target=server.serve_forever, daemon=True).start()
+    root = Path(__file__).resolve().parents[2]
+    with tempfile.TemporaryDirectory() as tmp:
+        tmp = Path(tmp)
+        train_simulated(1, 0).save(tmp / "jacket.npz")
+        mapping = (root / "mappings" / "demo.toml").read_text().replace("127.0.0.1:9000", f"127.0.0.1:{server.server_address[1]}")
+        (tmp / "map.toml").write_text(mapping)
+        master, slave = os.openpty()
+        (tmp / "live.toml").write_text(f'[garment]\nname = "bench"\nport = "{os.ttyname(slave)}"\n'
+                                       f'model = "jacket.npz"\nmapping = "map.toml"\n')
+        proc = subprocess.Popen([sys.executable, "-m", "bridge", "start", "--config", str(tmp / "live.toml")],
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+        try:
+            proc.stderr.readline()  # the port is open from here on
+            src = SimulatedSource(seed=2, wearer=0, session=2, realtime=True, block_s=0.01, duration_s=seconds)
+            writes: list[float] = []
+            while not src.ended:
+                block = src.read()
+                for v in block.freq_hz:
+                    os.write(master, format_line(v))
+                    writes.append(time.monotonic())
+            time.sleep(0.5)
+            try:
+                status = Path(f"/proc/{proc.pid}/status").read_text()
+                hwm = float(re.search(r"VmHWM:\s+(\d+)", status).group(1)) / 1024
+            except (OSError, AttributeError):
+                hwm = float("nan")
+            proc.terminate()
+            out, _ = proc.communicate(timeout=20)
+        finally:
+            proc.kill()
+            os.close(master)
+            os.close(slave)
+            server.shutdown()
+            server.server_close()
+    overhead = np.array([float(m) for m in re.findall(r"latency\s+([0-9.]+) ms", out)])
+    w = np.array(writes)
+    received = np.array([g - w[np.searchsorted(w, g) - 1] for g in got if np.searchsorted(w, g) > 0]) * 1e3
+    result = {"seconds": seconds, "events": int(overhead.size), "datagrams": len(got),
+              "overhead_median_ms": round(float(np.median(overhead)), 3) if overhead.size else None,
+              "overhead_p99_ms": round(float(np.percentile(overhead, 99)), 3) if overhead.size else None,
+              "end_to_end_median_ms": round(float(np.median(received)), 3) if received.size else None,
+              "end_to_end_p99_ms": round(float(np.percentile(received, 99)), 3) if received.size else None,
+              "memory_peak_mb": round(hwm, 1)}
+    if print_fn:
+        print_fn(f"live through a pty, {seconds:g} s, {result['events']} events, {result['datagrams']} OSC datagrams: "
+                 f"arrival → send median {result['overhead_median_ms']} ms, p99 {result['overhead_p99_ms']} ms; "
+                 f"line written → OSC received median {result['end_to_end_median_ms']} ms, "
+                 f"p99 {result['end_to_end_p99_ms']} ms; daemon memory peak {result['memory_peak_mb']} MB")
+    return result
