@@ -22,3 +22,12 @@ def demo_model_file(demo_model, tmp_path_factory):
 def drape_cmd(*args):
     """The drape command as a subprocess argument list (works without the console script on PATH)."""
     return [sys.executable, "-m", "bridge", *args]
+
+
+@pytest.fixture(scope="session")
+def second_model_file(tmp_path_factory):
+    """A different, smaller model: simulated wearer 1 (seed 4), one session of training."""
+    from bridge.cli import train_simulated
+
+    return train_simulated(seed=4, wearer=1, repetitions=6, sessions=1, null_s=90.0).save(
+        tmp_path_factory.mktemp("model2") / "chorus.npz")

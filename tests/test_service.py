@@ -164,7 +164,7 @@ def state_of(rx, name, t0, pred, timeout=8.0):
     return rx.wait(lambda a, args: a == f"/drape/g/{name}/state" and pred(args), timeout, t0)[1]
 
 
-def test_two_garments_in_one_daemon(tmp_path, demo_model_file):
+def test_two_garments_in_one_daemon(tmp_path, demo_model_file, second_model_file):
     rx = Receiver()
     ctl = free_port()
     mid = tmp_path / "chorus.mid"
@@ -188,7 +188,7 @@ name = "chorus"
 simulated = true
 seed = 4
 wearer = 1
-model = "{demo_model_file}"
+model = "{second_model_file}"
 mapping = "chorus.toml"
 
 [[garment]]
