@@ -348,9 +348,8 @@ class Jacket:
                     f"wearer{self.wearer_id}", f"session{self.session_id}", self.centre_hz)
 
 
-def random_script(rng: np.random.Generator, duration_s: float, gestures=None, idle_s=(2.0, 6.0),
-                  null_activities=NULL_ACTIVITIES) -> list[tuple[str, float | None]]:
-    """Gestures at random between idle stretches of null activity, about duration_s long."""
+def _script_parts(gestures, null_activities) -> tuple[list[str], list[str]]:
+    """Checked gesture and null-activity lists for a script (default: the demo vocabulary)."""
     gestures = list(GESTURES) if gestures is None else list(gestures)
     for g in gestures:
         if g not in FULL_GESTURES:
@@ -358,6 +357,13 @@ def random_script(rng: np.random.Generator, duration_s: float, gestures=None, id
     nulls = list(null_activities)
     if not nulls:
         raise ValueError("need at least one null activity")
+    return gestures, nulls
+
+
+def random_script(rng: np.random.Generator, duration_s: float, gestures=None, idle_s=(2.0, 6.0),
+                  null_activities=NULL_ACTIVITIES) -> list[tuple[str, float | None]]:
+    """Gestures at random between idle stretches of null activity, about duration_s long."""
+    gestures, nulls = _script_parts(gestures, null_activities)
     typical_s = {"gesture": 1.4, "posture": 5.5}  # rough lengths, only to budget the script
     script: list[tuple[str, float | None]] = []
     total = 0.0
@@ -379,13 +385,7 @@ def random_script(rng: np.random.Generator, duration_s: float, gestures=None, id
 def training_script(rng: np.random.Generator, repetitions: int = 10, gestures=None,
                     idle_s=(2.0, 4.0), null_activities=NULL_ACTIVITIES) -> list[tuple[str, float | None]]:
     """Each gesture `repetitions` times in shuffled order, separated by null activity (every kind)."""
-    gestures = list(GESTURES) if gestures is None else list(gestures)
-    for g in gestures:
-        if g not in FULL_GESTURES:
-            raise ValueError(f"unknown gesture {g!r}")
-    nulls = list(null_activities)
-    if not nulls:
-        raise ValueError("need at least one null activity")
+    gestures, nulls = _script_parts(gestures, null_activities)
     order = [g for g in gestures for _ in range(repetitions)]
     rng.shuffle(order)
     n_null = len(order) + 1
