@@ -196,22 +196,16 @@ class SacnOutput(Output):
         waits = []
         for number, u in self.universes.items():
             since = now_s - u.last_sent_s
-            if u.fading(now_s) or u.fading(u.last_sent_s):  # the last step of a fade lands exactly
-                if since >= self.frame_s - _SLOP_S:
-                    try:
-                        self._transmit(number, u, now_s)
-                    except OSError as exc:
-                        self.stats.last_error = f"{type(exc).__name__}: {exc}"
-                    since = 0.0
-                waits.append(self.frame_s - since)
-            else:
-                if since >= self.keepalive_s - _SLOP_S:
-                    try:
-                        self._transmit(number, u, now_s)
-                    except OSError as exc:
-                        self.stats.last_error = f"{type(exc).__name__}: {exc}"
-                    since = 0.0
-                waits.append(self.keepalive_s - since)
+            # Fading: a frame every frame_s (the last step of a fade lands exactly); else keep-alive.
+            fading = u.fading(now_s) or u.fading(u.last_sent_s)
+            interval = self.frame_s if fading else self.keepalive_s
+            if since >= interval - _SLOP_S:
+                try:
+                    self._transmit(number, u, now_s)
+                except OSError as exc:
+                    self.stats.last_error = f"{type(exc).__name__}: {exc}"
+                since = 0.0
+            waits.append(interval - since)
         return max(0.0, min(waits))
 
     def close(self) -> None:
