@@ -517,15 +517,18 @@ def _print_result(result: dict) -> None:
         print(f"  {c:<16} precision {v['precision']:.3f}  recall {v['recall']:.3f}  F1 {v['f1']:.3f}  ({v['support']})")
     for f in result.get("folds", []):
         print(f"  held out {f['held_out']!s:<10} accuracy {f['accuracy']:.3f}  macro F1 {f['macro_f1']:.3f}  "
-              f"event recall {f['event_recall']}  false triggers/h {f['false_triggers_per_null_hour']}")
+              f"event recall {f['event_recall']}  false triggers/h {f['false_triggers_per_null_hour']} "
+              f"({f['false_triggers_in_null_per_null_hour']} during null activity)")
     e = result.get("events")
     if e:
         print(f"events: {e['true_events']} performed, {e['true_correct']} correct, {e['true_deleted']} deleted, "
               f"{e['true_fragmented'] + e['true_frag_merged']} fragmented, {e['true_merged'] + e['true_frag_merged']} merged; "
-              f"{e['detections']} decided, {e['detected_inserted']} inserted (false triggers)")
+              f"{e['detections']} decided, {e['detected_inserted']} inserted (false triggers: "
+              f"{e['false_triggers_in_null']} during null activity, {e['wrong_class']} of a wrong class during another)")
         lat = e["latency_s"]
         print(f"event recall {e['event_recall']}, precision {e['event_precision']}, "
-              f"false triggers {e['false_triggers_per_null_hour']} per hour of null activity ({e['null_hours']:.2f} h); "
+              f"false triggers {e['false_triggers_per_null_hour']} per hour of null activity ({e['null_hours']:.2f} h), "
+              f"{e['false_triggers_in_null_per_null_hour']} of them during it; "
               f"latency gesture end → event median {lat['median']} s, p95 {lat['p95']} s")
 
 

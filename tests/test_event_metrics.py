@@ -73,6 +73,9 @@ def test_take_scores_from_decision_events():
     assert out["event_precision"] == pytest.approx(2 / 3, abs=1e-4)
     # One false trigger in (3600 − 7.5) s of null activity.
     assert out["false_triggers_per_null_hour"] == pytest.approx(3600 / 3592.5, abs=0.01)
+    # The bow at 30 s touched no labelled event: a false trigger during null activity.
+    assert (out["false_triggers_in_null"], out["wrong_class"]) == (1, 0)
+    assert out["false_triggers_in_null_per_null_hour"] == pytest.approx(3600 / 3592.5, abs=0.01)
     assert out["latency_s"]["median"] == pytest.approx(0.5)
 
 
@@ -81,6 +84,10 @@ def test_a_wrong_class_is_an_insertion_and_a_deletion():
     s = score_take([Span(10.0, 11.5, "bow")], [Event(12.0, "sweep_across", "gesture", 0.9)], 2.0, 60.0, kinds)
     assert (s["true_deleted"], s["detected_inserted"], s["true_correct"]) == (1, 1, 0)
     assert s["per_class"]["bow"]["true_deleted"] == 1 and s["per_class"]["sweep_across"]["detected_inserted"] == 1
+    # Its window [10, 12] overlaps the bow: a wrong-class cue, not one fired during null activity.
+    out = summarise([s])
+    assert (out["false_triggers_in_null"], out["wrong_class"]) == (0, 1)
+    assert out["false_triggers_in_null_per_null_hour"] == 0.0
 
 
 def test_posture_never_left_runs_to_the_end():

@@ -142,13 +142,18 @@ def score_take(truth: list[Span], events, window_s: float, duration_s: float, ki
     """
     classes = sorted({s.label for s in truth} | {e.gesture for e in events})
     det = detected_spans(events, window_s, duration_s, kinds)
-    totals: dict[str, int] = {}
+    every_true = [(s.start_s, s.end_s) for s in truth]
+    totals: dict[str, int] = {"inserted_in_null": 0}
     per_class = {}
     for c in classes:
         sc = score_one_class([(s.start_s, s.end_s) for s in truth if s.label == c],
                              [(s.start_s, s.end_s) for s in det if s.label == c])
-        per_class[c] = sc["counts"]
-        for k, v in sc["counts"].items():
+        # An insertion touching no labelled event of any class fired while the wearer did
+        # none of the vocabulary (walking, talking...); the others are wrong-class cues.
+        in_null = sum(1 for cat, span in zip(sc["detected"], sc["detected_spans"])
+                      if cat == "inserted" and not any(_overlaps(span, t) for t in every_true))
+        per_class[c] = {**sc["counts"], "inserted_in_null": in_null}
+        for k, v in per_class[c].items():
             totals[k] = totals.get(k, 0) + v
     latency = []
     for s in truth:
@@ -167,13 +172,17 @@ def summarise(takes: list[dict]) -> dict:
 
     Returns the summed counts (``true_*``, ``detected_*``), ``true_events``,
     ``detections``, ``event_recall``, ``event_precision``, ``false_triggers`` (inserted
-    detections), ``null_hours``, ``false_triggers_per_null_hour`` and ``latency_s``
+    detections), ``null_hours``, ``false_triggers_per_null_hour`` (all insertions over the
+    hours of null activity: the strict figure), ``false_triggers_in_null`` and its rate
+    ``false_triggers_in_null_per_null_hour`` (insertions overlapping no labelled event),
+    ``wrong_class`` (insertions during another labelled event) and ``latency_s``
     {"median", "p95", "count"} from gesture end to its event.
     """
     keys = [f"true_{k}" for k in TRUE_KINDS] + [f"detected_{k}" for k in DETECTED_KINDS]
     out = {k: int(sum(t.get(k, 0) for t in takes)) for k in keys}
     n_true = sum(out[f"true_{k}"] for k in TRUE_KINDS)
     n_det = sum(out[f"detected_{k}"] for k in DETECTED_KINDS)
+    in_null = int(sum(t.get("inserted_in_null", 0) for t in takes))
     lat = np.array([x for t in takes for x in t["latency_s"]], dtype=float)
     null_h = sum(t["null_s"] for t in takes) / 3600.0
     out.update(
@@ -182,6 +191,8 @@ def summarise(takes: list[dict]) -> dict:
         event_precision=round(1.0 - out["detected_inserted"] / n_det, 4) if n_det else None,
         false_triggers=out["detected_inserted"], null_hours=round(null_h, 4),
         false_triggers_per_null_hour=round(out["detected_inserted"] / null_h, 2) if null_h > 0 else None,
+        false_triggers_in_null=in_null, wrong_class=out["detected_inserted"] - in_null,
+        false_triggers_in_null_per_null_hour=round(in_null / null_h, 2) if null_h > 0 else None,
         latency_s={"median": round(float(np.median(lat)), 3) if lat.size else None,
                    "p95": round(float(np.percentile(lat, 95)), 3) if lat.size else None,
                    "count": int(lat.size)},

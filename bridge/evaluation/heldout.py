@@ -129,7 +129,9 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
         conf = c if conf is None else conf + c
         folds.append({"held_out": grp, "takes": len(test), "accuracy": res["accuracy"], "macro_f1": res["macro_f1"],
                       "event_recall": res["events"]["event_recall"] if events else None,
-                      "false_triggers_per_null_hour": res["events"]["false_triggers_per_null_hour"] if events else None})
+                      "false_triggers_per_null_hour": res["events"]["false_triggers_per_null_hour"] if events else None,
+                      "false_triggers_in_null_per_null_hour":
+                          res["events"]["false_triggers_in_null_per_null_hour"] if events else None})
         window_s = model.windows.window_s
         for t in res["takes"]:
             scored.append(score_take(t["truth"], t["events"], window_s, t["rec"].freq_hz.shape[0] / t["rec"].rate_hz,
