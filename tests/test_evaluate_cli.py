@@ -111,3 +111,22 @@ def test_report_writes_a_page_with_its_pictures(tmp_path, capsys):
         assert f"src='{png}'" in text
         assert (tmp_path / "rep" / png).read_bytes()[:8] == b"\x89PNG\r\n\x1a\n"  # PNG signature (PNG spec, RFC 2083)
     assert "Accuracy 0.750" in text and "wearer0" in text
+
+
+@pytest.mark.parametrize("classifier, options", [("linear", {}), ("dtw", {"templates_per_class": 2})])
+def test_window_scores_from_the_replayed_hops_equal_a_separate_pass(small_troupe, classifier, options):
+    # Evaluation reads window predictions off the replay's hops instead of scoring every
+    # window again; both must agree window for window.
+    from bridge.evaluation.heldout import hop_windows, take_windows
+    from bridge.recognition.classifiers import fit_recordings
+    from bridge.service import replay_take
+    settings = TrainingSettings(fourier_features=300, hop_s=0.2)
+    extra = {} if classifier == "linear" else {"estimate": False, "stream": "motion", "cases_per_class": 20}
+    model = fit_recordings(classifier, small_troupe[:4], dict(GESTURES), settings, **extra, **options)
+    rec = small_troupe[4]
+    events, hops, skipped = replay_take(rec, model, None, 1.0)
+    assert skipped == 0 and len(hops) > 100
+    y_hop, p_hop = hop_windows(rec, model, hops)
+    y_all, p_all = take_windows(rec, model)
+    np.testing.assert_array_equal(y_hop, y_all)
+    assert (p_hop == p_all).mean() == 1.0

@@ -18,7 +18,7 @@ import numpy as np
 from ..recognition.classifiers import window_scores
 from ..recognition.training import condition_recording, label_windows
 from ..recognition.windows import all_windows
-from ..service import replay_events
+from ..service import replay_take
 from .events import Span, score_take, summarise
 
 SCHEMES = {"leave-session-out": "session", "leave-wearer-out": "wearer"}
@@ -46,6 +46,13 @@ def classification_scores(y_true, y_pred, classes) -> dict:
             "per_class": per_class, "classes": list(classes), "confusion": conf.tolist(), "windows": int(conf.sum())}
 
 
+def _window_truth(rec, model, ends: np.ndarray) -> np.ndarray:
+    """True class index of the windows ending at ``ends``; ambiguous ones get a negative index."""
+    kinds = {**model.kinds, **{iv.label: model.kinds.get(iv.label, "gesture") for iv in rec.intervals}}
+    known = [iv for iv in rec.intervals if iv.label in model.kinds]
+    return label_windows(ends, model.windows.length, model.rate_hz, known, model.classes, kinds)
+
+
 def take_windows(rec, model) -> tuple[np.ndarray, np.ndarray]:
     """Labelled windows of one take as the model sees them: (true class index, predicted index).
 
@@ -53,14 +60,25 @@ def take_windows(rec, model) -> tuple[np.ndarray, np.ndarray]:
     """
     streams = condition_recording(rec, model.conditioning)
     w, ends = all_windows(model.windows, streams[0], streams[1])
-    kinds = {**model.kinds, **{iv.label: model.kinds.get(iv.label, "gesture") for iv in rec.intervals}}
-    known = [iv for iv in rec.intervals if iv.label in model.kinds]
-    y = label_windows(ends, model.windows.length, model.rate_hz, known, model.classes, kinds)
+    y = _window_truth(rec, model, ends)
     keep = y >= 0
     if not keep.any():
         return y[keep], y[keep]
     pred = window_scores(model, w[keep]).argmax(axis=1)
     return y[keep], pred
+
+
+def hop_windows(rec, model, hops) -> tuple[np.ndarray, np.ndarray]:
+    """``take_windows`` from the hops a replay already scored: the live recogniser emits a
+    window at the same samples as ``all_windows`` over a take with no skipped rows, so
+    the classifier need not run twice (DTW over every window of a long take is slow)."""
+    if not hops:
+        return np.empty(0, dtype=int), np.empty(0, dtype=int)
+    ends = np.rint(np.array([t for t, _ in hops]) * model.rate_hz).astype(int)
+    y = _window_truth(rec, model, ends)
+    keep = y >= 0
+    pred = np.array([p.argmax() for _, p in hops], dtype=int)
+    return y[keep], pred[keep]
 
 
 def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: bool = True) -> dict:
@@ -72,9 +90,13 @@ def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: boo
     """
     ys, ps, per_take, scored = [], [], [], []
     for i, rec in enumerate(recs):
-        y, p = take_windows(rec, model)
+        decided = []
+        if events:
+            decided, hops, skipped = replay_take(rec, model, None, block_s)
+            y, p = hop_windows(rec, model, hops) if not skipped else take_windows(rec, model)
+        else:
+            y, p = take_windows(rec, model)
         ys.append(y); ps.append(p)
-        decided = replay_events(rec, model, None, block_s) if events else []
         duration = rec.freq_hz.shape[0] / rec.rate_hz
         truth = [Span(iv.start_s, iv.end_s, iv.label) for iv in rec.intervals]
         s = score_take(truth, decided, model.windows.window_s, duration, model.kinds)

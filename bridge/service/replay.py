@@ -12,9 +12,17 @@ def replay_events(rec, model, mapping=None, block_s: float = 0.1) -> list:
     The pipeline's decisions do not depend on the block size (``Windower`` emits windows
     at the same samples whatever the blocks), so a long block only saves per-call work.
     """
-    pipe = Pipeline(model, mapping)
+    return replay_take(rec, model, mapping, block_s)[0]
+
+
+def replay_take(rec, model, mapping=None, block_s: float = 0.1) -> tuple[list, list, int]:
+    """``replay_events`` that also keeps each hop's class probabilities.
+
+    Returns (events, hops [(t_s, probabilities)], rows skipped as unreadable).
+    """
+    pipe = Pipeline(model, mapping, record_hops=True)
     src = ReplaySource(rec, block_s)
     events = []
     while not src.ended:
         events += pipe.feed(src.read().freq_hz)
-    return events + pipe.stop()
+    return events + pipe.stop(), pipe.hops, pipe.skipped
