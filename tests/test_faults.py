@@ -327,3 +327,89 @@ def test_a_daemon_reader_with_a_full_queue_drops_blocks_and_counts_their_samples
     r.join(20)
     assert not r.is_alive() and r.error == ""
     assert q.qsize() == 3 and r.dropped == 17 * 10  # the loop keeps the oldest three, the rest are counted
+
+
+# -- 11. disk full while capturing ---------------------------------------------------------------
+
+class FullAfter:
+    """Stands in for the take's file: takes ``budget`` bytes, then behaves like a full disk
+    (a short write, then OSError ENOSPC), as write(2) does on Linux when space runs out."""
+
+    def __init__(self, fh, budget):
+        self.fh, self.budget = fh, budget
+
+    def write(self, data):
+        if self.budget <= 0:
+            raise OSError(errno.ENOSPC, os.strerror(errno.ENOSPC))
+        n = self.fh.write(data[:self.budget])
+        self.budget -= n
+        return n
+
+    def truncate(self, size):
+        return self.fh.truncate(size)
+
+    def close(self):
+        self.fh.close()
+
+    @property
+    def closed(self):
+        return self.fh.closed
+
+
+def test_a_full_disk_keeps_the_take_so_far_readable_simulated(tmp_path):
+    from bridge.sources import RecordingWriter, read_recording
+    from bridge.sources.recording import TakeWriteError
+    path = tmp_path / "full.take"
+    w = RecordingWriter(path, 100.0, CHANNELS, "ana", "tue", flush_s=0.0)
+    header = path.stat().st_size
+    w.fh = FullAfter(w.fh, 5000)  # the disk fills up part-way through a block of lines
+    vals = jacket_like(400)
+    with pytest.raises(TakeWriteError) as got:
+        for i in range(0, 400, 20):
+            w.samples(np.arange(i, i + 20) / 100.0, vals[i:i + 20])
+            if i == 40:
+                w.label(0.1, 0.4, "raise_right")
+    assert got.value.errno == errno.ENOSPC and "the take so far is kept" in str(got.value)
+    with pytest.raises(TakeWriteError):
+        w.label(1.0, 2.0, "bow")  # nothing more is attempted
+    w.close()  # does not raise
+    kept = path.stat().st_size
+    assert header < kept <= header + 5000 and kept == w.written_bytes
+    assert path.read_bytes().endswith(b"\n")  # cut back to the last whole line
+    rec = read_recording(path)
+    n = rec.freq_hz.shape[0]
+    assert 40 < n < 400 and [iv.label for iv in rec.intervals] == ["raise_right"]
+    np.testing.assert_allclose(rec.freq_hz, np.round(vals[:n], 2))
+    print(f"simulated full disk: {kept} bytes kept, {n} samples of 400")
+
+
+@pytest.fixture
+def tiny_disk(tmp_path):
+    """A real 64 KiB tmpfs (needs root and mount permission; skipped otherwise)."""
+    if shutil.which("mount") is None or os.geteuid() != 0:
+        pytest.skip("mounting a small tmpfs needs root")
+    where = tmp_path / "disk"
+    where.mkdir()
+    r = subprocess.run(["mount", "-t", "tmpfs", "-o", "size=64k", "tmpfs", str(where)], capture_output=True, text=True)
+    if r.returncode != 0:
+        pytest.skip(f"cannot mount a tmpfs here: {r.stderr.strip()}")
+    try:
+        yield where
+    finally:
+        subprocess.run(["umount", "-l", str(where)], capture_output=True)
+
+
+def test_a_full_disk_during_capture_stops_it_and_keeps_the_take_readable(tiny_disk, capsys):
+    from bridge.cli import main
+    from bridge.sources import read_recording
+    out = tiny_disk / "ana.take"
+    code = main(["capture", "--simulated", "--yes", "--no-keys", "--fast", "--reps", "4", "--lead-s", "1",
+                 "--countdown-s", "0.5", "--out", str(out)])
+    said = capsys.readouterr()
+    assert code == 1 and "No space left on device" in said.out and "the take so far is kept" in said.out
+    assert "Traceback" not in said.err
+    rec = read_recording(out)  # the real file on the full file system
+    assert out.read_bytes().endswith(b"\n")
+    assert rec.freq_hz.shape[0] > 500 and len(rec.intervals) >= 1
+    print(f"tmpfs of 64 KiB: {out.stat().st_size} bytes kept, {rec.freq_hz.shape[0] / rec.rate_hz:.1f} s "
+          f"of stream, {len(rec.intervals)} labels")
