@@ -413,3 +413,84 @@ def test_a_full_disk_during_capture_stops_it_and_keeps_the_take_readable(tiny_di
     assert rec.freq_hz.shape[0] > 500 and len(rec.intervals) >= 1
     print(f"tmpfs of 64 KiB: {out.stat().st_size} bytes kept, {rec.freq_hz.shape[0] / rec.rate_hz:.1f} s "
           f"of stream, {len(rec.intervals)} labels")
+
+
+# -- 1. serial unplug and replug, through the live loop ---------------------------------------
+
+class SocatPair:
+    """A named pty pair made by socat: the garment writes to ``device``, drape opens ``host``.
+    Killing socat takes both away, as pulling a USB garment's cable does."""
+
+    def __init__(self, folder):
+        self.device, self.host = str(folder / "garment"), str(folder / "drape")
+        self.proc, self.fd = None, None
+
+    def plug(self):
+        self.proc = subprocess.Popen(["socat", f"pty,raw,echo=0,link={self.device}",
+                                      f"pty,raw,echo=0,link={self.host}"], stderr=subprocess.DEVNULL)
+        wait_for(lambda: os.path.exists(self.device) and os.path.exists(self.host), 10, "socat's ptys")
+        self.fd = os.open(self.device, os.O_RDWR | os.O_NOCTTY)
+
+    def unplug(self):
+        if self.fd is not None:
+            os.close(self.fd)
+            self.fd = None
+        if self.proc is not None:
+            self.proc.terminate()
+            self.proc.wait(10)
+            self.proc = None
+        for p in (self.device, self.host):
+            if os.path.lexists(p):
+                os.unlink(p)
+
+
+@pytest.mark.skipif(shutil.which("socat") is None, reason="socat not installed (apt-get install socat)")
+def test_unplug_and_replug_in_the_live_loop_resumes_events_and_counts_the_outage(tmp_path, tiny_model):
+    pair = SocatPair(tmp_path)
+    pair.plug()
+    line = format_line([181000.0, 252000.0])
+    statuses, controls = [], []
+    stop = StopFlag()
+    source = ReconnectingSource(lambda: SerialSource(pair.host, 2, 100.0, protocol="text", resample=False),
+                                100.0, CHANNELS, Backoff(0.02, 2.0, 0.2))
+    result = {}
+
+    def loop():
+        try:
+            result["stats"] = run(source, Pipeline(tiny_model, control_mapping(tiny_model)), {"desk": Recorder()},
+                                  stop, on_event=lambda e, t: controls.append(e.kind), stall_s=0.3,
+                                  on_status=lambda s, r: statuses.append((s, r)))
+        except BaseException as exc:  # the test fails on any escape
+            result["error"] = exc
+
+    th = threading.Thread(target=loop, daemon=True)
+    th.start()
+    try:
+        os.write(pair.fd, line * 50)
+        wait_for(lambda: len(controls) >= 50, 20, "the first samples")
+        pair.unplug()
+        wait_for(lambda: ("no data", "device gone") in statuses, 20, "the loop to notice the unplug")
+        before = len(controls)
+        pair.plug()
+        # the port is reopened within the backoff (at most 0.2 s); pyserial empties the input
+        # on open, so the garment streams on until samples come through again
+        end = time.monotonic() + 20
+        while len(controls) < before + 50 and time.monotonic() < end:
+            os.write(pair.fd, line * 5)
+            time.sleep(0.02)
+        assert len(controls) >= before + 50, "no samples after the replug"
+    finally:
+        stop.set()
+        th.join(20)
+        source.close()
+        pair.unplug()
+    assert "error" not in result and not th.is_alive()
+    assert statuses[0] == ("streaming", "")
+    i = statuses.index(("no data", "device gone"))
+    assert ("streaming", "") in statuses[i:]
+    c = source.counters()
+    assert c["outages"] == 1 and c["reconnects"] == 1 and c["malformed"] == 0
+    assert set(controls) == {"control"} and result["stats"].samples == len(controls)
+    outage_s = source.back_after_s[0]
+    print(f"unplug: device away {outage_s:.2f} s (about {outage_s * 100:.0f} samples at 100 Hz never sent); "
+          f"{len(controls) - before} control events after the replug")
