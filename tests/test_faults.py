@@ -449,7 +449,7 @@ def test_unplug_and_replug_in_the_live_loop_resumes_events_and_counts_the_outage
     pair = SocatPair(tmp_path)
     pair.plug()
     line = format_line([181000.0, 252000.0])
-    statuses, controls = [], []
+    statuses, seen_s, controls = [], [], []
     stop = StopFlag()
     source = ReconnectingSource(lambda: SerialSource(pair.host, 2, 100.0, protocol="text", resample=False),
                                 100.0, CHANNELS, Backoff(0.02, 2.0, 0.2))
@@ -459,7 +459,7 @@ def test_unplug_and_replug_in_the_live_loop_resumes_events_and_counts_the_outage
         try:
             result["stats"] = run(source, Pipeline(tiny_model, control_mapping(tiny_model)), {"desk": Recorder()},
                                   stop, on_event=lambda e, t: controls.append(e.kind), stall_s=0.3,
-                                  on_status=lambda s, r: statuses.append((s, r)))
+                                  on_status=lambda s, r: (statuses.append((s, r)), seen_s.append(time.monotonic())))
         except BaseException as exc:  # the test fails on any escape
             result["error"] = exc
 
@@ -491,6 +491,6 @@ def test_unplug_and_replug_in_the_live_loop_resumes_events_and_counts_the_outage
     c = source.counters()
     assert c["outages"] == 1 and c["reconnects"] == 1 and c["malformed"] == 0
     assert set(controls) == {"control"} and result["stats"].samples == len(controls)
-    outage_s = source.back_after_s[0]
+    outage_s = seen_s[statuses.index(("streaming", ""), i)] - seen_s[i]  # "no data" as the loop saw it
     print(f"unplug: device away {outage_s:.2f} s (about {outage_s * 100:.0f} samples at 100 Hz never sent); "
           f"{len(controls) - before} control events after the replug")
