@@ -494,3 +494,69 @@ def test_unplug_and_replug_in_the_live_loop_resumes_events_and_counts_the_outage
     outage_s = seen_s[statuses.index(("streaming", ""), i)] - seen_s[i]  # "no data" as the loop saw it
     print(f"unplug: device away {outage_s:.2f} s (about {outage_s * 100:.0f} samples at 100 Hz never sent); "
           f"{len(controls) - before} control events after the replug")
+
+
+# -- 9. the model file swapped for one with other channels -------------------------------------
+
+def noise_model(channels, seed=0):
+    """A linear model on noise for these channels (fitted in a second; recognises nothing)."""
+    rng = np.random.default_rng(seed)
+    spec = WindowSpec(100.0, 0.5, 0.1)
+    X = rng.normal(size=(12, len(channels), spec.length))
+    return fit_cases("linear", X, ["a"] * 6 + ["null"] * 6, ["a"], rate_hz=100.0, windows=spec,
+                     conditioning=BandPass(100.0), channel_names=tuple(channels), stream="level")
+
+
+def test_a_garment_with_other_channels_than_the_model_is_refused_with_a_clear_message():
+    # The model (2 channels) is not this garment's (4 channels per line): drape stops reading
+    # it and says why, instead of counting bad lines for ever.
+    from bridge.sources.serialport import ChannelMismatch
+    src = _loop_source(n_channels=2, channel_names=CHANNELS, protocol="text")
+    lines = b"".join(format_line([181000.0, 252000.0, 310000.0, 427000.0]) for _ in range(200))
+    try:
+        with pytest.raises(ChannelMismatch) as got:
+            _play(src, lines, 200, timeout_s=20)
+    finally:
+        src.close()
+    msg = str(got.value)
+    assert "4 numbers where 2 (or a time and 2) were expected" in msg
+    assert "is the model made for this garment" in msg and "hem_left, hem_right" in msg
+
+
+def test_a_model_file_swapped_while_running_is_never_used_live_and_other_channels_are_refused(tmp_path, caplog):
+    import logging
+    from bridge.outputs import open_output
+    from bridge.service.config import load_service
+    from bridge.service.daemon import RUNNING, Service
+    from bridge.sources.simulated import SimulatedSource
+    jacket = SimulatedSource(seed=1, wearer=0, realtime=False).channel_names
+    model_path = tmp_path / "lead.npz"
+    noise_model(jacket).save(model_path)
+    cfg = tmp_path / "show.toml"
+    cfg.write_text('[[garment]]\nname = "lead"\nsimulated = true\nseed = 1\nwearer = 0\nmodel = "lead.npz"\n\n'
+                   '[calibration]\nhold_still_s = 0.2\nshift = false\n')
+    stop = StopFlag()
+    service = Service(load_service(cfg), open_output, stop)
+    caplog.set_level(logging.INFO, logger="drape")
+    service.start_garments()
+    g = service.garments[0]
+    running = g.model
+    th = threading.Thread(target=service.serve, daemon=True)
+    th.start()
+    try:
+        wait_for(lambda: g.state == RUNNING and g.pipeline.samples > 50, 30, "the garment to run")
+        noise_model(("a", "b"), seed=1).save(model_path)  # retrained on another garment, saved over it
+        service.reloads_asked += 1                           # as SIGHUP does
+        wait_for(lambda: "refused, the running model keeps going" in caplog.text, 20, "the refusal")
+        assert "now has 2 channels (a, b) where this garment has 4" in caplog.text
+        seen = g.pipeline.samples
+        wait_for(lambda: g.pipeline.samples > seen + 50, 20, "samples after the refusal")
+        assert g.model is running and g.state == RUNNING
+        noise_model(jacket, seed=2).save(model_path)       # a compatible model: used from the next start
+        service.reloads_asked += 1
+        wait_for(lambda: "the new one is used from the next start" in caplog.text, 20, "the note")
+        assert g.model is running and g.state == RUNNING
+    finally:
+        stop.set()
+        th.join(20)
+    assert not th.is_alive()

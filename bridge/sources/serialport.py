@@ -21,7 +21,14 @@ from serial.tools import list_ports
 
 from .base import Block, Source, SourceGone, empty_block
 from .protocols import StreamDecoder
+from .textline import ProtocolUndecided
 from .timebase import DeviceClock, Resampler
+
+MISMATCH_SAMPLES = 50  # samples of another channel count, and none good, before giving up
+
+
+class ChannelMismatch(ProtocolUndecided):
+    """The garment sends another number of channels than the model (or config) says."""
 
 
 @dataclass(frozen=True)
@@ -123,6 +130,7 @@ class SerialSource(Source):
             raise SourceGone(f"serial port {self.port} failed: {exc}") from None
         now = self.clock()
         samples = self.decoder.feed(data) if data else []
+        self._check_channels()
         n_ch = self.decoder.decided_channels or 0
         if not samples:
             return empty_block(n_ch, now)
@@ -136,6 +144,17 @@ class SerialSource(Source):
             t = (self.count + np.arange(len(samples))) / self.rate_hz
         self.count += len(t)
         return Block(t, f, now)
+
+    def _check_channels(self) -> None:
+        """A garment whose samples never have the stated channel count is refused, saying so,
+        rather than read as a stream of bad lines: usually the model is not this garment's."""
+        p = self.decoder.parser
+        if p is None or p.stats.good or p.stats.wrong_count < MISMATCH_SAMPLES:
+            return
+        raise ChannelMismatch(
+            f"serial port {self.port}: none of the first {p.stats.wrong_count} samples has the expected "
+            f"channels ({p.last_problem}); is the model made for this garment? Its channels are "
+            f"{', '.join(self.channel_names) or 'unknown'}")
 
     def counters(self) -> dict:
         c = self.decoder.counters()
