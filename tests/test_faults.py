@@ -560,3 +560,98 @@ def test_a_model_file_swapped_while_running_is_never_used_live_and_other_channel
         stop.set()
         th.join(20)
     assert not th.is_alive()
+
+
+# -- 10. SIGTERM or panic while a key and a note are held ---------------------------------------
+
+from test_keys import _keys_down, xvfb  # noqa: E402,F401  (Xvfb as the independent key peer)
+
+HOLD_MAPPING = """
+[destinations.kb]
+keys = "x11"
+
+[destinations.synth]
+midi_file = "{mid}"
+
+[[rule]]
+gesture = "arms_crossed"
+on = "entered"
+to = "kb"
+keys = "shift"
+hold = true
+
+[[rule]]
+gesture = "arms_crossed"
+on = "entered"
+to = "synth"
+note = 60
+channel = 3
+hold = true
+"""
+
+
+def _unmatched_note_ons(path):
+    """Note-ons without a later note-off (same channel and key), read back with mido.
+    MIDI 1.0: a note-on with velocity 0 is a note-off; All Notes Off (CC 123) ends a channel's notes."""
+    import mido
+    sounding = set()
+    for m in mido.MidiFile(path).tracks[0]:
+        if m.type == "note_on" and m.velocity > 0:
+            sounding.add((m.channel, m.note))
+        elif m.type in ("note_off", "note_on"):
+            sounding.discard((m.channel, m.note))
+        elif m.type == "control_change" and m.control == 123:
+            sounding = {s for s in sounding if s[0] != m.channel}
+    return sounding
+
+
+@pytest.mark.parametrize("how", ["SIGTERM", "SIGUSR1 then SIGTERM"])
+def test_stopping_or_panicking_mid_hold_leaves_no_key_down_and_no_note_sounding(how, xvfb, tmp_path, demo_model_file):
+    import mido
+    import signal as sig
+    from bridge.garment import Jacket
+    from conftest import drape_cmd
+    take = Jacket(seed=1, wearer=0, session=5).perform([("standing", 4.0), ("arms_crossed", 120.0)])
+    lines = [format_line(v) for v in take.freq_hz]
+    mid = tmp_path / "show.mid"
+    (tmp_path / "hold.toml").write_text(HOLD_MAPPING.format(mid=mid))
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "hold.toml"\n')
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    out, done = [], threading.Event()
+    threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True).start()
+
+    def garment():  # 8 s at once, then the held posture at about real time until told to stop
+        os.write(master, b"".join(lines[:800]))
+        i = 800
+        while not done.is_set() and i < len(lines):
+            os.write(master, b"".join(lines[i:i + 5]))
+            i += 5
+            time.sleep(0.04)
+
+    try:
+        assert "on " + os.ttyname(slave) in proc.stderr.readline()  # the port is open from here on
+        threading.Thread(target=garment, daemon=True).start()
+        wait_for(lambda: any("arms_crossed" in l and "entered" in l for l in out), 60, "the posture to be entered")
+        wait_for(lambda: len(_keys_down(xvfb)) == 1, 20, "shift to be held down")  # the check can fail
+        if how.startswith("SIGUSR1"):
+            proc.send_signal(sig.SIGUSR1)
+            wait_for(lambda: _keys_down(xvfb) == [], 20, "panic to let go of the key")
+            wait_for(lambda: any("** panic" in l for l in out), 20, "the panic to be printed")
+            assert proc.poll() is None  # panic releases; the daemon runs on
+        proc.send_signal(sig.SIGTERM)
+        assert proc.wait(30) == 0
+        err = proc.stderr.read()
+    finally:
+        done.set()
+        proc.kill()
+        os.close(master)
+        os.close(slave)
+    assert _keys_down(xvfb) == []
+    assert "Traceback" not in err
+    msgs = [m for m in mido.MidiFile(mid).tracks[0] if not m.is_meta]
+    assert any(m.type == "note_on" and m.velocity > 0 and m.note == 60 and m.channel == 2 for m in msgs)
+    assert _unmatched_note_ons(mid) == set()
+    assert "output kb: sent" in err and "output synth: sent" in err
