@@ -655,3 +655,19 @@ def test_stopping_or_panicking_mid_hold_leaves_no_key_down_and_no_note_sounding(
     assert any(m.type == "note_on" and m.velocity > 0 and m.note == 60 and m.channel == 2 for m in msgs)
     assert _unmatched_note_ons(mid) == set()
     assert "output kb: sent" in err and "output synth: sent" in err
+
+
+def test_a_garment_with_one_channel_more_than_the_model_is_refused_not_read_as_a_time():
+    # Three numbers per line for a two-channel model would be "a time and two channels"; a
+    # first column of counted frequencies jumps about instead of counting seconds: refused.
+    from bridge.sources.serialport import ChannelMismatch
+    rng = np.random.default_rng(9)
+    src = _loop_source(n_channels=2, channel_names=CHANNELS, protocol="text")
+    rows = np.column_stack([310000.0 + rng.normal(0, 30, 200), jacket_like(200)])
+    try:
+        with pytest.raises(ChannelMismatch) as got:
+            _play(src, b"".join(format_line(r) for r in rows), 200, timeout_s=20)
+    finally:
+        src.close()
+    assert "does not behave like a device time in seconds" in str(got.value)
+    assert "If the garment has 3 channels, the model is not made for it" in str(got.value)
