@@ -17,8 +17,7 @@ import time
 import numpy as np
 import pytest
 
-from bridge.mapping import MappingWatcher, parse_mapping
-from bridge.mapping.messages import Destination
+from bridge.mapping import parse_mapping
 from bridge.outputs import QueuedOutput
 from bridge.outputs.base import Output
 from bridge.outputs.osc import OscTcpOutput
@@ -592,7 +591,8 @@ hold = true
 
 def _unmatched_note_ons(path):
     """Note-ons without a later note-off (same channel and key), read back with mido.
-    MIDI 1.0: a note-on with velocity 0 is a note-off; All Notes Off (CC 123) ends a channel's notes."""
+    MIDI 1.0 Detailed Specification (MIDI Manufacturers Association, 1996): a note-on with
+    velocity 0 is a note-off; All Notes Off (controller 123) ends a channel's notes."""
     import mido
     sounding = set()
     for m in mido.MidiFile(path).tracks[0]:
