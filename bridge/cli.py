@@ -355,6 +355,7 @@ def cmd_capture(a) -> int:
     from .service.capture import CaptureSession, CaptureSettings, capture_plan, run_capture
     from .sources import RecordingWriter
     from .sources.base import SourceGone
+    from .sources.recording import TakeWriteError
     from .sources.protocols import describe_counters
     from .sources.textline import ProtocolUndecided
 
@@ -403,7 +404,7 @@ def cmd_capture(a) -> int:
         plan = capture_plan(rng, gestures, a.reps)
         settings = CaptureSettings(a.reps, a.countdown_s, a.window_s, a.hold_s, (a.rest_s, a.rest_s * 2), a.lead_s)
         writer = RecordingWriter(out, source.rate_hz, source.channel_names, wearer, session, layout, kinds)
-    except (SourceGone, ProtocolUndecided) as exc:
+    except (SourceGone, ProtocolUndecided, TakeWriteError) as exc:
         source.close()
         return _err(str(exc))
     sess = CaptureSession(plan, kinds, settings, writer, rng, getattr(source, "prompt", None))
@@ -427,6 +428,9 @@ def cmd_capture(a) -> int:
         run_capture(source, sess, writer, stop, text, status, keys)
     except (SourceGone, ProtocolUndecided) as exc:
         text(f"drape: {exc}; the take so far is saved")
+        code = 1
+    except TakeWriteError as exc:  # disk full: stop recording, keep what is on disk readable
+        text(f"drape: {exc}; stopped recording")
         code = 1
     finally:
         keys.close()

@@ -101,6 +101,7 @@ class Garment:
     last_freq: np.ndarray | None = None
     recent: list = field(default_factory=list)  # (host time, samples) for the rate figure
     latencies_ms: list = field(default_factory=list)
+    model_sig: tuple | None = None              # the model file as loaded (see check_model)
 
     @property
     def flowing(self) -> bool:
@@ -122,6 +123,41 @@ class Garment:
             except Exception:
                 pass
         return n + (self.pipeline.skipped if self.pipeline else 0)
+
+
+def file_signature(path) -> tuple | None:
+    """(modification time ns, size, inode) of a file, None when it cannot be seen."""
+    try:
+        st_ = os.stat(path)
+    except OSError:
+        return None
+    return (st_.st_mtime_ns, st_.st_size, st_.st_ino)
+
+
+def model_file_note(path, running) -> tuple[int, str]:
+    """What to say about a model file that changed under a running garment: (log level, text).
+
+    The running model is never swapped: a garment streams the channels it has, and the
+    mapping, the calibration and everything held were made for the running model. Another
+    channel layout is refused outright; a compatible file is used from the next start.
+    """
+    from ..recognition import ModelError, load_model
+    try:
+        new = load_model(path)
+    except ModelError as exc:
+        return logging.ERROR, f"model file changed but cannot be used ({exc}); the running model keeps going"
+    if tuple(new.channel_names) != tuple(running.channel_names):
+        return logging.ERROR, (
+            f"model file {path} now has {new.n_channels} channels ({', '.join(new.channel_names)}) where this "
+            f"garment has {running.n_channels} ({', '.join(running.channel_names)}): refused, the running model "
+            "keeps going; put back a model made for this garment before the next start")
+    if new.rate_hz != running.rate_hz:
+        return logging.ERROR, (
+            f"model file {path} now expects {new.rate_hz:g} Hz where the running model has {running.rate_hz:g} Hz: "
+            "refused, the running model keeps going")
+    return logging.WARNING, (
+        f"model file {path} changed ({len(new.classes) - 1} gestures, same channels); the running model keeps "
+        "going, the new one is used from the next start")
 
 
 def train_simulated_model(cfg, path: Path):
@@ -195,6 +231,7 @@ class Service:
                     g.model = train_simulated_model(cfg, Path(cfg.model))
                 else:
                     g.model = load_model(cfg.model)
+                g.model_sig = file_signature(cfg.model)
                 g.watcher = MappingWatcher(cfg.mapping, g.model.classes, g.model.kinds,
                                            g.model.channel_names) if cfg.mapping else None
                 mapping = g.watcher.mapping if g.watcher else None
@@ -394,12 +431,23 @@ class Service:
         log.info("control: %s%s for %s", cmd, f" {detail}" if detail else "", target or "every garment")
         for g in chosen:
             if cmd == "reload":
+                self.check_model(g)
                 if g.watcher is not None:
                     self.apply_reload(g, g.watcher.reload_now())
             elif cmd == "rebaseline":
                 self.begin_hold(g, CALIBRATING, "hold still: re-baselining")
             else:  # arm, disarm, panic, layer: Pipeline.command never presses keys
                 self.deliver(g, g.pipeline.command(cmd, detail), self.clock())
+
+    def check_model(self, g: Garment) -> None:
+        """On reload: say what became of a model file replaced on disk (never swapped live)."""
+        sig = file_signature(g.cfg.model)
+        if sig is None or sig == g.model_sig:
+            return
+        g.model_sig = sig
+        level, text = model_file_note(g.cfg.model, g.model)
+        log.log(level, "%s: %s", g.name, text)
+        self.status.send([st.notice(g.name, text)])
 
     def apply_reload(self, g: Garment, change) -> None:
         if change.mapping is None:

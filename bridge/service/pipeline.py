@@ -9,7 +9,7 @@ import numpy as np
 from ..decisions import Controls, Event, Gate, Safety, SafetySettings, gate_settings_for
 from ..mapping import Dispatch, Mapping, Router
 from ..recognition import Model, make_recogniser
-from ..signal import Conditioner
+from ..signal import Conditioner, plausible_rows
 
 
 class Pipeline:
@@ -18,7 +18,7 @@ class Pipeline:
     ``feed`` takes a block of frequencies (n, channels) in Hz and returns the events it
     completes, in time order: "control" events (one per continuous control and sample),
     the gate's events, and the safety stage's armed/disarmed/panic events. Rows with
-    non-finite or non-positive values are counted and skipped. ``dispatches`` routes events
+    non-finite, non-positive or implausible values (``plausible_rows``) are counted and skipped. ``dispatches`` routes events
     through the mapping (``Router``); ``swap_mapping`` changes the mapping between blocks.
     """
 
@@ -67,7 +67,7 @@ class Pipeline:
         f = np.asarray(freq_hz, dtype=float)
         if f.ndim != 2 or f.shape[1] != self.model.n_channels:
             raise ValueError(f"block has shape {f.shape}; expected (n, {self.model.n_channels})")
-        ok = np.isfinite(f).all(axis=1) & (f > 0).all(axis=1)
+        ok = plausible_rows(f, self.conditioner.state.centre_hz)  # NaN, inf, <= 0, or a glitch far from rest
         if not ok.all():
             self.skipped += int((~ok).sum())
             f = f[ok]

@@ -13,6 +13,7 @@ from .conditioning import (
     baseline_init,
     bandpass_init,
     design_bandpass,
+    plausible_rows,
     relative_capacitance,
     track_baseline,
     bandpass_block,
@@ -26,6 +27,7 @@ __all__ = [
     "bandpass_init",
     "bandpass_block",
     "design_bandpass",
+    "plausible_rows",
     "relative_capacitance",
     "track_baseline",
 ]

@@ -22,6 +22,33 @@ def relative_capacitance(freq_hz: np.ndarray, centre_hz: np.ndarray) -> np.ndarr
     return (f0 / f) ** 2 - 1.0
 
 
+PLAUSIBLE_FACTOR = 2.0  # counted frequency within f0 / 2 .. 2 f0 of rest (see plausible_rows)
+
+
+def plausible_rows(freq_hz: np.ndarray, centre_hz: np.ndarray | None = None,
+                   factor: float = PLAUSIBLE_FACTOR) -> np.ndarray:
+    """Which rows of (n, channels) frequencies in Hz a conditioner may use: (n,) bool.
+
+    A row is usable when every value is finite, positive and within ``factor`` of the
+    channel's resting frequency f0 (Hz; when not known yet, the block's median of finite
+    positive rows stands in). Why: ΔC/C0 = (f0/f)² − 1 has no upper bound as f falls, so
+    one counter glitch of a few Hz would push the band-pass state and the tracked drift to
+    1e9 and more, and the garment would recognise nothing for the rest of the session.
+    f0 / 2 means the capacitance quadrupled; a body near a cable changes it by a few per
+    cent, temperature drift by less, so anything beyond that is a glitch, not a person.
+    """
+    f = np.asarray(freq_hz, dtype=float)
+    ok = np.isfinite(f).all(axis=1) & (f > 0).all(axis=1)
+    ref = centre_hz
+    if ref is None:
+        if not ok.any():
+            return ok
+        ref = np.median(f[ok], axis=0)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        ratio = f / np.asarray(ref, dtype=float)
+        return ok & ((ratio >= 1.0 / factor) & (ratio <= factor)).all(axis=1)
+
+
 def design_bandpass(rate_hz: float, low_hz: float = 1.0, high_hz: float = 10.0, order: int = 2) -> np.ndarray:
     """Butterworth band-pass as second-order sections.
 

@@ -126,6 +126,7 @@ class FrameStats:
     duplicate: int = 0      # a sequence number repeated at once (skipped)
     wrong_count: int = 0    # a good frame with another number of values than stated
     out_of_range: int = 0   # NaN, inf, zero or negative, or absurdly large values
+    restarts: int = 0       # the board started again: its device time went backwards (not a wrap)
 
     @property
     def bad(self) -> int:
@@ -181,7 +182,13 @@ class FrameParser:
         if crc16_ccitt_false(pkt[:-2]) != int.from_bytes(pkt[-2:], "big"):
             return self._bad("corrupt", "CRC mismatch")
         # The frame is intact: account for the sequence before judging its contents.
-        if self.last_seq is not None:
+        restarted = (self.last_time_us is not None and time_us < self.last_time_us
+                     and self.last_time_us - time_us <= TIME_WRAP_US // 2)
+        if restarted:
+            # A board that restarts counts its sequence from 0 again: the step is not tens of
+            # thousands of lost frames (the device clock's jump is counted by the timebase).
+            self.stats.restarts += 1
+        elif self.last_seq is not None:
             step = (seq - self.last_seq) & 0xFFFF
             if step == 0:
                 return self._bad("duplicate", f"sequence {seq} repeated")

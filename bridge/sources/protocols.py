@@ -23,8 +23,13 @@ def sniff_protocol(data: bytes) -> str | None:
     if looks_like_frames(data):
         return "frames"
     lines = data.split(b"\n")[:-1]
-    if len(lines) >= 3 and all(b in _PRINTABLE for line in lines[1:] for b in line):
-        return "text"  # the first line may be the tail of one cut in half when we joined
+    # Three printable lines in a row, just arrived: text. Only the latest three count, so boot
+    # noise or bytes at a wrong baud rate before the lines do not hide them (the parser counts
+    # the noise as malformed lines); the first line may be the tail of one cut when we joined.
+    if len(lines) >= 4 and all(b in _PRINTABLE for line in lines[-3:] for b in line):
+        return "text"
+    if len(lines) == 3 and all(b in _PRINTABLE for line in lines[1:] for b in line):
+        return "text"
     return None
 
 
@@ -96,5 +101,5 @@ def describe_counters(c: dict) -> str:
              f"(malformed {c['malformed']}, wrong count {c['wrong_count']}, out of range {c['out_of_range']})")
     else:
         s = "no samples (protocol not yet known)"
-    extra = [f"{k.replace('_', ' ')} {c[k]}" for k in ("gaps", "jumps", "reconnects", "outages") if c.get(k)]
+    extra = [f"{k.replace('_', ' ')} {c[k]}" for k in ("gaps", "jumps", "restarts", "reconnects", "outages") if c.get(k)]
     return s + ("; " + ", ".join(extra) if extra else "")

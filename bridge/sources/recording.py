@@ -19,6 +19,7 @@ from __future__ import annotations
 
 import json
 import math
+import os
 import time
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -59,43 +60,105 @@ class Recording:
                    str(take.wearer), str(take.session), layout, dict(kinds or {}))
 
 
+class TakeWriteError(OSError):
+    """The take could not be written (disk full, medium gone). What was on disk is kept,
+    cut back to its last whole line so it stays readable; ``kept_bytes`` says how much."""
+
+    def __init__(self, path: Path, cause: OSError, kept_bytes: int):
+        super().__init__(cause.errno, f"cannot write {path}: {cause.strerror or cause}; "
+                                      f"the take so far is kept ({kept_bytes} bytes)")
+        self.path, self.cause, self.kept_bytes = path, cause, kept_bytes
+
+
 class RecordingWriter:
-    """Appends samples and labels to a take file, flushing at least every ``flush_s``."""
+    """Appends samples and labels to a take file, flushing at least every ``flush_s``.
+
+    Lines are gathered in memory and written whole with unbuffered writes, so the writer
+    always knows how many bytes reached the file. When a write fails (ENOSPC: the disk is
+    full) the file is cut back to its last complete line, every later call raises
+    ``TakeWriteError`` at once, and ``close`` does not raise: the take so far stays readable.
+    """
+
+    MAX_PENDING = 1 << 16  # bytes gathered before writing even within flush_s
 
     def __init__(self, path: str | Path, rate_hz: float, channel_names, wearer: str = "", session: str = "",
                  layout: str = "", kinds: dict | None = None, flush_s: float = 1.0):
         self.path = Path(path)
-        self.fh = open(self.path, "w", encoding="utf-8", newline="\n")
+        self.fh = open(self.path, "wb", buffering=0)
         self.flush_s = flush_s
+        self.written_bytes = 0          # bytes on disk, all of them whole lines
+        self.failed: TakeWriteError | None = None
+        self._pending: list[bytes] = []
+        self._pending_bytes = 0
         self._last_flush = time.monotonic()
         meta = {"rate_hz": rate_hz, "channels": list(channel_names), "wearer": wearer, "session": session,
                 "layout": layout, "kinds": kinds or {}}
-        self.fh.write(f"{MAGIC}\n#meta {json.dumps(meta)}\n")
-        self.fh.write(",".join(["t_s", *channel_names]) + "\n")
-        self.fh.flush()
+        self._add(f"{MAGIC}\n#meta {json.dumps(meta)}\n" + ",".join(["t_s", *channel_names]) + "\n")
+        self.flush()
 
     def samples(self, t_s: np.ndarray, freq_hz: np.ndarray) -> None:
         rows = np.column_stack([t_s, freq_hz])
-        self.fh.write("".join(f"{r[0]:.4f}," + ",".join(f"{v:.2f}" for v in r[1:]) + "\n" for r in rows))
+        self._add("".join(f"{r[0]:.4f}," + ",".join(f"{v:.2f}" for v in r[1:]) + "\n" for r in rows))
         self._maybe_flush()
 
     def label(self, start_s: float, end_s: float, label: str) -> None:
-        self.fh.write(f"#label {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
+        self._add(f"#label {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
         self._maybe_flush()
 
     def void(self, start_s: float, end_s: float, label: str) -> None:
         """Withdraw a label written earlier (same start, end and name)."""
-        self.fh.write(f"#void {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
+        self._add(f"#void {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
         self._maybe_flush()
+
+    def _add(self, text: str) -> None:
+        if self.failed is not None:
+            raise self.failed
+        data = text.encode("utf-8")
+        self._pending.append(data)
+        self._pending_bytes += len(data)
 
     def _maybe_flush(self) -> None:
         now = time.monotonic()
-        if now - self._last_flush >= self.flush_s:
-            self.fh.flush()
-            self._last_flush = now
+        if now - self._last_flush >= self.flush_s or self._pending_bytes >= self.MAX_PENDING:
+            self.flush()
+
+    def flush(self) -> None:
+        """Write what is gathered. On failure keep only whole lines and raise TakeWriteError."""
+        if self.failed is not None:
+            raise self.failed
+        data = b"".join(self._pending)
+        self._pending, self._pending_bytes = [], 0
+        self._last_flush = time.monotonic()
+        done = 0
+        try:
+            while done < len(data):
+                n = self.fh.write(data[done:])
+                if not n:  # the file system took nothing and said nothing: treat as full
+                    raise OSError(28, os.strerror(28))
+                done += n
+        except OSError as exc:
+            # Part of the data may be on disk, ending mid-line: cut back to the last whole line
+            # (truncating frees space, so it works on a full disk) so readers never meet a torn line.
+            whole = data[:done].rfind(b"\n") + 1
+            self.written_bytes += whole
+            try:
+                self.fh.truncate(self.written_bytes)
+            except OSError:
+                pass  # the reader drops a cut last line anyway
+            self.failed = TakeWriteError(self.path, exc, self.written_bytes)
+            raise self.failed from None
+        self.written_bytes += len(data)
 
     def close(self) -> None:
-        if not self.fh.closed:
+        """Write what is left and close; never raises for a failed write (see ``failed``)."""
+        if self.fh.closed:
+            return
+        try:
+            if self.failed is None and self._pending:
+                self.flush()
+        except TakeWriteError:
+            pass
+        finally:
             self.fh.close()
 
     def __enter__(self):
@@ -114,7 +177,7 @@ def write_recording(path: str | Path, rec: Recording) -> Path:
 
 
 def read_recording(path: str | Path) -> Recording:
-    """Read a take file; a truncated last line (crash while writing) is dropped, not an error."""
+    """Read a take file; a truncated last line (crash while writing, disk full) is dropped, not an error."""
     path = Path(path)
     try:
         lines = path.read_text(encoding="utf-8").split("\n")
@@ -148,6 +211,8 @@ def read_recording(path: str | Path) -> Recording:
                 d = json.loads(s[6:] if void else s[7:])
                 lab = Label(float(d["start_s"]), float(d["end_s"]), str(d["label"]))
             except (json.JSONDecodeError, KeyError, TypeError, ValueError) as exc:
+                if no == len(lines) or all(not l.strip() for l in lines[no:]):
+                    break  # a label cut by a crash or a full disk: the take up to it stands
                 raise RecordingError(f"{path}:{no}: label line unreadable ({exc})") from None
             if not (math.isfinite(lab.start_s) and lab.end_s > lab.start_s):
                 raise RecordingError(f"{path}:{no}: label needs start_s < end_s")

@@ -21,7 +21,14 @@ from serial.tools import list_ports
 
 from .base import Block, Source, SourceGone, empty_block
 from .protocols import StreamDecoder
+from .textline import ProtocolUndecided
 from .timebase import DeviceClock, Resampler
+
+MISMATCH_SAMPLES = 50  # samples of another channel count, and none good, before giving up
+
+
+class ChannelMismatch(ProtocolUndecided):
+    """The garment sends another number of channels than the model (or config) says."""
 
 
 @dataclass(frozen=True)
@@ -96,6 +103,7 @@ class SerialSource(Source):
         self.device_clock = DeviceClock(1.0 / self.rate_hz)
         self.resampler = Resampler(self.rate_hz)
         self.count = 0
+        self._timed = 0  # samples that came with a device time (for _check_time)
         try:
             self.device = resolve_port(port)
             if "://" in self.device:
@@ -123,6 +131,7 @@ class SerialSource(Source):
             raise SourceGone(f"serial port {self.port} failed: {exc}") from None
         now = self.clock()
         samples = self.decoder.feed(data) if data else []
+        self._check_channels()
         n_ch = self.decoder.decided_channels or 0
         if not samples:
             return empty_block(n_ch, now)
@@ -130,12 +139,39 @@ class SerialSource(Source):
         if all(s[0] is not None for s in samples):
             t = np.array([s[0] for s in samples], dtype=float)
             self.device_clock.update(t, now)
+            self._check_time(len(t))
             if self.resample:
                 t, f = self.resampler.process(t, f)
         else:
             t = (self.count + np.arange(len(samples))) / self.rate_hz
         self.count += len(t)
         return Block(t, f, now)
+
+    def _check_channels(self) -> None:
+        """A garment whose samples never have the stated channel count is refused, saying so,
+        rather than read as a stream of bad lines: usually the model is not this garment's."""
+        p = self.decoder.parser
+        if p is None or p.stats.good or p.stats.wrong_count < MISMATCH_SAMPLES:
+            return
+        raise ChannelMismatch(
+            f"serial port {self.port}: none of the first {p.stats.wrong_count} samples has the expected "
+            f"channels ({p.last_problem}); is the model made for this garment? Its channels are "
+            f"{', '.join(self.channel_names) or 'unknown'}")
+
+    def _check_time(self, n: int) -> None:
+        """A "device time" that jumps on most of the first samples is not one: most likely a
+        garment with one channel more than the model, its first frequency read as the time."""
+        self._timed += n
+        if self._timed > 4 * MISMATCH_SAMPLES or self.device_clock.jumps < MISMATCH_SAMPLES // 2:
+            return
+        if 2 * self.device_clock.jumps >= self._timed:
+            n_ch = self.decoder.decided_channels
+            raise ChannelMismatch(
+                f"serial port {self.port}: the first of the {n_ch + 1} numbers per line does not behave like a "
+                f"device time in seconds ({self.device_clock.jumps} jumps in {self._timed} samples). If the garment "
+                f"has {n_ch + 1} channels, the model is not made for it (its channels are "
+                f"{', '.join(self.channel_names)}); if the first number is a time, send it in seconds; "
+                "or state timestamp = false in the config")
 
     def counters(self) -> dict:
         c = self.decoder.counters()
