@@ -127,32 +127,40 @@ class Gate:
                 self.quiet_until_s = t_s + s.refractory_s
         return events
 
-    def step_many(self, times_s, probs: np.ndarray) -> list[Event]:
-        """``step`` for each hop of a block in turn: the same events, with less work per hop.
-
-        A hop can only decide something if some class has at least its k votes among its
-        last n hops, or a posture is held. Votes depend on the probabilities alone, so they
-        are counted for the whole block at once; ``step`` runs only at those hops and the
-        others just join the recent history.
+    def decisive(self, probs: np.ndarray) -> np.ndarray:
+        """(m,) bool: the hops of a coming block (m, classes) at which ``step`` could decide
+        anything while no posture is held: some class has at least its k votes among its
+        last n hops (this block's and the recent history's). Votes depend on the
+        probabilities alone, so they are counted for the whole block at once; at any other
+        hop, with nothing held, ``step`` only adds the hop to the history. Changes nothing.
         """
         probs = np.asarray(probs, dtype=float)
         m = len(probs)
-        if m == 0:
-            return []
         past = list(self.recent)
         ext = np.concatenate([np.array(past).reshape(len(past), probs.shape[1]), probs]) if past else probs
         top = ext.argmax(axis=1)
-        interesting = np.zeros(m, dtype=bool)
+        out = np.zeros(m, dtype=bool)
+        idx = np.arange(len(past), len(ext)) + 1
         for k, name in enumerate(self.classes):
             if k == 0:
                 continue
             s = self.settings[name]
             vote = (top == k) & (ext[:, k] >= s.threshold)
             c = np.concatenate([[0], np.cumsum(vote)])
-            idx = np.arange(len(past), len(ext)) + 1
-            count = c[idx] - c[np.maximum(idx - s.agree_n, 0)]
-            interesting |= count >= s.agree_k
-        candidates = np.flatnonzero(interesting)
+            out |= c[idx] - c[np.maximum(idx - s.agree_n, 0)] >= s.agree_k
+        return out
+
+    def step_many(self, times_s, probs: np.ndarray) -> list[Event]:
+        """``step`` for each hop of a block in turn: the same events, with less work per hop.
+
+        ``step`` runs at the ``decisive`` hops and while a posture is held; the other hops
+        just join the recent history.
+        """
+        probs = np.asarray(probs, dtype=float)
+        m = len(probs)
+        if m == 0:
+            return []
+        candidates = np.flatnonzero(self.decisive(probs))
         events: list[Event] = []
         i = 0
         while i < m:

@@ -17,6 +17,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from .gate import Event
 
 ARMED, DISARMED, PANIC = "armed", "disarmed", "panic"
@@ -67,6 +69,24 @@ class Safety:
             self.armed = False
             out.append(self._event(t_s, DISARMED, "panic"))
         return out
+
+    def quiet_until(self, times_s: np.ndarray) -> int:
+        """For a run of hops at ``times_s`` with no gate events and no posture held: do what
+        ``step`` would do at each of them and return how many that covers, stopping before
+        the first hop at which ``step`` would act (the idle disarm). The caller then runs
+        ``step`` at that hop as usual."""
+        if len(times_s) == 0:
+            return 0
+        s = self.settings
+        if self.last_activity_s is None:
+            self.last_activity_s = float(times_s[0])
+        if s.arm_posture:
+            self.toggled_this_hold = False
+        if s.idle_disarm_s > 0 and self.armed:
+            due = np.flatnonzero(np.asarray(times_s) - self.last_activity_s >= s.idle_disarm_s - 1e-9)
+            if len(due):
+                return int(due[0])
+        return len(times_s)
 
     def step(self, t_s: float, events: list[Event], held: dict) -> list[Event]:
         """After one hop: ``events`` the gate decided, ``held`` the postures it holds
