@@ -97,17 +97,17 @@ class Gate:
         """Take one hop's probabilities (classes,) at stream time t_s; return the events decided."""
         self.recent.append(np.asarray(prob, dtype=float))
         events: list[Event] = []
-        top = np.array([p.argmax() for p in self.recent])
+        recent = np.array(self.recent)                   # (hops kept, classes), oldest first
+        top = recent.argmax(axis=1)
         for k, name in enumerate(self.classes):
             if k == 0:
                 continue
             s = self.settings[name]
-            hist = list(self.recent)[-s.agree_n:]
-            tops = top[-s.agree_n:]
-            votes = [p[k] for p, t in zip(hist, tops) if t == k and p[k] >= s.threshold]
+            hist = recent[-s.agree_n:, k]
+            votes = hist[(top[-s.agree_n:] == k) & (hist >= s.threshold)]
             if self.kinds[name] == "posture":
                 if name in self.held:
-                    low = sum(p[k] < s.exit_threshold for p in hist)
+                    low = int((hist < s.exit_threshold).sum())
                     if low >= s.agree_k:
                         entered_at, conf = self.held.pop(name)
                         self.held_next_s.pop(name, None)
