@@ -98,17 +98,21 @@ class Gate:
         self.recent.append(np.asarray(prob, dtype=float))
         events: list[Event] = []
         recent = np.array(self.recent)                   # (hops kept, classes), oldest first
-        top = recent.argmax(axis=1)
-        for k, name in enumerate(self.classes):
-            if k == 0:
-                continue
-            s = self.settings[name]
-            hist = recent[-s.agree_n:, k]
-            votes = hist[(top[-s.agree_n:] == k) & (hist >= s.threshold)]
+        names = self.classes[1:]
+        settings = [self.settings[c] for c in names]
+        # Votes and low hops of every class at once, each over its own last n hops.
+        cols = recent[:, 1:]
+        inside = np.arange(len(recent))[:, None] >= len(recent) - np.array([s.agree_n for s in settings])
+        voting = inside & (recent.argmax(axis=1)[:, None] == np.arange(1, len(self.classes))) \
+            & (cols >= np.array([s.threshold for s in settings]))
+        n_votes = voting.sum(axis=0)
+        n_low = (inside & (cols < np.array([s.exit_threshold for s in settings]))).sum(axis=0)
+        for j, name in enumerate(names):
+            s = settings[j]
+            agreed = n_votes[j] >= s.agree_k
             if self.kinds[name] == "posture":
                 if name in self.held:
-                    low = int((hist < s.exit_threshold).sum())
-                    if low >= s.agree_k:
+                    if n_low[j] >= s.agree_k:
                         entered_at, conf = self.held.pop(name)
                         self.held_next_s.pop(name, None)
                         events.append(Event(t_s, name, LEFT, conf, t_s - entered_at, self.garment))
@@ -117,13 +121,13 @@ class Gate:
                         # the next one counts from the schedule, not from this hop, so it does not drift
                         self.held_next_s[name] += s.held_every_s
                         events.append(Event(t_s, name, HELD, conf, t_s - entered_at, self.garment))
-                elif len(votes) >= s.agree_k:
-                    conf = float(np.mean(votes))
+                elif agreed:
+                    conf = float(np.mean(cols[voting[:, j], j]))
                     self.held[name] = (t_s, conf)
                     self.held_next_s[name] = t_s + s.held_every_s
                     events.append(Event(t_s, name, ENTERED, conf, 0.0, self.garment))
-            elif len(votes) >= s.agree_k and t_s >= self.quiet_until_s:
-                events.append(Event(t_s, name, GESTURE, float(np.mean(votes)), 0.0, self.garment))
+            elif agreed and t_s >= self.quiet_until_s:
+                events.append(Event(t_s, name, GESTURE, float(np.mean(cols[voting[:, j], j])), 0.0, self.garment))
                 self.quiet_until_s = t_s + s.refractory_s
         return events
 
