@@ -131,28 +131,55 @@ class Gate:
                 self.quiet_until_s = t_s + s.refractory_s
         return events
 
-    def decisive(self, probs: np.ndarray) -> np.ndarray:
-        """(m,) bool: the hops of a coming block (m, classes) at which ``step`` could decide
-        anything while no posture is held: some class has at least its k votes among its
-        last n hops (this block's and the recent history's). Votes depend on the
-        probabilities alone, so they are counted for the whole block at once; at any other
-        hop, with nothing held, ``step`` only adds the hop to the history. Changes nothing.
+    def tallies(self, probs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per hop of a coming block (m, classes) and non-null class: (votes, low hops), each
+        among the class's last n hops (this block's and the recent history's), (m, classes − 1)
+        ints each, as ``step`` will count them at that hop. They depend on the
+        probabilities alone, so a whole block is counted at once. Changes nothing.
         """
         probs = np.asarray(probs, dtype=float)
-        m = len(probs)
         past = list(self.recent)
         ext = np.concatenate([np.array(past).reshape(len(past), probs.shape[1]), probs]) if past else probs
-        top = ext.argmax(axis=1)
-        out = np.zeros(m, dtype=bool)
+        names = self.classes[1:]
+        n = np.array([self.settings[c].agree_n for c in names])
+        cols = ext[:, 1:]
+        vote = (ext.argmax(axis=1)[:, None] == np.arange(1, len(self.classes))) \
+            & (cols >= np.array([self.settings[c].threshold for c in names]))
+        low = cols < np.array([self.settings[c].exit_threshold for c in names])
         idx = np.arange(len(past), len(ext)) + 1
-        for k, name in enumerate(self.classes):
-            if k == 0:
-                continue
+        start = np.maximum(idx[:, None] - n[None, :], 0)
+        cols_i = np.arange(len(names))[None, :]
+        out = []
+        for x in (vote, low):
+            c = np.concatenate([np.zeros((1, len(names)), dtype=np.int64), np.cumsum(x, axis=0)])
+            out.append(c[idx][:, :] - c[start, cols_i])
+        return out[0], out[1]
+
+    def decisive(self, probs: np.ndarray) -> np.ndarray:
+        """(m,) bool: the hops of a coming block at which ``step`` could decide anything
+        while no posture is held (some class has its k votes among its last n hops)."""
+        votes, _ = self.tallies(probs)
+        return (votes >= np.array([self.settings[c].agree_k for c in self.classes[1:]])).any(axis=1)
+
+    def quiet_run(self, times_s: np.ndarray, votes: np.ndarray, low: np.ndarray, i: int) -> int:
+        """The first hop ≥ i of a block (its ``tallies``) at which ``step`` could decide
+        anything, given the postures held now: a class not held has its k votes, a held one
+        its k low hops or its "held" repeat due. Len of the block if none. Before it, with
+        the same postures held, ``step`` would only add hops to the history."""
+        m = len(times_s)
+        if i >= m:
+            return m
+        busy = np.zeros(m - i, dtype=bool)
+        for j, name in enumerate(self.classes[1:]):
             s = self.settings[name]
-            vote = (top == k) & (ext[:, k] >= s.threshold)
-            c = np.concatenate([[0], np.cumsum(vote)])
-            out |= c[idx] - c[np.maximum(idx - s.agree_n, 0)] >= s.agree_k
-        return out
+            if name in self.held:
+                busy |= low[i:, j] >= s.agree_k
+                if s.held_every_s > 0:
+                    busy |= np.asarray(times_s[i:]) >= self.held_next_s[name] - 1e-9
+            else:
+                busy |= votes[i:, j] >= s.agree_k
+        hit = np.flatnonzero(busy)
+        return i + int(hit[0]) if len(hit) else m
 
     def step_many(self, times_s, probs: np.ndarray) -> list[Event]:
         """``step`` for each hop of a block in turn: the same events, with less work per hop.

@@ -93,27 +93,23 @@ class Pipeline:
     def _decide(self, ends, probs: np.ndarray, level: np.ndarray, first: int) -> list[Event]:
         """Gate and safety over a block's hops: exactly the events of ``_decide_each``.
 
-        Most hops decide nothing: no class has its k of n votes (``Gate.decisive``), no
-        posture is held and the idle disarm is not due. Runs of such hops only join the
-        gate's history and touch the safety clock (``Safety.quiet_until``), in one step
-        each; every other hop runs ``_hop`` as the hop-by-hop loop does.
+        Most hops decide nothing: no class not held has its k of n votes, no held posture
+        its k low hops or its repeat due (``Gate.quiet_run``), and no arming hold or idle
+        disarm is due (``Safety.quiet_until``). Runs of such hops only join the gate's
+        history and move the safety clock, in one step each; every other hop runs ``_hop``
+        as the hop-by-hop loop does.
         """
         m = len(ends)
         if m == 0:
             return []
         times = np.asarray(ends, dtype=float) / self.model.rate_hz
-        decisive = np.flatnonzero(self.gate.decisive(probs))
+        votes, low = self.gate.tallies(probs)
         events: list[Event] = []
         i = 0
         while i < m:
-            if self.gate.held:
-                events += self._hop(ends[i], times[i], probs[i], level, first)
-                i += 1
-                continue
-            k = int(np.searchsorted(decisive, i))
-            j = int(decisive[k]) if k < len(decisive) else m
+            j = self.gate.quiet_run(times, votes, low, i)
             if j > i:
-                j = i + self.safety.quiet_until(times[i:j])
+                j = i + self.safety.quiet_until(times[i:j], self.gate.held)
                 self.gate.recent.extend(probs[i:j])
                 if self.hops is not None:
                     self.hops.extend((float(times[h]), np.asarray(probs[h], dtype=float)) for h in range(i, j))
