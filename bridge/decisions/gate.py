@@ -97,18 +97,22 @@ class Gate:
         """Take one hop's probabilities (classes,) at stream time t_s; return the events decided."""
         self.recent.append(np.asarray(prob, dtype=float))
         events: list[Event] = []
-        top = np.array([p.argmax() for p in self.recent])
-        for k, name in enumerate(self.classes):
-            if k == 0:
-                continue
-            s = self.settings[name]
-            hist = list(self.recent)[-s.agree_n:]
-            tops = top[-s.agree_n:]
-            votes = [p[k] for p, t in zip(hist, tops) if t == k and p[k] >= s.threshold]
+        recent = np.array(self.recent)                   # (hops kept, classes), oldest first
+        names = self.classes[1:]
+        settings = [self.settings[c] for c in names]
+        # Votes and low hops of every class at once, each over its own last n hops.
+        cols = recent[:, 1:]
+        inside = np.arange(len(recent))[:, None] >= len(recent) - np.array([s.agree_n for s in settings])
+        voting = inside & (recent.argmax(axis=1)[:, None] == np.arange(1, len(self.classes))) \
+            & (cols >= np.array([s.threshold for s in settings]))
+        n_votes = voting.sum(axis=0)
+        n_low = (inside & (cols < np.array([s.exit_threshold for s in settings]))).sum(axis=0)
+        for j, name in enumerate(names):
+            s = settings[j]
+            agreed = n_votes[j] >= s.agree_k
             if self.kinds[name] == "posture":
                 if name in self.held:
-                    low = sum(p[k] < s.exit_threshold for p in hist)
-                    if low >= s.agree_k:
+                    if n_low[j] >= s.agree_k:
                         entered_at, conf = self.held.pop(name)
                         self.held_next_s.pop(name, None)
                         events.append(Event(t_s, name, LEFT, conf, t_s - entered_at, self.garment))
@@ -117,42 +121,77 @@ class Gate:
                         # the next one counts from the schedule, not from this hop, so it does not drift
                         self.held_next_s[name] += s.held_every_s
                         events.append(Event(t_s, name, HELD, conf, t_s - entered_at, self.garment))
-                elif len(votes) >= s.agree_k:
-                    conf = float(np.mean(votes))
+                elif agreed:
+                    conf = float(np.mean(cols[voting[:, j], j]))
                     self.held[name] = (t_s, conf)
                     self.held_next_s[name] = t_s + s.held_every_s
                     events.append(Event(t_s, name, ENTERED, conf, 0.0, self.garment))
-            elif len(votes) >= s.agree_k and t_s >= self.quiet_until_s:
-                events.append(Event(t_s, name, GESTURE, float(np.mean(votes)), 0.0, self.garment))
+            elif agreed and t_s >= self.quiet_until_s:
+                events.append(Event(t_s, name, GESTURE, float(np.mean(cols[voting[:, j], j])), 0.0, self.garment))
                 self.quiet_until_s = t_s + s.refractory_s
         return events
+
+    def tallies(self, probs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Per hop of a coming block (m, classes) and non-null class: (votes, low hops), each
+        among the class's last n hops (this block's and the recent history's), (m, classes − 1)
+        ints each, as ``step`` will count them at that hop. They depend on the
+        probabilities alone, so a whole block is counted at once. Changes nothing.
+        """
+        probs = np.asarray(probs, dtype=float)
+        past = list(self.recent)
+        ext = np.concatenate([np.array(past).reshape(len(past), probs.shape[1]), probs]) if past else probs
+        names = self.classes[1:]
+        n = np.array([self.settings[c].agree_n for c in names])
+        cols = ext[:, 1:]
+        vote = (ext.argmax(axis=1)[:, None] == np.arange(1, len(self.classes))) \
+            & (cols >= np.array([self.settings[c].threshold for c in names]))
+        low = cols < np.array([self.settings[c].exit_threshold for c in names])
+        idx = np.arange(len(past), len(ext)) + 1
+        start = np.maximum(idx[:, None] - n[None, :], 0)
+        cols_i = np.arange(len(names))[None, :]
+        out = []
+        for x in (vote, low):
+            c = np.concatenate([np.zeros((1, len(names)), dtype=np.int64), np.cumsum(x, axis=0)])
+            out.append(c[idx][:, :] - c[start, cols_i])
+        return out[0], out[1]
+
+    def decisive(self, probs: np.ndarray) -> np.ndarray:
+        """(m,) bool: the hops of a coming block at which ``step`` could decide anything
+        while no posture is held (some class has its k votes among its last n hops)."""
+        votes, _ = self.tallies(probs)
+        return (votes >= np.array([self.settings[c].agree_k for c in self.classes[1:]])).any(axis=1)
+
+    def quiet_run(self, times_s: np.ndarray, votes: np.ndarray, low: np.ndarray, i: int) -> int:
+        """The first hop ≥ i of a block (its ``tallies``) at which ``step`` could decide
+        anything, given the postures held now: a class not held has its k votes, a held one
+        its k low hops or its "held" repeat due. Len of the block if none. Before it, with
+        the same postures held, ``step`` would only add hops to the history."""
+        m = len(times_s)
+        if i >= m:
+            return m
+        busy = np.zeros(m - i, dtype=bool)
+        for j, name in enumerate(self.classes[1:]):
+            s = self.settings[name]
+            if name in self.held:
+                busy |= low[i:, j] >= s.agree_k
+                if s.held_every_s > 0:
+                    busy |= np.asarray(times_s[i:]) >= self.held_next_s[name] - 1e-9
+            else:
+                busy |= votes[i:, j] >= s.agree_k
+        hit = np.flatnonzero(busy)
+        return i + int(hit[0]) if len(hit) else m
 
     def step_many(self, times_s, probs: np.ndarray) -> list[Event]:
         """``step`` for each hop of a block in turn: the same events, with less work per hop.
 
-        A hop can only decide something if some class has at least its k votes among its
-        last n hops, or a posture is held. Votes depend on the probabilities alone, so they
-        are counted for the whole block at once; ``step`` runs only at those hops and the
-        others just join the recent history.
+        ``step`` runs at the ``decisive`` hops and while a posture is held; the other hops
+        just join the recent history.
         """
         probs = np.asarray(probs, dtype=float)
         m = len(probs)
         if m == 0:
             return []
-        past = list(self.recent)
-        ext = np.concatenate([np.array(past).reshape(len(past), probs.shape[1]), probs]) if past else probs
-        top = ext.argmax(axis=1)
-        interesting = np.zeros(m, dtype=bool)
-        for k, name in enumerate(self.classes):
-            if k == 0:
-                continue
-            s = self.settings[name]
-            vote = (top == k) & (ext[:, k] >= s.threshold)
-            c = np.concatenate([[0], np.cumsum(vote)])
-            idx = np.arange(len(past), len(ext)) + 1
-            count = c[idx] - c[np.maximum(idx - s.agree_n, 0)]
-            interesting |= count >= s.agree_k
-        candidates = np.flatnonzero(interesting)
+        candidates = np.flatnonzero(self.decisive(probs))
         events: list[Event] = []
         i = 0
         while i < m:

@@ -17,6 +17,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass
 
+import numpy as np
+
 from .gate import Event
 
 ARMED, DISARMED, PANIC = "armed", "disarmed", "panic"
@@ -67,6 +69,39 @@ class Safety:
             self.armed = False
             out.append(self._event(t_s, DISARMED, "panic"))
         return out
+
+    def quiet_until(self, times_s: np.ndarray, held: dict | None = None) -> int:
+        """For a run of hops at ``times_s`` with no gate events and the same postures
+        ``held`` throughout: do what ``step`` would do at each of them and return how many
+        that covers, stopping before the first hop at which ``step`` would act (the arming
+        hold reached, the idle disarm). The caller then runs ``step`` at that hop."""
+        n = len(times_s)
+        if n == 0:
+            return 0
+        s = self.settings
+        times_s = np.asarray(times_s, dtype=float)
+        q = n
+        if held:
+            if s.arm_posture in held and not self.toggled_this_hold:
+                due = np.flatnonzero(times_s - held[s.arm_posture][0] >= s.arm_hold_s - 1e-9)
+                if len(due):
+                    q = int(due[0])
+            if s.idle_disarm_s > 0 and self.armed and s.idle_disarm_s <= 1e-9:
+                q = 0   # activity is "now" at every held hop; only a zero-length idle fires
+            if q:
+                self.last_activity_s = float(times_s[q - 1])
+                if s.arm_posture and s.arm_posture not in held:
+                    self.toggled_this_hold = False
+            return q
+        if self.last_activity_s is None:
+            self.last_activity_s = float(times_s[0])
+        if s.arm_posture:
+            self.toggled_this_hold = False
+        if s.idle_disarm_s > 0 and self.armed:
+            due = np.flatnonzero(times_s - self.last_activity_s >= s.idle_disarm_s - 1e-9)
+            if len(due):
+                return int(due[0])
+        return n
 
     def step(self, t_s: float, events: list[Event], held: dict) -> list[Event]:
         """After one hop: ``events`` the gate decided, ``held`` the postures it holds

@@ -5,7 +5,7 @@ from __future__ import annotations
 import numpy as np
 from scipy import linalg
 from scipy.optimize import minimize_scalar
-from scipy.special import log_softmax, softmax
+from scipy.special import log_softmax
 
 
 def fit_lda(x: np.ndarray, y: np.ndarray, n_classes: int, shrinkage: float = 0.2) -> tuple[np.ndarray, np.ndarray]:
@@ -84,8 +84,17 @@ def fit_temperature(scores: np.ndarray, y: np.ndarray, bounds: tuple[float, floa
 
 
 def probabilities(scores: np.ndarray, temperature: float) -> np.ndarray:
-    """Calibrated class probabilities from discriminant scores."""
-    return softmax(scores / temperature, axis=1)
+    """Calibrated class probabilities from discriminant scores.
+
+    The softmax of scores / temperature along each row, by the same arithmetic as
+    ``scipy.special.softmax`` (shift by the row maximum, exponentiate, divide by the sum)
+    in fewer calls: it runs every hop.
+    """
+    x = scores / temperature
+    x -= x.max(axis=1, keepdims=True)
+    np.exp(x, out=x)
+    x /= x.sum(axis=1, keepdims=True)
+    return x
 
 
 def expected_calibration_error(prob: np.ndarray, y: np.ndarray, bins: int = 10) -> float:

@@ -215,14 +215,18 @@ class RollingMiniRocket:
     """MiniRocket features of the latest window of a stream, updated per hop.
 
     State: a ring of the last ``length + hop`` samples (channels × ring), the count of
-    samples seen and the running counts (n_features, 9 bands) of positive
-    convolution-minus-bias values. ``push`` takes a block (n, channels) and returns the
-    features (hops, n_features) of each window completed and the count of samples seen at
-    each window's end, like ``Windower.push``.
+    samples seen, the running counts (n_features, 9 bands) of positive
+    convolution-minus-bias values, and a store of the convolution outputs (84 kernels)
+    of every position now inside each band of each dilation (one slot per position:
+    a band of b positions keeps its values in b slots, indexed by position mod b).
+    ``push`` takes a block (n, channels) and returns the features (hops, n_features) of
+    each window completed and the count of samples seen at each window's end, like
+    ``Windower.push``.
 
-    Per hop, the positions entering and leaving every band of every dilation are gathered
-    into one batch (their offsets from the window start are the same every hop, so they
-    are worked out once), convolved together, and compared with each dilation's biases.
+    Per hop, only the positions entering a band are convolved (in one batch over all
+    dilations; their offsets from the window start are the same every hop, so they are
+    worked out once) and stored; those leaving a band take their stored outputs. Both
+    are compared with each dilation's biases: work proportional to the hop.
     """
 
     def __init__(self, params: MiniRocketParams, hop: int):
@@ -235,6 +239,7 @@ class RollingMiniRocket:
         self.beta = kernel_positions()
         self.band_taps = _band_taps()
         self.layouts = [_band_layout(params.length, int(d)) for d in params.dilations]
+        self.stored = np.zeros((len(params.dilations) * params.length, N_KERNELS))  # slot → 84 outputs
         self.window_start = None
         offs = params.offsets()
         self.offs = offs
@@ -259,8 +264,12 @@ class RollingMiniRocket:
         while i < block.shape[0]:
             target = self._next_emit()
             take = min(block.shape[0] - i, target - self.seen)
-            idx = (self.seen + np.arange(take)) % self.ring_len
-            self.ring[:, idx] = block[i:i + take].T
+            a = self.seen % self.ring_len
+            if a + take <= self.ring_len:
+                self.ring[:, a:a + take] = block[i:i + take].T
+            else:
+                idx = (self.seen + np.arange(take)) % self.ring_len
+                self.ring[:, idx] = block[i:i + take].T
             self.seen += take
             i += take
             if self.seen == target:
@@ -271,12 +280,19 @@ class RollingMiniRocket:
         return np.stack(out), ends
 
     def _moves(self, prev: int | None, start: int) -> dict:
-        """Positions entering (+1) and leaving (−1) each band when the window moves from
-        ``prev`` to ``start`` (None: the first window), for all dilations in order."""
-        pos, band, sign, dil, seg = [], [], [], [], [0]
+        """Positions entering and leaving each band when the window moves from ``prev`` to
+        ``start`` (None: the first window), for all dilations.
+
+        Returns the entering positions with their taps, channel masks and store slots
+        (as offsets when ``prev`` is given: the move is the same from any start), the
+        leaving positions' slots, and per dilation the order that groups entering and
+        leaving positions of that dilation together with a (positions, 9 bands) matrix of
+        +1 (entering) / −1 (leaving).
+        """
+        n = self.params.length
+        e_pos, e_band, e_di, l_pos, l_band, l_di = [], [], [], [], [], []
         for di, d in enumerate(self.params.dilations):
             rel, lens = self.layouts[di]
-            count = 0
             for bi in range(9):
                 a_new, b_new = start + rel[bi], start + rel[bi] + lens[bi]
                 if prev is None:
@@ -285,59 +301,76 @@ class RollingMiniRocket:
                     a_old, b_old = prev + rel[bi], prev + rel[bi] + lens[bi]
                     enter = np.arange(max(a_new, b_old), b_new)
                     leave = np.arange(a_old, min(b_old, a_new))
-                for p_, s_ in ((enter, 1.0), (leave, -1.0)):
-                    pos.append(p_); band.append(np.full(len(p_), bi)); sign.append(np.full(len(p_), s_))
-                    count += len(p_)
-            dil.append(np.full(count, int(d)))
-            seg.append(seg[-1] + count)
-        pos = np.concatenate(pos).astype(np.int64)
-        band = np.concatenate(band).astype(np.int64)
-        d_p = np.concatenate(dil).astype(np.int64)
-        di_p = np.repeat(np.arange(len(self.params.dilations)), np.diff(seg))
+                e_pos.append(enter); e_band.append(np.full(len(enter), bi)); e_di.append(np.full(len(enter), di))
+                l_pos.append(leave); l_band.append(np.full(len(leave), bi)); l_di.append(np.full(len(leave), di))
+        cat = lambda xs: np.concatenate(xs).astype(np.int64)
+        e_pos, e_band, e_di, l_pos, l_band, l_di = map(cat, (e_pos, e_band, e_di, l_pos, l_band, l_di))
+        # Entering positions in three groups: interior (all kernels), edges at even and at
+        # odd dilation index (only the zero-padded kernels, every other one, read the
+        # edge bands' counts; see ``MiniRocketParams.padded``).
+        group = np.where(e_band == 4, 0, 1 + e_di % 2)
+        first = np.argsort(group, kind="stable")
+        e_pos, e_band, e_di, group = e_pos[first], e_band[first], e_di[first], group[first]
+        groups = np.concatenate([[0], np.cumsum(np.bincount(group, minlength=3))])
+        slot_start = np.array([[di * n + int(np.sum(self.layouts[di][1][:bi])) for bi in range(9)]
+                               for di in range(len(self.params.dilations))])
+        band_len = np.array([self.layouts[di][1] for di in range(len(self.params.dilations))])
+        d_e = self.params.dilations[e_di].astype(np.int64)
+        # all positions, entering first, regrouped by dilation for the comparisons
+        di_all = np.concatenate([e_di, l_di])
+        band_all = np.concatenate([e_band, l_band])
+        sign_all = np.concatenate([np.ones(len(e_di)), -np.ones(len(l_di))])
+        order = np.argsort(di_all, kind="stable")
+        seg = np.concatenate([[0], np.cumsum(np.bincount(di_all, minlength=len(self.params.dilations)))])
         weights = []
-        sign = np.concatenate(sign)
         for di in range(len(self.params.dilations)):
-            a, b = seg[di], seg[di + 1]
-            w = np.zeros((b - a, 9))
-            w[np.arange(b - a), band[a:b]] = sign[a:b]
+            sel = order[seg[di]:seg[di + 1]]
+            w = np.zeros((len(sel), 9))
+            w[np.arange(len(sel)), band_all[sel]] = sign_all[sel]
             weights.append(w)
-        return {"pos": pos, "tap_offset": (np.arange(KERNEL_LENGTH)[:, None] - 4) * d_p[None, :],
-                "inside": np.ascontiguousarray(self.band_taps[band].T),
-                "mask": np.ascontiguousarray(self.params.channel_mask[di_p].transpose(1, 2, 0)),
-                "seg": seg, "weights": weights}
+        base = 0 if prev is None else prev
+        return {"pos": e_pos - base, "tap_offset": (np.arange(KERNEL_LENGTH)[:, None] - 4) * d_e[None, :],
+                "inside": np.ascontiguousarray(self.band_taps[e_band].T),
+                "mask": np.ascontiguousarray(self.params.channel_mask[e_di].transpose(1, 2, 0)),
+                "e_slot_start": slot_start[e_di, e_band], "e_len": band_len[e_di, e_band],
+                "l_pos": l_pos - base, "l_slot_start": slot_start[l_di, l_band], "l_len": band_len[l_di, l_band],
+                "order": order, "seg": seg, "weights": weights, "groups": groups}
 
     def _advance(self, start: int) -> np.ndarray:
         """Move the window to [start, start + length) and return its features."""
         prev = self.window_start
-        mv = self.steady if prev is not None and start - prev == self.hop else self._moves(prev, start)
-        pos = mv["pos"] + prev if mv is self.steady else mv["pos"]
-        if len(pos):
-            self._count(mv, pos)
+        steady = prev is not None and start - prev == self.hop
+        mv = self.steady if steady else self._moves(prev, start)
+        self._count(mv, 0 if prev is None else prev)
         n = self.params.length
         c = self.counts
         self.window_start = start
         return np.where(self.f_padded, c.sum(axis=1) / float(n), c[:, 4] / self.f_interior)
 
-    def _count(self, mv: dict, pos: np.ndarray) -> None:
-        """Add sign × (convolution > bias) at absolute positions pos, each in its band's variant.
+    def _count(self, mv: dict, base: int) -> None:
+        """Add +1 × (convolution > bias) at the positions entering each band and −1 × the
+        same at those leaving it.
 
-        The convolution follows ``_conv``'s order of additions exactly (with a channel mask
-        per position), so the counts match the batch transform bit for bit.
+        Entering positions are convolved following ``_conv``'s order of additions exactly
+        (with a channel mask per position), so the counts match the batch transform bit
+        for bit; their outputs are stored for when they leave.
         """
-        tap_pos = pos[None, :] + mv["tap_offset"]                                   # (9, P)
-        vals = self.ring.T[tap_pos % self.ring_len]                                 # (9, P, ch)
-        taps = np.ascontiguousarray(np.where(mv["inside"][:, :, None], vals, 0.0).transpose(0, 2, 1))  # (9, ch, P)
-        alpha = taps[0]
-        for k in range(1, KERNEL_LENGTH):
-            alpha = alpha + taps[k]
-        beta = self.beta
-        gamma = taps[beta[:, 0]] + taps[beta[:, 1]]
-        gamma = gamma + taps[beta[:, 2]]
-        per_channel = 3.0 * gamma - alpha[None]                                     # (84, ch, P)
-        mask = mv["mask"]                                                           # (84, ch, P)
-        conv = mask[:, 0] * per_channel[:, 0]
-        for ch in range(1, taps.shape[1]):
-            conv = conv + mask[:, ch] * per_channel[:, ch]
+        pos = mv["pos"] + base
+        l_slots = mv["l_slot_start"] + (mv["l_pos"] + base) % mv["l_len"]
+        leaving = self.stored[l_slots].T                                          # (84, leaving)
+        entering = np.zeros((N_KERNELS, len(pos)))
+        if len(pos):
+            tap_pos = pos[None, :] + mv["tap_offset"]                                   # (9, P)
+            vals = self.ring.T[tap_pos % self.ring_len]                                 # (9, P, ch)
+            taps = np.ascontiguousarray(np.where(mv["inside"][:, :, None], vals, 0.0).transpose(0, 2, 1))  # (9, ch, P)
+            g = mv["groups"]
+            for kernels, a, z in ((slice(None), g[0], g[1]), (slice(0, None, 2), g[1], g[2]),
+                                  (slice(1, None, 2), g[2], g[3])):
+                if z > a:
+                    entering[kernels, a:z] = self._convolve(taps[:, :, a:z], mv["mask"][kernels, :, a:z],
+                                                            self.beta[kernels])
+            self.stored[mv["e_slot_start"] + pos % mv["e_len"]] = entering.T
+        conv = np.concatenate([entering, leaving], axis=1)[:, mv["order"]]
         seg = mv["seg"]
         for di, b in enumerate(self.bias_blocks):
             a, z = seg[di], seg[di + 1]
@@ -345,3 +378,18 @@ class RollingMiniRocket:
                 continue
             positive = (conv[:, None, a:z] > b[:, :, None]).reshape(-1, z - a).astype(float)
             self.counts[self.offs[di]:self.offs[di + 1]] += positive @ mv["weights"][di]
+
+    @staticmethod
+    def _convolve(taps: np.ndarray, mask: np.ndarray, beta: np.ndarray) -> np.ndarray:
+        """``_conv`` with a channel mask per position: taps (9, ch, P), mask (kernels, ch, P),
+        beta (kernels, 3). Same order of additions, so bit-equal outputs."""
+        alpha = taps[0]
+        for k in range(1, KERNEL_LENGTH):
+            alpha = alpha + taps[k]
+        gamma = taps[beta[:, 0]] + taps[beta[:, 1]]
+        gamma = gamma + taps[beta[:, 2]]
+        per_channel = 3.0 * gamma - alpha[None]                                     # (kernels, ch, P)
+        out = mask[:, 0] * per_channel[:, 0]
+        for ch in range(1, taps.shape[1]):
+            out = out + mask[:, ch] * per_channel[:, ch]
+        return out

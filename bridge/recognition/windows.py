@@ -36,37 +36,62 @@ class WindowSpec:
 class Windower:
     """Collects samples of several parallel streams and yields a window every hop.
 
-    State is a ring of the last ``length`` samples per stream and the count of samples
-    seen; ``push`` returns the windows completed by this block with the index (count of
-    samples seen) of each window's last sample, so replay and live agree to the sample.
+    State is a buffer holding at least the last ``length`` samples per stream and the
+    count of samples seen; ``push`` returns the windows completed by this block with the
+    index (count of samples seen) of each window's last sample, so replay and live agree
+    to the sample. Blocks are written into the preallocated buffer after the samples kept;
+    only when it is full are the last ``length`` samples moved back to its start, so a
+    hop copies the hop's samples and the window it returns, nothing more.
     """
 
     def __init__(self, spec: WindowSpec, n_channels: int, n_streams: int = 2):
         self.spec = spec
-        self.ring = np.zeros((n_streams, spec.length, n_channels))
+        L = spec.length
+        self.buf = np.zeros((n_streams, 2 * L + spec.hop, n_channels))
+        self.end = L          # buf[:, end − L:end] are the last L samples (zeros before any)
         self.seen = 0
+
+    @property
+    def ring(self) -> np.ndarray:
+        """The last ``length`` samples per stream, (streams, length, channels) (a copy)."""
+        return self.buf[:, self.end - self.spec.length:self.end].copy()
 
     def push(self, *streams: np.ndarray) -> tuple[np.ndarray, list[int]]:
         """Append a block of each stream, (n, channels) each.
 
         Returns (windows (m, streams, length, channels), end indices (m,)).
         """
-        L, hop = self.spec.length, self.spec.hop
+        L = self.spec.length
         n = streams[0].shape[0]
         first = self._next_emit()
-        ends = list(range(first, self.seen + n + 1, hop))
+        ends = list(range(first, self.seen + n + 1, self.spec.hop))
+        n_str, _, n_ch = self.buf.shape
         if n == 0:
-            return np.empty((0, len(streams), L, self.ring.shape[2])), []
-        # All windows of the block at once from the ring followed by the block: the window
-        # ending at absolute sample e starts at position e - seen of that buffer.
-        ext = np.concatenate([self.ring, np.stack([np.asarray(s, dtype=float) for s in streams])], axis=1)
-        if ends:
+            return np.empty((0, n_str, L, n_ch)), []
+        if self.end + n > self.buf.shape[1]:
+            keep = self.buf[:, self.end - L:self.end]
+            if L + n > self.buf.shape[1]:
+                grown = np.zeros((n_str, L + n, n_ch))
+                grown[:, :L] = keep
+                self.buf = grown
+            else:
+                self.buf[:, :L] = keep      # source and destination do not overlap: end − L ≥ L
+            self.end = L
+        for i, s in enumerate(streams):
+            self.buf[i, self.end:self.end + n] = s
+        # Windows from the last L samples followed by the block: the window ending at
+        # absolute sample e starts at position e − seen of that stretch.
+        ext = self.buf[:, self.end - L:self.end + n]
+        if len(ends) == 1:
+            k = ends[0] - self.seen
+            windows = ext[None, :, k:k + L].copy()
+        elif ends:
             view = np.lib.stride_tricks.sliding_window_view(ext, L, axis=1)   # (streams, n+1, ch, L)
             w = view[:, np.asarray(ends) - self.seen]                         # (streams, m, ch, L)
             windows = np.ascontiguousarray(w.transpose(1, 0, 3, 2))
         else:
-            windows = np.empty((0, len(streams), L, self.ring.shape[2]))
-        self.ring = ext[:, -L:].copy()
+            windows = np.empty((0, n_str, L, n_ch))
+        self.end += n
         self.seen += n
         return windows, ends
 

@@ -82,24 +82,61 @@ class Pipeline:
             early(controls)
             controls = []
         ends, probs = self.recogniser.push(level, motion)
-        events: list[Event] = []
-        for end, p in zip(ends, probs):
-            t = end / rate
-            decided = self.gate.step(t, p)
-            if decided:
-                i = min(max(int(end) - 1 - first, 0), level.shape[0] - 1)
-                strongest = float(level[i].max())
-                decided = [replace(e, level=strongest) for e in decided]
-            events += decided
-            events += self.safety.step(t, decided, self.gate.held)
-            if self.hops is not None:
-                self.hops.append((t, np.asarray(p, dtype=float)))
+        events = self._decide(ends, probs, level, first)
         if len(probs):
             self.last_probabilities = probs[-1]
         self.samples += f.shape[0]
         if controls:
             events = sorted(controls + events, key=lambda e: e.t_s)  # stable: a hop's events after its samples
         return events
+
+    def _decide(self, ends, probs: np.ndarray, level: np.ndarray, first: int) -> list[Event]:
+        """Gate and safety over a block's hops: exactly the events of ``_decide_each``.
+
+        Most hops decide nothing: no class not held has its k of n votes, no held posture
+        its k low hops or its repeat due (``Gate.quiet_run``), and no arming hold or idle
+        disarm is due (``Safety.quiet_until``). Runs of such hops only join the gate's
+        history and move the safety clock, in one step each; every other hop runs ``_hop``
+        as the hop-by-hop loop does.
+        """
+        m = len(ends)
+        if m == 0:
+            return []
+        times = np.asarray(ends, dtype=float) / self.model.rate_hz
+        votes, low = self.gate.tallies(probs)
+        events: list[Event] = []
+        i = 0
+        while i < m:
+            j = self.gate.quiet_run(times, votes, low, i)
+            if j > i:
+                j = i + self.safety.quiet_until(times[i:j], self.gate.held)
+                self.gate.recent.extend(probs[i:j])
+                if self.hops is not None:
+                    self.hops.extend((float(times[h]), np.asarray(probs[h], dtype=float)) for h in range(i, j))
+            if j < m:
+                events += self._hop(ends[j], times[j], probs[j], level, first)
+            i = j + 1
+        return events
+
+    def _decide_each(self, ends, probs: np.ndarray, level: np.ndarray, first: int) -> list[Event]:
+        """Gate and safety hop by hop: the definition ``_decide`` must match."""
+        events: list[Event] = []
+        for end, p in zip(ends, probs):
+            events += self._hop(end, end / self.model.rate_hz, p, level, first)
+        return events
+
+    def _hop(self, end: int, t: float, p: np.ndarray, level: np.ndarray, first: int) -> list[Event]:
+        """One hop through the gate and the safety stage; its events, with the strongest level."""
+        t = float(t)
+        decided = self.gate.step(t, p)
+        if decided:
+            i = min(max(int(end) - 1 - first, 0), level.shape[0] - 1)
+            strongest = float(level[i].max())
+            decided = [replace(e, level=strongest) for e in decided]
+        out = decided + self.safety.step(t, decided, self.gate.held)
+        if self.hops is not None:
+            self.hops.append((t, np.asarray(p, dtype=float)))
+        return out
 
     def command(self, kind: str, detail: str = "") -> list[Event]:
         """Events for a command from outside the garment (control message, signal):
