@@ -590,9 +590,30 @@ def cmd_bench(a) -> int:
         from .evaluation.bench import bench_live
         bench_live(a.live_s)
         return 0
+    if a.soak is not None:
+        return _bench_soak(a)
     run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
             classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")))
     return 0
+
+
+def _bench_soak(a) -> int:
+    """`drape bench --soak HOURS`: simulated hours through the live loop, then a replay check."""
+    from .evaluation.soak import soak
+    from .recognition import ModelError, load_model
+    if a.soak <= 0:
+        return _err("--soak takes a positive number of simulated hours, e.g. 2")
+    try:
+        model = load_model(a.soak_model) if a.soak_model else None
+    except ModelError as exc:
+        return _err(str(exc))
+    print(f"soak: {a.soak:g} simulated hours through the live loop (blocks of 10-50 ms, OSC to loopback, take captured)",
+          flush=True)
+    r = soak(a.soak, model=model, out_dir=a.soak_out, heap=a.soak_heap, report=lambda t: print(t, flush=True))
+    for line in r.lines():
+        print(line)
+    c = r.comparison
+    return 0 if c["only_live"] == c["only_replay"] == c["doubled_live"] == 0 and r.dropped == 0 else 1
 
 
 def cmd_replay(a) -> int:
@@ -919,6 +940,11 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--live", action="store_true",
                    help="end to end instead: the simulated jacket through a pty into `drape start`, out to loopback OSC")
     b.add_argument("--live-s", type=float, default=30.0, help="--live: seconds of stream")
+    b.add_argument("--soak", type=float, metavar="HOURS",
+                   help="soak instead: HOURS of simulated performance through the live loop, memory and replay check")
+    b.add_argument("--soak-model", metavar="MODEL", help="--soak: a model of simulated wearer 1 (default: train one)")
+    b.add_argument("--soak-out", metavar="DIR", help="--soak: keep the captured take and live events in DIR")
+    b.add_argument("--soak-heap", action="store_true", help="--soak: also trace Python heap growth (slower)")
     b.set_defaults(func=cmd_bench)
     r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
     r.add_argument("recording", metavar="TAKE")
