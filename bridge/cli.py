@@ -592,6 +592,8 @@ def cmd_bench(a) -> int:
         return 0
     if a.soak is not None:
         return _bench_soak(a)
+    if a.fuzz is not None:
+        return _bench_fuzz(a)
     run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
             classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")))
     return 0
@@ -614,6 +616,20 @@ def _bench_soak(a) -> int:
         print(line)
     c = r.comparison
     return 0 if c["only_live"] == c["only_replay"] == c["doubled_live"] == 0 and r.dropped == 0 else 1
+
+
+def _bench_fuzz(a) -> int:
+    """`drape bench --fuzz N`: N mutated inputs into each parser; crashes counted by type."""
+    from .evaluation.fuzz import TARGETS, fuzz
+    crashes = 0
+    for target in a.fuzz_target or TARGETS:
+        r = fuzz(target, a.fuzz, seed=a.fuzz_seed, crash_dir=a.fuzz_crashes, report=lambda t: print(t, flush=True),
+                 time_limit_s=a.fuzz_limit_s)
+        print(r.line(), flush=True)
+        crashes += sum(r.crashes.values()) + sum(r.violations.values())
+    if crashes and a.fuzz_crashes:
+        print(f"first input of each crash kind saved in {a.fuzz_crashes}")
+    return 1 if crashes else 0
 
 
 def cmd_replay(a) -> int:
@@ -945,6 +961,12 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--soak-model", metavar="MODEL", help="--soak: a model of simulated wearer 1 (default: train one)")
     b.add_argument("--soak-out", metavar="DIR", help="--soak: keep the captured take and live events in DIR")
     b.add_argument("--soak-heap", action="store_true", help="--soak: also trace Python heap growth (slower)")
+    b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")
+    b.add_argument("--fuzz-target", action="append", choices=("text", "frames", "osc", "control", "mapping", "model"),
+                   help="--fuzz: only this parser (repeatable)")
+    b.add_argument("--fuzz-seed", type=int, default=1, help="--fuzz: mutator seed (same seed, same inputs)")
+    b.add_argument("--fuzz-crashes", metavar="DIR", help="--fuzz: save the first input of each crash kind here")
+    b.add_argument("--fuzz-limit-s", type=float, metavar="S", help="--fuzz: stop each target after S seconds")
     b.set_defaults(func=cmd_bench)
     r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
     r.add_argument("recording", metavar="TAKE")
