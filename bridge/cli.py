@@ -78,13 +78,13 @@ def _default_mapping() -> Path | None:
     return None
 
 
-def _open_outputs(mapping):
+def _open_outputs(mapping, open_fn=None):
     """Each destination behind its own queue; one that cannot open is reported and left out."""
     from .outputs import OutputUnavailable, open_output
     outputs = {}
     for name, d in mapping.destinations.items():
         try:
-            outputs[name] = open_output(d)
+            outputs[name] = (open_fn or open_output)(d)
         except (OutputUnavailable, OSError) as exc:
             print(f"drape: destination {name!r} left out: {exc}", file=sys.stderr, flush=True)
     return outputs
@@ -264,7 +264,9 @@ def cmd_start(a) -> int:
     except (SourceGone, ValueError) as exc:
         return _err(str(exc))
     where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
-    outputs = _open_outputs(mapping) if mapping else {}
+    from .service.runner import keys_only_for_local_input
+    opener = keys_only_for_local_input(_open_one, cfg.input == "osc")  # no keys from network samples
+    outputs = _open_outputs(mapping, opener) if mapping else {}
     stop = StopFlag()
     _stop_on_signals(stop)
     print(f"drape: {cfg.name} on {where}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
@@ -280,7 +282,7 @@ def cmd_start(a) -> int:
     code = 0
     try:
         run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event,
-            watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report,
+            watcher=watcher, inbox=inbox, open_fn=opener, report=_report,
             stall_s=cfg.stall_s, on_status=status)
     except ProtocolUndecided as exc:
         print(f"drape: {exc}", file=sys.stderr)

@@ -17,6 +17,13 @@ import socket
 
 from pythonosc.osc_message import OscMessage, ParseError
 
+LOOPBACK = ("127.0.0.1", "::1", "localhost")
+
+
+class TokenMissing(ValueError):
+    """A control port reachable from the network without a shared token."""
+
+
 COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic", "/drape/layer": "layer"}
 
 
@@ -28,9 +35,16 @@ def parse_host_port(text: str) -> tuple[str, int]:
 
 
 class ControlInbox:
-    """Receives command messages on a UDP port; ``poll`` returns [(command, detail)]."""
+    """Receives command messages on a UDP port; ``poll`` returns [(command, detail)].
+
+    It has no token, so it listens on loopback only (TokenMissing otherwise): a control port
+    reachable from the network is the service's ``ControlPort`` with ``[control] token``.
+    """
 
     def __init__(self, host: str, port: int):
+        if host not in LOOPBACK:
+            raise TokenMissing(f"--listen {host}:{port} would take commands from the network without a token: "
+                               "listen on 127.0.0.1, or use a service config with [control] listen and token")
         self.sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
         self.sock.bind((host, port))
         self.sock.setblocking(False)
@@ -76,13 +90,6 @@ class ControlInbox:
 PORT_COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic",
                  "/drape/layer": "layer", "/drape/reload": "reload", "/drape/rebaseline": "rebaseline",
                  "/drape/status": "status"}
-LOOPBACK = ("127.0.0.1", "::1", "localhost")
-
-
-class TokenMissing(ValueError):
-    pass
-
-
 class ControlPort:
     """The daemon's command port (OSC over UDP, polled by the loop; no thread).
 
