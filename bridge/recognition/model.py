@@ -306,7 +306,7 @@ def load_model(path: str | Path):
         except (UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:  # RecursionError: nested too deep
             raise ModelError(f"{path}: metadata is not JSON ({exc})") from None
         _require(isinstance(meta, dict) and meta.get("format") == FORMAT, path, "not a drape model file")
-        _require(meta.get("version") == FORMAT_VERSION, path,
+        _require(type(meta.get("version")) is int and meta["version"] == FORMAT_VERSION, path,
                  f"model format version {meta.get('version')!r}; this drape reads version {FORMAT_VERSION}: retrain with `drape fit`")
         common = _common_fields(meta, path)
         classifier = common.pop("classifier")
@@ -339,6 +339,7 @@ def _common_fields(meta: dict, path) -> dict:
     _require(all(np.isfinite(v) and v > 0 for v in (windows.window_s, windows.hop_s, conditioning.low_hz,
                                                     conditioning.high_hz, conditioning.baseline_tau_s)), path,
              "window, hop, band edges and baseline time must be positive numbers")
+    _require(windows.window_s <= 3600 and windows.hop_s <= 3600, path, "window and hop must be at most an hour")
     _require(windows.length <= MAX_WINDOW_SAMPLES and windows.hop <= windows.length, path,
              f"window must be at most {MAX_WINDOW_SAMPLES} samples and the hop no longer than the window")
     return dict(classes=classes, kinds=kinds, channel_names=channels, conditioning=conditioning, windows=windows,
