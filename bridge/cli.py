@@ -269,7 +269,8 @@ def cmd_start(a) -> int:
     outputs = _open_outputs(mapping, opener) if mapping else {}
     stop = StopFlag()
     _stop_on_signals(stop)
-    print(f"drape: {cfg.name} on {where}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
+    print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
+          + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:
         print(f"drape: waiting for the garment ({source.last_error})", file=sys.stderr, flush=True)
     if hasattr(source, "on_change"):

@@ -162,7 +162,7 @@ def test_model_loader_only_raises_model_error_for_crafted_arrays(model_members, 
         dt = data.draw(st.sampled_from(["<c16", "<U4", "|S8", "<M8[s]", "|b1", "<f2", "|V8", "<i8", "|O", ">f8"]))
         members[name] = F._raw_npy(f"{{'descr': '{dt}', 'fortran_order': False, 'shape': (2,), }}", b"\1" * 64)
     elif kind == "object":
-        members[name] = F._npy(np.array([1, "x", None], dtype=object))
+        members[name] = F._object_npy()
     elif kind == "nan":
         a = np.lib.format.read_array(io.BytesIO(members[name]))
         if a.dtype.kind == "f" and a.size:

@@ -353,8 +353,18 @@ class _Mapping:
 
 def _npy(a: np.ndarray) -> bytes:
     buf = io.BytesIO()
-    np.lib.format.write_array(buf, a, allow_pickle=True)
+    np.lib.format.write_array(buf, a, allow_pickle=False)
     return buf.getvalue()
+
+
+# What numpy writes as the data of an object array: a pickle (here of [{'a': 1}, None]).
+# Kept as fixed bytes so the package never imports a pickler; the loader must refuse the
+# array from its header ('|O') before these bytes are ever looked at.
+_PICKLED_LIST = b"\x80\x03]q\x00(}q\x01X\x01\x00\x00\x00aq\x02K\x01sNe."
+
+
+def _object_npy() -> bytes:
+    return _raw_npy("{'descr': '|O', 'fortran_order': False, 'shape': (2,), }", _PICKLED_LIST)
 
 
 def _raw_npy(header: str, body: bytes = b"") -> bytes:
@@ -424,7 +434,7 @@ class _ModelFiles:
                                   "(99999999999999999999999,)"))
                 members[name] = _raw_npy(f"{{'descr': '<f8', 'fortran_order': False, 'shape': {shape}, }}", b"\0" * 64)
             elif what == 3:  # an object array: its data is a pickle
-                members[name] = _npy(np.array([{"a": 1}, None], dtype=object))
+                members[name] = _object_npy()
             elif what == 4:  # another dtype
                 dt = r.choice(("<c16", "<U8", "|S8", "<M8[s]", "|b1", "<f2", "|V16", "<i8", "<u1", "<f16"))
                 members[name] = _raw_npy(f"{{'descr': '{dt}', 'fortran_order': False, 'shape': (4,), }}", b"\1" * 256)

@@ -281,7 +281,7 @@ def _destinations(ck: _Checker, dests) -> tuple[dict, dict]:
             if not isinstance(v, str) or not v.endswith((".mid", ".midi")):
                 ck.bad(at(), f"{path}.midi_file", f'a file name ending in .mid (got {v!r})')
                 continue
-            out[dname] = Destination(dname, kind, path=v)
+            out[dname] = Destination(dname, kind, path=str((ck.base_dir / v).resolve()))  # next to the mapping
         elif kind == "keys":
             if v not in ("x11", "uinput"):
                 ck.bad(at(), f"{path}.keys", f'use "x11" (the focused window) or "uinput" (Linux input layer) (got {v!r})')

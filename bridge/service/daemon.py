@@ -210,8 +210,8 @@ class Service:
             self.begin_hold(g, CALIBRATING, "hold still: calibrating")
             g.reader = Reader(i, g.source, self.q)
             where = "simulated jacket" if cfg.simulated else (cfg.port or f"OSC {cfg.listen}")
-            log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).name,
-                     len(g.model.classes) - 1, cfg.mapping.name if cfg.mapping else "none")
+            log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).resolve(),
+                     len(g.model.classes) - 1, Path(cfg.mapping).resolve() if cfg.mapping else "none")
 
         for g in self.garments:  # read only once every model is ready: none waits on another's training
             if g.reader is not None and g.state != FAILED:
