@@ -103,6 +103,8 @@ def test_metadata_tricks_are_refused(tmp_path, linear_members):
         {"temperature": float("nan")},                       # NaN written as a JSON literal
         {"windows": {"rate_hz": 100.0, "window_s": 1e308, "hop_s": 0.1}},
         {"windows": {"rate_hz": 100.0, "window_s": 2.0, "hop_s": float("inf")}},
+        {"conditioning": {**meta["conditioning"], "high_hz": 2147483648.0}},   # no filter can be designed
+        {"conditioning": {**meta["conditioning"], "order": 10 ** 6}},
         {"classes": ["null"] + [f"c{i}" for i in range(10_000)]},
         {"channels": ["c"] * 100_000},
         {"conditioning": "__import__('os').system('true')"},

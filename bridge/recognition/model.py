@@ -340,6 +340,8 @@ def _common_fields(meta: dict, path) -> dict:
                                                     conditioning.high_hz, conditioning.baseline_tau_s)), path,
              "window, hop, band edges and baseline time must be positive numbers")
     _require(windows.window_s <= 3600 and windows.hop_s <= 3600, path, "window and hop must be at most an hour")
+    _require(conditioning.low_hz < conditioning.high_hz < conditioning.rate_hz / 2 and 1 <= conditioning.order <= 8,
+             path, "band-pass edges must satisfy low_hz < high_hz < rate_hz/2, order 1 to 8")
     _require(windows.length <= MAX_WINDOW_SAMPLES and windows.hop <= windows.length, path,
              f"window must be at most {MAX_WINDOW_SAMPLES} samples and the hop no longer than the window")
     return dict(classes=classes, kinds=kinds, channel_names=channels, conditioning=conditioning, windows=windows,
