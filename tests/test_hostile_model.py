@@ -156,3 +156,16 @@ def test_unsupported_compression_and_corrupt_deflate_are_refused(tmp_path, linea
     path.write_bytes(bytes(raw))
     with pytest.raises(ModelError):
         load_model(path)
+
+
+def test_encrypted_member_is_refused(tmp_path, linear_members):
+    # found by the long fuzz run: the zip "encrypted" flag made zipfile raise RuntimeError
+    raw = bytearray(zip_members(linear_members))
+    raw[6] |= 1                       # local header: general purpose flag bit 0
+    i = raw.index(b"PK\x01\x02")
+    raw[i + 8] |= 1                   # central directory: the same flag
+    path = tmp_path / "locked.npz"
+    path.write_bytes(bytes(raw))
+    with pytest.raises(ModelError):
+        load_model(path)
+

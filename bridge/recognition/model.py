@@ -234,9 +234,10 @@ def _require(cond: bool, path, what: str) -> None:
 # What reading a foreign zip or .npy header can raise besides ValueError/OSError: a bad
 # compression method (NotImplementedError), corrupt deflate data (zlib.error), a header the
 # literal parser chokes on (SyntaxError, tokenize.TokenError, RecursionError), a count that
-# does not fit (OverflowError). Every one means "not a model file".
+# does not fit (OverflowError), an encrypted member (RuntimeError). Every one means "not a
+# model file".
 _UNREADABLE = (ValueError, OSError, EOFError, zipfile.BadZipFile, SyntaxError, tokenize.TokenError,
-               NotImplementedError, RecursionError, OverflowError, zlib.error, TypeError, KeyError)
+               NotImplementedError, RecursionError, OverflowError, zlib.error, TypeError, KeyError, RuntimeError)
 
 
 class _Archive:
