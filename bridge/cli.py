@@ -78,13 +78,13 @@ def _default_mapping() -> Path | None:
     return None
 
 
-def _open_outputs(mapping):
+def _open_outputs(mapping, open_fn=None):
     """Each destination behind its own queue; one that cannot open is reported and left out."""
     from .outputs import OutputUnavailable, open_output
     outputs = {}
     for name, d in mapping.destinations.items():
         try:
-            outputs[name] = open_output(d)
+            outputs[name] = (open_fn or open_output)(d)
         except (OutputUnavailable, OSError) as exc:
             print(f"drape: destination {name!r} left out: {exc}", file=sys.stderr, flush=True)
     return outputs
@@ -264,10 +264,13 @@ def cmd_start(a) -> int:
     except (SourceGone, ValueError) as exc:
         return _err(str(exc))
     where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
-    outputs = _open_outputs(mapping) if mapping else {}
+    from .service.runner import keys_only_for_local_input
+    opener = keys_only_for_local_input(_open_one, cfg.input == "osc")  # no keys from network samples
+    outputs = _open_outputs(mapping, opener) if mapping else {}
     stop = StopFlag()
     _stop_on_signals(stop)
-    print(f"drape: {cfg.name} on {where}, model {cfg.model.name} ({len(model.classes) - 1} gestures)", file=sys.stderr, flush=True)
+    print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
+          + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:
         print(f"drape: waiting for the garment ({source.last_error})", file=sys.stderr, flush=True)
     if hasattr(source, "on_change"):
@@ -280,7 +283,7 @@ def cmd_start(a) -> int:
     code = 0
     try:
         run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event,
-            watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report,
+            watcher=watcher, inbox=inbox, open_fn=opener, report=_report,
             stall_s=cfg.stall_s, on_status=status)
     except ProtocolUndecided as exc:
         print(f"drape: {exc}", file=sys.stderr)
@@ -597,9 +600,46 @@ def cmd_bench(a) -> int:
         from .evaluation.bench import bench_live
         bench_live(a.live_s)
         return 0
+    if a.soak is not None:
+        return _bench_soak(a)
+    if a.fuzz is not None:
+        return _bench_fuzz(a)
     run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
             classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")))
     return 0
+
+
+def _bench_soak(a) -> int:
+    """`drape bench --soak HOURS`: simulated hours through the live loop, then a replay check."""
+    from .evaluation.soak import soak
+    from .recognition import ModelError, load_model
+    if a.soak <= 0:
+        return _err("--soak takes a positive number of simulated hours, e.g. 2")
+    try:
+        model = load_model(a.soak_model) if a.soak_model else None
+    except ModelError as exc:
+        return _err(str(exc))
+    print(f"soak: {a.soak:g} simulated hours through the live loop (blocks of 10-50 ms, OSC to loopback, take captured)",
+          flush=True)
+    r = soak(a.soak, model=model, out_dir=a.soak_out, heap=a.soak_heap, report=lambda t: print(t, flush=True))
+    for line in r.lines():
+        print(line)
+    c = r.comparison
+    return 0 if c["only_live"] == c["only_replay"] == c["doubled_live"] == 0 and r.dropped == 0 else 1
+
+
+def _bench_fuzz(a) -> int:
+    """`drape bench --fuzz N`: N mutated inputs into each parser; crashes counted by type."""
+    from .evaluation.fuzz import TARGETS, fuzz
+    crashes = 0
+    for target in a.fuzz_target or TARGETS:
+        r = fuzz(target, a.fuzz, seed=a.fuzz_seed, crash_dir=a.fuzz_crashes, report=lambda t: print(t, flush=True),
+                 time_limit_s=a.fuzz_limit_s)
+        print(r.line(), flush=True)
+        crashes += sum(r.crashes.values()) + sum(r.violations.values())
+    if crashes and a.fuzz_crashes:
+        print(f"first input of each crash kind saved in {a.fuzz_crashes}")
+    return 1 if crashes else 0
 
 
 def cmd_replay(a) -> int:
@@ -926,6 +966,17 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--live", action="store_true",
                    help="end to end instead: the simulated jacket through a pty into `drape start`, out to loopback OSC")
     b.add_argument("--live-s", type=float, default=30.0, help="--live: seconds of stream")
+    b.add_argument("--soak", type=float, metavar="HOURS",
+                   help="soak instead: HOURS of simulated performance through the live loop, memory and replay check")
+    b.add_argument("--soak-model", metavar="MODEL", help="--soak: a model of simulated wearer 1 (default: train one)")
+    b.add_argument("--soak-out", metavar="DIR", help="--soak: keep the captured take and live events in DIR")
+    b.add_argument("--soak-heap", action="store_true", help="--soak: also trace Python heap growth (slower)")
+    b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")
+    b.add_argument("--fuzz-target", action="append", choices=("text", "frames", "osc", "control", "mapping", "model"),
+                   help="--fuzz: only this parser (repeatable)")
+    b.add_argument("--fuzz-seed", type=int, default=1, help="--fuzz: mutator seed (same seed, same inputs)")
+    b.add_argument("--fuzz-crashes", metavar="DIR", help="--fuzz: save the first input of each crash kind here")
+    b.add_argument("--fuzz-limit-s", type=float, metavar="S", help="--fuzz: stop each target after S seconds")
     b.set_defaults(func=cmd_bench)
     r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
     r.add_argument("recording", metavar="TAKE")

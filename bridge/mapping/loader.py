@@ -281,7 +281,7 @@ def _destinations(ck: _Checker, dests) -> tuple[dict, dict]:
             if not isinstance(v, str) or not v.endswith((".mid", ".midi")):
                 ck.bad(at(), f"{path}.midi_file", f'a file name ending in .mid (got {v!r})')
                 continue
-            out[dname] = Destination(dname, kind, path=v)
+            out[dname] = Destination(dname, kind, path=str((ck.base_dir / v).resolve()))  # next to the mapping
         elif kind == "keys":
             if v not in ("x11", "uinput"):
                 ck.bad(at(), f"{path}.keys", f'use "x11" (the focused window) or "uinput" (Linux input layer) (got {v!r})')
@@ -317,6 +317,9 @@ def _slots(ck: _Checker, at, key, levels):
 
 
 def _dest_ok(ck, at, path, to, dests, declared, action) -> bool:
+    if not isinstance(to, str):
+        ck.bad(at, path, f"the name of a destination, a string (got {to!r})")
+        return False
     if to not in dests:
         if to not in declared:
             ck.bad(at, path, f"unknown destination {to!r}; declare [destinations.{to}] or use one of "
@@ -338,6 +341,9 @@ def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
         def at(key=None, i=i):
             return ck.lines.of("[[rule]]", i, key)
         path = f"rule[{i + 1}]"
+        if not isinstance(r, dict):
+            ck.bad(at(), path, "write each rule as a [[rule]] table")
+            continue
         for k in sorted(set(r) - RULE_KEYS):
             ck.bad(at(k), f"{path}.{k}", f"unknown key; a rule has {', '.join(sorted(RULE_KEYS))}")
         acts = [a for a in ACTIONS if a in r]
@@ -462,6 +468,9 @@ def _controls(ck: _Checker, raw, dests, declared) -> list[ControlRule]:
         def at(key=None, i=i):
             return ck.lines.of("[[control]]", i, key)
         path = f"control[{i + 1}]"
+        if not isinstance(c, dict):
+            ck.bad(at(), path, "write each control as a [[control]] table")
+            continue
         for k in sorted(set(c) - CONTROL_KEYS):
             ck.bad(at(k), f"{path}.{k}", f"unknown key; a control has {', '.join(sorted(CONTROL_KEYS))}")
         missing = [k for k in ("name", "mix", "to") if k not in c]

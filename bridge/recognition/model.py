@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import json
+import tokenize
 import zipfile
+import zlib
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -256,6 +258,15 @@ def _require(cond: bool, path, what: str) -> None:
         raise ModelError(f"{path}: {what}")
 
 
+# What reading a foreign zip or .npy header can raise besides ValueError/OSError: a bad
+# compression method (NotImplementedError), corrupt deflate data (zlib.error), a header the
+# literal parser chokes on (SyntaxError, tokenize.TokenError, RecursionError), a count that
+# does not fit (OverflowError), an encrypted member (RuntimeError). Every one means "not a
+# model file".
+_UNREADABLE = (ValueError, OSError, EOFError, zipfile.BadZipFile, SyntaxError, tokenize.TokenError,
+               NotImplementedError, RecursionError, OverflowError, zlib.error, TypeError, KeyError, RuntimeError)
+
+
 class _Archive:
     """An .npz opened as a zip whose members are read only after their header is checked."""
 
@@ -264,7 +275,7 @@ class _Archive:
         try:
             self.zip = zipfile.ZipFile(path)
             self.names = {n[:-4]: n for n in self.zip.namelist() if n.endswith(".npy")}
-        except (zipfile.BadZipFile, OSError, EOFError) as exc:
+        except _UNREADABLE as exc:
             raise ModelError(f"{path}: not a drape model file ({exc})") from None
 
     def header(self, name: str) -> tuple[tuple[int, ...], np.dtype]:
@@ -278,13 +289,14 @@ class _Archive:
                     shape, fortran, dtype = npformat.read_array_header_2_0(fh, max_header_size=10_000)
                 else:
                     raise ValueError(f".npy version {version} not read")
-        except (ValueError, OSError, EOFError, zipfile.BadZipFile, SyntaxError) as exc:
+        except _UNREADABLE as exc:
             raise ModelError(f"{self.path}: not a drape model file (array {name}: {exc})") from None
         _require(not dtype.hasobject, self.path, f"not a drape model file (array {name} holds Python objects)")
         return tuple(int(n) for n in shape), dtype
 
-    def read(self, name: str, shape: tuple[int, ...], kind: str) -> np.ndarray:
-        """The array, after checking its header against the expected shape and dtype kind."""
+    def read(self, name: str, shape: tuple[int, ...], kind: str, finite: bool = True) -> np.ndarray:
+        """The array, after checking its header against the expected shape and dtype kind
+        (float arrays: no NaN, and no inf unless ``finite`` is False)."""
         got, dtype = self.header(name)
         _require(got == tuple(shape), self.path, f"array {name} has shape {got}, expected {tuple(shape)}")
         _require(dtype.kind in kind and dtype.itemsize <= 8, self.path, f"array {name} has dtype {dtype}, expected kind {kind!r}")
@@ -292,11 +304,12 @@ class _Archive:
         try:
             with self.zip.open(self.names[name]) as fh:
                 a = npformat.read_array(fh, allow_pickle=False)
-        except (ValueError, OSError, EOFError, zipfile.BadZipFile) as exc:
+        except _UNREADABLE as exc:
             raise ModelError(f"{self.path}: array {name} unreadable ({exc})") from None
         _require(a.shape == tuple(shape), self.path, f"array {name} is truncated")
         if kind == "f":
-            _require(bool(np.isfinite(a).all()), self.path, f"array {name} holds NaN or inf")
+            _require(bool(np.isfinite(a).all() if finite else not np.isnan(a).any()), self.path,
+                     f"array {name} holds NaN or inf")
         return a
 
 
@@ -318,10 +331,10 @@ def load_model(path: str | Path):
         raw = ar.read("meta_json", shape, "u")
         try:
             meta = json.loads(raw.tobytes().decode("utf-8"))
-        except (UnicodeDecodeError, json.JSONDecodeError) as exc:
+        except (UnicodeDecodeError, json.JSONDecodeError, RecursionError) as exc:  # RecursionError: nested too deep
             raise ModelError(f"{path}: metadata is not JSON ({exc})") from None
         _require(isinstance(meta, dict) and meta.get("format") == FORMAT, path, "not a drape model file")
-        _require(meta.get("version") == FORMAT_VERSION, path,
+        _require(type(meta.get("version")) is int and meta["version"] == FORMAT_VERSION, path,
                  f"model format version {meta.get('version')!r}; this drape reads version {FORMAT_VERSION}: retrain with `drape fit`")
         common = _common_fields(meta, path)
         classifier = common.pop("classifier")
@@ -341,7 +354,7 @@ def _common_fields(meta: dict, path) -> dict:
         decision = dict(meta.get("decision", {}))
         summary = dict(meta.get("summary", {}))
         classifier = str(meta.get("classifier", "linear"))
-    except (KeyError, TypeError, ValueError) as exc:
+    except (KeyError, TypeError, ValueError, AttributeError, OverflowError) as exc:
         raise ModelError(f"{path}: metadata incomplete or wrong type ({exc})") from None
     _require(2 <= len(classes) <= MAX_CLASSES and classes[0] == NULL and len(set(classes)) == len(classes), path,
              "classes must be unique, start with 'null' and number 2 to 256")
@@ -351,6 +364,12 @@ def _common_fields(meta: dict, path) -> dict:
     _require(np.isfinite(temperature) and temperature > 0, path, "temperature must be a positive number")
     _require(conditioning.rate_hz == windows.rate_hz and 1 <= conditioning.rate_hz <= 10_000, path,
              "sample rate missing or inconsistent")
+    _require(all(np.isfinite(v) and v > 0 for v in (windows.window_s, windows.hop_s, conditioning.low_hz,
+                                                    conditioning.high_hz, conditioning.baseline_tau_s)), path,
+             "window, hop, band edges and baseline time must be positive numbers")
+    _require(windows.window_s <= 3600 and windows.hop_s <= 3600, path, "window and hop must be at most an hour")
+    _require(conditioning.low_hz < conditioning.high_hz < conditioning.rate_hz / 2 and 1 <= conditioning.order <= 8,
+             path, "band-pass edges must satisfy low_hz < high_hz < rate_hz/2, order 1 to 8")
     _require(windows.length <= MAX_WINDOW_SAMPLES and windows.hop <= windows.length, path,
              f"window must be at most {MAX_WINDOW_SAMPLES} samples and the hop no longer than the window")
     return dict(classes=classes, kinds=kinds, channel_names=channels, conditioning=conditioning, windows=windows,
@@ -386,9 +405,8 @@ def _load_linear(ar: _Archive, meta: dict, common: dict, path) -> Model:
     arrays = {name: ar.read(name, shape, "f").astype(float) for name, shape in shapes}
     shape, dtype = ar.header("bias")
     _require(shape == (k,) and dtype.kind == "f", path, f"array bias has shape {shape}, expected {(k,)}")
-    with ar.zip.open(ar.names["bias"]) as fh:
-        bias = npformat.read_array(fh, allow_pickle=False).astype(float)
-    _require(not np.isnan(bias).any(), path, "array bias holds NaN or inf")
+    bias = ar.read("bias", (k,), "f", finite=False).astype(float)
+    _require(not np.isposinf(bias).any(), path, "array bias holds +inf (a class that always wins)")
     _require(bool((arrays["feature_scale"] > 0).all()), path, "feature_scale must be positive")
     return Model(**{k_: v for k_, v in common.items()}, **arrays, bias=bias)
 

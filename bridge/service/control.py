@@ -12,9 +12,17 @@ rules the garment's own gestures trigger).
 
 from __future__ import annotations
 
+import hmac
 import socket
 
 from pythonosc.osc_message import OscMessage, ParseError
+
+LOOPBACK = ("127.0.0.1", "::1", "localhost")
+
+
+class TokenMissing(ValueError):
+    """A control port reachable from the network without a shared token."""
+
 
 COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic", "/drape/layer": "layer"}
 
@@ -27,9 +35,16 @@ def parse_host_port(text: str) -> tuple[str, int]:
 
 
 class ControlInbox:
-    """Receives command messages on a UDP port; ``poll`` returns [(command, detail)]."""
+    """Receives command messages on a UDP port; ``poll`` returns [(command, detail)].
+
+    It has no token, so it listens on loopback only (TokenMissing otherwise): a control port
+    reachable from the network is the service's ``ControlPort`` with ``[control] token``.
+    """
 
     def __init__(self, host: str, port: int):
+        if host not in LOOPBACK:
+            raise TokenMissing(f"--listen {host}:{port} would take commands from the network without a token: "
+                               "listen on 127.0.0.1, or use a service config with [control] listen and token")
         self.sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
         self.sock.bind((host, port))
         self.sock.setblocking(False)
@@ -75,13 +90,6 @@ class ControlInbox:
 PORT_COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic",
                  "/drape/layer": "layer", "/drape/reload": "reload", "/drape/rebaseline": "rebaseline",
                  "/drape/status": "status"}
-LOOPBACK = ("127.0.0.1", "::1", "localhost")
-
-
-class TokenMissing(ValueError):
-    pass
-
-
 class ControlPort:
     """The daemon's command port (OSC over UDP, polled by the loop; no thread).
 
@@ -115,7 +123,6 @@ class ControlPort:
         self.last_ignored = why
 
     def poll(self, max_messages: int = 64) -> list[tuple[str, str, str, tuple]]:
-        import hmac
         out = []
         for _ in range(max_messages):
             try:
@@ -125,35 +132,46 @@ class ControlPort:
             except OSError as exc:  # e.g. an ICMP error from an earlier reply
                 self._bad(str(exc))
                 continue
-            try:
-                msg = OscMessage(data)
-            except (ParseError, IndexError, ValueError):
-                self._bad("not an OSC message")
-                continue
-            cmd = PORT_COMMANDS.get(msg.address)
-            if cmd is None:
-                self._bad(f"unknown address {msg.address}; use {', '.join(PORT_COMMANDS)}")
-                continue
-            args = list(msg.params)
-            if self.token:
-                given = args.pop(0) if args and isinstance(args[0], str) else ""
-                if not hmac.compare_digest(given.encode(), self.token.encode()):
-                    self._bad(f"{msg.address} from {peer[0]} without the right token")
-                    continue
-            if not all(isinstance(a, str) for a in args):
-                self._bad(f"{msg.address} takes only strings")
-                continue
-            detail = ""
-            if cmd == "layer":
-                if not args:
-                    self._bad("/drape/layer needs the layer's name")
-                    continue
-                detail = args.pop(0)
-            if len(args) > 1:
-                self._bad(f"{msg.address}: too many arguments")
-                continue
-            out.append((cmd, detail, args[0] if args else "", peer))
+            got = self.handle(data, peer)
+            if got is not None:
+                out.append(got)
         return out
+
+    def handle(self, data: bytes, peer) -> tuple[str, str, str, tuple] | None:
+        """One datagram: (command, detail, garment, sender), or None (counted in ``ignored``).
+
+        With a token, the first argument must be it (compared in constant time); anything
+        python-osc cannot decode is ignored, whatever it raises.
+        """
+        try:
+            msg = OscMessage(data)
+            params = list(msg.params)
+        except Exception:  # noqa: BLE001 - python-osc raises several kinds on hostile bytes
+            self._bad("not an OSC message")
+            return None
+        cmd = PORT_COMMANDS.get(msg.address)
+        if cmd is None:
+            self._bad(f"unknown address {msg.address[:64]!r}; use {', '.join(PORT_COMMANDS)}")
+            return None
+        args = params
+        if self.token:
+            given = args.pop(0) if args and isinstance(args[0], str) else ""
+            if not hmac.compare_digest(given.encode("utf-8", "surrogatepass"), self.token.encode("utf-8")):
+                self._bad(f"{msg.address} from {peer[0]} without the right token")
+                return None
+        if not all(isinstance(a, str) for a in args):
+            self._bad(f"{msg.address} takes only strings")
+            return None
+        detail = ""
+        if cmd == "layer":
+            if not args:
+                self._bad("/drape/layer needs the layer's name")
+                return None
+            detail = args.pop(0)
+        if len(args) > 1:
+            self._bad(f"{msg.address}: too many arguments")
+            return None
+        return (cmd, detail, args[0] if args else "", peer)
 
     def reply(self, peer, dgrams) -> None:
         for d in dgrams:

@@ -34,7 +34,7 @@ from ..signal.shift import ShiftDetector
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
 from .pipeline import Pipeline
-from .runner import StopFlag, reconcile_outputs
+from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 
 log = logging.getLogger("drape")
 
@@ -237,7 +237,7 @@ class Service:
                 mapping = g.watcher.mapping if g.watcher else None
                 g.pipeline = Pipeline(g.model, mapping, g.name)
                 if mapping is not None:
-                    reconcile_outputs(g.outputs, None, mapping, self.open_fn, lambda t: log.info("%s: %s", g.name, t))
+                    reconcile_outputs(g.outputs, None, mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
                 g.source = open_source(cfg, g.model)
             except (ModelError, MappingError, OSError, ValueError) as exc:
                 self.fail(g, str(exc))
@@ -247,12 +247,16 @@ class Service:
             self.begin_hold(g, CALIBRATING, "hold still: calibrating")
             g.reader = Reader(i, g.source, self.q)
             where = "simulated jacket" if cfg.simulated else (cfg.port or f"OSC {cfg.listen}")
-            log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).name,
-                     len(g.model.classes) - 1, cfg.mapping.name if cfg.mapping else "none")
+            log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).resolve(),
+                     len(g.model.classes) - 1, Path(cfg.mapping).resolve() if cfg.mapping else "none")
 
         for g in self.garments:  # read only once every model is ready: none waits on another's training
             if g.reader is not None and g.state != FAILED:
                 g.reader.start()
+
+    def opener(self, g: Garment):
+        """How this garment's outputs are opened: no keys for samples from the network."""
+        return keys_only_for_local_input(self.open_fn, getattr(g.cfg, "input", "serial") == "osc")
 
     def fail(self, g: Garment, why: str) -> None:
         g.state, g.note = FAILED, why
@@ -457,7 +461,7 @@ class Service:
             return
         old = g.pipeline.mapping
         g.pipeline.swap_mapping(change.mapping)
-        reconcile_outputs(g.outputs, old, change.mapping, self.open_fn, lambda t: log.info("%s: %s", g.name, t))
+        reconcile_outputs(g.outputs, old, change.mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
         text = f"mapping reloaded: {len(change.mapping.rules)} rules"
         log.info("%s: %s", g.name, text)
         self.status.send([st.notice(g.name, text)])

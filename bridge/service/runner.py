@@ -55,6 +55,22 @@ class RunStats:
     hop_ms: list = field(default_factory=list)
 
 
+def keys_only_for_local_input(open_fn, network_input: bool):
+    """``open_fn`` for a garment's destinations, refusing keys when its samples come over the
+    network (OSC input): anyone who can send to that port could otherwise type on this
+    computer by sending a gesture's samples. Keys stay for garments on a serial port."""
+    if not network_input:
+        return open_fn
+
+    def opener(d):
+        if getattr(d, "kind", "") == "keys":
+            from ..outputs import OutputUnavailable
+            raise OutputUnavailable("keys are never pressed for a garment whose samples come over the "
+                                    "network (input = \"osc\"); use a serial garment for keys")
+        return open_fn(d)
+    return opener
+
+
 def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
     """Bring ``outputs`` in line with a reloaded mapping: open new destinations, close
     removed or changed ones (closing releases what they hold), keep the rest running."""

@@ -190,6 +190,7 @@ def read_recording(path: str | Path) -> Recording:
     meta = None
     labels, rows = [], []
     n_cols = None
+    last_no = max((i for i, l in enumerate(lines, start=1) if l.strip()), default=0)  # the last non-empty line
     for no, line in enumerate(lines[1:], start=2):
         s = line.strip()
         if not s:
@@ -228,7 +229,7 @@ def read_recording(path: str | Path) -> Recording:
         if n_cols is None:
             raise RecordingError(f"{path}:{no}: samples before the #meta line")
         parts = s.split(",")
-        last = no == len(lines) or all(not l.strip() for l in lines[no:])
+        last = no >= last_no  # once, above: slicing the rest here made long takes quadratic
         try:
             row = [float(p) for p in parts]
         except ValueError:
