@@ -169,3 +169,15 @@ def test_encrypted_member_is_refused(tmp_path, linear_members):
     with pytest.raises(ModelError):
         load_model(path)
 
+
+
+def test_finite_but_enormous_weights_are_refused(tmp_path, linear_members):
+    # 1e300 is finite, but a score built from it overflows to inf and NaN at run time.
+    members = dict(linear_members)
+    w = np.lib.format.read_array(io.BytesIO(members["weights.npy"]))
+    w.flat[0] = 1e300
+    members["weights.npy"] = _npy(w)
+    path = tmp_path / "huge.npz"
+    path.write_bytes(zip_members(members))
+    with pytest.raises(ModelError, match="beyond"):
+        load_model(path)

@@ -35,6 +35,7 @@ MAX_WINDOW_SAMPLES = 100_000
 MAX_TEMPLATES = 10_000
 MAX_ARRAY_VALUES = 20_000_000
 MAX_FOURIER = 20_000
+MAX_MAGNITUDE = 1e12  # no stored weight, template or bias comes near this
 
 
 def fourier_map(z: np.ndarray, projection: np.ndarray, phase: np.ndarray) -> np.ndarray:
@@ -310,6 +311,9 @@ class _Archive:
         if kind == "f":
             _require(bool(np.isfinite(a).all() if finite else not np.isnan(a).any()), self.path,
                      f"array {name} holds NaN or inf")
+            # Finite but enormous values would overflow to inf/NaN scores at run time.
+            big = np.abs(a[np.isfinite(a)]) > MAX_MAGNITUDE
+            _require(not bool(big.any()), self.path, f"array {name} holds values beyond ±{MAX_MAGNITUDE:g}")
         return a
 
 
