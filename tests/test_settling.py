@@ -219,3 +219,40 @@ def test_settling_rejects_a_negative_hold():
     with pytest.raises(ValueError, match="hold_still_s"):
         Settling(hold_still_s=-1.0)
     assert Settling(hold_still_s=0.0).hold_samples(100.0) == 1
+
+
+def test_the_service_mirrors_the_pipelines_captures_and_decides_what_the_replay_decides(model, caplog):
+    """The daemon's own path (``Service.take``), without threads: its state follows the
+    pipeline (calibrating → running → settling → running), a shift is logged as a notice,
+    a rebaseline starts a capture, and its events are the replay's with ``Service.settling()``."""
+    import logging
+    from types import SimpleNamespace
+
+    from bridge.service.daemon import RUNNING, Garment, Service
+    from bridge.sources.base import Block
+    from bridge.sources.health import Watchdog
+
+    caplog.set_level(logging.INFO, logger="drape")
+    seen = []
+    config = SimpleNamespace(garments=[], status_to=(), hold_still_s=1.0, detect_shift=True)
+    service = Service(config, open_fn=None, on_event=lambda name, e, lat: seen.append((e.t_s, e.gesture, e.kind)))
+    assert service.settling() == SETTLE
+    g = Garment("lead", SimpleNamespace(), model=model, pipeline=Pipeline(model, None, "lead", settle=service.settling()),
+                watchdog=Watchdog(30.0))
+    service.garments.append(g)
+    service.sync_hold(g)
+    assert (g.state, g.note) == (CALIBRATING, "hold still: calibrating")
+    f = TAKE.freq_hz
+    states = []
+    for a, b in _blocks(f.shape[0], 11, 5):
+        service.take(0, Block(np.arange(a, b) / model.rate_hz, f[a:b], service.clock()))
+        if not states or states[-1] != g.state:
+            states.append(g.state)
+    assert states[:4] == [CALIBRATING, RUNNING, SETTLING, RUNNING]
+    assert "re-settling" in caplog.text and "baseline set from 1.0 s of holding still" in caplog.text
+    replayed = replay_events(Recording.from_take(TAKE, GESTURES), model, settle=service.settling())
+    tail = g.pipeline.stop()
+    assert seen + [(e.t_s, e.gesture, e.kind) for e in tail] == [(e.t_s, e.gesture, e.kind) for e in replayed]
+    service.command("rebaseline", "", "", None)
+    assert g.state == CALIBRATING and g.pipeline.holding == CALIBRATING
+    service.status.close()
