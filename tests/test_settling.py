@@ -256,3 +256,17 @@ def test_the_service_mirrors_the_pipelines_captures_and_decides_what_the_replay_
     service.command("rebaseline", "", "", None)
     assert g.state == CALIBRATING and g.pipeline.holding == CALIBRATING
     service.status.close()
+
+
+def test_after_a_capture_hops_keep_the_stream_clock(model):
+    """The recogniser restarts after a capture; its hops must be timed on the stream's clock
+    (samples so far), not from its own restart."""
+    f = TAKE.freq_hz[:600]
+    n = SETTLE.hold_samples(model.rate_hz)
+    settled = Pipeline(model, record_hops=True, settle=SETTLE)
+    settled.feed(f)
+    plain = Pipeline(model, record_hops=True)
+    plain.feed(f[n:])
+    assert len(settled.hops) == len(plain.hops) > 0
+    np.testing.assert_allclose([t for t, _ in settled.hops], [t + n / model.rate_hz for t, _ in plain.hops])
+    assert settled.hops[-1][0] <= settled.t_s
