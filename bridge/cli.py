@@ -679,10 +679,10 @@ def _show(message) -> str:
     return repr(message)
 
 
-def replay_events(rec, model, mapping=None, block_s: float = 0.1):
+def replay_events(rec, model, mapping=None, block_s: float = 0.1, settle=None):
     """Events the live chain decides over a whole take (see ``bridge.service.replay_events``)."""
     from .service import replay_events as replay
-    return replay(rec, model, mapping, block_s)
+    return replay(rec, model, mapping, block_s, settle)
 
 
 def _simulated_vocabulary(name: str):

@@ -11,8 +11,11 @@ than a live stream).
 Each garment is a ``Garment``: its pipeline, outputs, mapping watcher, watchdog and its
 calibration state ("calibrating" at start and on rebaseline: a hold-still capture sets each
 channel's resting frequency; "settling" after a sudden sustained shift: the same, reported).
-While calibrating or settling the pipeline sees no samples, so no gesture can fire; its
-stream time still advances so note-offs come due.
+The captures and the shift detection run inside ``Pipeline`` (``Settling`` from the config's
+[calibration], see ``Service.settling``), sample-exact, so a replay of the raw stream with
+the same settings decides the same events; the daemon only mirrors ``pipeline.holding``
+into its state, logs and notices. While calibrating or settling no gesture can fire; stream
+time still advances so note-offs come due.
 
 One garment failing (model missing, device gone for good, OSC port busy) is reported and
 marked "failed"; the others keep running.
@@ -30,15 +33,14 @@ from pathlib import Path
 
 import numpy as np
 
-from ..signal.shift import ShiftDetector
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
-from .pipeline import Pipeline
+from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
 from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 
 log = logging.getLogger("drape")
 
-CALIBRATING, SETTLING, RUNNING, FAILED = "calibrating", "settling", "running", "failed"
+RUNNING, FAILED = "running", "failed"
 
 
 @dataclass
@@ -93,11 +95,10 @@ class Garment:
     outputs: dict = field(default_factory=dict)
     watcher: object = None
     watchdog: Watchdog | None = None
-    shift: ShiftDetector | None = None
     state: str = CALIBRATING
     note: str = ""
-    hold: list = field(default_factory=list)   # samples of the hold-still capture under way
-    hold_n: int = 0                             # samples it needs
+    holds_told: int = 0                         # pipeline.holds whose start was reported
+    ends_told: int = 0                          # ... and whose end
     last_freq: np.ndarray | None = None
     recent: list = field(default_factory=list)  # (host time, samples) for the rate figure
     latencies_ms: list = field(default_factory=list)
@@ -235,7 +236,7 @@ class Service:
                 g.watcher = MappingWatcher(cfg.mapping, g.model.classes, g.model.kinds,
                                            g.model.channel_names) if cfg.mapping else None
                 mapping = g.watcher.mapping if g.watcher else None
-                g.pipeline = Pipeline(g.model, mapping, g.name)
+                g.pipeline = Pipeline(g.model, mapping, g.name, settle=self.settling())
                 if mapping is not None:
                     reconcile_outputs(g.outputs, None, mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
                 g.source = open_source(cfg, g.model)
@@ -243,8 +244,7 @@ class Service:
                 self.fail(g, str(exc))
                 continue
             g.watchdog = Watchdog(cfg.stall_s)
-            g.shift = ShiftDetector(g.model.rate_hz) if self.config.detect_shift else None
-            self.begin_hold(g, CALIBRATING, "hold still: calibrating")
+            self.sync_hold(g)  # the pipeline starts calibrating
             g.reader = Reader(i, g.source, self.q)
             where = "simulated jacket" if cfg.simulated else (cfg.port or f"OSC {cfg.listen}")
             log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).resolve(),
@@ -266,25 +266,35 @@ class Service:
             self.deliver(g, g.pipeline.stop(), self.clock())
             self.send(g, g.pipeline.let_go())
 
-    def begin_hold(self, g: Garment, state: str, why: str) -> None:
-        """Start a hold-still capture: no samples reach the pipeline until it is done."""
-        if g.pipeline is not None:
-            self.deliver(g, g.pipeline.stop(), self.clock())  # nothing stays held through it
-        g.state, g.note, g.hold = state, why, []
-        g.hold_n = max(1, int(round(max(self.config.hold_still_s, 0.05) * g.model.rate_hz)))
+    def settling(self) -> Settling:
+        """Every garment's calibration settings, from [calibration]: pass the same value to
+        ``replay_events(..., settle=...)`` to replay a take of a garment's raw stream."""
+        return Settling(max(self.config.hold_still_s, 0.05), self.config.detect_shift, start_holding=True)
 
-    def end_hold(self, g: Garment) -> None:
-        """The capture's median per channel becomes the resting frequency; the chain restarts."""
-        from ..recognition import make_recogniser
-        from ..signal import ConditionerState
-        f = np.concatenate(g.hold)
+    def begin_hold(self, g: Garment, why: str) -> None:
+        """Rebaseline: a hold-still capture from the next sample; postures held are released."""
+        self.deliver(g, g.pipeline.rebaseline(why), self.clock())
+        self.sync_hold(g)
+
+    def sync_hold(self, g: Garment) -> None:
+        """Mirror the pipeline's captures into the garment's state, log and notices."""
         p = g.pipeline
-        p.conditioner.state = ConditionerState(np.median(f, axis=0))
-        p.recogniser = make_recogniser(p.model)  # no window mixes old and new rest
-        if g.shift:
-            g.shift.reset()
-        log.info("%s: baseline set from %.1f s of holding still", g.name, f.shape[0] / g.model.rate_hz)
-        g.state, g.note, g.hold = RUNNING, "", []
+        for h in p.holds[g.holds_told:]:
+            if h.state == SETTLING:  # begun by a shift inside feed
+                log.warning("%s: %s", g.name, h.why)
+                self.status.send([st.notice(g.name, h.why)])
+        g.holds_told = len(p.holds)
+        for h in p.holds[g.ends_told:]:
+            if h.end_sample is None:
+                break
+            if h.done:
+                log.info("%s: baseline set from %.1f s of holding still", g.name,
+                         (h.end_sample - h.start_sample) / g.model.rate_hz)
+            g.ends_told += 1
+        if p.holding:
+            g.state, g.note = p.holding, p.holds[-1].why
+        elif g.state in (CALIBRATING, SETTLING):
+            g.state, g.note = RUNNING, ""
 
     # -- the loop ---------------------------------------------------------------------------
 
@@ -333,26 +343,11 @@ class Service:
         self.watch(g, step)
         g.recent.append((now, n))
         g.last_freq = block.freq_hz[-1]
-        if g.state in (CALIBRATING, SETTLING):
-            g.hold.append(block.freq_hz)
-            g.pipeline.samples += n  # stream time goes on: note-offs come due
-            self.send(g, g.pipeline.dispatches([]))
-            if sum(len(h) for h in g.hold) >= g.hold_n:
-                self.end_hold(g)
-            return
-        if g.shift is not None:
-            moved = g.shift.step(block.freq_hz)
-            if moved and not g.pipeline.gate.held:
-                names = ", ".join(g.model.channel_names[i] for i in moved)
-                why = f"sudden lasting change on {names} (something near the garment?); re-settling"
-                log.warning("%s: %s", g.name, why)
-                self.status.send([st.notice(g.name, why)])
-                self.begin_hold(g, SETTLING, why)
-                g.hold.append(block.freq_hz)
-                g.pipeline.samples += n
-                return
         events = g.pipeline.feed(block.freq_hz, early=lambda ev: self.deliver(g, ev, block.arrived_s))
         self.deliver(g, events, block.arrived_s)
+        self.sync_hold(g)
+        if g.state in (CALIBRATING, SETTLING):
+            self.send(g, g.pipeline.dispatches([]))  # stream time went on: note-offs come due
 
     def watch(self, g: Garment, step) -> None:
         status, reason = step
@@ -439,7 +434,7 @@ class Service:
                 if g.watcher is not None:
                     self.apply_reload(g, g.watcher.reload_now())
             elif cmd == "rebaseline":
-                self.begin_hold(g, CALIBRATING, "hold still: re-baselining")
+                self.begin_hold(g, "hold still: re-baselining")
             else:  # arm, disarm, panic, layer: Pipeline.command never presses keys
                 self.deliver(g, g.pipeline.command(cmd, detail), self.clock())
 

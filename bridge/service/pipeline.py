@@ -2,14 +2,53 @@
 
 from __future__ import annotations
 
-from dataclasses import replace
+from dataclasses import dataclass, replace
 
 import numpy as np
 
 from ..decisions import Controls, Event, Gate, Safety, SafetySettings, gate_settings_for
 from ..mapping import Dispatch, Mapping, Router
 from ..recognition import Model, make_recogniser
-from ..signal import Conditioner, plausible_rows
+from ..signal import Conditioner, ConditionerState, plausible_rows
+from ..signal.shift import ShiftDetector
+
+CALIBRATING, SETTLING = "calibrating", "settling"
+
+
+@dataclass(frozen=True)
+class Settling:
+    """How a pipeline calibrates and re-settles (None in ``Pipeline``: it never does).
+
+    hold_still_s: length of a hold-still capture, s of stream time; it takes
+    max(1, round(hold_still_s · rate_hz)) usable samples, whatever the blocks.
+    detect_shift: re-settle after a sudden sustained shift (``ShiftDetector``).
+    start_holding: begin with a capture ("calibrating") before anything is recognised.
+    """
+
+    hold_still_s: float = 1.0
+    detect_shift: bool = True
+    start_holding: bool = True
+
+    def __post_init__(self):
+        if not (0 <= float(self.hold_still_s) <= 3600):
+            raise ValueError(f"hold_still_s must be 0 to 3600 s (got {self.hold_still_s!r})")
+
+    def hold_samples(self, rate_hz: float) -> int:
+        return max(1, int(round(self.hold_still_s * rate_hz)))
+
+
+@dataclass
+class Hold:
+    """One hold-still capture: why, and the stream samples it began and ended at (``samples``
+    before its first sample and after its last; end None while under way). ``done`` is False
+    for a capture cut short by a rebaseline."""
+
+    state: str
+    why: str
+    start_sample: int
+    end_sample: int | None = None
+    done: bool = False
+    channels: tuple[int, ...] = ()  # the channels that shifted, for "settling"
 
 
 class Pipeline:
@@ -20,10 +59,18 @@ class Pipeline:
     the gate's events, and the safety stage's armed/disarmed/panic events. Rows with
     non-finite, non-positive or implausible values (``plausible_rows``) are counted and skipped. ``dispatches`` routes events
     through the mapping (``Router``); ``swap_mapping`` changes the mapping between blocks.
+
+    With ``settle`` (a ``Settling``) the pipeline also calibrates and re-settles, sample-exact:
+    while ``holding`` ("calibrating" at start and on ``rebaseline``, "settling" after a sudden
+    sustained shift seen while no posture is held) samples go into a hold-still capture, not
+    to the classifier, and stream time still advances; the capture's median per channel
+    becomes the resting frequency and the recogniser starts afresh, and the rest of that
+    block goes on as usual in the same ``feed``. ``holds`` lists every capture (``Hold``), so
+    a caller learns of one a shift began. Events do not depend on how the stream is blocked.
     """
 
     def __init__(self, model: Model, mapping: Mapping | None = None, garment: str = "",
-                 record_hops: bool = False):
+                 record_hops: bool = False, settle: Settling | None = None):
         self.model = model
         self.garment = garment
         self.conditioner = Conditioner(model.conditioning)
@@ -38,8 +85,17 @@ class Pipeline:
         self.skipped = 0
         self.last_probabilities = np.zeros(len(model.classes))
         self.hops: list | None = [] if record_hops else None  # (t_s, probabilities) per hop, for tuning
+        self.settle = settle
+        self.shift = ShiftDetector(model.rate_hz) if settle is not None and settle.detect_shift else None
+        self.holding: str | None = None       # None, CALIBRATING or SETTLING
+        self.holds: list[Hold] = []
+        self._held_rows: list[np.ndarray] = []  # the capture under way
+        self._held_n = 0
+        self._origin = 0                      # stream sample at which the recogniser started
         if mapping is not None:
             self.swap_mapping(mapping)
+        if settle is not None and settle.start_holding:
+            self._begin_hold(CALIBRATING, "hold still: calibrating")
 
     @property
     def t_s(self) -> float:
@@ -67,6 +123,86 @@ class Pipeline:
         f = np.asarray(freq_hz, dtype=float)
         if f.ndim != 2 or f.shape[1] != self.model.n_channels:
             raise ValueError(f"block has shape {f.shape}; expected (n, {self.model.n_channels})")
+        if self.settle is None:
+            return self._feed(f, early)
+        events: list[Event] = []
+        i, n = 0, f.shape[0]
+        while i < n:  # segments: a capture's rows, or rows for the classifier up to a shift
+            if self.holding:
+                i += self._hold_rows(f[i:])
+                continue
+            rest = f[i:]
+            ok = plausible_rows(rest, self.conditioner.state.centre_hz)
+            rows = np.flatnonzero(ok)
+            if self.shift is None or rows.size == 0:
+                events += self._feed(rest, early)
+                break
+            moved = self.shift.step(rest[rows], stop=True)
+            if not moved:
+                events += self._feed(rest, early)
+                break
+            cut = int(rows[self.shift.fired_at]) + 1  # up to and including the sample it fired at
+            events += self._feed(rest[:cut], early)
+            i += cut
+            if self.gate.held:  # a posture holds a step too
+                continue
+            names = ", ".join(self.model.channel_names[c] for c in moved)
+            events += self._begin_hold(
+                SETTLING, f"sudden lasting change on {names} (something near the garment?); re-settling", moved)
+        return events
+
+    def rebaseline(self, why: str = "hold still: re-baselining") -> list[Event]:
+        """Start a hold-still capture ("calibrating") now; returns the "left" events of the
+        postures it releases. A capture under way is abandoned and begins again."""
+        if self.settle is None:
+            raise ValueError("this pipeline has no settling settings (Pipeline(settle=Settling(...)))")
+        return self._begin_hold(CALIBRATING, why)
+
+    def _begin_hold(self, state: str, why: str, channels=()) -> list[Event]:
+        if self.holding and self.holds:
+            self.holds[-1].end_sample = self.samples  # cut short
+        self.holding = state
+        self.holds.append(Hold(state, why, self.samples, channels=tuple(int(c) for c in channels)))
+        self._held_rows, self._held_n = [], 0
+        return self.gate.release_all(self.t_s)  # nothing stays held through it
+
+    def _hold_rows(self, f: np.ndarray) -> int:
+        """Take the capture's rows from the front of ``f``; returns how many rows it used up."""
+        centre = self.conditioner.state.centre_hz
+        if centre is None:  # no rest known yet: only unreadable rows are left out (the median copes)
+            ok = np.isfinite(f).all(axis=1) & (f > 0).all(axis=1)
+        else:
+            ok = plausible_rows(f, centre)
+        rows = np.flatnonzero(ok)
+        total = self.settle.hold_samples(self.model.rate_hz)
+        need = total - self._held_n
+        if rows.size >= need:
+            rows = rows[:need]
+            used = int(rows[-1]) + 1
+        else:
+            used = f.shape[0]
+        self.skipped += used - rows.size
+        self._held_rows.append(f[rows])
+        self._held_n += rows.size
+        self.samples += rows.size  # stream time goes on: note-offs come due
+        if self._held_n >= total:
+            self._end_hold()
+        return used
+
+    def _end_hold(self) -> None:
+        """The capture's median per channel becomes the resting frequency; the chain restarts."""
+        f = np.concatenate(self._held_rows)
+        self.conditioner.state = ConditionerState(np.median(f, axis=0))
+        self.recogniser = make_recogniser(self.model)  # no window mixes old and new rest
+        self._origin = self.samples
+        if self.shift is not None:
+            self.shift.reset()
+        h = self.holds[-1]
+        h.end_sample, h.done = self.samples, True
+        self.holding, self._held_rows, self._held_n = None, [], 0
+
+    def _feed(self, f: np.ndarray, early) -> list[Event]:
+        """The normal path over rows of one block (after any capture): what ``feed`` does."""
         ok = plausible_rows(f, self.conditioner.state.centre_hz)  # NaN, inf, <= 0, or a glitch far from rest
         if not ok.all():
             self.skipped += int((~ok).sum())
@@ -82,6 +218,8 @@ class Pipeline:
             early(controls)
             controls = []
         ends, probs = self.recogniser.push(level, motion)
+        if self._origin:
+            ends = [self._origin + e for e in ends]  # the recogniser counts from its own start
         events = self._decide(ends, probs, level, first)
         if len(probs):
             self.last_probabilities = probs[-1]

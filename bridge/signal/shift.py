@@ -22,6 +22,11 @@ class ShiftDetector:
     """``step(freq_hz)`` over blocks (n, channels) of Hz; returns the channels (indices) that
     shifted, once per shift (empty tuple otherwise). ``reset()`` forgets the reference (after
     a re-baseline). Times in seconds of stream time.
+
+    ``fired_at`` is the row of the last ``step``'s block at which the shift was reported
+    (None when it reported none). ``step(freq_hz, stop=True)`` stops right after that row
+    and leaves the later rows unread, so a caller can treat them differently (sample-exact,
+    whatever the blocks): its state is then that of a stream ending at that row.
     """
 
     rate_hz: float
@@ -33,13 +38,15 @@ class ShiftDetector:
     slow: np.ndarray | None = None
     over_n: int = 0
     shifts: int = 0
+    fired_at: int | None = None
 
     def reset(self) -> None:
         self.fast = self.slow = None
         self.over_n = 0
 
-    def step(self, freq_hz: np.ndarray) -> tuple[int, ...]:
+    def step(self, freq_hz: np.ndarray, stop: bool = False) -> tuple[int, ...]:
         x = np.log(np.asarray(freq_hz, dtype=float))
+        self.fired_at = None
         if x.shape[0] == 0:
             return ()
         if self.fast is None:
@@ -48,7 +55,7 @@ class ShiftDetector:
         as_ = float(np.exp(-1.0 / (self.slow_tau_s * self.rate_hz)))
         need = int(round(self.sustain_s * self.rate_hz))
         found: tuple[int, ...] = ()
-        for row in x:  # per sample: a few channels, cheap next to the classifier
+        for i, row in enumerate(x):  # per sample: a few channels, cheap next to the classifier
             self.fast = af * self.fast + (1 - af) * row
             if self.over_n == 0:  # the reference follows drift only while nothing stands out
                 self.slow = as_ * self.slow + (1 - as_) * row
@@ -59,4 +66,7 @@ class ShiftDetector:
                 self.shifts += 1
                 self.slow = self.fast.copy()  # the new rest: report once
                 self.over_n = 0
+                self.fired_at = i
+                if stop:
+                    break
         return found
