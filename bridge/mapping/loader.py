@@ -33,6 +33,7 @@ import math
 import re
 import tomllib
 from pathlib import Path
+from typing import Callable, Iterator
 
 from ..decisions import OneEuroSettings, RangeError, SafetySettings, load_range
 from .keynames import check_key_name
@@ -332,20 +333,27 @@ def _dest_ok(ck, at, path, to, dests, declared, action) -> bool:
     return True
 
 
-def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
+def _tables(ck: _Checker, raw, name: str, known) -> Iterator[tuple[int, dict, Callable, str]]:
+    """Each [[name]] table of ``raw`` as (index, table, at(key) → line, path), after
+    reporting a value that is not a table and keys outside ``known``."""
     if not isinstance(raw, list):
-        ck.bad(1, "rule", "write each rule as a [[rule]] table")
-        return []
-    rules = []
-    for i, r in enumerate(raw):
+        ck.bad(1, name, f"write each {name} as a [[{name}]] table")
+        return
+    for i, t in enumerate(raw):
         def at(key=None, i=i):
-            return ck.lines.of("[[rule]]", i, key)
-        path = f"rule[{i + 1}]"
-        if not isinstance(r, dict):
-            ck.bad(at(), path, "write each rule as a [[rule]] table")
+            return ck.lines.of(f"[[{name}]]", i, key)
+        path = f"{name}[{i + 1}]"
+        if not isinstance(t, dict):
+            ck.bad(at(), path, f"write each {name} as a [[{name}]] table")
             continue
-        for k in sorted(set(r) - RULE_KEYS):
-            ck.bad(at(k), f"{path}.{k}", f"unknown key; a rule has {', '.join(sorted(RULE_KEYS))}")
+        for k in sorted(set(t) - known):
+            ck.bad(at(k), f"{path}.{k}", f"unknown key; a {name} has {', '.join(sorted(known))}")
+        yield i, t, at, path
+
+
+def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
+    rules = []
+    for i, r, at, path in _tables(ck, raw, "rule", RULE_KEYS):
         acts = [a for a in ACTIONS if a in r]
         if "gesture" not in r:
             ck.bad(at(), f"{path}.gesture", "missing: which gesture of the model this rule answers")
@@ -460,19 +468,8 @@ def _bundle(ck, at, key, items):
 
 
 def _controls(ck: _Checker, raw, dests, declared) -> list[ControlRule]:
-    if not isinstance(raw, list):
-        ck.bad(1, "control", "write each control as a [[control]] table")
-        return []
     out = []
-    for i, c in enumerate(raw):
-        def at(key=None, i=i):
-            return ck.lines.of("[[control]]", i, key)
-        path = f"control[{i + 1}]"
-        if not isinstance(c, dict):
-            ck.bad(at(), path, "write each control as a [[control]] table")
-            continue
-        for k in sorted(set(c) - CONTROL_KEYS):
-            ck.bad(at(k), f"{path}.{k}", f"unknown key; a control has {', '.join(sorted(CONTROL_KEYS))}")
+    for i, c, at, path in _tables(ck, raw, "control", CONTROL_KEYS):
         missing = [k for k in ("name", "mix", "to") if k not in c]
         for k in missing:
             ck.bad(at(), f"{path}.{k}", "missing")
