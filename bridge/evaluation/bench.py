@@ -187,6 +187,12 @@ def verdict(value: float, target: float | None, below: bool) -> str:
     return f"target {'≤' if below else '≥'} {target:g}{' ms' if below else '×'}: {'met' if ok else 'NOT met'}"
 
 
+def _verdicts(wall: float, cpu: float, target: float | None, below: bool) -> str:
+    """The verdict by wall clock and by CPU time, as a suffix for a printed line."""
+    v = verdict(wall, target, below)
+    return f"  {v} (by CPU time: {verdict(cpu, target, below).split(': ')[1]})" if v else ""
+
+
 def run_all(channels=(4, 8), hops: int = 200, replay_s: float = 300.0, fit_minutes: float = 30.0,
             classifiers=("linear", "minirocket", "dtw"), print_fn=print) -> list[dict]:
     """Every classifier at each channel count: 2 s window, 100 Hz, 50 ms hop. Prints a table.
@@ -210,23 +216,19 @@ def run_all(channels=(4, 8), hops: int = 200, replay_s: float = 300.0, fit_minut
             if print_fn:
                 r = rows[-1]
                 extra = f"  compared {r['dtw_computed_fraction']:.0%} of templates" if "dtw_computed_fraction" in r else ""
-                target = HOP_TARGET_MS.get(name)
-                v = verdict(r["hop_median_ms"], target, True)
-                v_cpu = verdict(r["cpu_median_ms"], target, True)
                 print_fn(f"{r['classifier']:>10}  {r['channels']} ch  hop median {r['hop_median_ms']:.3f} ms  "
                          f"p99 {r['hop_p99_ms']:.3f} ms  (CPU time median {r['cpu_median_ms']:.3f} ms){extra}"
-                         + (f"  {v} (by CPU time: {v_cpu.split(': ')[1]})" if v else ""), flush=True)
+                         + _verdicts(r["hop_median_ms"], r["cpu_median_ms"], HOP_TARGET_MS.get(name), True),
+                         flush=True)
     for name in classifiers if replay_s else ():
         rows.append(bench_replay(name, replay_s))
         if print_fn:
             r = rows[-1]
-            target = REPLAY_TARGET_X.get(name)
-            v = verdict(r["x_real_time_block_5s"], target, False)
-            v_cpu = verdict(r["x_cpu_block_5s"], target, False)
             print_fn(f"{name:>10}  replay of {r['replayed_s']:.0f} s (hop {r['hop_s']} s): "
                      f"{r['x_real_time_block_5s']:.0f}× real time in 5 s blocks (by CPU time {r['x_cpu_block_5s']:.0f}×), "
                      f"{r['x_real_time_block_100ms']:.0f}× in 0.1 s blocks (CPU {r['x_cpu_block_100ms']:.0f}×)"
-                     + (f"  {v} (by CPU time: {v_cpu.split(': ')[1]})" if v else ""), flush=True)
+                     + _verdicts(r["x_real_time_block_5s"], r["x_cpu_block_5s"], REPLAY_TARGET_X.get(name), False),
+                     flush=True)
     for name in classifiers if fit_minutes else ():
         rows.append(bench_fit(name, fit_minutes))
         if print_fn:
