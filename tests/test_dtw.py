@@ -82,3 +82,80 @@ def test_rejection_sends_strangers_to_null():
     queries = np.stack([base["up"][None], base["down"][None], 5 + base["up"][None]])
     p = predict_proba(model, queries)
     assert list(p.argmax(axis=1)) == [1, 2, 0]
+
+
+def _troupe_like(rng, n_null=80):
+    """Two gestures, and null windows that are slow wandering (like fidgeting) near gesture size."""
+    t = np.linspace(0, np.pi, 50)
+    base = {"up": np.sin(t), "down": -np.sin(t)}
+    X = [base[c][None] + 0.05 * rng.normal(size=(1, 50)) for c in ("up", "down") for _ in range(5)]
+    y = list(np.repeat(["up", "down"], 5))
+    for _ in range(n_null):
+        X.append(np.cumsum(rng.normal(scale=0.08, size=(1, 50)), axis=1))
+        y.append("null")
+    return np.stack(X), np.array(y), base
+
+
+def test_null_windows_become_null_templates_and_cap_the_thresholds():
+    rng = np.random.default_rng(5)
+    X, y, base = _troupe_like(rng)
+    with_null = fit_cases("dtw", X, y, ["up", "down"], band=0.1, null_templates=20)
+    without = fit_cases("dtw", X[y != "null"], y[y != "null"], ["up", "down"], band=0.1)
+    assert with_null.null_templates.shape == (20, 1, 50) and without.null_templates.shape == (0, 1, 50)
+    assert with_null.thresholds.shape == (2,)
+    # Capped by the null windows' distances, never looser than the templates' own rule.
+    assert (with_null.thresholds <= without.thresholds[0] + 1e-12).all()
+    # Fresh wandering (none of the gestures) goes to null; the gestures are still found.
+    wander = np.stack([np.cumsum(rng.normal(scale=0.08, size=(1, 50)), axis=1) for _ in range(40)])
+    p = predict_proba(with_null, np.concatenate([wander, np.stack([base["up"][None], base["down"][None]])]))
+    assert (p[:40].argmax(axis=1) == 0).mean() >= 0.9
+    assert list(p[40:].argmax(axis=1)) == [1, 2]
+
+
+def test_live_recogniser_matches_batch_scores_with_null_templates():
+    from bridge.recognition.classifiers import DtwRecogniser, scores as batch_scores
+    from bridge.recognition.linear import probabilities
+    rng = np.random.default_rng(6)
+    X, y, _ = _troupe_like(rng, 60)
+    model = fit_cases("dtw", X, y, ["up", "down"], band=0.1, null_templates=10, stream="level", rate_hz=25.0)
+    stream = np.concatenate([X[i, 0] for i in (0, 20, 7, 30)])[:, None]
+    rec = DtwRecogniser(model)
+    ends, live = rec.push(stream, np.zeros_like(stream))
+    windows = np.stack([stream[e - 50:e, :].T for e in ends])
+    np.testing.assert_allclose(live, probabilities(batch_scores(model, windows), model.temperature), atol=1e-12)
+    assert rec.computed <= rec.offered
+
+
+def test_a_single_threshold_file_gives_the_same_probabilities(tmp_path):
+    # Files written before per-class thresholds hold one threshold and scores in distance
+    # units; the loader divides scores and temperature alike, which changes no probability.
+    import json
+    import zipfile
+    from bridge.recognition import load_model
+    from bridge.recognition.dtw import per_class_min
+    from bridge.recognition.linear import probabilities
+    rng = np.random.default_rng(7)
+    X, y, base = _troupe_like(rng, 0)
+    model = fit_cases("dtw", X, y, ["up", "down"], band=0.1, rate_hz=25.0)
+    path = model.save(tmp_path / "new.npz")
+    old = tmp_path / "old.npz"
+    threshold, temperature = 0.9, 0.05
+    with zipfile.ZipFile(path) as src, zipfile.ZipFile(old, "w") as dst:
+        for name in src.namelist():
+            if name in ("thresholds.npy", "null_templates.npy"):
+                continue
+            data = src.read(name)
+            if name == "meta_json.npy":
+                meta = json.loads(np.load(__import__("io").BytesIO(data)).tobytes())
+                for key in ("null_scale", "reject", "n_null_templates"):
+                    meta.pop(key)
+                meta.update(threshold=threshold, temperature=temperature)
+                buf = __import__("io").BytesIO()
+                np.save(buf, np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8))
+                data = buf.getvalue()
+            dst.writestr(name, data)
+    loaded = load_model(old)
+    q = np.stack([base["up"][None], base["down"][None], 3 + base["up"][None]])
+    d = per_class_min(distance_matrix(q, X, loaded.radius), loaded.template_class, 2)
+    old_scores = np.concatenate([np.full((3, 1), -threshold), -d], axis=1)   # the old formula
+    np.testing.assert_allclose(predict_proba(loaded, q), probabilities(old_scores, temperature), rtol=1e-9, atol=1e-12)

@@ -1,4 +1,4 @@
-"""Few-shot templates matched by dynamic time warping (DTW), with a rejection threshold.
+"""Few-shot templates matched by dynamic time warping (DTW), with rejection thresholds.
 
 Distances are dependent multivariate DTW: the cost of aligning query sample i with
 template sample j is the squared difference summed over channels, the path cost is the
@@ -8,6 +8,7 @@ cost, in the unit of the series.
 
 Each query's distance to a class is its distance to the nearest template of that class.
 LB_Keogh lower bounds skip templates that cannot come nearer than the class's best so far.
+Null can have templates too (windows of the unlabelled stretches), matched the same way.
 """
 
 from __future__ import annotations
@@ -17,7 +18,7 @@ from scipy.ndimage import maximum_filter1d, minimum_filter1d
 
 from .linear import expected_calibration_error, fit_temperature, probabilities
 
-REJECT_OFF = 1e9  # null-class score when rejection is off: never chosen
+REJECT_OFF = 1e9  # null's floor when rejection is off: −1e9 is never chosen
 
 
 def band_radius(length: int, band: float) -> int:
@@ -136,13 +137,23 @@ def class_distances_pruned(query: np.ndarray, templates: np.ndarray, template_cl
     return np.sqrt(best), len(first) + len(rest)
 
 
-def scores_from_distances(class_dist: np.ndarray, threshold: float) -> np.ndarray:
-    """Scores (m, 1 + classes): minus the distance per class, and minus the threshold for null.
+def scores_from_distances(class_dist: np.ndarray, thresholds, null_dist: np.ndarray | None = None,
+                          null_scale: float = 1.0, reject: bool = True) -> np.ndarray:
+    """Scores (m, 1 + classes) from nearest-template distances, on one scale for every class.
 
-    A query farther than ``threshold`` from every class scores highest on null (rejected).
+    class_dist: (m, classes); thresholds: (classes,) or a scalar, the distance at which
+    a class's template stops counting as a match. A class scores minus its distance over
+    its threshold; null scores −1 (nothing within reach), or more when a null template
+    is near: −min(1, null_dist / null_scale). So a query is null unless some class is
+    nearer than its threshold and, relative to the scales, nearer than the null templates.
+    Without ``reject`` the floor is −REJECT_OFF: only null templates can make null win.
     """
-    null = np.full((class_dist.shape[0], 1), -threshold)
-    return np.concatenate([null, -class_dist], axis=1)
+    class_dist = np.asarray(class_dist, dtype=float)
+    floor = 1.0 if reject else REJECT_OFF
+    null = np.full((class_dist.shape[0], 1), -floor)
+    if null_dist is not None:
+        null[:, 0] = -np.minimum(floor, np.asarray(null_dist, dtype=float) / null_scale)
+    return np.concatenate([null, -class_dist / np.asarray(thresholds, dtype=float)], axis=1)
 
 
 def per_class_min(dist: np.ndarray, template_class: np.ndarray, n_classes: int) -> np.ndarray:
@@ -155,15 +166,34 @@ def per_class_min(dist: np.ndarray, template_class: np.ndarray, n_classes: int) 
     return out
 
 
+def _spread(n: int, k: int) -> np.ndarray:
+    """Indices of k items spread evenly over n (all n when k ≥ n)."""
+    return np.arange(n) if k >= n else np.unique(np.linspace(0, n - 1, k).round().astype(int))
+
+
 def fit_templates(X: np.ndarray, y: np.ndarray, n_classes: int, band: float = 0.1, reject: bool = True,
-                  margin: float = 0.25, null_X: np.ndarray | None = None) -> dict:
+                  margin: float = 0.25, null_X: np.ndarray | None = None, null_templates: int = 30,
+                  null_quantile: float = 0.005, null_reach: float = 0.8) -> dict:
     """Fit the template matcher.
 
     X: (m, channels, n) template cases; y: (m,) class indices 1..n_classes−1 (0 is null and
-    has no templates). null_X: optional (p, channels, n) cases of "none of these", used only
-    to fit the temperature. The rejection threshold is (1 + margin) times the largest
-    leave-one-out distance of a template to its nearest other template of the same class.
-    The temperature is fitted on leave-one-out scores. Returns the arrays and settings.
+    has no templates). null_X: optional (p, channels, n) cases of "none of these", from
+    the unlabelled stretches of recordings.
+
+    Thresholds, one per class: (1 + margin) times the largest leave-one-out distance of
+    a template to its nearest other template of the same class, over all classes (few
+    templates make one class's figure noisy). With null cases, each class's threshold is
+    also capped at the ``null_quantile`` quantile of the null cases' distances to that
+    class, so that about that fraction of null windows come within reach of it.
+
+    Null templates: up to ``null_templates`` null cases, spread evenly, are kept as
+    templates of null, so that movement that is none of the gestures (walking, fidgeting)
+    is matched as such rather than by the least unlike gesture. Their scale is the
+    ``null_reach`` quantile of each one's distance to its nearest other null template.
+    The remaining null cases set the thresholds (all of them when there are too few).
+
+    The temperature is fitted on leave-one-out scores of the templates and the scores of
+    the null cases. Returns the arrays and settings.
     """
     X = np.asarray(X, dtype=float)
     y = np.asarray(y, dtype=int)
@@ -171,6 +201,8 @@ def fit_templates(X: np.ndarray, y: np.ndarray, n_classes: int, band: float = 0.
         raise ValueError("templates must be (m, channels, length) with one label each")
     if (y <= 0).any() or (y >= n_classes).any():
         raise ValueError("template labels must be class indices 1..n_classes-1 (0 is null)")
+    if not 0.0 <= null_quantile <= 1.0 or not 0.0 < null_reach <= 1.0:
+        raise ValueError("null_quantile must be in 0..1 and null_reach in (0, 1]")
     n = X.shape[-1]
     radius = band_radius(n, band)
     k = n_classes - 1
@@ -179,24 +211,35 @@ def fit_templates(X: np.ndarray, y: np.ndarray, n_classes: int, band: float = 0.
     loo = per_class_min(dist, y - 1, k)                       # (m, k), self excluded
     own = loo[np.arange(len(y)), y - 1]
     finite_own = own[np.isfinite(own)]
-    if reject and finite_own.size:
-        threshold = float((1.0 + margin) * finite_own.max())
-    else:
-        threshold = REJECT_OFF
-    held = scores_from_distances(np.where(np.isfinite(loo), loo, 1e6), threshold)
+    thresholds = np.full(k, max((1.0 + margin) * finite_own.max(), 1e-12) if finite_own.size else 1.0)
+    null_X = np.empty((0,) + X.shape[1:]) if null_X is None else np.asarray(null_X, dtype=float)
+    keep = _spread(len(null_X), null_templates) if len(null_X) >= 2 * max(1, null_templates) else np.arange(0)
+    nulls = null_X[keep]
+    rest = null_X[np.setdiff1d(np.arange(len(null_X)), keep)]
+    null_scale = 1.0
+    if len(nulls) >= 2:
+        nn = distance_matrix(nulls, nulls, radius)
+        np.fill_diagonal(nn, np.inf)
+        null_scale = float(np.quantile(nn.min(axis=1), null_reach))
+        if not np.isfinite(null_scale) or null_scale <= 0:
+            nulls, null_scale = nulls[:0], 1.0
+    to_null = (lambda q: distance_matrix(q, nulls, radius).min(axis=1)) if len(nulls) else (lambda q: None)
+    nd = per_class_min(distance_matrix(rest, X, radius), y - 1, k) if len(rest) else None
+    if reject and nd is not None:
+        thresholds = np.minimum(thresholds, np.maximum(np.quantile(nd, null_quantile, axis=0), 1e-12))
+    held = scores_from_distances(np.where(np.isfinite(loo), loo, 1e6), thresholds, to_null(X), null_scale, reject)
     target = y.copy()
-    if null_X is not None and len(null_X):
-        nd = per_class_min(distance_matrix(np.asarray(null_X, float), X, radius), y - 1, k)
-        held = np.concatenate([held, scores_from_distances(nd, threshold)])
+    if nd is not None:
+        held = np.concatenate([held, scores_from_distances(nd, thresholds, to_null(rest), null_scale, reject)])
         target = np.concatenate([target, np.zeros(len(nd), dtype=int)])
     temperature = fit_temperature(held, target, bounds=(-9.0, 9.0))
     prob = probabilities(held, temperature)
     return {
-        "templates": X, "template_class": y - 1, "radius": radius, "threshold": threshold,
-        "temperature": temperature,
+        "templates": X, "template_class": y - 1, "radius": radius, "thresholds": thresholds,
+        "null_templates": nulls, "null_scale": null_scale, "temperature": temperature,
         "summary": {
             "leave_one_out_accuracy": round(float((prob.argmax(axis=1) == target).mean()), 4),
             "calibration_error": round(expected_calibration_error(prob, target), 4),
-            "templates": int(len(y)), "band": band, "reject": bool(reject),
+            "templates": int(len(y)), "null_templates": int(len(nulls)), "band": band, "reject": bool(reject),
         },
     }

@@ -221,11 +221,13 @@ class MiniRocketModel(LiveModel):
 
 @dataclass
 class DtwModel(LiveModel):
-    """Templates matched by DTW (see ``dtw``) with a rejection threshold.
+    """Templates matched by DTW (see ``dtw``) with rejection thresholds.
 
     templates: (n, input channels, length) in the unit of the stream; template_class: (n,)
-    index into ``classes[1:]``; radius: Sakoe–Chiba band, samples; threshold: distance
-    beyond which a window is null.
+    index into ``classes[1:]``; radius: Sakoe–Chiba band, samples; thresholds: (classes − 1,)
+    distance beyond which a class's templates stop matching; null_templates: (p, input
+    channels, length) windows of null (p may be 0) and null_scale their distance unit;
+    reject: False when nothing is null for lack of a near template.
     """
 
     classes: tuple[str, ...]
@@ -237,21 +239,31 @@ class DtwModel(LiveModel):
     templates: np.ndarray
     template_class: np.ndarray
     radius: int
-    threshold: float
+    thresholds: np.ndarray
+    null_templates: np.ndarray | None = None
+    null_scale: float = 1.0
+    reject: bool = True
     temperature: float = 1.0
     classifier: str = "dtw"
     decision: dict = field(default_factory=dict)
     summary: dict = field(default_factory=dict)
 
+    def __post_init__(self):
+        if self.null_templates is None:
+            self.null_templates = np.empty((0,) + self.templates.shape[1:])
+        self.thresholds = np.broadcast_to(np.asarray(self.thresholds, dtype=float), (len(self.classes) - 1,)).copy()
+
     def metadata(self) -> dict:
         meta = self.common_metadata()
         meta.update(stream=self.stream, length=int(self.templates.shape[2]),
                     input_channels=int(self.templates.shape[1]), n_templates=int(self.templates.shape[0]),
-                    radius=int(self.radius), threshold=float(self.threshold))
+                    n_null_templates=int(self.null_templates.shape[0]), radius=int(self.radius),
+                    null_scale=float(self.null_scale), reject=bool(self.reject))
         return meta
 
     def arrays(self) -> dict[str, np.ndarray]:
-        return {"templates": self.templates, "template_class": self.template_class.astype(np.int64)}
+        return {"templates": self.templates, "template_class": self.template_class.astype(np.int64),
+                "thresholds": self.thresholds, "null_templates": self.null_templates}
 
 
 def _require(cond: bool, path, what: str) -> None:
@@ -444,18 +456,36 @@ def _load_dtw(ar: _Archive, meta: dict, common: dict, path) -> DtwModel:
     n_t = _int_meta(meta, "n_templates", 1, MAX_TEMPLATES, path)
     radius = _int_meta(meta, "radius", 0, length - 1, path)
     _require(length == common["windows"].length, path, f"length {length} differs from the window's {common['windows'].length} samples")
-    try:
-        threshold = float(meta["threshold"])
-    except (KeyError, TypeError, ValueError):
-        raise ModelError(f"{path}: metadata threshold missing") from None
-    _require(np.isfinite(threshold) and threshold > 0, path, "threshold must be a positive number")
     _require(n_t * n_in * length <= MAX_ARRAY_VALUES, path, "templates too large")
     templates = ar.read("templates", (n_t, n_in, length), "f").astype(float)
     template_class = ar.read("template_class", (n_t,), "iu").astype(np.int64)
     n_cls = len(common["classes"]) - 1
     _require(bool(((template_class >= 0) & (template_class < n_cls)).all()), path, "template_class out of range")
+    extra = {}
+    if "thresholds" in ar.names:
+        n_null = _int_meta(meta, "n_null_templates", 0, MAX_TEMPLATES, path)
+        _require((n_t + n_null) * n_in * length <= MAX_ARRAY_VALUES, path, "templates too large")
+        thresholds = ar.read("thresholds", (n_cls,), "f").astype(float)
+        _require(bool((np.isfinite(thresholds) & (thresholds > 0)).all()), path, "thresholds must be positive numbers")
+        extra["null_templates"] = ar.read("null_templates", (n_null, n_in, length), "f").astype(float)
+        scale = meta.get("null_scale")
+        _require(isinstance(scale, (int, float)) and not isinstance(scale, bool) and np.isfinite(scale) and scale > 0,
+                 path, "metadata null_scale must be a positive number")
+        _require(isinstance(meta.get("reject"), bool), path, "metadata reject must be true or false")
+        extra.update(null_scale=float(scale), reject=meta["reject"])
+    else:
+        # A file from before per-class thresholds: one threshold, scores in distance units.
+        # Dividing every score and the temperature by it gives the same probabilities.
+        try:
+            threshold = float(meta["threshold"])
+        except (KeyError, TypeError, ValueError, OverflowError):
+            raise ModelError(f"{path}: metadata thresholds missing") from None
+        _require(np.isfinite(threshold) and threshold > 0, path, "threshold must be a positive number")
+        thresholds = np.full(n_cls, threshold)
+        common = {**common, "temperature": common["temperature"] / threshold}
+        _require(np.isfinite(common["temperature"]) and common["temperature"] > 0, path, "temperature out of range")
     return DtwModel(**common, stream=stream, templates=templates, template_class=template_class, radius=radius,
-                    threshold=threshold)
+                    thresholds=thresholds, **extra)
 
 
 _LOADERS = {"linear": _load_linear, "minirocket": _load_minirocket, "dtw": _load_dtw}
