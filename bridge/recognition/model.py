@@ -154,20 +154,27 @@ class Model(LiveModel):
     def __post_init__(self):
         self._map32 = None
 
-    def _fourier32(self) -> tuple[np.ndarray, np.ndarray]:
-        """float32 copies of the Fourier map, made once (the file keeps the float64 draw)."""
+    def _fourier32(self) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+        """float32 copies of the Fourier map and the weights over it, made once (the file
+        keeps the float64 values)."""
         m = self._map32
-        if m is None or m[0] is not self.projection or m[1] is not self.phase:
-            m = self._map32 = (self.projection, self.phase, np.ascontiguousarray(self.projection, dtype=np.float32),
-                               np.asarray(self.phase, dtype=np.float32))
-        return m[2], m[3]
+        if m is None or m[0] is not self.projection or m[1] is not self.phase or m[2] is not self.weights:
+            m = self._map32 = (self.projection, self.phase, self.weights,
+                               np.ascontiguousarray(self.projection, dtype=np.float32),
+                               np.asarray(self.phase, dtype=np.float32), np.ascontiguousarray(self.weights, dtype=np.float32))
+        return m[3], m[4], m[5]
 
     def scores(self, features: np.ndarray) -> np.ndarray:
-        """Class scores (m, classes) for raw features (m, d)."""
+        """Class scores (m, classes) for raw features (m, d).
+
+        Over the Fourier map the weights are taken in float32 as well: the product stays in
+        one precision (no float64 copy of the map's output), about 3× faster per block.
+        """
         z = (features - self.feature_mean) / self.feature_scale
-        if self.projection is not None:
-            z = fourier_map(z, *self._fourier32())
-        return rows_matmul(z, self.weights) + self.bias
+        if self.projection is None:
+            return rows_matmul(z, self.weights) + self.bias
+        projection, phase, weights = self._fourier32()
+        return rows_matmul(fourier_map(z, projection, phase), weights) + self.bias
 
     def arrays(self) -> dict[str, np.ndarray]:
         out = {"feature_mean": self.feature_mean, "feature_scale": self.feature_scale,
