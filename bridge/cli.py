@@ -486,6 +486,16 @@ def cmd_fit(a) -> int:
 
     if bool(a.recordings) == bool(a.ts):
         return _err("give take files or --ts TRAIN.ts (one of the two)")
+    options = {}
+    if a.band is not None or a.no_rejection:
+        if a.classifier != "dtw":
+            return _err("--band and --no-rejection are dtw settings; add --classifier dtw")
+        if a.band is not None:
+            if not 0.0 <= a.band <= 1.0:
+                return _err(f"--band must be a fraction from 0 to 1, got {a.band:g}")
+            options["band"] = a.band
+        if a.no_rejection:
+            options["reject"] = False
     step, close = _progress(f"fitting {a.classifier}")
     try:
         if a.ts:
@@ -494,12 +504,12 @@ def cmd_fit(a) -> int:
             classes = sorted(set(y.tolist()))
             if step:
                 step(0, 1)
-            model = fit_cases(a.classifier, X, y, classes)
+            model = fit_cases(a.classifier, X, y, classes, **options)
             source = f"{len(y)} cases of {a.ts}"
         else:
             recs, kinds = _read_takes(a.recordings)
             model = fit_recordings(a.classifier, recs, kinds, TrainingSettings(window_s=a.window_s, hop_s=a.hop_s),
-                                   progress=step)
+                                   progress=step, **options)
             source = f"{len(recs)} takes"
     except (RecordingError, TsFormatError, ValueError) as exc:
         close()
@@ -943,6 +953,10 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
     f.add_argument("--window-s", type=float, default=2.0, help="window length, s")
     f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
+    f.add_argument("--band", type=float, metavar="FRACTION",
+                   help="dtw: warping band as a fraction of the window (0 = no warping, 1 = unconstrained; default 0.1)")
+    f.add_argument("--no-rejection", action="store_true",
+                   help="dtw: always name the nearest class, never null for lack of a near template")
     f.set_defaults(func=cmd_fit)
     e = sub.add_parser("evaluate", help=VERBS["evaluate"], description=VERBS["evaluate"])
     e.add_argument("recordings", nargs="*", metavar="TAKE")

@@ -30,6 +30,28 @@ def test_fit_and_evaluate_gunpoint_through_the_command_line(tmp_path, capsys):
     assert result["per_class"]["1"]["support"] == 76 and result["per_class"]["2"]["support"] == 74  # the test split's class counts
 
 
+def test_published_gunpoint_dtw_figure_from_the_command_line(tmp_path, capsys):
+    # UCR archive 2018 summary (Dau et al. 2019), GunPoint test split: 1-NN DTW with an
+    # unconstrained window, 0.9067 (136 of 150). --band 1 --no-rejection is that classifier.
+    model = tmp_path / "gp-full.npz"
+    assert main(["fit", "--ts", str(DATA / "GunPoint_TRAIN.ts"), "--classifier", "dtw", "--band", "1",
+                 "--no-rejection", "-o", str(model)]) == 0
+    capsys.readouterr()
+    assert main(["evaluate", "--model", str(model), "--ts", str(DATA / "GunPoint_TEST.ts"), "--json"]) == 0
+    result = json.loads(capsys.readouterr().out)
+    assert np.trace(np.array(result["confusion"])) == 136
+
+
+@pytest.mark.parametrize("args, message", [
+    (["--band", "0.5"], "--classifier dtw"),
+    (["--classifier", "dtw", "--band", "1.5"], "fraction from 0 to 1"),
+])
+def test_dtw_settings_are_checked(tmp_path, capsys, args, message):
+    assert main(["fit", "--ts", str(DATA / "GunPoint_TRAIN.ts"), *args, "-o", str(tmp_path / "m.npz")]) == 2
+    assert message in capsys.readouterr().err
+    assert not (tmp_path / "m.npz").exists()
+
+
 def test_unequal_length_cases_are_resampled_to_the_models_window(tmp_path, capsys):
     model = tmp_path / "gp.npz"
     assert main(["fit", "--ts", str(DATA / "GunPoint_TRAIN.ts"), "--classifier", "dtw", "-o", str(model)]) == 0
