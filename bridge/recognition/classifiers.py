@@ -23,7 +23,7 @@ from ..signal import BandPass
 from .dtw import class_distances_pruned, envelope, fit_templates, per_class_min, distance_matrix, scores_from_distances
 from .features import window_features
 from .linear import expected_calibration_error, fit_temperature, probabilities
-from .minirocket import RollingMiniRocket, fit_minirocket, minirocket_transform
+from .minirocket import fit_minirocket, minirocket_transform, rolling_transform
 from .model import NULL, STREAMS, DtwModel, MiniRocketModel, Model
 from .recogniser import Recogniser
 from .ridge import fit_ridge_loo
@@ -133,9 +133,13 @@ def _linear_scores(model: Model, X: np.ndarray) -> np.ndarray:
 # --- minirocket ---------------------------------------------------------------------------
 
 def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_features: int = 10_000,
-                         seed: int = 0, **options) -> MiniRocketModel:
-    """Convolution features and ridge; temperature from the ridge's leave-one-out scores."""
-    params = fit_minirocket(X, n_features, seed)
+                         seed: int = 0, edges: str = "alternate", **options) -> MiniRocketModel:
+    """Convolution features and ridge; temperature from the ridge's leave-one-out scores.
+
+    ``edges``: "alternate" (the paper's padding, for ready-cut cases) or "valid" (no
+    padding: what a stream's arbitrary window edges call for; see ``minirocket``).
+    """
+    params = fit_minirocket(X, n_features, seed, edges)
     f = minirocket_transform(params, X)
     mean = f.mean(axis=0)
     scale = f.std(axis=0)
@@ -189,7 +193,7 @@ class MiniRocketRecogniser:
 
     def __init__(self, model: MiniRocketModel):
         self.model = model
-        self.rolling = RollingMiniRocket(model.params, model.windows.hop)
+        self.rolling = rolling_transform(model.params, model.windows.hop)
 
     def push(self, level: np.ndarray, motion: np.ndarray) -> tuple[list[int], np.ndarray]:
         """Add a conditioned block; returns (end sample index per hop, probabilities (hops, classes))."""
@@ -248,7 +252,7 @@ def fit_cases(name: str, X: np.ndarray, y, classes, **options):
     """Fit classifier ``name`` to cases X (m, channels, length) labelled y (names from ``classes``).
 
     The model's classes are ("null", *classes without null). Options by classifier:
-    ``linear``: shrinkage; ``minirocket``: n_features, seed; ``dtw``: band (fraction of the
+    ``linear``: shrinkage; ``minirocket``: n_features, seed, edges; ``dtw``: band (fraction of the
     length), reject, margin, templates_per_class. All: rate_hz, channel_names, kinds,
     stream, conditioning, windows (set when the cases are windows of recordings).
     """
@@ -277,8 +281,10 @@ def make_recogniser(model):
 # Settings for recordings, chosen for live use on a laptop or small board: the motion stream
 # only (the band-passed one: no drift to learn), fewer convolution features, and at most
 # ``cases_per_class`` windows per class (evenly spread) so the ridge fit stays in seconds.
+# Convolutions without padding ("valid" edges): a stream's window edges are arbitrary, and
+# the live transform then costs only the hop's new positions.
 RECORDING_DEFAULTS = {
-    "minirocket": {"stream": "motion", "n_features": 2_000, "cases_per_class": 300},
+    "minirocket": {"stream": "motion", "n_features": 2_000, "cases_per_class": 300, "edges": "valid"},
     "dtw": {"stream": "motion", "cases_per_class": 60, "templates_per_class": 5, "band": 0.1},
 }
 
