@@ -24,6 +24,8 @@ def fitted(name, stream, **options):
 @pytest.mark.parametrize("name, stream, options", [
     ("minirocket", "both", {"n_features": 840}),
     ("minirocket", "motion", {"n_features": 840}),
+    ("minirocket", "motion", {"n_features": 840, "edges": "valid"}),
+    ("minirocket", "both", {"n_features": 840, "edges": "valid"}),
     ("dtw", "both", {"band": 0.1}),
     ("dtw", "level", {"band": 0.2}),
 ])
