@@ -486,6 +486,10 @@ def cmd_fit(a) -> int:
 
     if bool(a.recordings) == bool(a.ts):
         return _err("give take files or --ts TRAIN.ts (one of the two)")
+    edges = getattr(a, "edges", None)
+    if edges and a.classifier != "minirocket":
+        return _err("--edges applies to --classifier minirocket only")
+    extra = {"edges": edges} if edges else {}
     step, close = _progress(f"fitting {a.classifier}")
     try:
         if a.ts:
@@ -494,12 +498,12 @@ def cmd_fit(a) -> int:
             classes = sorted(set(y.tolist()))
             if step:
                 step(0, 1)
-            model = fit_cases(a.classifier, X, y, classes)
+            model = fit_cases(a.classifier, X, y, classes, **extra)
             source = f"{len(y)} cases of {a.ts}"
         else:
             recs, kinds = _read_takes(a.recordings)
             model = fit_recordings(a.classifier, recs, kinds, TrainingSettings(window_s=a.window_s, hop_s=a.hop_s),
-                                   progress=step)
+                                   progress=step, **extra)
             source = f"{len(recs)} takes"
     except (RecordingError, TsFormatError, ValueError) as exc:
         close()
@@ -943,6 +947,9 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
     f.add_argument("--window-s", type=float, default=2.0, help="window length, s")
     f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
+    f.add_argument("--edges", choices=("alternate", "valid"),
+                   help="minirocket: 'valid' pools over unpadded positions only (default for takes: a stream's "
+                        "window edges are arbitrary), 'alternate' is the paper's padding (default for --ts)")
     f.set_defaults(func=cmd_fit)
     e = sub.add_parser("evaluate", help=VERBS["evaluate"], description=VERBS["evaluate"])
     e.add_argument("recordings", nargs="*", metavar="TAKE")
