@@ -203,8 +203,9 @@ class MiniRocketModel(LiveModel):
     summary: dict = field(default_factory=dict)
 
     def scores(self, features: np.ndarray) -> np.ndarray:
-        """Ridge scores (m, classes) of transform features (m, n_features)."""
-        return ((features - self.feature_mean) / self.feature_scale) @ self.weights + self.bias
+        """Ridge scores (m, classes) of transform features (m, n_features); each row's the
+        same whatever m (``rows_matmul``), so live hops and replayed blocks agree to the bit."""
+        return rows_matmul((features - self.feature_mean) / self.feature_scale, self.weights) + self.bias
 
     def metadata(self) -> dict:
         meta = self.common_metadata()
