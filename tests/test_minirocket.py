@@ -201,3 +201,19 @@ def test_edge_mode_is_checked_and_picks_the_rolling_transform():
         RollingValidMiniRocket(alternate, 2)
     with pytest.raises(ValueError, match="shape"):
         RollingValidMiniRocket(valid, 2).push(np.zeros((4, 2)))
+
+
+def test_valid_rolling_counts_survive_the_totals_wrapping_around():
+    # The running totals are unsigned 32-bit and wrap after 2^32 positive outcomes (248
+    # days at 100 Hz for a feature positive at every step); counts are differences, exact
+    # modulo 2^32. Start the totals just below the wrap and check against the batch.
+    rng = np.random.default_rng(9)
+    length = 60
+    params = fit_minirocket(rng.normal(size=(4, 2, length)).cumsum(axis=2), n_features=840, seed=0, edges="valid")
+    rolling = RollingValidMiniRocket(params, 4)
+    rolling.totals += np.uint32(2 ** 32 - 50)
+    stream = rng.normal(size=(400, 2)).cumsum(axis=0)
+    feats, ends = stream_features(rolling, stream, [9])
+    assert (rolling.totals[(rolling.done - 1) % rolling.ring_len] < 2 ** 31).any()  # some did wrap
+    batch = minirocket_transform(params, np.stack([stream[e - length:e].T for e in ends]))
+    np.testing.assert_array_equal(feats, batch)

@@ -521,7 +521,10 @@ class RollingValidMiniRocket:
         self.n_features = n_feat
         self.max_steps = int(max_steps) if max_steps else max(1, min(512, 2_000_000 // max(n_feat, 1)))
         self.ring_len = int(self.range_len.max()) + self.max_steps
-        self.totals = np.zeros((self.ring_len, n_feat), dtype=np.int64)  # step s in row s mod ring_len
+        # Step s in row s mod ring_len. Unsigned 32-bit totals wrap after 2^32 positives, but a
+        # window's count is a difference of two totals at most n steps apart, and unsigned
+        # differences are exact modulo 2^32: right for ever, at half the memory of int64.
+        self.totals = np.zeros((self.ring_len, n_feat), dtype=np.uint32)
         self.history = np.zeros((len(subsets), self.history_len))  # subset sums of the last samples
         self.done = 0                                              # samples processed (= steps)
         self.waiting: list[np.ndarray] = []
@@ -579,7 +582,7 @@ class RollingValidMiniRocket:
         ring, t = self.totals, self.ring_len
         for j in range(b):  # running totals, one step a row (a row-wise loop beats cumsum down columns)
             np.add(ring[(self.done + j - 1) % t], positive[j], out=ring[(self.done + j) % t])
-        counts = ring[emit_steps % t]                                           # (hops, features)
+        counts = ring[emit_steps % t]                                           # (hops, features), mod 2^32
         for (a, z), r in zip(self.columns, self.dilation_range):
             counts[:, a:z] -= ring[(emit_steps - r) % t, a:z]
         self.history = ys[:, b:]
