@@ -470,9 +470,9 @@ class RollingValidMiniRocket:
     """Valid-edge MiniRocket features of the latest window of a stream, updated per hop.
 
     State: the channel-subset sums of the last 8·(largest dilation) samples already
-    processed (the taps that new positions still need), samples waiting for the next window end, and a ring of running
-    totals (steps × features) of positive outcomes (convolution > bias) over the last
-    steps. ``push`` takes a block (n, channels) and returns the features (hops,
+    processed (the taps that new positions still need), samples waiting for the next
+    window end, and a ring of running totals (steps × features) of positive outcomes
+    (convolution > bias) over the last steps. ``push`` takes a block (n, channels) and returns the features (hops,
     n_features) of each window completed and the count of samples seen at each window's
     end, like ``Windower.push``.
 
@@ -555,8 +555,8 @@ class RollingValidMiniRocket:
         out = np.empty((len(ends), self.params.n_features))
         for a in range(0, upto, self.max_steps):
             z = min(upto, a + self.max_steps)
-            here = (ends > self.done) & (ends <= self.done + (z - a))
-            out[here] = self._steps(x[a:z].T, ends[here] - 1)
+            lo, hi = np.searchsorted(ends, [self.done, self.done + (z - a)], side="right")
+            out[lo:hi] = self._steps(x[a:z].T, ends[lo:hi] - 1)
         return out, [int(e) for e in ends]
 
     def _steps(self, x: np.ndarray, emit_steps: np.ndarray) -> np.ndarray:
