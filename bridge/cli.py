@@ -487,6 +487,11 @@ def cmd_fit(a) -> int:
     if bool(a.recordings) == bool(a.ts):
         return _err("give take files or --ts TRAIN.ts (one of the two)")
     options = {}
+    edges = getattr(a, "edges", None)
+    if edges:
+        if a.classifier != "minirocket":
+            return _err("--edges applies to --classifier minirocket only")
+        options["edges"] = edges
     if a.band is not None or a.no_rejection:
         if a.classifier != "dtw":
             return _err("--band and --no-rejection are dtw settings; add --classifier dtw")
@@ -957,6 +962,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="dtw: warping band as a fraction of the window (0 = no warping, 1 = unconstrained; default 0.1)")
     f.add_argument("--no-rejection", action="store_true",
                    help="dtw: always name the nearest class, never null for lack of a near template")
+    f.add_argument("--edges", choices=("alternate", "valid"),
+                   help="minirocket: 'valid' pools over unpadded positions only (default for takes: a stream's "
+                        "window edges are arbitrary), 'alternate' is the paper's padding (default for --ts)")
     f.set_defaults(func=cmd_fit)
     e = sub.add_parser("evaluate", help=VERBS["evaluate"], description=VERBS["evaluate"])
     e.add_argument("recordings", nargs="*", metavar="TAKE")

@@ -106,6 +106,25 @@ def test_channel_mask_must_be_zero_one(tmp_path):
         load_model(tmp_path / "x.npz")
 
 
+def test_edge_mode_travels_in_the_file(tmp_path):
+    m = fit_cases("minirocket", X, Y, ["a", "b", "c"], rate_hz=20.0, n_features=840, edges="valid")
+    path = m.save(tmp_path / "m.npz")
+    loaded = load_model(path)
+    assert loaded.params.edges == "valid"
+    np.testing.assert_array_equal(predict_proba(loaded, X), predict_proba(m, X))
+    # A file written before the edge modes has no "edges": it was fitted with the paper's
+    # alternating padding, and loads as such.
+    arrays = arrays_of(path)
+    meta = json.loads(arrays["meta_json"].tobytes())
+    del meta["edges"]
+    arrays["meta_json"] = np.frombuffer(json.dumps(meta).encode(), dtype=np.uint8)
+    np.savez(tmp_path / "old.npz", **arrays)
+    assert load_model(tmp_path / "old.npz").params.edges == "alternate"
+    for bad in ("wrapped", 3, None, ["valid"]):
+        with pytest.raises(ModelError, match="edges must be one of alternate, valid"):
+            load_model(set_meta(path, tmp_path / "x.npz", edges=bad))
+
+
 def test_object_arrays_refused(model, tmp_path):
     arrays = arrays_of(model.save(tmp_path / "m.npz"))
     name = next(k for k in arrays if k != "meta_json")

@@ -152,3 +152,17 @@ def test_window_scores_from_the_replayed_hops_equal_a_separate_pass(small_troupe
     y_all, p_all = take_windows(rec, model)
     np.testing.assert_array_equal(y_hop, y_all)
     assert (p_hop == p_all).mean() == 1.0
+
+
+def test_fit_edges_option(tmp_path, capsys):
+    # GunPoint (UCR archive 2018, Dau et al. 2019), tests/data: a .ts fit keeps the paper's
+    # padding unless --edges valid is given; the option is refused for other classifiers.
+    from bridge.recognition import load_model
+    ts = str(DATA / "GunPoint_TRAIN.ts")
+    assert main(["fit", "--ts", ts, "--classifier", "minirocket", "-o", str(tmp_path / "a.npz")]) == 0
+    assert load_model(tmp_path / "a.npz").params.edges == "alternate"
+    assert main(["fit", "--ts", ts, "--classifier", "minirocket", "--edges", "valid", "-o", str(tmp_path / "v.npz")]) == 0
+    assert load_model(tmp_path / "v.npz").params.edges == "valid"
+    capsys.readouterr()
+    assert main(["fit", "--ts", ts, "--classifier", "dtw", "--edges", "valid", "-o", str(tmp_path / "d.npz")]) != 0
+    assert "--edges applies to --classifier minirocket only" in capsys.readouterr().err

@@ -24,6 +24,8 @@ def fitted(name, stream, **options):
 @pytest.mark.parametrize("name, stream, options", [
     ("minirocket", "both", {"n_features": 840}),
     ("minirocket", "motion", {"n_features": 840}),
+    ("minirocket", "motion", {"n_features": 840, "edges": "valid"}),
+    ("minirocket", "both", {"n_features": 840, "edges": "valid"}),
     ("dtw", "both", {"band": 0.1}),
     ("dtw", "level", {"band": 0.2}),
 ])
@@ -61,3 +63,21 @@ def test_pipeline_runs_any_classifier():
     freq = 1.8e6 * (1 + 0.001 * rng.normal(size=(200, 2)))
     pipe.feed(freq)
     assert pipe.last_probabilities.shape == (3,) and abs(pipe.last_probabilities.sum() - 1) < 1e-9
+
+
+def test_garment_minirocket_model_has_valid_edges_and_replays_alike_in_any_block_size():
+    # Models fitted on takes use the valid-edge transform; its events over a new take are
+    # the same fed in 5 s blocks (replay) as in 0.05 s ones (a live source). Simulated data.
+    from bridge.garment import GESTURES, Jacket, random_script, training_script
+    from bridge.recognition.classifiers import fit_recordings
+    from bridge.service import replay_events
+    from bridge.sources import Recording
+    gestures = ["raise_left", "bow", "arms_crossed"]
+    kinds = {g: GESTURES[g] for g in gestures}
+    takes = [Recording.from_take(Jacket(seed=4, wearer=0, session=s).perform(
+        training_script(np.random.default_rng(s), 3, gestures=gestures)), kinds) for s in range(2)]
+    model = fit_recordings("minirocket", takes, kinds, estimate=False, n_features=840)
+    assert model.params.edges == "valid"
+    new = Recording.from_take(Jacket(seed=4, wearer=0, session=5).perform(
+        random_script(np.random.default_rng(5), 40.0, gestures=gestures)), kinds)
+    assert replay_events(new, model, None, 5.0) == replay_events(new, model, None, 0.05)

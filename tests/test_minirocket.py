@@ -4,8 +4,8 @@ import numpy as np
 import pytest
 
 from bridge.recognition.minirocket import (
-    N_KERNELS, RollingMiniRocket, _conv, _padded_taps, dilations_for, fit_minirocket, golden_quantiles,
-    kernel_positions, kernel_weights, minirocket_transform,
+    N_KERNELS, RollingMiniRocket, RollingValidMiniRocket, _conv, _conv_summed, _padded_taps, dilations_for,
+    fit_minirocket, golden_quantiles, kernel_positions, kernel_weights, minirocket_transform, rolling_transform,
 )
 
 
@@ -80,3 +80,140 @@ def test_rolling_features_equal_the_batch_transform(hop):
     assert ends == list(range(length, len(stream) + 1, hop))
     batch = minirocket_transform(params, np.stack([stream[e - length:e].T for e in ends]))
     np.testing.assert_allclose(np.array(feats), batch, rtol=0, atol=1e-9)
+
+
+# --- valid edges ------------------------------------------------------------------------
+
+def stream_features(rolling, stream, sizes):
+    """Push ``stream`` in blocks of the given sizes (cycled); features and window ends."""
+    feats, ends, i, k = [], [], 0, 0
+    while i < len(stream):
+        n = sizes[k % len(sizes)]
+        f, e = rolling.push(stream[i:i + n])
+        assert f.shape == (len(e), rolling.params.n_features)
+        feats.extend(f)
+        ends.extend(e)
+        i += n
+        k += 1
+    return np.array(feats), ends
+
+
+@pytest.mark.parametrize("hop, sizes, max_steps", [
+    (5, [1], None),                 # one sample at a time (a live source)
+    (5, [5], None),                 # one hop at a time
+    (5, [500], None),               # 5 s blocks at 100 Hz (replay)
+    (5, [500], 37),                 # the same, processed in pieces of 37 steps
+    (5, [7, 3, 11, 2], None),       # blocks not aligned with the hop
+    (13, [1, 40, 9, 120, 4], None),
+    (1, [3, 1, 17], None),
+    (120, [64, 250], None),         # a hop as long as the window
+])
+def test_valid_rolling_features_equal_the_batch_transform_bit_for_bit(hop, sizes, max_steps):
+    rng = np.random.default_rng(hop + len(sizes))
+    length, n_ch = 120, 3
+    params = fit_minirocket(rng.normal(size=(4, n_ch, length)).cumsum(axis=2), n_features=2000, seed=1,
+                            edges="valid")
+    stream = rng.normal(size=(400 if hop == 1 else 1300, n_ch)).cumsum(axis=0)
+    rolling = RollingValidMiniRocket(params, hop, max_steps=max_steps)
+    feats, ends = stream_features(rolling, stream, sizes)
+    last = (len(stream) - length) // hop * hop + length
+    assert ends == list(range(length, last + 1, hop))
+    batch = minirocket_transform(params, np.stack([stream[e - length:e].T for e in ends]))
+    np.testing.assert_array_equal(feats, batch)
+
+
+def test_valid_rolling_with_many_channels_and_long_run():
+    # Eight channels (many distinct channel subsets) and a run long enough for the ring of
+    # running totals to wrap many times.
+    rng = np.random.default_rng(8)
+    length, n_ch = 40, 8
+    params = fit_minirocket(rng.normal(size=(5, n_ch, length)).cumsum(axis=2), n_features=840, seed=2,
+                            edges="valid")
+    stream = rng.normal(size=(3000, n_ch))
+    feats, ends = stream_features(RollingValidMiniRocket(params, 3, max_steps=10), stream, [1, 29, 6])
+    pick = np.arange(0, len(ends), 37)
+    batch = minirocket_transform(params, np.stack([stream[ends[i] - length:ends[i]].T for i in pick]))
+    np.testing.assert_array_equal(feats[pick], batch)
+
+
+def test_valid_features_pool_over_the_valid_positions_only():
+    # Reference: numpy.correlate in "valid" mode (no padding) of the sum of the kernel's
+    # channels with the dilated kernel; each feature is the share of those outputs above
+    # its bias. Compared at a tolerance: our additions run in another order.
+    rng = np.random.default_rng(3)
+    length, n_ch = 90, 2
+    params = fit_minirocket(rng.normal(size=(6, n_ch, length)).cumsum(axis=2), n_features=840, seed=0,
+                            edges="valid")
+    x = rng.normal(size=(1, n_ch, length)).cumsum(axis=2)
+    f = minirocket_transform(params, x)[0]
+    offs = params.offsets()
+    w = kernel_weights()
+    checked = 0
+    for di, d in enumerate(params.dilations):
+        per = int(params.features_per_kernel[di])
+        for k in (0, 41, 83):
+            dilated = np.zeros(8 * int(d) + 1)
+            dilated[::int(d)] = w[k]
+            summed = (params.channel_mask[di, k][:, None] * x[0]).sum(axis=0)
+            out = np.correlate(summed, dilated, mode="valid")
+            assert len(out) == length - 8 * int(d)
+            for j in range(per):
+                i = offs[di] + k * per + j
+                assert f[i] == pytest.approx(np.mean(out > params.biases[i]), abs=1e-12)
+                checked += 1
+    assert checked >= 3 * len(params.dilations)
+
+
+def test_valid_edges_share_the_random_draws_and_change_only_the_pooling():
+    # Same seed, same dilations and channel subsets; the biases come from the valid part
+    # of the same case's output, so each lies within that part's range.
+    rng = np.random.default_rng(4)
+    x = rng.normal(size=(6, 2, 80)).cumsum(axis=2)
+    valid = fit_minirocket(x, n_features=840, seed=0, edges="valid")
+    alternate = fit_minirocket(x, n_features=840, seed=0)
+    np.testing.assert_array_equal(valid.channel_mask, alternate.channel_mask)
+    np.testing.assert_array_equal(valid.dilations, alternate.dilations)
+    assert not np.array_equal(minirocket_transform(valid, x), minirocket_transform(alternate, x))
+
+
+def test_channel_first_convolution_equals_the_per_channel_one():
+    rng = np.random.default_rng(5)
+    taps = rng.normal(size=(9, 4, 3, 50))
+    mask = (rng.random((N_KERNELS, 4)) < 0.5).astype(float)
+    mask[mask.sum(axis=1) == 0, 0] = 1.0
+    np.testing.assert_allclose(_conv_summed(taps, mask, kernel_positions()), _conv(taps, mask, kernel_positions()),
+                               rtol=1e-12, atol=1e-12)
+
+
+def test_edge_mode_is_checked_and_picks_the_rolling_transform():
+    rng = np.random.default_rng(6)
+    x = rng.normal(size=(3, 1, 30))
+    with pytest.raises(ValueError, match="edges"):
+        fit_minirocket(x, n_features=840, edges="wrapped")
+    valid = fit_minirocket(x, n_features=840, edges="valid")
+    alternate = fit_minirocket(x, n_features=840)
+    assert alternate.edges == "alternate"
+    assert type(rolling_transform(valid, 2)) is RollingValidMiniRocket
+    assert type(rolling_transform(alternate, 2)) is RollingMiniRocket
+    with pytest.raises(ValueError, match="edges"):
+        RollingMiniRocket(valid, 2)
+    with pytest.raises(ValueError, match="edges"):
+        RollingValidMiniRocket(alternate, 2)
+    with pytest.raises(ValueError, match="shape"):
+        RollingValidMiniRocket(valid, 2).push(np.zeros((4, 2)))
+
+
+def test_valid_rolling_counts_survive_the_totals_wrapping_around():
+    # The running totals are unsigned 32-bit and wrap after 2^32 positive outcomes (248
+    # days at 100 Hz for a feature positive at every step); counts are differences, exact
+    # modulo 2^32. Start the totals just below the wrap and check against the batch.
+    rng = np.random.default_rng(9)
+    length = 60
+    params = fit_minirocket(rng.normal(size=(4, 2, length)).cumsum(axis=2), n_features=840, seed=0, edges="valid")
+    rolling = RollingValidMiniRocket(params, 4)
+    rolling.totals += np.uint32(2 ** 32 - 50)
+    stream = rng.normal(size=(400, 2)).cumsum(axis=0)
+    feats, ends = stream_features(rolling, stream, [9])
+    assert (rolling.totals[(rolling.done - 1) % rolling.ring_len] < 2 ** 31).any()  # some did wrap
+    batch = minirocket_transform(params, np.stack([stream[e - length:e].T for e in ends]))
+    np.testing.assert_array_equal(feats, batch)

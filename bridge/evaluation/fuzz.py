@@ -423,7 +423,7 @@ class _ModelFiles:
                 meta = _mutate_doc(meta, r) if isinstance(meta, dict) else {}
                 if r.random() < 0.3:
                     meta[r.choice(("temperature", "length", "n_templates", "n_features", "n_dilations", "radius",
-                                   "threshold", "input_channels", "version"))] = r.choice(
+                                   "threshold", "input_channels", "version", "edges"))] = r.choice(
                         (10 ** 400, -(10 ** 30), 1e308, 0, -1, "1", [1], {"a": 1}, True, 2 ** 62))
                 raw = json.dumps(meta, allow_nan=True).encode()
                 members["meta_json.npy"] = _npy(np.frombuffer(raw, dtype=np.uint8))
@@ -484,7 +484,8 @@ def model_seed_members() -> list[dict[str, bytes]]:
     y = np.array(["a"] * 6 + ["b"] * 6 + ["null"] * 6)
     out = []
     with tempfile.TemporaryDirectory() as d:
-        for name, options in (("linear", {}), ("linear", {"fourier_features": 16}), ("minirocket", {}), ("dtw", {})):
+        for name, options in (("linear", {}), ("linear", {"fourier_features": 16}), ("minirocket", {}),
+                              ("minirocket", {"edges": "valid"}), ("dtw", {})):
             model = fit_cases(name, X, y, ["a", "b"], rate_hz=100.0, windows=spec, conditioning=BandPass(100.0),
                               channel_names=("c0", "c1"), stream="level", **options)
             p = model.save(Path(d) / "m.npz")

@@ -14,7 +14,7 @@ from numpy.lib import format as npformat
 
 from ..signal import BandPass
 from .features import FEATURES_PER_CHANNEL
-from .minirocket import KERNEL_LENGTH, MAX_DILATIONS, N_KERNELS, MiniRocketParams
+from .minirocket import EDGE_MODES, KERNEL_LENGTH, MAX_DILATIONS, N_KERNELS, MiniRocketParams
 from .windows import WindowSpec
 
 FORMAT = "drape-model"
@@ -210,13 +210,15 @@ class MiniRocketModel(LiveModel):
     summary: dict = field(default_factory=dict)
 
     def scores(self, features: np.ndarray) -> np.ndarray:
-        """Ridge scores (m, classes) of transform features (m, n_features)."""
-        return ((features - self.feature_mean) / self.feature_scale) @ self.weights + self.bias
+        """Ridge scores (m, classes) of transform features (m, n_features); each row's the
+        same whatever m (``rows_matmul``), so live hops and replayed blocks agree to the bit."""
+        return rows_matmul((features - self.feature_mean) / self.feature_scale, self.weights) + self.bias
 
     def metadata(self) -> dict:
         meta = self.common_metadata()
         meta.update(stream=self.stream, length=self.params.length, input_channels=self.params.n_channels,
-                    n_dilations=len(self.params.dilations), n_features=self.params.n_features)
+                    n_dilations=len(self.params.dilations), n_features=self.params.n_features,
+                    edges=self.params.edges)
         return meta
 
     def arrays(self) -> dict[str, np.ndarray]:
@@ -440,6 +442,9 @@ def _load_minirocket(ar: _Archive, meta: dict, common: dict, path) -> MiniRocket
     n_dil = _int_meta(meta, "n_dilations", 1, MAX_DILATIONS, path)
     n_feat = _int_meta(meta, "n_features", N_KERNELS, MAX_FEATURES, path)
     _require(length == common["windows"].length, path, f"length {length} differs from the window's {common['windows'].length} samples")
+    edges = meta.get("edges", "alternate")  # files from before the edge modes: the paper's padding
+    _require(isinstance(edges, str) and edges in EDGE_MODES, path,
+             f"metadata edges must be one of {', '.join(EDGE_MODES)}, not {repr(edges)[:40]} (a newer drape's model?)")
     dil = ar.read("dilations", (n_dil,), "iu")
     fpk = ar.read("features_per_kernel", (n_dil,), "iu")
     _require(bool((dil >= 1).all() and (np.diff(dil) > 0).all() and 8 * dil.max() <= length - 1), path,
@@ -453,7 +458,8 @@ def _load_minirocket(ar: _Archive, meta: dict, common: dict, path) -> MiniRocket
         ("biases", (n_feat,)), ("feature_mean", (n_feat,)), ("feature_scale", (n_feat,)),
         ("weights", (n_feat, k)), ("bias", (k,)))}
     _require(bool((arrays["feature_scale"] > 0).all()), path, "feature_scale must be positive")
-    params = MiniRocketParams(length, n_in, dil.astype(np.int64), fpk.astype(np.int64), mask.astype(float), arrays.pop("biases"))
+    params = MiniRocketParams(length, n_in, dil.astype(np.int64), fpk.astype(np.int64), mask.astype(float), arrays.pop("biases"),
+                              edges)
     return MiniRocketModel(**common, stream=stream, params=params, **arrays)
 
 
