@@ -333,7 +333,7 @@ class _Archive:
             _require(bool(np.isfinite(a).all() if finite else not np.isnan(a).any()), self.path,
                      f"array {name} holds NaN or inf")
             # Finite but enormous values would overflow to inf/NaN scores at run time.
-            big = np.abs(a[np.isfinite(a)]) > MAX_MAGNITUDE
+            big = np.abs(a[np.isfinite(a)].astype(np.float64)) > MAX_MAGNITUDE  # float16 would overflow 1e12
             _require(not bool(big.any()), self.path, f"array {name} holds values beyond ±{MAX_MAGNITUDE:g}")
         return a
 
