@@ -32,7 +32,7 @@ def bench_classifier(name: str, n_channels: int = 4, rate_hz: float = 100.0, win
     spec = WindowSpec(rate_hz, window_s, hop_s)
     from ..recognition.classifiers import RECORDING_DEFAULTS
     defaults = {"fourier_features": 2000} if name == "linear" else {
-        k: v for k, v in RECORDING_DEFAULTS.get(name, {}).items() if k != "cases_per_class"}
+        k: v for k, v in RECORDING_DEFAULTS.get(name, {}).items() if k not in ("cases_per_class", "null_cases")}
     options = {**defaults, **options}
     stream = options.pop("stream", "level" if name == "linear" else "both")
     n_in = 2 * n_channels if stream == "both" else n_channels
