@@ -530,11 +530,12 @@ def cmd_fit(a) -> int:
 
 
 def _json_ready(result: dict) -> dict:
-    return {k: v for k, v in result.items() if k != "takes"}
+    return {k: v for k, v in result.items() if k not in ("takes", "confidence", "correct")}
 
 
 def _print_result(result: dict) -> None:
-    print(f"accuracy {result['accuracy']:.3f}, macro F1 {result['macro_f1']:.3f} over {result['windows']} windows")
+    cal = f", calibration error {result['calibration_error']:.3f}" if "calibration_error" in result else ""
+    print(f"accuracy {result['accuracy']:.3f}, macro F1 {result['macro_f1']:.3f}{cal} over {result['windows']} windows")
     for c, v in result["per_class"].items():
         print(f"  {c:<16} precision {v['precision']:.3f}  recall {v['recall']:.3f}  F1 {v['f1']:.3f}  ({v['support']})")
     for f in result.get("folds", []):

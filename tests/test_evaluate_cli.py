@@ -22,7 +22,8 @@ def test_fit_and_evaluate_gunpoint_through_the_command_line(tmp_path, capsys):
     assert "dtw, 2 classes from 50 cases" in out and "leave one out accuracy" in out
     assert main(["evaluate", "--model", str(model), "--ts", str(DATA / "GunPoint_TEST.ts"), "--json"]) == 0
     result = json.loads(capsys.readouterr().out)
-    assert {"accuracy", "macro_f1", "per_class", "confusion"} <= set(result)
+    assert {"accuracy", "macro_f1", "per_class", "confusion", "calibration_error"} <= set(result)
+    assert 0.0 <= result["calibration_error"] < 0.2
     assert np.array(result["confusion"]).sum() == 150 == result["windows"]
     # UCR archive 2018 summary (Dau et al. 2019), GunPoint test split: 1-NN DTW full window
     # 0.9067, 1-NN Euclidean 0.9133. Nearest template with a 10 % band: measured 0.94.
@@ -108,6 +109,8 @@ def test_unseen_wearers_score_lower_than_new_sessions_of_known_ones(small_troupe
     # Measured: accuracy 0.84 vs 0.81, macro F1 0.62 vs 0.52 (behaviour, not exact figures).
     assert lwo["accuracy"] < lso["accuracy"] and lwo["macro_f1"] < lso["macro_f1"]
     assert lso["events"]["true_events"] > 0 and lso["events"]["latency_s"]["count"] > 0
+    # Calibration measured on the held-out windows, pooled and per fold.
+    assert 0.0 <= lso["calibration_error"] < 0.5 and all(0.0 <= f["calibration_error"] < 0.5 for f in lso["folds"])
 
 
 def test_scheme_needs_the_metadata_it_groups_by(small_troupe):
@@ -148,10 +151,24 @@ def test_window_scores_from_the_replayed_hops_equal_a_separate_pass(small_troupe
     rec = small_troupe[4]
     events, hops, skipped = replay_take(rec, model, None, 1.0)
     assert skipped == 0 and len(hops) > 100
-    y_hop, p_hop = hop_windows(rec, model, hops)
-    y_all, p_all = take_windows(rec, model)
+    y_hop, p_hop, c_hop = hop_windows(rec, model, hops)
+    y_all, p_all, c_all = take_windows(rec, model)
     np.testing.assert_array_equal(y_hop, y_all)
     assert (p_hop == p_all).mean() == 1.0
+    np.testing.assert_allclose(c_hop, c_all, rtol=0, atol=1e-9)
+
+
+def test_calibration_error_worked_example():
+    # Expected calibration error as defined by Guo, Pleiss, Sun & Weinberger, "On calibration
+    # of modern neural networks" (ICML 2017): sum over equal-width confidence bins of
+    # |bin| / n × |accuracy(bin) − mean confidence(bin)|. Worked by hand: two windows at
+    # 0.95, one right (gap 0.45, weight 1/2) and two at 0.55, both right (gap 0.45, weight
+    # 1/2): ECE 0.45. A perfectly calibrated set (0.75 confidence, 3 of 4 right) gives 0.
+    from bridge.recognition.linear import confidence_gap, expected_calibration_error
+    assert confidence_gap([0.95, 0.95, 0.55, 0.55], [True, False, True, True]) == pytest.approx(0.45)
+    assert confidence_gap([0.75] * 4, [True, True, True, False]) == pytest.approx(0.0)
+    prob = np.array([[0.05, 0.95], [0.95, 0.05], [0.45, 0.55], [0.55, 0.45]])
+    assert expected_calibration_error(prob, np.array([1, 1, 1, 0])) == pytest.approx(0.45)
 
 
 def test_fit_edges_option(tmp_path, capsys):

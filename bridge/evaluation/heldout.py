@@ -16,6 +16,7 @@ from __future__ import annotations
 import numpy as np
 
 from ..recognition.classifiers import window_scores
+from ..recognition.linear import confidence_gap, expected_calibration_error, probabilities
 from ..recognition.training import condition_recording, label_windows
 from ..recognition.windows import all_windows
 from ..service import replay_take
@@ -53,8 +54,9 @@ def _window_truth(rec, model, ends: np.ndarray) -> np.ndarray:
     return label_windows(ends, model.windows.length, model.rate_hz, known, model.classes, kinds)
 
 
-def take_windows(rec, model) -> tuple[np.ndarray, np.ndarray]:
-    """Labelled windows of one take as the model sees them: (true class index, predicted index).
+def take_windows(rec, model) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """Labelled windows of one take as the model sees them: (true class index, predicted
+    index, confidence: the predicted class's calibrated probability).
 
     Ambiguous windows are left out; labels the model does not know count as null.
     """
@@ -63,40 +65,42 @@ def take_windows(rec, model) -> tuple[np.ndarray, np.ndarray]:
     y = _window_truth(rec, model, ends)
     keep = y >= 0
     if not keep.any():
-        return y[keep], y[keep]
-    pred = window_scores(model, w[keep]).argmax(axis=1)
-    return y[keep], pred
+        return y[keep], y[keep], np.empty(0)
+    prob = probabilities(window_scores(model, w[keep]), model.temperature)
+    return y[keep], prob.argmax(axis=1), prob.max(axis=1)
 
 
-def hop_windows(rec, model, hops) -> tuple[np.ndarray, np.ndarray]:
+def hop_windows(rec, model, hops) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """``take_windows`` from the hops a replay already scored: the live recogniser emits a
     window at the same samples as ``all_windows`` over a take with no skipped rows, so
     the classifier need not run twice (DTW over every window of a long take is slow)."""
     if not hops:
-        return np.empty(0, dtype=int), np.empty(0, dtype=int)
+        return np.empty(0, dtype=int), np.empty(0, dtype=int), np.empty(0)
     ends = np.rint(np.array([t for t, _ in hops]) * model.rate_hz).astype(int)
     y = _window_truth(rec, model, ends)
     keep = y >= 0
-    pred = np.array([p.argmax() for _, p in hops], dtype=int)
-    return y[keep], pred[keep]
+    prob = np.array([p for _, p in hops])
+    return y[keep], prob.argmax(axis=1)[keep], prob.max(axis=1)[keep]
 
 
 def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: bool = True) -> dict:
     """Window and event scores of a model on takes it was not trained on.
 
-    Returns classification_scores(...) plus "events" (``events.summarise``) and "takes":
-    per take its name, the events decided and the truth (for the report's timeline).
+    Returns classification_scores(...) plus "calibration_error" (ECE of the windows' top
+    probabilities, 10 bins), "confidence" and "correct" (per window, for pooling over
+    folds), "events" (``events.summarise``) and "takes": per take its name, the events
+    decided and the truth (for the report's timeline).
     With ``events`` False the takes are not replayed (window scores only).
     """
-    ys, ps, per_take, scored = [], [], [], []
+    ys, ps, cs, per_take, scored = [], [], [], [], []
     for i, rec in enumerate(recs):
         decided = []
         if events:
             decided, hops, skipped = replay_take(rec, model, None, block_s)
-            y, p = hop_windows(rec, model, hops) if not skipped else take_windows(rec, model)
+            y, p, c = hop_windows(rec, model, hops) if not skipped else take_windows(rec, model)
         else:
-            y, p = take_windows(rec, model)
-        ys.append(y); ps.append(p)
+            y, p, c = take_windows(rec, model)
+        ys.append(y); ps.append(p); cs.append(c)
         duration = rec.freq_hz.shape[0] / rec.rate_hz
         truth = [Span(iv.start_s, iv.end_s, iv.label) for iv in rec.intervals]
         s = score_take(truth, decided, model.windows.window_s, duration, model.kinds)
@@ -104,7 +108,11 @@ def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: boo
         per_take.append({"rec": rec, "events": decided, "truth": truth, "latency_s": s["latency_s"]})
         if progress:
             progress(i + 1, len(recs))
-    out = classification_scores(np.concatenate(ys), np.concatenate(ps), model.classes)
+    y, p = np.concatenate(ys), np.concatenate(ps)
+    out = classification_scores(y, p, model.classes)
+    out["confidence"] = np.concatenate(cs)
+    out["calibration_error"] = round(confidence_gap(out["confidence"], p == y), 4)
+    out["correct"] = p == y
     out["events"] = summarise(scored) if events else None
     out["takes"] = per_take if events else []
     return out
@@ -135,7 +143,7 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
     recs = list(recs)
     labels = groups_of(recs, scheme)
     order = sorted(set(labels))
-    conf, folds, takes, scored = None, [], [], []
+    conf, folds, takes, scored, confidence, correct = None, [], [], [], [], []
     classes = None
     for n, grp in enumerate(order):
         train = [r for r, l in zip(recs, labels) if l != grp]
@@ -147,9 +155,11 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
             raise ValueError(f"holding out {grp!r} leaves a class untrained; every gesture must appear in "
                              "takes of at least two groups")
         res = evaluate_takes(model, test, events=events)
+        confidence.append(res["confidence"]); correct.append(res["correct"])
         c = np.array(res["confusion"])
         conf = c if conf is None else conf + c
         folds.append({"held_out": grp, "takes": len(test), "accuracy": res["accuracy"], "macro_f1": res["macro_f1"],
+                      "calibration_error": res["calibration_error"],
                       "event_recall": res["events"]["event_recall"] if events else None,
                       "false_triggers_per_null_hour": res["events"]["false_triggers_per_null_hour"] if events else None,
                       "false_triggers_in_null_per_null_hour":
@@ -164,6 +174,7 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
     yy = np.repeat(np.arange(len(classes)), conf.sum(axis=1))
     pp = np.concatenate([np.repeat(np.arange(len(classes)), row) for row in conf])
     out = classification_scores(yy, pp, classes)
+    out["calibration_error"] = round(confidence_gap(np.concatenate(confidence), np.concatenate(correct)), 4)
     out["events"] = summarise(scored) if events else None
     out.update(scheme=scheme, classifier=classifier, folds=folds, takes=takes)
     return out
@@ -187,5 +198,7 @@ def evaluate_cases(model, X_list, y, length: int | None = None) -> dict:
     if unknown:
         raise ValueError(f"case labels the model does not know: {', '.join(unknown)}")
     yi = np.array([index[str(v)] for v in y])
-    pred = predict_proba(model, X).argmax(axis=1)
-    return classification_scores(yi, pred, model.classes)
+    prob = predict_proba(model, X)
+    out = classification_scores(yi, prob.argmax(axis=1), model.classes)
+    out["calibration_error"] = round(expected_calibration_error(prob, yi), 4)
+    return out

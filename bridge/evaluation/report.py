@@ -104,7 +104,8 @@ def write_report(result: dict, out_dir: str | Path, title: str, command: str = "
         pictures += [(f"Timeline of a held-out take (wearer {html.escape(str(takes[0]['rec'].wearer))}, session "
                       f"{html.escape(str(takes[0]['rec'].session))})", "timeline.png"),
                      ("Decision latency", "latency.png")]
-    summary = {k: v for k, v in result.items() if k not in ("takes", "per_class", "confusion")}
+    summary = {k: v for k, v in result.items() if k not in ("takes", "per_class", "confusion", "confidence", "correct")}
+    calibration = f", calibration error {result['calibration_error']:.3f}" if "calibration_error" in result else ""
     rows = "".join(f"<tr><td>{html.escape(c)}</td><td>{v['precision']:.3f}</td><td>{v['recall']:.3f}</td>"
                    f"<td>{v['f1']:.3f}</td><td>{v['support']}</td></tr>" for c, v in result["per_class"].items())
     figs = "".join(f"<h2>{h}</h2><img src='{p}' alt='{html.escape(h)}'>" for h, p in pictures)
@@ -112,7 +113,7 @@ def write_report(result: dict, out_dir: str | Path, title: str, command: str = "
 <style>body{{font-family:sans-serif;max-width:70em;margin:1em auto}}td,th{{padding:2px 8px;text-align:right}}
 pre{{background:#f4f4f4;padding:8px;overflow:auto}}img{{max-width:100%}}</style></head><body>
 <h1>{html.escape(title)}</h1>
-<p>Accuracy {result['accuracy']:.3f}, macro F1 {result['macro_f1']:.3f} over {result.get('windows', 0)} windows.</p>
+<p>Accuracy {result['accuracy']:.3f}, macro F1 {result['macro_f1']:.3f}{calibration} over {result.get('windows', 0)} windows.</p>
 {f"<p>Command: <code>{html.escape(command)}</code></p>" if command else ""}
 <table><tr><th>class</th><th>precision</th><th>recall</th><th>F1</th><th>windows</th></tr>{rows}</table>
 {figs}

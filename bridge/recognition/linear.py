@@ -99,8 +99,15 @@ def probabilities(scores: np.ndarray, temperature: float) -> np.ndarray:
 
 def expected_calibration_error(prob: np.ndarray, y: np.ndarray, bins: int = 10) -> float:
     """Mean gap between confidence and accuracy over equal-width confidence bins (ECE)."""
-    conf = prob.max(axis=1)
-    correct = prob.argmax(axis=1) == y
+    return confidence_gap(prob.max(axis=1), prob.argmax(axis=1) == y, bins)
+
+
+def confidence_gap(confidence: np.ndarray, correct: np.ndarray, bins: int = 10) -> float:
+    """ECE from each decision's confidence (its top probability, 0..1) and whether it was right."""
+    conf = np.asarray(confidence, dtype=float)
+    correct = np.asarray(correct, dtype=bool)
+    if conf.size == 0:
+        return 0.0
     edges = np.linspace(0.0, 1.0, bins + 1)
     idx = np.clip(np.digitize(conf, edges[1:-1]), 0, bins - 1)
     ece = 0.0
