@@ -159,3 +159,18 @@ def test_a_single_threshold_file_gives_the_same_probabilities(tmp_path):
     d = per_class_min(distance_matrix(q, X, loaded.radius), loaded.template_class, 2)
     old_scores = np.concatenate([np.full((3, 1), -threshold), -d], axis=1)   # the old formula
     np.testing.assert_allclose(predict_proba(loaded, q), probabilities(old_scores, temperature), rtol=1e-9, atol=1e-12)
+
+
+def test_a_class_with_one_template_does_not_flatten_the_probabilities():
+    # A gesture recorded once has no leave-one-out distance to its own class; it must not
+    # enter the temperature fit (it used to drive the temperature to its bound, e^9).
+    rng = np.random.default_rng(8)
+    X, y, base = _troupe_like(rng, 80)
+    X = np.concatenate([X, np.cos(np.linspace(0, 3 * np.pi, 50))[None, None]])
+    y = np.append(y, "twist")
+    model = fit_cases("dtw", X, y, ["up", "down", "twist"], band=0.1, null_templates=20)
+    assert model.temperature < 10.0
+    p = predict_proba(model, np.stack([base["up"][None], base["down"][None]]))
+    assert list(p.argmax(axis=1)) == [1, 2] and (p.max(axis=1) > 0.5).all()
+    single = fit_cases("dtw", X[[0, 5]], y[[0, 5]], ["up", "down"], band=0.1)   # one template each, no null
+    assert single.temperature == 1.0 and single.summary["leave_one_out_accuracy"] is None

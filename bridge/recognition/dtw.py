@@ -227,19 +227,23 @@ def fit_templates(X: np.ndarray, y: np.ndarray, n_classes: int, band: float = 0.
     nd = per_class_min(distance_matrix(rest, X, radius), y - 1, k) if len(rest) else None
     if reject and nd is not None:
         thresholds = np.minimum(thresholds, np.maximum(np.quantile(nd, null_quantile, axis=0), 1e-12))
-    held = scores_from_distances(np.where(np.isfinite(loo), loo, 1e6), thresholds, to_null(X), null_scale, reject)
-    target = y.copy()
+    # A template alone in its class has no leave-one-out score for it: left out of the
+    # temperature fit, where its −∞ would drive the temperature to its bound (flat output).
+    peer = np.isfinite(own)
+    held = scores_from_distances(np.where(np.isfinite(loo), loo, 1e6)[peer], thresholds, to_null(X[peer]), null_scale,
+                                 reject)
+    target = y[peer]
     if nd is not None:
         held = np.concatenate([held, scores_from_distances(nd, thresholds, to_null(rest), null_scale, reject)])
         target = np.concatenate([target, np.zeros(len(nd), dtype=int)])
-    temperature = fit_temperature(held, target, bounds=(-9.0, 9.0))
+    temperature = fit_temperature(held, target, bounds=(-9.0, 9.0)) if len(target) else 1.0
     prob = probabilities(held, temperature)
     return {
         "templates": X, "template_class": y - 1, "radius": radius, "thresholds": thresholds,
         "null_templates": nulls, "null_scale": null_scale, "temperature": temperature,
         "summary": {
-            "leave_one_out_accuracy": round(float((prob.argmax(axis=1) == target).mean()), 4),
-            "calibration_error": round(expected_calibration_error(prob, target), 4),
+            "leave_one_out_accuracy": round(float((prob.argmax(axis=1) == target).mean()), 4) if len(target) else None,
+            "calibration_error": round(expected_calibration_error(prob, target), 4) if len(target) else None,
             "templates": int(len(y)), "null_templates": int(len(nulls)), "band": band, "reject": bool(reject),
         },
     }
