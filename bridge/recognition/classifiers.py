@@ -20,7 +20,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..signal import BandPass
-from .dtw import class_distances_pruned, envelope, fit_templates, per_class_min, distance_matrix, scores_from_distances
+from .dtw import (class_distances_pruned, distance_matrix, envelope, fit_templates, per_class_min, scores_from_distances,
+                  spread)
 from .features import window_features
 from .linear import expected_calibration_error, fit_temperature, probabilities
 from .minirocket import fit_minirocket, minirocket_transform, rolling_transform
@@ -173,7 +174,7 @@ def fit_dtw_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], band: flo
         keep = np.zeros(len(y), dtype=bool)
         for c in np.unique(y[y != 0]):
             idx = np.flatnonzero(y == c)
-            keep[idx[np.unique(np.linspace(0, len(idx) - 1, min(templates_per_class, len(idx))).round().astype(int))]] = True
+            keep[idx[spread(len(idx), templates_per_class)]] = True
     null_X = X[y == 0] if (y == 0).any() else None
     fit = fit_templates(X[keep], y[keep], len(full), band, reject, margin, null_X, null_templates, null_quantile,
                         null_reach)

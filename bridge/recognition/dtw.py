@@ -166,7 +166,7 @@ def per_class_min(dist: np.ndarray, template_class: np.ndarray, n_classes: int) 
     return out
 
 
-def _spread(n: int, k: int) -> np.ndarray:
+def spread(n: int, k: int) -> np.ndarray:
     """Indices of k items spread evenly over n (all n when k ≥ n)."""
     return np.arange(n) if k >= n else np.unique(np.linspace(0, n - 1, k).round().astype(int))
 
@@ -213,7 +213,7 @@ def fit_templates(X: np.ndarray, y: np.ndarray, n_classes: int, band: float = 0.
     finite_own = own[np.isfinite(own)]
     thresholds = np.full(k, max((1.0 + margin) * finite_own.max(), 1e-12) if finite_own.size else 1.0)
     null_X = np.empty((0,) + X.shape[1:]) if null_X is None else np.asarray(null_X, dtype=float)
-    keep = _spread(len(null_X), null_templates) if len(null_X) >= 2 * max(1, null_templates) else np.arange(0)
+    keep = spread(len(null_X), null_templates) if len(null_X) >= 2 * max(1, null_templates) else np.arange(0)
     nulls = null_X[keep]
     rest = null_X[np.setdiff1d(np.arange(len(null_X)), keep)]
     null_scale = 1.0
