@@ -12,7 +12,8 @@ classifier turns conditioned blocks into class probabilities every hop.
 All give probabilities calibrated by a temperature fitted to held-out scores, over
 ``model.classes``, whose first entry is always the null class ("none of these"). Null
 cases may be given for training (label ``"null"``); without them null is never predicted
-by ``linear`` and ``minirocket``, and by ``dtw`` only through its rejection threshold.
+by ``linear`` and ``minirocket``, and by ``dtw`` only through its rejection thresholds
+(with them, ``dtw`` also keeps null templates and caps each class's threshold).
 """
 
 from __future__ import annotations
