@@ -65,20 +65,14 @@ def _replace_somewhere(doc, rnd: random.Random, value):
     """The document with one value (at a random path) replaced, or a key added."""
     node = doc
     for _ in range(6):
-        if isinstance(node, dict) and node:
-            k = rnd.choice(list(node))
-            if rnd.random() < 0.4 or not isinstance(node[k], (dict, list)):
-                node[k] = value
-                return doc
-            node = node[k]
-        elif isinstance(node, list) and node:
-            i = rnd.randrange(len(node))
-            if rnd.random() < 0.4 or not isinstance(node[i], (dict, list)):
-                node[i] = value
-                return doc
-            node = node[i]
-        else:
+        keys = list(node) if isinstance(node, dict) else list(range(len(node))) if isinstance(node, list) else []
+        if not keys:
             break
+        k = keys[rnd.randrange(len(keys))]   # the same draw as choice() over keys
+        if rnd.random() < 0.4 or not isinstance(node[k], (dict, list)):
+            node[k] = value
+            return doc
+        node = node[k]
     if isinstance(node, dict):
         node[rnd.choice(["gesture", "on", "to", "cc", "keys", "hold", "every_s", "first", "extra"])] = value
     return doc
