@@ -539,20 +539,20 @@ def _print_result(result: dict) -> None:
     for c, v in result["per_class"].items():
         print(f"  {c:<16} precision {v['precision']:.3f}  recall {v['recall']:.3f}  F1 {v['f1']:.3f}  ({v['support']})")
     for f in result.get("folds", []):
+        rec = "n/a" if f.get("recall") is None else f"{f['recall']:.3f}"
         print(f"  held out {f['held_out']!s:<10} accuracy {f['accuracy']:.3f}  macro F1 {f['macro_f1']:.3f}  "
-              f"event recall {f['event_recall']}  false triggers/h {f['false_triggers_per_null_hour']} "
-              f"({f['false_triggers_in_null_per_null_hour']} during null activity)")
+              f"recall {rec}  false firings {f.get('false')} ({f.get('double')} double, {f.get('wrong_name')} wrong name, "
+              f"{f.get('ordinary')} in ordinary movement)")
     e = result.get("events")
     if e:
-        print(f"events: {e['true_events']} performed, {e['true_correct']} correct, {e['true_deleted']} deleted, "
-              f"{e['true_fragmented'] + e['true_frag_merged']} fragmented, {e['true_merged'] + e['true_frag_merged']} merged; "
-              f"{e['detections']} decided, {e['detected_inserted']} inserted (false triggers: "
-              f"{e['false_triggers_in_null']} during null activity, {e['wrong_class']} of a wrong class during another)")
-        lat = e["latency_s"]
-        print(f"event recall {e['event_recall']}, precision {e['event_precision']}, "
-              f"false triggers {e['false_triggers_per_null_hour']} per hour of null activity ({e['null_hours']:.2f} h), "
-              f"{e['false_triggers_in_null_per_null_hour']} of them during it; "
-              f"latency gesture end → event median {lat['median']} s, p95 {lat['p95']} s")
+        from .evaluation.matching import format_counts
+        for line in format_counts(e):
+            print(line)
+        w = e["ward"]
+        print(f"  event categories (Ward et al. 2011, detections never merged): {w['true_correct']} correct, "
+              f"{w['true_deleted']} deleted, {w['true_fragmented'] + w['true_frag_merged']} fragmented, "
+              f"{w['true_merged'] + w['true_frag_merged']} merged; {w['detected_inserted']} inserted of "
+              f"{w['detections']} detections")
 
 
 def cmd_evaluate(a) -> int:

@@ -10,7 +10,8 @@ import numpy as np
 import pytest
 
 from bridge.decisions import Event
-from bridge.evaluation.events import Span, detected_spans, merge_touching, score_one_class, score_take, summarise
+from bridge.evaluation.events import (Span, detected_spans, merge_touching, score_one_class, score_take, summarise,
+                                     ward_summary)
 
 
 def counts(truth, detected):
@@ -49,45 +50,48 @@ def test_fragmented_and_merged_together():
         "true_frag_merged": 1, "true_merged": 1, "detected_fragmenting": 1, "detected_frag_merging": 1}
 
 
-def test_touching_intervals_are_one_event_and_touching_is_not_overlap():
+def test_touching_true_intervals_are_one_event_but_detections_are_never_merged():
     assert merge_touching([(2, 3), (1, 2), (5, 5)]) == [(1, 3)]
     assert counts([(0, 2)], [(2, 3)]) == {"true_deleted": 1, "detected_inserted": 1}
-    assert counts([(0, 4)], [(1, 2), (2, 3)]) == {"true_correct": 1, "detected_correct": 1}
+    # Two firings on one true event are two detections: the event is fragmented, not correct.
+    assert counts([(0, 4)], [(1, 2), (2, 3)]) == {"true_fragmented": 1, "detected_fragmenting": 2}
+    # Overlapping detection windows (a cue repeated while its window still holds the
+    # gesture) stay two detections as well.
+    assert counts([(0, 4)], [(1, 3), (2, 3.5)]) == {"true_fragmented": 1, "detected_fragmenting": 2}
 
 
 def test_take_scores_from_decision_events():
     kinds = {"bow": "gesture", "arms_crossed": "posture"}
     truth = [Span(10.0, 11.5, "bow"), Span(20.0, 25.0, "arms_crossed"), Span(40.0, 41.0, "bow")]
     events = [
-        Event(12.0, "bow", "gesture", 0.9),            # bow decided 0.5 s after it ended: correct
-        Event(21.0, "arms_crossed", "entered", 0.8),   # posture held 21–25.5: correct
+        Event(12.0, "bow", "gesture", 0.9),            # bow decided 0.5 s after it ended: a hit
+        Event(21.0, "arms_crossed", "entered", 0.8),   # posture held 21–25.5: a hit
         Event(25.5, "arms_crossed", "left", 0.8, 4.5),
-        Event(30.0, "bow", "gesture", 0.7),            # nothing was happening: insertion
-    ]                                                  # the bow at 40 s: deletion
+        Event(30.0, "bow", "gesture", 0.7),            # nothing was happening: ordinary movement
+    ]                                                  # the bow at 40 s: missed
     s = score_take(truth, events, window_s=2.0, duration_s=3600.0, kinds=kinds)
-    assert s["true_correct"] == 2 and s["true_deleted"] == 1 and s["detected_inserted"] == 1
-    assert s["latency_s"] == [pytest.approx(0.5)]
-    assert s["null_s"] == pytest.approx(3600.0 - 1.5 - 5.0 - 1.0)
+    assert s["ward"]["true_correct"] == 2 and s["ward"]["true_deleted"] == 1 and s["ward"]["detected_inserted"] == 1
+    f = s["firings"]
+    assert (f["hit"], f["missed"], f["double"], f["wrong_name"], f["ordinary"]) == (2, 1, 0, 0, 1)
+    assert f["latency_s"] == [pytest.approx(0.5), pytest.approx(1.0)]
+    # ordinary movement: outside each interval's reach [start, end + 2.5 s]
+    assert f["ordinary_s"] == pytest.approx(3600.0 - 4.0 - 7.5 - 3.5)
     out = summarise([s])
-    assert out["event_recall"] == pytest.approx(2 / 3, abs=1e-4)
-    assert out["event_precision"] == pytest.approx(2 / 3, abs=1e-4)
-    # One false trigger in (3600 − 7.5) s of null activity.
-    assert out["false_triggers_per_null_hour"] == pytest.approx(3600 / 3592.5, abs=0.01)
-    # The bow at 30 s touched no labelled event: a false trigger during null activity.
-    assert (out["false_triggers_in_null"], out["wrong_class"]) == (1, 0)
-    assert out["false_triggers_in_null_per_null_hour"] == pytest.approx(3600 / 3592.5, abs=0.01)
-    assert out["latency_s"]["median"] == pytest.approx(0.5)
+    assert out["recall"] == pytest.approx(2 / 3, abs=1e-4)
+    assert out["rates"]["ordinary_per_ordinary_hour"]["count"] == 1
+    assert out["rates"]["false_per_take_hour"]["per_hour"] == pytest.approx(1.0)
+    assert out["ward"]["event_recall"] == pytest.approx(2 / 3, abs=1e-4)
+    assert out["ward"]["event_precision"] == pytest.approx(2 / 3, abs=1e-4)
 
 
-def test_a_wrong_class_is_an_insertion_and_a_deletion():
+def test_a_wrong_class_is_a_wrong_name_firing_and_a_miss():
     kinds = {"bow": "gesture", "sweep_across": "gesture"}
     s = score_take([Span(10.0, 11.5, "bow")], [Event(12.0, "sweep_across", "gesture", 0.9)], 2.0, 60.0, kinds)
-    assert (s["true_deleted"], s["detected_inserted"], s["true_correct"]) == (1, 1, 0)
+    w = s["ward"]
+    assert (w["true_deleted"], w["detected_inserted"], w["true_correct"]) == (1, 1, 0)
     assert s["per_class"]["bow"]["true_deleted"] == 1 and s["per_class"]["sweep_across"]["detected_inserted"] == 1
-    # Its window [10, 12] overlaps the bow: a wrong-class cue, not one fired during null activity.
-    out = summarise([s])
-    assert (out["false_triggers_in_null"], out["wrong_class"]) == (0, 1)
-    assert out["false_triggers_in_null_per_null_hour"] == 0.0
+    f = s["firings"]
+    assert (f["hit"], f["missed"], f["wrong_name"], f["ordinary"]) == (0, 1, 1, 0)
 
 
 def test_posture_never_left_runs_to_the_end():
@@ -131,7 +135,7 @@ def test_same_categories_as_the_reference_on_random_segmentations():
                 covered = [i for i, g in enumerate(ours["truth_spans"]) if min(g[1], det[j][1]) > max(g[0], det[j][0])]
                 assert len(covered) > 1 and any(ours["truth"][i] == "frag_merged" for i in covered)
                 quirks += 1
-        s = summarise([{**ours["counts"], "latency_s": [], "null_s": 0.0}])
+        s = ward_summary([ours["counts"]])
         assert s["event_recall"] == pytest.approx(ref_std["recall"], abs=1e-4)
         assert s["event_precision"] == pytest.approx(ref_std["precision"], abs=1e-4)
     assert quirks < 40  # the difference is a corner case, not the rule

@@ -1,10 +1,12 @@
 """Event-level scoring of a continuous take: what a performer and an operator would count.
 
-Frame accuracy hides the errors that matter on stage: a gesture recognised twice, two
-gestures heard as one, a cue fired while the wearer only walked. The counts here follow
-the event categories of Ward, Lukowicz & Gellersen, "Performance metrics for activity
-recognition", ACM TIST 2(1):6, 2011, applied one class at a time (a detection of the
-wrong class is an insertion of its class and leaves the true one deleted):
+The headline figures are the strict firing counts of ``matching``: every cue a take
+fired is a hit, a double firing, a wrong-name firing or a firing in ordinary movement,
+with rates per hour and their intervals. Nothing here may hide a firing.
+
+As a second view, the event categories of Ward, Lukowicz & Gellersen, "Performance
+metrics for activity recognition", ACM TIST 2(1):6, 2011, applied one class at a time (a
+detection of the wrong class is an insertion of its class and leaves the true one deleted):
 
 true events (per labelled interval)
     correct      overlapped by exactly one detection, which overlaps nothing else
@@ -20,14 +22,13 @@ detections
     frag_merging both of the last two
 
 Intervals are half-open [start, end) in seconds; "overlap" means a stretch of positive
-length in common. Intervals of one class that overlap or touch are one event (a binary
-segmentation cannot tell them apart). Event recall is 1 − deleted / true events, event
-precision is 1 − inserted / detections.
+length in common. True intervals of one class that overlap or touch are one event (a
+binary segmentation cannot tell them apart); detections are never merged: each firing is
+a detection of its own, so a cue fired twice shows as fragmenting, not as one.
 
 Decision events become detected intervals by ``detected_spans``: a dynamic gesture covers
 the window it was decided from, [t − window_s, t]; a posture runs from "entered" to
-"left". Latency is measured from a true gesture's end to the first event of its class
-whose span overlaps it.
+"left".
 """
 
 from __future__ import annotations
@@ -35,6 +36,8 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+
+from .matching import SLACK_S, count_take, pool
 
 TRUE_KINDS = ("correct", "deleted", "fragmented", "merged", "frag_merged")
 DETECTED_KINDS = ("correct", "inserted", "fragmenting", "merging", "frag_merging")
@@ -70,24 +73,22 @@ def score_one_class(truth, detected) -> dict:
     """Event categories for one class.
 
     truth, detected: iterables of (start_s, end_s). Returns {"truth": [category per true
-    event], "detected": [category per detection], "truth_spans", "detected_spans" (the
-    merged intervals the categories refer to), and a count per category name}.
+    event], "detected": [category per detection], "truth_spans" (merged), "detected_spans"
+    (sorted, never merged), and a count per category name}.
     """
     g = merge_touching(truth)
-    d = merge_touching(detected)
-    # Both lists are sorted and disjoint, so a two-pointer sweep finds all overlaps.
+    d = sorted((float(a), float(b)) for a, b in detected if b > a)
+    # True events are sorted and disjoint; detections may overlap one another.
     hits_g = [[] for _ in g]
     hits_d = [[] for _ in d]
-    j0 = 0
-    for i, gi in enumerate(g):
-        while j0 < len(d) and d[j0][1] <= gi[0]:
-            j0 += 1
-        j = j0
-        while j < len(d) and d[j][0] < gi[1]:
-            if _overlaps(gi, d[j]):
+    starts = np.array([a for a, _ in g])
+    for j, dj in enumerate(d):
+        for i in range(max(0, int(np.searchsorted(starts, dj[0], side="right")) - 1), len(g)):
+            if g[i][0] >= dj[1]:
+                break
+            if _overlaps(g[i], dj):
                 hits_g[i].append(j)
                 hits_d[j].append(i)
-            j += 1
     merging = [len(h) > 1 for h in hits_d]
     fragmented = [len(h) > 1 for h in hits_g]
     truth_cat = []
@@ -127,74 +128,45 @@ def detected_spans(events, window_s: float, end_s: float, kinds: dict[str, str])
     return [s for s in spans if s.end_s > s.start_s]
 
 
-def null_seconds(truth: list[Span], duration_s: float) -> float:
-    """Time outside every labelled interval, s."""
-    inside = sum(b - a for a, b in merge_touching((max(0.0, s.start_s), min(duration_s, s.end_s)) for s in truth))
-    return max(0.0, duration_s - inside)
-
-
-def score_take(truth: list[Span], events, window_s: float, duration_s: float, kinds: dict[str, str]) -> dict:
-    """Event scores of one take: counts summed over classes, per-class counts, latencies.
+def score_take(truth: list[Span], events, window_s: float, duration_s: float, kinds: dict[str, str],
+               slack_s: float = SLACK_S) -> dict:
+    """Scores of one take: ``firings`` (``matching.count_take``: the strict counts) and the
+    Ward categories summed over classes (``ward``, with ``per_class``).
 
     truth: the take's labelled intervals as Spans; events: the decision events replayed
-    over it. Returns a dict of counts plus "latency_s" (one per detected true gesture),
-    "null_s", "duration_s" and "per_class".
+    over it.
     """
     classes = sorted({s.label for s in truth} | {e.gesture for e in events})
     det = detected_spans(events, window_s, duration_s, kinds)
-    every_true = [(s.start_s, s.end_s) for s in truth]
-    totals: dict[str, int] = {"inserted_in_null": 0}
+    ward: dict[str, int] = {}
     per_class = {}
     for c in classes:
         sc = score_one_class([(s.start_s, s.end_s) for s in truth if s.label == c],
                              [(s.start_s, s.end_s) for s in det if s.label == c])
-        # An insertion touching no labelled event of any class fired while the wearer did
-        # none of the vocabulary (walking, talking...); the others are wrong-class cues.
-        in_null = sum(1 for cat, span in zip(sc["detected"], sc["detected_spans"])
-                      if cat == "inserted" and not any(_overlaps(span, t) for t in every_true))
-        per_class[c] = {**sc["counts"], "inserted_in_null": in_null}
-        for k, v in per_class[c].items():
-            totals[k] = totals.get(k, 0) + v
-    latency = []
-    for s in truth:
-        if kinds.get(s.label) != "gesture":
-            continue
-        times = [e.t_s for e in events if e.kind == "gesture" and e.gesture == s.label
-                 and _overlaps((s.start_s, s.end_s), (max(0.0, e.t_s - window_s), e.t_s))]
-        if times:
-            latency.append(min(times) - s.end_s)
-    return {**totals, "latency_s": latency, "null_s": null_seconds(truth, duration_s), "duration_s": duration_s,
-            "per_class": per_class}
+        per_class[c] = sc["counts"]
+        for k, v in sc["counts"].items():
+            ward[k] = ward.get(k, 0) + v
+    return {"firings": count_take(events, truth, duration_s, slack_s), "ward": ward, "per_class": per_class,
+            "duration_s": duration_s}
 
 
-def summarise(takes: list[dict]) -> dict:
-    """Sum per-take scores and derive the headline figures.
-
-    Returns the summed counts (``true_*``, ``detected_*``), ``true_events``,
-    ``detections``, ``event_recall``, ``event_precision``, ``false_triggers`` (inserted
-    detections), ``null_hours``, ``false_triggers_per_null_hour`` (all insertions over the
-    hours of null activity: the strict figure), ``false_triggers_in_null`` and its rate
-    ``false_triggers_in_null_per_null_hour`` (insertions overlapping no labelled event),
-    ``wrong_class`` (insertions during another labelled event) and ``latency_s``
-    {"median", "p95", "count"} from gesture end to its event.
-    """
+def ward_summary(counts: list[dict]) -> dict:
+    """Summed Ward counts with ``true_events``, ``detections``, ``event_recall`` (1 − deleted /
+    true events) and ``event_precision`` (1 − inserted / detections)."""
     keys = [f"true_{k}" for k in TRUE_KINDS] + [f"detected_{k}" for k in DETECTED_KINDS]
-    out = {k: int(sum(t.get(k, 0) for t in takes)) for k in keys}
+    out = {k: int(sum(t.get(k, 0) for t in counts)) for k in keys}
     n_true = sum(out[f"true_{k}"] for k in TRUE_KINDS)
     n_det = sum(out[f"detected_{k}"] for k in DETECTED_KINDS)
-    in_null = int(sum(t.get("inserted_in_null", 0) for t in takes))
-    lat = np.array([x for t in takes for x in t["latency_s"]], dtype=float)
-    null_h = sum(t["null_s"] for t in takes) / 3600.0
-    out.update(
-        true_events=n_true, detections=n_det,
-        event_recall=round(1.0 - out["true_deleted"] / n_true, 4) if n_true else None,
-        event_precision=round(1.0 - out["detected_inserted"] / n_det, 4) if n_det else None,
-        false_triggers=out["detected_inserted"], null_hours=round(null_h, 4),
-        false_triggers_per_null_hour=round(out["detected_inserted"] / null_h, 2) if null_h > 0 else None,
-        false_triggers_in_null=in_null, wrong_class=out["detected_inserted"] - in_null,
-        false_triggers_in_null_per_null_hour=round(in_null / null_h, 2) if null_h > 0 else None,
-        latency_s={"median": round(float(np.median(lat)), 3) if lat.size else None,
-                   "p95": round(float(np.percentile(lat, 95)), 3) if lat.size else None,
-                   "count": int(lat.size)},
-    )
+    out.update(true_events=n_true, detections=n_det,
+               event_recall=round(1.0 - out["true_deleted"] / n_true, 4) if n_true else None,
+               event_precision=round(1.0 - out["detected_inserted"] / n_det, 4) if n_det else None)
+    return out
+
+
+def summarise(takes: list[dict], target_per_hour: float = 1.0) -> dict:
+    """Pool per-take scores: the strict firing figures (``matching.pool``: recall, hits,
+    missed, double, wrong_name, ordinary, false, rates with intervals, latency) at the top
+    level, and the Ward view under ``ward``."""
+    out = pool([t["firings"] for t in takes], target_per_hour)
+    out["ward"] = ward_summary([t["ward"] for t in takes])
     return out

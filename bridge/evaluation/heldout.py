@@ -88,7 +88,7 @@ def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: boo
 
     Returns classification_scores(...) plus "calibration_error" (ECE of the windows' top
     probabilities, 10 bins), "confidence" and "correct" (per window, for pooling over
-    folds), "events" (``events.summarise``) and "takes": per take its name, the events
+    folds), "events" (``events.summarise``: the strict firing counts) and "takes": per take its name, the events
     decided and the truth (for the report's timeline).
     With ``events`` False the takes are not replayed (window scores only).
     """
@@ -105,7 +105,7 @@ def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: boo
         truth = [Span(iv.start_s, iv.end_s, iv.label) for iv in rec.intervals]
         s = score_take(truth, decided, model.windows.window_s, duration, model.kinds)
         scored.append(s)
-        per_take.append({"rec": rec, "events": decided, "truth": truth, "latency_s": s["latency_s"]})
+        per_take.append({"rec": rec, "events": decided, "truth": truth, "latency_s": s["firings"]["latency_s"]})
         if progress:
             progress(i + 1, len(recs))
     y, p = np.concatenate(ys), np.concatenate(ps)
@@ -136,7 +136,7 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
     """Train on all but one group, score the held-out group's takes; repeat for each group.
 
     Returns the pooled classification_scores, "events" (pooled over all held-out takes),
-    "folds" (per group: accuracy, macro F1, event recall, false triggers per null hour),
+    "folds" (per group: accuracy, macro F1, firing counts and recall),
     "scheme", "classifier" and "takes" (for the report).
     """
     from ..recognition.classifiers import fit_recordings
@@ -158,12 +158,11 @@ def cross_validate(recs, kinds: dict[str, str], scheme: str, classifier: str = "
         confidence.append(res["confidence"]); correct.append(res["correct"])
         c = np.array(res["confusion"])
         conf = c if conf is None else conf + c
+        ev = res["events"] or {}
         folds.append({"held_out": grp, "takes": len(test), "accuracy": res["accuracy"], "macro_f1": res["macro_f1"],
                       "calibration_error": res["calibration_error"],
-                      "event_recall": res["events"]["event_recall"] if events else None,
-                      "false_triggers_per_null_hour": res["events"]["false_triggers_per_null_hour"] if events else None,
-                      "false_triggers_in_null_per_null_hour":
-                          res["events"]["false_triggers_in_null_per_null_hour"] if events else None})
+                      **{k: ev.get(k) for k in ("recall", "hit", "performed", "double", "wrong_name", "ordinary", "false",
+                                                "take_hours", "ordinary_hours")}})
         window_s = model.windows.window_s
         for t in res["takes"]:
             scored.append(score_take(t["truth"], t["events"], window_s, t["rec"].freq_hz.shape[0] / t["rec"].rate_hz,
