@@ -35,10 +35,48 @@ def test_below_threshold_does_not_count():
     assert run(g, [("wave", 0.7)] * 10) == []
 
 
-def test_refractory_suppresses_repeats_then_allows_again():
+def test_a_gesture_fires_once_however_long_its_evidence_lasts():
+    # The refractory time (1 s) is far shorter than the 2.5 s of agreement: it must not
+    # let the same gesture fire again while its evidence is still there.
     g = Gate(CLASSES, KINDS, {c: GateSettings(agree_k=2, agree_n=2, refractory_s=1.0) for c in KINDS})
-    ev = run(g, ["wave"] * 25)  # 2.5 s of continuous agreement
-    assert [e.t_s for e in ev] == [0.1, 1.1, 2.1]
+    ev = run(g, ["wave"] * 25)
+    assert [e.t_s for e in ev] == [0.1]
+
+
+def test_a_gesture_re_arms_after_its_probability_stays_low():
+    s = GateSettings(agree_k=2, agree_n=2, refractory_s=0.0, rearm_below=0.3, rearm_hops=3)
+    # two low hops are not enough: a dip inside one long gesture does not re-arm it
+    g = Gate(CLASSES, KINDS, {c: s for c in KINDS})
+    ev = run(g, ["wave"] * 5 + ["null"] * 2 + ["wave"] * 5)
+    assert [e.t_s for e in ev] == [0.1]
+    # three in a row are: the next agreement fires again
+    g = Gate(CLASSES, KINDS, {c: s for c in KINDS})
+    ev = run(g, ["wave"] * 5 + ["null"] * 3 + ["wave"] * 5)
+    assert [e.t_s for e in ev] == [0.1, 0.9]
+    # a probability between rearm_below and the threshold neither votes nor re-arms
+    g = Gate(CLASSES, KINDS, {c: s for c in KINDS})
+    ev = run(g, ["wave"] * 5 + [("wave", 0.4)] * 10 + ["wave"] * 5)
+    assert [e.t_s for e in ev] == [0.1]
+
+
+def test_refractory_still_quiets_every_gesture():
+    classes = ("null", "wave", "bow")
+    kinds = {"wave": "gesture", "bow": "gesture"}
+    g = Gate(classes, kinds, {c: GateSettings(agree_k=1, agree_n=1, refractory_s=1.0) for c in kinds})
+    p = lambda i: np.eye(3)[i] * 0.9 + 0.05
+    ev = []
+    for i, top in enumerate([1, 2, 2, 0, 0, 0, 0, 0, 0, 0, 0, 2]):
+        ev += g.step(round(i * 0.1, 6), p(top))
+    assert [(e.gesture, e.t_s) for e in ev] == [("wave", 0.0), ("bow", 1.1)]
+
+
+def test_rearm_settings_are_checked_and_stored():
+    with pytest.raises(ValueError):
+        GateSettings(threshold=0.5, rearm_below=0.6)
+    with pytest.raises(ValueError):
+        GateSettings(rearm_hops=0)
+    d = GateSettings(rearm_below=0.2, rearm_hops=5).to_dict()
+    assert (d["rearm_below"], d["rearm_hops"]) == (0.2, 5)
 
 
 def test_posture_entered_left_with_duration_and_hysteresis():

@@ -1,7 +1,11 @@
 """The decision layer: turns per-hop class probabilities into few, deliberate events.
 
-A dynamic gesture fires once when k of the last n hops agree on it above its threshold,
-then nothing fires for its refractory time. A posture is "entered" on the same k-of-n rule
+A dynamic gesture fires once when k of the last n hops agree on it above its threshold;
+then no gesture fires for its refractory time, and the same gesture does not fire again
+until it has re-armed: its probability below ``rearm_below`` for ``rearm_hops`` hops in a
+row. The evidence of a gesture stays in the classifier's window for up to a window's
+length after the movement, so a fixed quiet time shorter than that fires it twice; the
+re-arm rule waits for the evidence itself to fall away, however long the window. A posture is "entered" on the same k-of-n rule
 and "left" when k of the last n hops fall below its lower exit threshold (hysteresis); while
 it stays held a "held" event repeats every ``held_every_s`` seconds (0: never).
 """
@@ -39,7 +43,9 @@ class GateSettings:
     threshold: float = 0.5       # probability needed for a hop to count, 0..1
     agree_k: int = 3             # hops that must agree ...
     agree_n: int = 4             # ... out of the last n
-    refractory_s: float = 1.5    # quiet time after a gesture fires, s
+    refractory_s: float = 1.5    # quiet time for every gesture after a gesture fires, s
+    rearm_below: float = 0.3     # a fired gesture re-arms once its probability is below this ...
+    rearm_hops: int = 3          # ... for this many hops in a row
     exit_threshold: float = 0.35  # posture: below this a hop counts towards "left"
     held_every_s: float = 0.0    # posture: repeat a "held" event this often while held, s (0: never)
 
@@ -50,12 +56,15 @@ class GateSettings:
             raise ValueError("need 1 <= agree_k <= agree_n")
         if self.refractory_s < 0:
             raise ValueError("refractory_s must be >= 0")
+        if not 0 <= self.rearm_below <= self.threshold or self.rearm_hops < 1:
+            raise ValueError("need 0 <= rearm_below <= threshold and rearm_hops >= 1")
         if self.held_every_s < 0:
             raise ValueError("held_every_s must be >= 0")
 
     def to_dict(self) -> dict:
         return {"threshold": self.threshold, "agree_k": self.agree_k, "agree_n": self.agree_n,
-                "refractory_s": self.refractory_s, "exit_threshold": self.exit_threshold,
+                "refractory_s": self.refractory_s, "rearm_below": self.rearm_below, "rearm_hops": self.rearm_hops,
+                "exit_threshold": self.exit_threshold,
                 "held_every_s": self.held_every_s}
 
 
@@ -79,7 +88,8 @@ def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None
 
 
 class Gate:
-    """Decision state for one garment: recent hops, refractory clock, postures held."""
+    """Decision state for one garment: recent hops, refractory clock, gestures waiting to
+    re-arm, postures held."""
 
     def __init__(self, classes, kinds: dict[str, str], settings: dict[str, GateSettings] | None = None,
                  garment: str = ""):
@@ -92,10 +102,12 @@ class Gate:
         self.quiet_until_s = -np.inf
         self.held: dict[str, tuple[float, float]] = {}  # posture -> (entered at, confidence)
         self.held_next_s: dict[str, float] = {}        # posture -> when its next "held" event is due
+        self.latched: dict[str, int] = {}              # fired gesture -> low hops in a row so far
 
     def step(self, t_s: float, prob: np.ndarray) -> list[Event]:
         """Take one hop's probabilities (classes,) at stream time t_s; return the events decided."""
         self.recent.append(np.asarray(prob, dtype=float))
+        self._rearm(self.recent[-1][None, :])
         events: list[Event] = []
         recent = np.array(self.recent)                   # (hops kept, classes), oldest first
         names = self.classes[1:]
@@ -126,10 +138,34 @@ class Gate:
                     self.held[name] = (t_s, conf)
                     self.held_next_s[name] = t_s + s.held_every_s
                     events.append(Event(t_s, name, ENTERED, conf, 0.0, self.garment))
-            elif agreed and t_s >= self.quiet_until_s:
+            elif agreed and t_s >= self.quiet_until_s and name not in self.latched:
                 events.append(Event(t_s, name, GESTURE, float(np.mean(cols[voting[:, j], j])), 0.0, self.garment))
                 self.quiet_until_s = t_s + s.refractory_s
+                self.latched[name] = 0
         return events
+
+    def _rearm(self, probs: np.ndarray) -> None:
+        """Count the low hops of each latched gesture over hops (m, classes), oldest first;
+        a gesture with ``rearm_hops`` of them in a row is armed again."""
+        for name in list(self.latched):
+            s = self.settings[name]
+            low = probs[:, self.classes.index(name)] < s.rearm_below
+            # run of low hops ending at each hop, continuing the run carried in
+            i = np.arange(len(low))
+            last_high = np.maximum.accumulate(np.where(low, -1, i))
+            run = np.where(last_high >= 0, i - last_high, self.latched[name] + i + 1)
+            if run.max(initial=0) >= s.rearm_hops:
+                del self.latched[name]
+            else:
+                self.latched[name] = int(run[-1])
+
+    def skip(self, probs: np.ndarray) -> None:
+        """Hops (m, classes) at which nothing can be decided (see ``quiet_run``): they join
+        the recent history and count towards re-arming, as ``step`` would count them."""
+        probs = np.asarray(probs, dtype=float)
+        if len(probs):
+            self.recent.extend(probs)
+            self._rearm(probs)
 
     def tallies(self, probs: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
         """Per hop of a coming block (m, classes) and non-null class: (votes, low hops), each
@@ -200,7 +236,7 @@ class Gate:
                 i += 1
                 continue
             j = candidates[np.searchsorted(candidates, i)] if np.searchsorted(candidates, i) < len(candidates) else m
-            self.recent.extend(probs[i:j])
+            self.skip(probs[i:j])
             if j < m:
                 events += self.step(float(times_s[j]), probs[j])
             i = j + 1

@@ -59,13 +59,16 @@ def fourier_map(z: np.ndarray, projection: np.ndarray, phase: np.ndarray) -> np.
 def rows_matmul(a: np.ndarray, b: np.ndarray) -> np.ndarray:
     """a (m, k) @ b (k, n), each row's result the same whatever m.
 
-    BLAS takes a single row by a matrix-vector routine that sums in another order than the
-    matrix-matrix one used for m ≥ 2, so a lone row (a live hop) is paired with a copy of
-    itself: live and batched scores then agree to the bit, not only to rounding.
+    BLAS sums a product in an order that depends on the number of rows: a single row goes
+    to a matrix-vector routine, and with some OpenBLAS kernels (seen with the Haswell
+    kernels of numpy 2.4's OpenBLAS) 3, 7 or 16 rows give other roundings than 2. So rows
+    are always multiplied two at a time (a stack of (2, k) products; a lone row is paired
+    with a copy of itself): a live hop and the same window in any batch agree to the bit.
     """
-    if a.shape[0] == 1:
-        return (np.concatenate([a, a]) @ b)[:1]
-    return a @ b
+    m = a.shape[0]
+    if m % 2:
+        a = np.concatenate([a, a[-1:]])
+    return (a.reshape(-1, 2, a.shape[1]) @ b).reshape(-1, b.shape[1])[:m]
 
 
 class LiveModel:

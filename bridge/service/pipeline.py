@@ -248,7 +248,7 @@ class Pipeline:
             j = self.gate.quiet_run(times, votes, low, i)
             if j > i:
                 j = i + self.safety.quiet_until(times[i:j], self.gate.held)
-                self.gate.recent.extend(probs[i:j])
+                self.gate.skip(probs[i:j])
                 if self.hops is not None:
                     self.hops.extend((float(times[h]), np.asarray(probs[h], dtype=float)) for h in range(i, j))
             if j < m:
