@@ -479,8 +479,15 @@ def _read_ts_cases(path):
         raise TsFormatError(f"{path}: no such .ts file") from None
 
 
+def _training_settings(a):
+    """TrainingSettings from the shared options of fit and evaluate."""
+    from .recognition import TrainingSettings
+    band = {} if a.band_hz is None else {"low_hz": a.band_hz[0], "high_hz": a.band_hz[1]}
+    return TrainingSettings(window_s=a.window_s, hop_s=a.hop_s, **band)
+
+
 def cmd_fit(a) -> int:
-    from .recognition import TrainingSettings, fit_cases, fit_recordings
+    from .recognition import fit_cases, fit_recordings
     from .sources import RecordingError
     from .sources.ts_format import TsFormatError, stack_cases
 
@@ -513,8 +520,7 @@ def cmd_fit(a) -> int:
             source = f"{len(y)} cases of {a.ts}"
         else:
             recs, kinds = _read_takes(a.recordings)
-            model = fit_recordings(a.classifier, recs, kinds, TrainingSettings(window_s=a.window_s, hop_s=a.hop_s),
-                                   progress=step, **options)
+            model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
             source = f"{len(recs)} takes"
     except (RecordingError, TsFormatError, ValueError) as exc:
         close()
@@ -557,7 +563,7 @@ def _print_result(result: dict) -> None:
 
 def cmd_evaluate(a) -> int:
     from .evaluation.heldout import cross_validate, evaluate_cases, evaluate_takes
-    from .recognition import ModelError, TrainingSettings, load_model
+    from .recognition import ModelError, load_model
     from .sources import RecordingError
     from .sources.ts_format import TsFormatError
 
@@ -583,8 +589,7 @@ def cmd_evaluate(a) -> int:
                 close()
                 return _err("give take files and --scheme leave-session-out or leave-wearer-out (or --model M with held-out data)")
             recs, kinds = _read_takes(a.recordings)
-            result = cross_validate(recs, kinds, a.scheme, a.classifier,
-                                    TrainingSettings(window_s=a.window_s, hop_s=a.hop_s), progress=step)
+            result = cross_validate(recs, kinds, a.scheme, a.classifier, _training_settings(a), progress=step)
             title = f"{a.classifier}, {a.scheme}, {len(recs)} takes"
     except (ModelError, RecordingError, TsFormatError, ValueError) as exc:
         close()
@@ -959,6 +964,9 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
     f.add_argument("--window-s", type=float, default=2.0, help="window length, s")
     f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
+    f.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
+                   help="band-pass edges, Hz (default 1 to 10 Hz, the upper edge lowered to 0.4 × the rate "
+                        "for slow sources); stored in the model")
     f.add_argument("--band", type=float, metavar="FRACTION",
                    help="dtw: warping band as a fraction of the window (0 = no warping, 1 = unconstrained; default 0.1)")
     f.add_argument("--no-rejection", action="store_true",
@@ -978,6 +986,8 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--report", metavar="DIR", help="write an HTML report with pictures into DIR (needs matplotlib)")
     e.add_argument("--window-s", type=float, default=2.0, help="window length, s")
     e.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
+    e.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
+                   help="band-pass edges, Hz (as drape fit)")
     e.set_defaults(func=cmd_evaluate)
     b = sub.add_parser("bench", help=VERBS["bench"], description=VERBS["bench"])
     b.add_argument("--channels", type=int, nargs="+", default=[4, 8])

@@ -347,7 +347,7 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
     if unknown:
         raise ValueError(f"labels without a kind (gesture or posture): {', '.join(unknown)}")
     classes = (NULL, *labels)
-    conditioning = BandPass(rate, settings.low_hz, settings.high_hz, settings.order, settings.baseline_tau_s)
+    conditioning = settings.band(rate)
     spec = WindowSpec(rate, settings.window_s, settings.hop_s)
     ws, ys, gs = [], [], []
     for i, r in enumerate(recordings):

@@ -20,7 +20,7 @@ class TrainingSettings:
     window_s: float = 2.0
     hop_s: float = 0.1
     low_hz: float = 1.0
-    high_hz: float = 10.0
+    high_hz: float | None = None   # None: 10 Hz, or 0.4 × the sample rate where that is lower
     order: int = 2
     baseline_tau_s: float = 30.0
     fourier_features: int = 2000   # size of the random Fourier map; 0 for a plain linear model
@@ -28,6 +28,30 @@ class TrainingSettings:
     ridge: tuple = (1e-3, 1e-2, 1e-1, 1.0)  # penalties tried; the best held-out one is kept
     shrinkage: float = 0.2         # covariance shrinkage of the plain model
     seed: int = 0
+
+    def band(self, rate_hz: float) -> BandPass:
+        """The conditioning for a source at ``rate_hz``: this band-pass, its upper edge below
+        the Nyquist frequency (``band_edges``)."""
+        low, high = band_edges(rate_hz, self.low_hz, self.high_hz)
+        return BandPass(rate_hz, low, high, self.order, self.baseline_tau_s)
+
+
+def band_edges(rate_hz: float, low_hz: float = 1.0, high_hz: float | None = None) -> tuple[float, float]:
+    """Band-pass edges (low, high) in Hz for a source at ``rate_hz``.
+
+    Without ``high_hz`` the upper edge is 10 Hz, lowered to 0.4 × rate_hz (80 % of the
+    Nyquist frequency) for slow sources: a 10 Hz source gets 1–4 Hz. Edges that were given
+    are kept and checked. ValueError, saying what to pass, when no band fits.
+    """
+    nyquist = rate_hz / 2.0
+    high = min(10.0, 0.4 * rate_hz) if high_hz is None else float(high_hz)
+    if not 0 < low_hz < high < nyquist:
+        hint = ("give edges with --band-hz LOW HIGH, 0 < LOW < HIGH < " f"{nyquist:g} Hz (half the rate)")
+        if high_hz is None:
+            raise ValueError(f"a {rate_hz:g} Hz source leaves no band-pass above {low_hz:g} Hz below "
+                             f"{0.4 * rate_hz:g} Hz; {hint}")
+        raise ValueError(f"band-pass {low_hz:g}–{high:g} Hz does not fit a {rate_hz:g} Hz source; {hint}")
+    return float(low_hz), high
 
 
 def condition_recording(rec, conditioning: BandPass) -> np.ndarray:
@@ -134,7 +158,7 @@ def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = T
     if not labels:
         raise ValueError("the recordings hold no labelled gestures")
     classes = (NULL, *labels)
-    conditioning = BandPass(rate, settings.low_hz, settings.high_hz, settings.order, settings.baseline_tau_s)
+    conditioning = settings.band(rate)
     spec = WindowSpec(rate, settings.window_s, settings.hop_s)
     xs, ys, groups = [], [], []
     for i, r in enumerate(recordings):
