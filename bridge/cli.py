@@ -16,7 +16,8 @@ VERBS = {
     "simulate": "write takes of the simulated jacket, or serve it as a serial port (no hardware needed)",
     "check": "validate a mapping file against a model and print its rules",
     "evaluate": "estimate accuracy on new sessions or unseen wearers, or score a model on held-out data",
-    "tune": "choose each gesture's threshold and debounce from held-out takes; store them in the model",
+    "tune": "choose each class's threshold, debounce and re-arm on takes the model was not fitted on; "
+            "report the held-out figure; store them in the model",
     "bench": "print speed figures: classifier hops, replay speed, fit time, a continuous control's latency and jitter",
     "range": "capture a wearer's level range (relaxed, then closest) for continuous controls",
     "ports": "list serial ports with their USB ids and serial numbers",
@@ -827,7 +828,8 @@ def cmd_check(a) -> int:
 
 
 def cmd_tune(a) -> int:
-    from .evaluation.tuning import format_point, tune_model
+    from .evaluation.matching import format_counts
+    from .evaluation.tuning import tune_model
     from .recognition import ModelError, load_model
     from .sources import RecordingError, read_recording
 
@@ -839,16 +841,44 @@ def cmd_tune(a) -> int:
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
-    print(f"replaying {len(recs)} takes ({hours * 60:.1f} min, {sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
-    result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour)
-    print(f"untuned: {format_point(result.before)}")
-    print(f"tuned:   {format_point(result.after)}")
+    print(f"replaying {len(recs)} take{'s' if len(recs) != 1 else ''} ({hours * 60:.1f} min, "
+          f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
+    step, close = _progress("replaying")
+    try:
+        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step)
+    finally:
+        close()
+    print("before, the settings stored in the model, on these takes:")
+    for line in format_counts(result.before):
+        print("  " + line)
+    if result.held_out is None:
+        print("held out: none (one take with no gap between labelled gestures to cut it at); "
+              "give two or more takes for an honest figure")
+    else:
+        print(f"held out (settings chosen on the other {result.pieces - 1} of {result.pieces} pieces, "
+              f"scored on the one left out; this is the figure to expect):")
+        for line in format_counts(result.held_out):
+            print("  " + line)
     for g, st in result.settings.items():
-        print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops")
-    if hours < 1 / a.max_false_per_hour:
-        print(f"note: {hours * 60:.0f} min of takes can show at most one false trigger per {hours * 60:.0f} min; "
-              f"for a budget of {a.max_false_per_hour:g} per hour, tune on at least {60 / a.max_false_per_hour:.0f} min")
+        rearm = (f", re-arms below {st['rearm_below']:.2f} for {st['rearm_hops']} hops"
+                 if model.kinds.get(g) == "gesture" else "")
+        print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops{rearm}")
+    problems = []
+    if not result.met:
+        problems.append(f"even the strictest settings fire {result.in_sample['false']} false on these takes, "
+                        f"over the budget of {result.budget} ({a.max_false_per_hour:g} per hour × {hours:.2f} h)")
+    if result.held_out is not None and not result.held_out_met:
+        problems.append(f"held out, the chosen settings fired {result.held_out['false']} false in "
+                        f"{result.held_out['take_hours']:.2f} h, over the budget of {a.max_false_per_hour:g} per hour")
     out = Path(a.output or a.model)
+    if problems and not a.store_anyway:
+        for p in problems:
+            _report("budget missed: " + p)
+        _report(f"nothing stored in {out} (--store-anyway stores the settings all the same); "
+                "more ordinary movement in training, or a stricter budget, may help")
+        return 3
+    for p in problems:
+        _report("budget missed, stored anyway: " + p)
     model.decision = {**model.decision, **result.settings}
     model.save(out)
     print(f"{out}: decision settings stored")
@@ -1047,6 +1077,8 @@ def build_parser() -> argparse.ArgumentParser:
     t.add_argument("--model", required=True)
     t.add_argument("--max-false-per-hour", type=float, default=1.0, help="false-trigger budget (default 1)")
     t.add_argument("-o", "--output", help="write the tuned model here (default: update MODEL in place)")
+    t.add_argument("--store-anyway", action="store_true",
+                   help="store the settings even when the false-firing budget is missed (exit 0)")
     t.set_defaults(func=cmd_tune)
     g = sub.add_parser("range", help=VERBS["range"], description=VERBS["range"] +
                        ". Without --port it runs on the simulated wearer, to try it out.")

@@ -1,12 +1,21 @@
-"""Choosing each gesture's operating point (threshold, k-of-n debounce) on held-out takes.
+"""Choosing each class's decision settings on labelled takes, and saying honestly how they do.
 
 The takes are replayed once through the live pipeline, keeping each hop's probabilities;
-the decision layer is then re-run over those probabilities for every candidate setting
-(cheap: no classifier work). For each gesture the candidates give (hits, false triggers);
-a small dynamic programme then picks one candidate per gesture so that the false triggers
-of all gestures together stay within the budget (``max_false_per_hour`` × hours of takes,
-rounded down) while the number of hits is highest; ties go to fewer false triggers, then
-to the more conservative setting.
+the decision layer is then searched over those stored probabilities (no classifier work):
+
+- **search space** per class: threshold, votes (k of n) and, for gestures, the re-arm rule
+  (``rearm_below`` for ``rearm_hops`` hops). The grid always holds the class's current
+  settings and stricter ones.
+- **choice**: one candidate per class so that the false firings of all classes together
+  stay within the budget (``max_false_per_hour`` × hours, rounded down) and never exceed
+  those of the settings tune started from, with the most hits; ties go to fewer false
+  firings, then to the stricter setting. Each class is searched on its own (a vectorised
+  walk over the hops: the shared refractory time between classes is left out there);
+  every figure reported comes from the real ``Gate`` and the one matcher.
+- **held-out figure**: the takes are split into pieces (each take, or the two halves of a
+  single take cut between labelled intervals); for each piece the settings are chosen on
+  the others and scored on it. Only these pooled held-out counts are an estimate; the
+  point reached on the data that chose it is not reported as one.
 """
 
 from __future__ import annotations
@@ -17,38 +26,38 @@ from dataclasses import dataclass, replace
 import numpy as np
 
 from ..decisions import Gate, GateSettings, gate_settings_for
-from .matching import match_events
+from .matching import count_take, pool
 
-THRESHOLDS = (0.4, 0.5, 0.6, 0.7, 0.8, 0.9)
-DEBOUNCE = ((1, 1), (2, 2), (2, 3), (3, 4), (4, 5), (5, 6))  # (k, n)
+THRESHOLDS = (0.4, 0.5, 0.6, 0.7, 0.8, 0.9, 0.95)
+DEBOUNCE = ((1, 1), (2, 2), (2, 3), (3, 4), (4, 5), (5, 6), (6, 8), (8, 10), (10, 12))   # (k, n)
+REARM = ((0.3, 3), (0.2, 5), (0.1, 8))          # (rearm_below, rearm_hops), loosest first
 
 
 @dataclass(frozen=True)
-class OperatingPoint:
-    recall: float
-    false_per_hour: float
-    median_latency_s: float
-    hits: int
-    labelled: int
-    false: int
-    hours: float
+class Piece:
+    """Stored hops of one stretch of take: times (h,) s, probabilities (h, classes), its
+    labelled intervals and length, s."""
 
-
-def format_point(p: OperatingPoint) -> str:
-    lat = "n/a" if np.isnan(p.median_latency_s) else f"{p.median_latency_s:+.2f} s"
-    return (f"recall {p.recall:.3f} ({p.hits}/{p.labelled}), false triggers {p.false} "
-            f"= {p.false_per_hour:.1f} per hour, median latency {lat}")
+    times_s: np.ndarray
+    probs: np.ndarray
+    intervals: tuple
+    duration_s: float
 
 
 @dataclass(frozen=True)
 class TuneResult:
-    before: OperatingPoint
-    after: OperatingPoint
-    settings: dict     # gesture -> GateSettings.to_dict()
+    before: dict         # ``matching.pool`` of the starting settings on all the takes
+    held_out: dict       # ``matching.pool`` of settings chosen without each piece, on that piece
+    in_sample: dict      # ``matching.pool`` of the stored settings on the takes that chose them
+    settings: dict       # class -> GateSettings.to_dict(), chosen on all the takes
+    budget: int          # false firings allowed on all the takes
+    met: bool            # the choice on all takes kept within the budget
+    held_out_met: bool   # the held-out false firings kept within the held-out hours' budget
+    pieces: int
 
 
-def hop_probabilities(model, recording, block_s: float = 0.1):
-    """[(t_s, probabilities)] per hop of a take, through the live pipeline."""
+def hop_probabilities(model, recording, block_s: float = 0.1) -> tuple[np.ndarray, np.ndarray]:
+    """(times (h,) s, probabilities (h, classes)) of every hop of a take, through the live pipeline."""
     from ..service import Pipeline
     from ..sources.replay import ReplaySource
 
@@ -56,72 +65,230 @@ def hop_probabilities(model, recording, block_s: float = 0.1):
     src = ReplaySource(recording, block_s)
     while not src.ended:
         pipe.feed(src.read().freq_hz)
-    return pipe.hops
+    if not pipe.hops:
+        return np.empty(0), np.empty((0, len(model.classes)))
+    return np.array([t for t, _ in pipe.hops]), np.array([p for _, p in pipe.hops])
 
 
-def gate_events(model, hops, settings: dict):
+def gate_events(model, times_s, probs, settings: dict):
+    """The real decision layer's events over stored hops (``Gate.step`` hop by hop)."""
     g = Gate(model.classes, model.kinds, settings)
     out = []
-    for t, p in hops:
-        out += g.step(t, p)
-    return out + g.release_all(hops[-1][0] if hops else 0.0)
+    for t, p in zip(times_s, probs):
+        out += g.step(float(t), p)
+    return out + g.release_all(float(times_s[-1]) if len(times_s) else 0.0)
 
 
-def evaluate(model, takes_hops, recordings, settings: dict, only: str | None = None) -> OperatingPoint:
-    hits = labelled = false = 0
-    lat = []
-    for hops, rec in zip(takes_hops, recordings):
-        ev = gate_events(model, hops, settings)
-        ivs = rec.intervals
-        if only is not None:
-            ev = [e for e in ev if e.gesture == only]
-            ivs = [iv for iv in ivs if iv.label == only]
-        m = match_events(ev, ivs)
-        hits += len(m.hits)
-        labelled += len(ivs)
-        false += len(m.false)
-        lat += m.latencies_s
-    hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recordings) / 3600
-    return OperatingPoint(hits / labelled if labelled else float("nan"), false / hours if hours else float("nan"),
-                          float(np.median(lat)) if lat else float("nan"), hits, labelled, false, hours)
+def split_pieces(takes: list[Piece]) -> list[Piece]:
+    """The takes themselves when there are several; a single take cut in two at the gap
+    between labelled intervals that best halves both its intervals and its time."""
+    if len(takes) != 1:
+        return list(takes)
+    t = takes[0]
+    ivs = t.intervals
+    gaps = [0.5 * (a.end_s + b.start_s) for a, b in zip(ivs, ivs[1:]) if b.start_s > a.end_s]
+    if not ivs:
+        gaps = [t.duration_s / 2]
+    if not gaps or t.duration_s <= 0:
+        return [t]
+    n = max(1, len(ivs))
+    cut = min(gaps, key=lambda g: abs(sum(iv.start_s < g for iv in ivs) / n - 0.5) + abs(g / t.duration_s - 0.5))
+    k = int(np.searchsorted(t.times_s, cut))
+    first = Piece(t.times_s[:k], t.probs[:k], tuple(iv for iv in ivs if iv.start_s < cut), cut)
+    second = Piece(t.times_s[k:] - cut, t.probs[k:],
+                   tuple(replace_times(iv, -cut) for iv in ivs if iv.start_s >= cut), t.duration_s - cut)
+    return [first, second]
 
 
-def tune_model(model, recordings, max_false_per_hour: float = 1.0, thresholds=THRESHOLDS,
-               debounce=DEBOUNCE) -> TuneResult:
-    """Tune every non-null class of ``model`` on labelled ``recordings``; the model is not changed."""
-    takes_hops = [hop_probabilities(model, r) for r in recordings]
-    current = gate_settings_for(model.classes[1:], model.decision, model.kinds)
-    before = evaluate(model, takes_hops, recordings, current)
-    hours = before.hours
-    budget = int(np.floor(max_false_per_hour * hours + 1e-9))
-    fronts = {}
-    for g in model.classes[1:]:
-        cands = []
-        # most conservative first, so ties keep the safer setting
-        for th, (k, n) in itertools.product(sorted(thresholds, reverse=True), sorted(debounce, reverse=True)):
-            s = replace(current[g], threshold=th, agree_k=k, agree_n=n,
-                        exit_threshold=min(current[g].exit_threshold, th))
-            p = evaluate(model, takes_hops, recordings, {**current, g: s}, only=g)
-            cands.append((p.false, -p.hits, s))
-        fronts[g] = cands
-    # dp[f] = (hits, chosen) with f false triggers used so far
+def replace_times(iv, shift_s: float):
+    """An interval moved by shift_s."""
+    from types import SimpleNamespace
+    return SimpleNamespace(start_s=iv.start_s + shift_s, end_s=iv.end_s + shift_s, label=iv.label)
+
+
+def _rolling_count(x: np.ndarray, n: int) -> np.ndarray:
+    """Trues among the last n entries (fewer at the start), per entry."""
+    c = np.concatenate([[0], np.cumsum(x)])
+    i = np.arange(1, len(x) + 1)
+    return c[i] - c[np.maximum(i - n, 0)]
+
+
+def class_firings(times_s: np.ndarray, probs: np.ndarray, j: int, kind: str, s: GateSettings,
+                  top: np.ndarray | None = None) -> np.ndarray:
+    """Firing times of class j alone under settings s: what ``Gate`` decides for it when no
+    other gesture's refractory time intervenes. Work is one pass over the hops plus one
+    step per firing. ``top``: probs.argmax(axis=1), when already at hand."""
+    if not len(times_s):
+        return np.empty(0)
+    p = probs[:, j]
+    votes = ((probs.argmax(axis=1) if top is None else top) == j) & (p >= s.threshold)
+    agreed = np.flatnonzero(_rolling_count(votes, s.agree_n) >= s.agree_k)
+    out = []
+    i = 0
+    if kind == "posture":
+        leaving = np.flatnonzero(_rolling_count(p < s.exit_threshold, s.agree_n) >= s.agree_k)
+        while True:
+            a = np.searchsorted(agreed, i)
+            if a >= len(agreed):
+                break
+            enter = agreed[a]
+            out.append(times_s[enter])
+            b = np.searchsorted(leaving, enter + 1)
+            if b >= len(leaving):
+                break
+            i = leaving[b] + 1
+        return np.array(out)
+    low = p < s.rearm_below
+    idx = np.arange(len(p))
+    run = idx - np.maximum.accumulate(np.where(low, -1, idx))       # low hops in a row ending here
+    rearmed = np.flatnonzero(run >= s.rearm_hops)
+    quiet = -np.inf
+    while True:
+        a = np.searchsorted(agreed, i)
+        if a >= len(agreed):
+            break
+        c = agreed[a]
+        if times_s[c] < quiet:
+            i = int(np.searchsorted(times_s, quiet - 1e-9))
+            i = max(i, c + 1)
+            continue
+        out.append(times_s[c])
+        quiet = times_s[c] + s.refractory_s
+        b = np.searchsorted(rearmed, c + 1)
+        if b >= len(rearmed):
+            break
+        i = rearmed[b]
+    return np.array(out)
+
+
+def candidates(current: GateSettings, kind: str, thresholds=THRESHOLDS, debounce=DEBOUNCE,
+               rearm=REARM) -> list[GateSettings]:
+    """The grid for one class, strictest first, always holding ``current``."""
+    grid = []
+    for th, (k, n) in itertools.product(sorted(set(thresholds) | {current.threshold}, reverse=True),
+                                        sorted(set(debounce) | {(current.agree_k, current.agree_n)},
+                                               key=lambda kn: (kn[0], kn[0] / kn[1]), reverse=True)):
+        base = replace(current, threshold=th, agree_k=k, agree_n=n,
+                       exit_threshold=min(current.exit_threshold, th))
+        if kind == "posture":
+            grid.append(base)
+            continue
+        for below, hops in sorted(set(rearm) | {(current.rearm_below, current.rearm_hops)},
+                                  key=lambda r: (r[0], -r[1])):
+            if below <= th:
+                grid.append(replace(base, rearm_below=below, rearm_hops=hops))
+    return list(dict.fromkeys(grid))
+
+
+def _hits_false(fire_t: np.ndarray, intervals, slack_s: float = 2.5) -> tuple[int, int]:
+    """(hits, other firings) of one class's firing times (sorted) against its own
+    intervals: an interval is hit when a firing falls within its reach (the matcher's
+    rule where one class's reaches do not overlap; the figures reported come from the
+    matcher itself). Every firing that is not a hit is false, whatever its kind."""
+    if not len(intervals):
+        return 0, len(fire_t)
+    a = np.searchsorted(fire_t, [iv.start_s for iv in intervals], side="left")
+    b = np.searchsorted(fire_t, [iv.end_s + slack_s for iv in intervals], side="right")
+    hits = int((b > a).sum())
+    return hits, len(fire_t) - hits
+
+
+def search_table(model, pieces: list[Piece], current: dict, **grid) -> dict:
+    """Per class: (candidates, hits (candidates, pieces), false (candidates, pieces))."""
+    table = {}
+    for j, name in enumerate(model.classes[1:], start=1):
+        kind = model.kinds[name]
+        cands = candidates(current[name], kind, **grid)
+        hits = np.zeros((len(cands), len(pieces)), dtype=int)
+        false = np.zeros_like(hits)
+        for q, piece in enumerate(pieces):
+            own = sorted((iv for iv in piece.intervals if iv.label == name), key=lambda iv: iv.start_s)
+            top = piece.probs.argmax(axis=1) if len(piece.probs) else None
+            for c, s in enumerate(cands):
+                fire = class_firings(piece.times_s, piece.probs, j, kind, s, top)
+                hits[c, q], false[c, q] = _hits_false(fire, own)
+        table[name] = (cands, hits, false)
+    return table
+
+
+def choose(table: dict, use: np.ndarray, cap: int, current: dict) -> tuple[dict, bool]:
+    """One candidate per class on the pieces in ``use``: most hits with at most ``cap``
+    false firings in all, ties to fewer false firings, then to the current setting, then
+    to the stricter; (settings, met). When no choice keeps within the cap, the
+    strictest count (fewest false firings) of each class, and met False."""
     dp = {0: (0, {})}
-    for g, cands in fronts.items():
-        nxt = {}
-        for used, (hits, chosen) in dp.items():
-            for f, neg_h, s in cands:
-                u = used + f
-                if u > budget:
+    for name, (cands, hits, false) in table.items():
+        h = hits[:, use].sum(axis=1)
+        f = false[:, use].sum(axis=1)
+        nxt: dict[int, tuple[int, dict]] = {}
+        # the current setting first, then strictest first: a tie keeps what the model had
+        # (no evidence to change it), else the stricter
+        order = sorted(range(len(cands)), key=lambda c: cands[c] != current.get(name))
+        for used, (got, chosen) in dp.items():
+            for c in order:
+                u = used + int(f[c])
+                if u > cap:
                     continue
-                h = hits - neg_h
-                if u not in nxt or h > nxt[u][0]:
-                    nxt[u] = (h, {**chosen, g: s})
-        if not nxt:  # not even the strictest setting keeps within the budget: use it anyway
-            strict = min(cands, key=lambda c: (c[0], c[1]))
-            nxt = {used + strict[0]: (hits - strict[1], {**chosen, g: strict[2]}) for used, (hits, chosen) in dp.items()}
+                g = got + int(h[c])
+                if u not in nxt or g > nxt[u][0]:
+                    nxt[u] = (g, {**chosen, name: cands[c]})
+        if not nxt:
+            least = {}
+            for nm, (cs, hh, ff) in table.items():
+                fs = ff[:, use].sum(axis=1)
+                least[nm] = cs[int(np.argmin(fs))]
+            return least, False
         dp = nxt
-    best_hits = max(h for h, _ in dp.values())
-    f_used = min(u for u, (h, _) in dp.items() if h == best_hits)
-    chosen = dp[f_used][1]
-    after = evaluate(model, takes_hops, recordings, {**current, **chosen})
-    return TuneResult(before, after, {g: s.to_dict() for g, s in chosen.items()})
+    best = max(g for g, _ in dp.values())
+    used = min(u for u, (g, _) in dp.items() if g == best)
+    return {**current, **dp[used][1]}, True
+
+
+def _hours(pieces, use) -> float:
+    return sum(p.duration_s for p, u in zip(pieces, use) if u) / 3600.0
+
+
+def _score(model, pieces, settings) -> dict:
+    return pool([count_take(gate_events(model, p.times_s, p.probs, settings), p.intervals, p.duration_s)
+                 for p in pieces])
+
+
+def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None, **grid) -> TuneResult:
+    """Tune every non-null class of ``model`` on labelled ``recordings``; the model is not
+    changed. ``grid``: thresholds, debounce, rearm (see ``candidates``)."""
+    takes = []
+    for i, r in enumerate(recordings):
+        t, p = hop_probabilities(model, r)
+        takes.append(Piece(t, p, tuple(sorted(r.intervals, key=lambda iv: iv.start_s)), r.freq_hz.shape[0] / r.rate_hz))
+        if progress:
+            progress(i + 1, len(recordings))
+    current = gate_settings_for(model.classes[1:], model.decision, model.kinds)
+    pieces = split_pieces(takes)
+    table = search_table(model, pieces, current, **grid)
+    everyone = np.ones(len(pieces), dtype=bool)
+
+    def cap_for(use):
+        """(cap, budget): never more false firings than the budget, nor than the starting
+        settings made on the same pieces (counted the way the search counts)."""
+        budget = int(np.floor(max_false_per_hour * _hours(pieces, use) + 1e-9))
+        start = sum(int(false[cands.index(current[name]), use].sum()) for name, (cands, _, false) in table.items())
+        return min(budget, start), budget
+
+    cap, budget = cap_for(everyone)
+    chosen, met = choose(table, everyone, cap, current)
+    held = []
+    held_met = True
+    if len(pieces) > 1:
+        for q in range(len(pieces)):
+            use = everyone.copy()
+            use[q] = False
+            c, _ = choose(table, use, cap_for(use)[0], current)
+            held.append(count_take(gate_events(model, pieces[q].times_s, pieces[q].probs, c), pieces[q].intervals,
+                                   pieces[q].duration_s))
+        ho = pool(held)
+        held_met = ho["false"] <= int(np.floor(max_false_per_hour * ho["take_hours"] + 1e-9))
+    else:
+        ho = None
+    return TuneResult(before=_score(model, takes, current), held_out=ho, in_sample=_score(model, takes, chosen),
+                      settings={g: s.to_dict() for g, s in chosen.items()}, budget=budget, met=met,
+                      held_out_met=held_met, pieces=len(pieces))
