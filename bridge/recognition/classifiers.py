@@ -382,6 +382,9 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     per_null = opts.pop("null_cases", None)
     stream = opts.pop("stream", "both")
     estimate = opts.pop("estimate", True)
+    mine_rounds = int(opts.pop("mine_rounds", 0))
+    mine_level = float(opts.pop("mine_level", 0.3))
+    mine_most = int(opts.pop("mine_most", 2000))
     w, y, g, classes, conditioning, spec = recording_windows(recordings, kinds, settings, progress)
     missing = [c for k, c in enumerate(classes) if not (y == k).any()]
     if missing:
@@ -398,6 +401,25 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
                          windows=spec, stream=stream, **opts)
 
     model = fit(np.ones(len(y), bool))
+    if mine_rounds and len(recordings) > 1:
+        # Out-of-fold mining: a model fitted without a recording finds the ordinary
+        # movement in it that looks like a gesture (in-sample, the model knows its own
+        # null windows' neighbours and finds almost none).
+        found_w, found_g = [], []
+        for i, rec in enumerate(recordings):
+            others = g != i
+            if len(np.unique(y[others])) < len(classes):
+                continue
+            mw, _ = hard_negatives(fit(others), [rec], kinds, settings, level=mine_level,
+                                   most=max(1, mine_most // len(recordings)))
+            found_w.append(mw)
+            found_g.append(np.full(len(mw), i))
+        if found_w and sum(len(x) for x in found_w):
+            w = np.concatenate([w, *found_w])
+            y = np.concatenate([y, np.zeros(sum(len(x) for x in found_w), dtype=y.dtype)])
+            g = np.concatenate([g, *found_g])
+            model = fit(np.ones(len(y), bool))
+        model.summary["hard_negatives"] = int(sum(len(x) for x in found_w))
     model.summary["recordings"] = len(set(g.tolist()))
     groups = np.unique(g)
     if estimate and len(groups) > 1:
@@ -416,6 +438,41 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         if n:
             model.summary["cross_validated_window_accuracy"] = round(correct / n, 4)
     return model
+
+
+def hard_negatives(model, recordings, kinds: dict[str, str], settings=None, level: float = 0.3,
+                   most: int = 2000) -> tuple[np.ndarray, np.ndarray]:
+    """Null windows of the training recordings that the model takes for a gesture: the
+    windows outside every labelled gesture (``training.label_windows`` null) whose highest
+    non-null probability, from the live recogniser run over the whole recording, is at
+    least ``level``. Returns (windows (m, 2, length, channels), recording index (m,)), the
+    ``most`` most confident, for training them as null (hard-negative mining).
+    """
+    from .training import TrainingSettings, condition_recording, label_windows
+    settings = settings or TrainingSettings()
+    found, conf, origin = [], [], []
+    length = model.windows.length
+    for i, r in enumerate(recordings):
+        streams = condition_recording(r, model.conditioning)
+        ends, prob = make_recogniser(model).push(streams[0], streams[1])
+        if not len(ends):
+            continue
+        ends = np.asarray(ends)
+        y = label_windows(ends, length, model.rate_hz, r.intervals, model.classes,
+                          {c: kinds.get(c, "gesture") for c in model.classes[1:]})
+        top = prob[:, 1:].max(axis=1)
+        pick = np.flatnonzero((y == 0) & (top >= level))
+        if not len(pick):
+            continue
+        idx = ends[pick][:, None] - length + np.arange(length)[None, :]
+        found.append(streams[:, idx].transpose(1, 0, 2, 3))      # (m, 2, length, channels)
+        conf.append(top[pick])
+        origin.append(np.full(len(pick), i))
+    if not found:
+        return np.empty((0, 2, length, model.n_channels)), np.empty(0, dtype=int)
+    wins, conf, origin = np.concatenate(found), np.concatenate(conf), np.concatenate(origin)
+    keep = np.sort(np.argsort(-conf, kind="stable")[:most])
+    return wins[keep], origin[keep]
 
 
 def window_scores(model, windows: np.ndarray) -> np.ndarray:

@@ -1,0 +1,170 @@
+"""The spotting protocol: does a model fire each deliberate gesture once and stay silent
+during ordinary movement, on a session it never saw?
+
+Per simulated wearer of a troupe (full vocabulary):
+
+- **fit** on two sessions, each with ``fit_reps`` repetitions of every gesture and
+  ``fit_null_s`` of ordinary movement;
+- **tune** (``drape tune``'s search) on a third session: ``tune_reps`` repetitions and
+  ``tune_null_s`` of ordinary movement;
+- **score** a fourth session: ``score_reps`` repetitions and ``score_null_s`` of ordinary
+  movement, with the one matcher, every firing counted.
+
+Leave-wearer-out: a model fitted on the other wearers' fit sessions and tuned on their
+tune sessions, scored on the held-out wearer's fourth session. Takes are rendered once
+into a cache folder and read back on later runs.
+"""
+
+from __future__ import annotations
+
+import json
+from dataclasses import asdict, dataclass
+from pathlib import Path
+
+import numpy as np
+
+from .matching import count_take, format_rate, pool
+
+
+@dataclass(frozen=True)
+class Protocol:
+    wearers: int = 6
+    seed: int = 1
+    fit_reps: int = 5
+    fit_null_s: float = 180.0
+    tune_reps: int = 3
+    tune_null_s: float = 600.0
+    score_reps: int = 3
+    score_null_s: float = 3600.0
+    vocabulary: str = "full"
+
+
+ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
+
+
+def ordinary_script(rng: np.random.Generator, seconds: float, kinds) -> list[tuple[str, float]]:
+    """Ordinary movement for ``seconds``: every kind of null activity in turn, shuffled,
+    10 to 40 s each."""
+    out, total = [], 0.0
+    while total < seconds:
+        order = list(kinds)
+        rng.shuffle(order)
+        for k in order:
+            d = float(min(rng.uniform(10.0, 40.0), seconds - total))
+            if d <= 0:
+                break
+            out.append((k, d))
+            total += d
+    return out
+
+
+def session_take(p: Protocol, wearer: int, role: str):
+    """The Recording of one wearer's session in its role: repetitions, then ordinary movement."""
+    from ..garment import FULL_GESTURES, FULL_NULL_ACTIVITIES, GESTURES, NULL_ACTIVITIES, Jacket
+    from ..garment.jacket import training_script
+    from ..sources import Recording
+    gestures, nulls = ((FULL_GESTURES, FULL_NULL_ACTIVITIES) if p.vocabulary == "full"
+                       else (GESTURES, NULL_ACTIVITIES))
+    reps, null_s = {"fit0": (p.fit_reps, p.fit_null_s), "fit1": (p.fit_reps, p.fit_null_s),
+                    "tune": (p.tune_reps, p.tune_null_s), "score": (p.score_reps, p.score_null_s)}[role]
+    session = ROLES[role]
+    rng = np.random.default_rng([p.seed, wearer, session, 29])
+    script = training_script(rng, reps, list(gestures), null_activities=tuple(nulls)) + \
+        ordinary_script(rng, null_s, nulls)
+    take = Jacket(seed=p.seed, wearer=wearer, session=session).perform(script)
+    return Recording.from_take(take, dict(gestures))
+
+
+def protocol_takes(p: Protocol, cache: str | Path, progress=None) -> dict:
+    """{(wearer, role): Recording}, rendered into ``cache`` once (a folder named by the protocol)."""
+    from ..sources import read_recording, write_recording
+    folder = Path(cache)
+    folder.mkdir(parents=True, exist_ok=True)
+    stamp = folder / "protocol.json"
+    if stamp.exists() and json.loads(stamp.read_text()) != asdict(p):
+        raise ValueError(f"{folder} holds takes of another protocol; give an empty folder")
+    stamp.write_text(json.dumps(asdict(p), indent=1))
+    out = {}
+    for w in range(p.wearers):
+        for role in ROLES:
+            path = folder / f"wearer{w}-{role}.take"
+            if not path.exists():
+                write_recording(path, session_take(p, w, role))
+            out[(w, role)] = read_recording(path)
+            if progress:
+                progress(f"take wearer{w}-{role}: {out[(w, role)].freq_hz.shape[0] / out[(w, role)].rate_hz / 60:.1f} min")
+    return out
+
+
+def score(model, rec, settings=None) -> dict:
+    """``matching.count_take`` of a model (with ``settings`` as its decision table, if given)
+    replayed over a take."""
+    from ..service import replay_events
+    if settings is not None:
+        model.decision = {**model.decision, **settings}
+    events = replay_events(rec, model, None, 5.0)
+    return count_take(events, rec.intervals, rec.freq_hz.shape[0] / rec.rate_hz)
+
+
+def fit_model(classifier: str, recs, **options):
+    from ..recognition.classifiers import fit_recordings
+    kinds = {}
+    for r in recs:
+        kinds.update(r.kinds)
+    return fit_recordings(classifier, recs, kinds, **options)
+
+
+def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_out: bool = True,
+                 progress=print, **options) -> dict:
+    """Rows per wearer (known-wearer) and for the held-out wearer: untuned and tuned counts."""
+    from .tuning import tune_model
+    takes = protocol_takes(p, cache, progress)
+    rows = {"default": [], "tuned": [], "wearers": []}
+    for w in range(p.wearers):
+        model = fit_model(classifier, [takes[(w, "fit0")], takes[(w, "fit1")]], **options)
+        rows["default"].append(score(model, takes[(w, "score")]))
+        t = tune_model(model, [takes[(w, "tune")]])
+        rows["tuned"].append(score(model, takes[(w, "score")], t.settings))
+        rows["wearers"].append(w)
+        if progress:
+            d, tt = rows["default"][-1], rows["tuned"][-1]
+            progress(f"wearer{w}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
+                     f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false "
+                     f"({tt['double']} double, {tt['wrong_name']} wrong name, {tt['ordinary']} ordinary)")
+    out = {"protocol": asdict(p), "classifier": classifier, "options": {k: str(v) for k, v in options.items()},
+           "per_wearer": rows, "known_default": pool(rows["default"]), "known_tuned": pool(rows["tuned"])}
+    if leave_wearer_out and p.wearers > 1:
+        held = p.wearers - 1
+        others = [w for w in range(p.wearers) if w != held]
+        model = fit_model(classifier, [takes[(w, r)] for w in others for r in ("fit0", "fit1")], **options)
+        d = score(model, takes[(held, "score")])
+        t = tune_model(model, [takes[(w, "tune")] for w in others])
+        tt = score(model, takes[(held, "score")], t.settings)
+        out["unseen_default"], out["unseen_tuned"] = pool([d]), pool([tt])
+        if progress:
+            progress(f"unseen wearer{held}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
+                     f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false")
+    return out
+
+
+def format_table(result: dict) -> list[str]:
+    """The protocol's table in Markdown: recall and every kind of false firing with its
+    rate and 95 % interval, per wearer (tuned) and pooled."""
+    lines = ["| who | setting | recall | double /h of take | wrong name /h of take | "
+             "ordinary /h of ordinary movement | all false /h of take |",
+             "|---|---|---|---|---|---|---|"]
+
+    def row(who, setting, p):
+        r = p["rates"]
+        rec = "n/a" if p["recall"] is None else f"{p['recall']:.3f} ({p['hit']}/{p['performed']})"
+        lines.append(f"| {who} | {setting} | {rec} | {format_rate(r['double_per_take_hour'])} | "
+                     f"{format_rate(r['wrong_name_per_take_hour'])} | {format_rate(r['ordinary_per_ordinary_hour'])} | "
+                     f"{format_rate(r['false_per_take_hour'])} |")
+    for w, c in zip(result["per_wearer"]["wearers"], result["per_wearer"]["tuned"]):
+        row(f"wearer{w}", "tuned", pool([c]))
+    row("pooled, known wearers", "default gate", result["known_default"])
+    row("pooled, known wearers", "tuned", result["known_tuned"])
+    if "unseen_tuned" in result:
+        row("unseen wearer", "default gate", result["unseen_default"])
+        row("unseen wearer", "tuned", result["unseen_tuned"])
+    return lines
