@@ -406,7 +406,8 @@ def cmd_capture(a) -> int:
                     return _err(f"no samples from {a.port} within {a.wait_s:g} s ({describe_counters(source.counters())})")
         rng = np.random.default_rng(a.seed)
         plan = capture_plan(rng, gestures, a.reps)
-        settings = CaptureSettings(a.reps, a.countdown_s, a.window_s, a.hold_s, (a.rest_s, a.rest_s * 2), a.lead_s)
+        settings = CaptureSettings(a.reps, a.countdown_s, a.window_s, a.hold_s, (a.rest_s, a.rest_s * 2), a.lead_s,
+                                   a.ordinary_s)
         writer = RecordingWriter(out, source.rate_hz, source.channel_names, wearer, session, layout, kinds)
     except (SourceGone, ProtocolUndecided, TakeWriteError) as exc:
         source.close()
@@ -626,8 +627,34 @@ def cmd_bench(a) -> int:
         return _bench_soak(a)
     if a.fuzz is not None:
         return _bench_fuzz(a)
+    if a.spotting:
+        return _bench_spotting(a)
     run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
             classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")))
+    return 0
+
+
+def _bench_spotting(a) -> int:
+    """`drape bench --spotting`: the spotting protocol on a simulated troupe; prints its table."""
+    import json
+    from .evaluation.spotting import Protocol, format_table, run_protocol
+    if a.spotting_wearers < 2 or a.spotting_score_min <= 0:
+        return _err("--spotting-wearers must be at least 2 and --spotting-score-min positive")
+    p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min)
+    cache = Path(a.spotting_cache or f"drape-spotting-{a.spotting_seed}-{a.spotting_wearers}-{a.spotting_score_min:g}")
+    classifier = (a.classifier or [DEFAULT_CLASSIFIER])[0]
+    print(f"spotting protocol, {classifier}: {p.wearers} simulated wearers, full vocabulary; fit on 2 sessions "
+          f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), tune on a third "
+          f"({p.tune_reps} + {p.tune_null_s / 60:g} min), score a fourth ({p.score_reps} + {p.score_null_s / 60:g} min); "
+          f"takes cached in {cache}", flush=True)
+    try:
+        result = run_protocol(p, classifier, cache, progress=lambda m: print("  " + m, flush=True))
+    except ValueError as exc:
+        return _err(str(exc))
+    print("\n".join(format_table(result)))
+    if a.spotting_json:
+        Path(a.spotting_json).write_text(json.dumps(result, indent=1, default=str), encoding="utf-8")
+        print(f"{a.spotting_json}: written")
     return 0
 
 
@@ -1034,6 +1061,14 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--soak-model", metavar="MODEL", help="--soak: a model of simulated wearer 1 (default: train one)")
     b.add_argument("--soak-out", metavar="DIR", help="--soak: keep the captured take and live events in DIR")
     b.add_argument("--soak-heap", action="store_true", help="--soak: also trace Python heap growth (slower)")
+    b.add_argument("--spotting", action="store_true",
+                   help="the spotting protocol: fit, tune and score sessions of a simulated troupe, every firing counted")
+    b.add_argument("--spotting-wearers", type=int, default=6, help="--spotting: simulated wearers (default 6)")
+    b.add_argument("--spotting-score-min", type=float, default=60.0,
+                   help="--spotting: minutes of ordinary movement in each scored session (default 60)")
+    b.add_argument("--spotting-seed", type=int, default=1)
+    b.add_argument("--spotting-cache", metavar="DIR", help="--spotting: folder for the rendered takes (kept for reruns)")
+    b.add_argument("--spotting-json", metavar="FILE", help="--spotting: also write the full result as JSON")
     b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")
     b.add_argument("--fuzz-target", action="append", choices=("text", "frames", "osc", "control", "mapping", "model"),
                    help="--fuzz: only this parser (repeatable)")
@@ -1109,6 +1144,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--hold-s", type=float, default=5.0, help="time a posture is held, s")
     g.add_argument("--rest-s", type=float, default=2.0, help="shortest rest between prompts, s (up to twice this)")
     g.add_argument("--lead-s", type=float, default=4.0, help="null activity recorded before the first prompt, s")
+    g.add_argument("--ordinary-s", type=float, default=180.0,
+                   help="ordinary movement recorded after the last prompt, s (default 180: the model learns "
+                        "from it to stay silent when no gesture is meant)")
     g.add_argument("--seed", type=int, default=0, help="seeds the prompt order (and the simulated jacket)")
     g.add_argument("--fast", action="store_true", help="simulated: run as fast as possible")
     g.add_argument("--sim-wearer", type=int, default=0)

@@ -15,7 +15,8 @@ from bridge.sources.simulated import PromptedSimulatedSource
 
 from conftest import drape_cmd
 
-FAST = CaptureSettings(repetitions=2, countdown_s=1.0, window_s=3.0, hold_s=5.0, rest_s=(1.0, 2.0), lead_s=2.0)
+FAST = CaptureSettings(repetitions=2, countdown_s=1.0, window_s=3.0, hold_s=5.0, rest_s=(1.0, 2.0), lead_s=2.0,
+                       ordinary_s=5.0)
 
 
 def test_plan_is_balanced_and_never_repeats_back_to_back():
@@ -99,10 +100,13 @@ def test_capture_command_gives_a_take_that_fits(tmp_path, capsys):
     out = tmp_path / "dancer.take"
     code = main(["capture", "--simulated", "--yes", "--fast", "--no-keys", "--reps", "3", "--gestures",
                  "raise_right,arms_crossed,tap_left_sleeve", "--wearer", "dancer", "--session", "s1",
-                 "--countdown-s", "1", "--rest-s", "1", "--out", str(out)])
+                 "--countdown-s", "1", "--rest-s", "1", "--ordinary-s", "30", "--out", str(out)])
     printed = capsys.readouterr().out
     assert code == 0 and "saved" in printed and "9 labelled" in printed
+    assert "0.5 min of ordinary movement" in printed
     rec = read_recording(out)
+    # the ordinary movement after the last prompt is in the take, unlabelled
+    assert rec.t_s[-1] >= max(iv.end_s for iv in rec.intervals) + 30.0
     assert rec.wearer == "dancer" and rec.session == "s1" and len(rec.intervals) == 9
     assert rec.kinds["arms_crossed"] == "posture"
     # What `drape fit` needs of a take (the fit itself is left to the end-to-end tests, being
@@ -149,7 +153,8 @@ def test_capture_from_a_port_detects_the_layout_and_records(tmp_path, capsys):
     master, slave = os.openpty()
     out = tmp_path / "port.take"
     argv = ["capture", "--port", os.ttyname(slave), "--yes", "--no-keys", "--reps", "1", "--gestures",
-            "raise_right,bow", "--lead-s", "1", "--countdown-s", "1", "--rest-s", "1", "--out", str(out)]
+            "raise_right,bow", "--lead-s", "1", "--countdown-s", "1", "--rest-s", "1", "--ordinary-s", "3",
+            "--out", str(out)]
     def garment():
         time.sleep(1.0)  # capture has the port open (raw mode) by then
         try:

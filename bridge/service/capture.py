@@ -7,6 +7,11 @@ a real-time simulation and a fast simulation all behave the same. For each promp
     perform    "now: NAME" for window_s (gestures) or hold_s (postures); the label covers it
     rest       a random stretch of null activity before the next countdown
 
+After the last prompt, ``ordinary_s`` of ordinary movement: the wearer stands, walks,
+talks with the hands and adjusts the garment, performing none of the gestures. It is the
+null class the model learns to stay silent on; too little of it, and the garment fires
+cues during ordinary movement.
+
 Everything is written as it arrives (RecordingWriter: a crash loses at most a second). Keys:
 ``r`` redo the last prompt (its label is withdrawn and it is asked again next), ``s`` skip
 the current (or coming) prompt, ``q`` finish early.
@@ -18,7 +23,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-COUNTDOWN, PERFORM, REST, DONE = "countdown", "perform", "rest", "done"
+COUNTDOWN, PERFORM, REST, ORDINARY, DONE = "countdown", "perform", "rest", "ordinary", "done"
+ORDINARY_HINT = "stand, walk, talk with your hands, adjust the garment; perform none of the gestures"
 
 
 @dataclass(frozen=True)
@@ -31,6 +37,7 @@ class CaptureSettings:
     hold_s: float = 5.0        # time a posture is held after "now"
     rest_s: tuple = (2.0, 4.0)
     lead_s: float = 4.0        # null activity before the first countdown
+    ordinary_s: float = 180.0  # ordinary movement after the last prompt
 
 
 def capture_plan(rng: np.random.Generator, gestures, repetitions: int) -> list[str]:
@@ -83,8 +90,17 @@ class CaptureSession:
         out = []
         while self.phase != DONE and now_s >= self.phase_end_s:
             t = self.phase_end_s
+            if self.phase == ORDINARY:
+                self.phase = DONE
+                out.append("ordinary movement done: all done")
+                break
             if self.phase == REST:
                 if self.current is None:
+                    if self.settings.ordinary_s > 0:
+                        self.phase, self.phase_end_s = ORDINARY, t + self.settings.ordinary_s
+                        out.append(f"all prompts done; now {self.settings.ordinary_s / 60:g} min of ordinary movement: "
+                                   f"{ORDINARY_HINT}")
+                        continue
                     self.phase = DONE
                     out.append("all prompts done")
                     break
@@ -156,6 +172,8 @@ class CaptureSession:
             return f"{bar}  NOW: {self.current} " + ">" * k + " " * (10 - k)
         if self.phase == REST:
             return f"{bar}  rest, stand easy ({left:.0f} s)"
+        if self.phase == ORDINARY:
+            return f"{bar}  ordinary movement, no gestures ({left:.0f} s left)"
         return f"{bar}  done"
 
 
