@@ -522,6 +522,10 @@ def cmd_fit(a) -> int:
             source = f"{len(y)} cases of {a.ts}"
         else:
             recs, kinds = _read_takes(a.recordings)
+            if a.ordinary:
+                if a.classifier == "linear":
+                    raise ValueError("--ordinary applies to --classifier minirocket or dtw")
+                options["ordinary"] = _read_takes(a.ordinary)[0]
             model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
             source = f"{len(recs)} takes"
     except (RecordingError, TsFormatError, ValueError) as exc:
@@ -1024,6 +1028,9 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
                    help="band-pass edges, Hz (default 1 to 10 Hz, the upper edge lowered to 0.4 × the rate "
                         "for slow sources); stored in the model")
+    f.add_argument("--ordinary", metavar="TAKE", action="append", default=[],
+                   help="a take of ordinary movement only (no labels), from this wearer or others, added to "
+                        "the null class (repeatable); minirocket and dtw")
     f.add_argument("--band", type=float, metavar="FRACTION",
                    help="dtw: warping band as a fraction of the window (0 = no warping, 1 = unconstrained; default 0.1)")
     f.add_argument("--no-rejection", action="store_true",

@@ -37,6 +37,8 @@ class Protocol:
     score_reps: int = 3
     score_null_s: float = 3600.0
     vocabulary: str = "full"
+    prior_wearers: int = 0        # other simulated people whose ordinary movement is added to every fit
+    prior_s: float = 600.0        # ordinary movement of each, s
 
 
 ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
@@ -75,6 +77,17 @@ def session_take(p: Protocol, wearer: int, role: str):
     return Recording.from_take(take, dict(gestures))
 
 
+def prior_take(p: Protocol, k: int):
+    """Ordinary movement of the k-th prior person: a wearer of another seed, so nobody the
+    protocol scores."""
+    from ..garment import FULL_NULL_ACTIVITIES, NULL_ACTIVITIES, Jacket
+    from ..sources import Recording
+    nulls = FULL_NULL_ACTIVITIES if p.vocabulary == "full" else NULL_ACTIVITIES
+    rng = np.random.default_rng([p.seed + 1000, k, 31])
+    take = Jacket(seed=p.seed + 1000, wearer=k, session=0).perform(ordinary_script(rng, p.prior_s, nulls))
+    return Recording.from_take(take, {})
+
+
 def protocol_takes(p: Protocol, cache: str | Path, progress=None) -> dict:
     """{(wearer, role): Recording}, rendered into ``cache`` once (a folder named by the protocol)."""
     from ..sources import read_recording, write_recording
@@ -93,6 +106,11 @@ def protocol_takes(p: Protocol, cache: str | Path, progress=None) -> dict:
             out[(w, role)] = read_recording(path)
             if progress:
                 progress(f"take wearer{w}-{role}: {out[(w, role)].freq_hz.shape[0] / out[(w, role)].rate_hz / 60:.1f} min")
+    for k in range(p.prior_wearers):
+        path = folder / f"prior{k}.take"
+        if not path.exists():
+            write_recording(path, prior_take(p, k))
+        out[(k, "prior")] = read_recording(path)
     return out
 
 
@@ -115,10 +133,12 @@ def fit_model(classifier: str, recs, **options):
 
 
 def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_out: bool = True,
-                 progress=print, **options) -> dict:
+                 progress=print, use_prior: bool = True, **options) -> dict:
     """Rows per wearer (known-wearer) and for the held-out wearer: untuned and tuned counts."""
     from .tuning import tune_model
     takes = protocol_takes(p, cache, progress)
+    if p.prior_wearers and use_prior:
+        options = {**options, "ordinary": [takes[(k, "prior")] for k in range(p.prior_wearers)]}
     rows = {"default": [], "tuned": [], "wearers": []}
     for w in range(p.wearers):
         model = fit_model(classifier, [takes[(w, "fit0")], takes[(w, "fit1")]], **options)
@@ -131,7 +151,8 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
             progress(f"wearer{w}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
                      f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false "
                      f"({tt['double']} double, {tt['wrong_name']} wrong name, {tt['ordinary']} ordinary)")
-    out = {"protocol": asdict(p), "classifier": classifier, "options": {k: str(v) for k, v in options.items()},
+    out = {"protocol": asdict(p), "classifier": classifier,
+           "options": {k: (f"{len(v)} takes" if k == "ordinary" else str(v)) for k, v in options.items()},
            "per_wearer": rows, "known_default": pool(rows["default"]), "known_tuned": pool(rows["tuned"])}
     if leave_wearer_out and p.wearers > 1:
         held = p.wearers - 1

@@ -385,12 +385,22 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     mine_rounds = int(opts.pop("mine_rounds", 0))
     mine_level = float(opts.pop("mine_level", 0.3))
     mine_most = int(opts.pop("mine_most", 2000))
-    w, y, g, classes, conditioning, spec = recording_windows(recordings, kinds, settings, progress)
+    ordinary = list(opts.pop("ordinary", None) or ())
+    ordinary_cases = int(opts.pop("ordinary_cases", per_null or 1500))
+    recordings = list(recordings)
+    for r in ordinary:
+        if r.intervals:
+            raise ValueError("ordinary-movement takes must hold no labelled gestures; "
+                             f"one holds {len(r.intervals)} (of {', '.join(sorted({iv.label for iv in r.intervals}))})")
+    w, y, g, classes, conditioning, spec = recording_windows(recordings + ordinary, kinds, settings, progress)
     missing = [c for k, c in enumerate(classes) if not (y == k).any()]
     if missing:
         raise ValueError(f"no usable windows for: {', '.join(missing)} (recordings too short or gestures longer than the window)")
+    own = g < len(recordings)
     if per_class:
-        keep = _thin(y, per_class, per_null)
+        keep = np.flatnonzero(own)[_thin(y[own], per_class, per_null)]
+        if ordinary:   # ordinary movement of others: null windows of their own quota
+            keep = np.sort(np.concatenate([keep, np.flatnonzero(~own)[_thin(y[~own], ordinary_cases)]]))
         w, y, g = w[keep], y[keep], g[keep]
     labels = list(classes[1:])
     channels = tuple(recordings[0].channel_names)
@@ -420,7 +430,9 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
             g = np.concatenate([g, *found_g])
             model = fit(np.ones(len(y), bool))
         model.summary["hard_negatives"] = int(sum(len(x) for x in found_w))
-    model.summary["recordings"] = len(set(g.tolist()))
+    model.summary["recordings"] = len(set(g[g < len(recordings)].tolist()))
+    if ordinary:
+        model.summary["ordinary_takes"] = len(ordinary)
     groups = np.unique(g)
     if estimate and len(groups) > 1:
         folds = groups % min(5, len(groups))
