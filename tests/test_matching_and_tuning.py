@@ -102,3 +102,15 @@ def test_a_missed_budget_exits_non_zero_and_stores_nothing(demo_model_file, tmp_
     assert "budget missed" in capsys.readouterr().err and not out.exists()
     assert main(["tune", "--model", str(demo_model_file), str(path), "-o", str(out), "--store-anyway"]) == 0
     assert out.exists()
+
+
+def test_evaluate_and_tune_print_the_same_counts_for_the_same_take(demo_model_file, tmp_path, capsys):
+    import json
+    path = write_recording(tmp_path / "same.take", take(11, 120.0))
+    assert main(["evaluate", "--model", str(demo_model_file), str(path), "--json"]) == 0
+    ev = json.loads(capsys.readouterr().out)["events"]
+    model = load_model(demo_model_file)
+    before = tune_model(model, [take(11, 120.0)], thresholds=(0.5,), debounce=((3, 4),)).before
+    keys = ("performed", "hit", "missed", "double", "wrong_name", "ordinary", "false")
+    assert {k: ev[k] for k in keys} == {k: before[k] for k in keys}
+    assert ev["performed"] > 10
