@@ -385,6 +385,7 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     mine_rounds = int(opts.pop("mine_rounds", 0))
     mine_level = float(opts.pop("mine_level", 0.3))
     mine_most = int(opts.pop("mine_most", 2000))
+    mine_folds = int(opts.pop("mine_folds", 3))
     ordinary = list(opts.pop("ordinary", None) or ())
     ordinary_cases = int(opts.pop("ordinary_cases", per_null or 1500))
     recordings = list(recordings)
@@ -415,15 +416,18 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         # Out-of-fold mining: a model fitted without a recording finds the ordinary
         # movement in it that looks like a gesture (in-sample, the model knows its own
         # null windows' neighbours and finds almost none).
+        # At most ``mine_folds`` fits: recording i is mined by the model of fold i mod k.
+        k = min(mine_folds, len(recordings))
         found_w, found_g = [], []
-        for i, rec in enumerate(recordings):
-            others = g != i
+        for f in range(k):
+            mined = [i for i in range(len(recordings)) if i % k == f]
+            others = ~np.isin(g, mined)
             if len(np.unique(y[others])) < len(classes):
                 continue
-            mw, _ = hard_negatives(fit(others), [rec], kinds, settings, level=mine_level,
-                                   most=max(1, mine_most // len(recordings)))
+            mw, origin = hard_negatives(fit(others), [recordings[i] for i in mined], kinds, settings,
+                                        level=mine_level, most=max(1, mine_most * len(mined) // len(recordings)))
             found_w.append(mw)
-            found_g.append(np.full(len(mw), i))
+            found_g.append(np.asarray(mined)[origin] if len(origin) else np.empty(0, dtype=int))
         if found_w and sum(len(x) for x in found_w):
             w = np.concatenate([w, *found_w])
             y = np.concatenate([y, np.zeros(sum(len(x) for x in found_w), dtype=y.dtype)])
