@@ -71,11 +71,13 @@ def _open_one(d):
     return open_output(d)
 
 
-def _default_mapping() -> Path | None:
-    for p in (Path.cwd() / "mappings" / "demo.toml", Path(__file__).resolve().parent.parent / "mappings" / "demo.toml"):
-        if p.is_file():
-            return p
-    return None
+def _default_mapping() -> Path:
+    """mappings/demo.toml in the current folder (a checkout, or the user's own copy), else the shipped one."""
+    here = Path.cwd() / "mappings" / "demo.toml"
+    if here.is_file():
+        return here
+    from .examples_data import example_path
+    return example_path("demo.toml")
 
 
 def _open_outputs(mapping, open_fn=None):
@@ -124,8 +126,6 @@ def cmd_demo(a) -> int:
     from .sources.simulated import SimulatedSource
 
     mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
-    if mapping_path is None:
-        return _err("no mappings/demo.toml here; run from the drape checkout or pass --mapping FILE")
     if a.model:  # a model of the simulated jacket saved before: no training wait
         from .recognition import ModelError, load_model
         try:
@@ -150,7 +150,11 @@ def cmd_demo(a) -> int:
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
         print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
-    print(f"edit {mapping_path} while this runs: saved changes take effect at once", flush=True)
+    if a.mapping or mapping_path.parent.name == "mappings":
+        print(f"edit {mapping_path} while this runs: saved changes take effect at once", flush=True)
+    else:  # the copy shipped inside the package: not the file to edit
+        print(f"mapping: the built-in demo mapping; copy {mapping_path} to a folder of yours, edit it and pass "
+              f"--mapping FILE (saved changes take effect at once)", flush=True)
     source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s)
     stop = StopFlag()
     _stop_on_signals(stop)
@@ -445,21 +449,10 @@ def cmd_capture(a) -> int:
 
 
 def _progress(desc: str):
-    """A progress callback (done, total) drawing a tqdm bar on stderr, and its closer.
-
-    Without tqdm (the ``progress`` extra) the work runs without a bar.
-    """
-    try:
-        from tqdm import tqdm
-    except ImportError:
-        return None, lambda: None
-    bar = tqdm(desc=desc, file=sys.stderr, leave=False, disable=None, unit="step")
-
-    def step(done: int, total: int) -> None:
-        bar.total = total
-        bar.n = done
-        bar.refresh()
-    return step, bar.close
+    """A progress callback (done, total) drawing a bar on stderr when it is a terminal, and its closer."""
+    from .progress import progress_bar
+    bar = progress_bar(desc)
+    return bar, bar.close
 
 
 def _read_takes(paths):
@@ -637,6 +630,11 @@ def _bench_soak(a) -> int:
         return _err(str(exc))
     print(f"soak: {a.soak:g} simulated hours through the live loop (blocks of 10-50 ms, OSC to loopback, take captured)",
           flush=True)
+    if a.soak_out:  # made here, so a bad folder is named before the hours of stream, not after
+        try:
+            Path(a.soak_out).mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            return _err(f"--soak-out {a.soak_out}: cannot make this folder ({exc.strerror or exc})")
     r = soak(a.soak, model=model, out_dir=a.soak_out, heap=a.soak_heap, report=lambda t: print(t, flush=True))
     for line in r.lines():
         print(line)

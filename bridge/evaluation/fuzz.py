@@ -495,11 +495,9 @@ def model_seed_members() -> list[dict[str, bytes]]:
 
 
 def _mapping_texts() -> tuple[list[str], Path]:
-    root = Path(__file__).resolve().parents[2]
-    texts = [p.read_text(encoding="utf-8") for p in sorted((root / "mappings").glob("*.toml"))]
-    texts += [p.read_text(encoding="utf-8") for p in sorted((root / "examples" / "service").glob("*.toml"))
-              if "[[rule]]" in p.read_text(encoding="utf-8")]
-    return texts, root / "mappings"
+    """The shipped example mappings (seeds for the mapping fuzzer) and a folder for relative paths."""
+    from ..examples_data import NAMES, example_path, example_text
+    return [example_text(n) for n in NAMES], example_path("demo.toml").parent
 
 
 TARGETS = ("text", "frames", "osc", "control", "mapping", "model")

@@ -17,7 +17,7 @@ def _plt():
     try:
         import matplotlib
     except ImportError:
-        raise ImportError("the report's pictures need matplotlib: pip install 'drape[plot]'") from None
+        raise ImportError("the report's pictures need matplotlib: pip install 'drape-bridge[plot]'") from None
     matplotlib.use("Agg")  # files only, no display needed
     import matplotlib.pyplot as plt
     return plt

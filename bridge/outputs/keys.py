@@ -125,7 +125,7 @@ class PynputKeyboard(Keyboard):
             from pynput import keyboard
         except ImportError as exc:
             if "pynput" in str(exc) and "No module" in str(exc):
-                raise OutputUnavailable("keys: pynput is not installed; pip install 'drape[keys]'") from None
+                raise OutputUnavailable("keys: pynput is not installed; pip install 'drape-bridge[keys]'") from None
             raise OutputUnavailable(f"keys: cannot reach the display {os.environ.get('DISPLAY', '')!r}: "
                                     f"{str(exc).strip().splitlines()[0]}") from None
         try:
@@ -229,7 +229,7 @@ class UinputKeyboard(Keyboard):
         try:
             from evdev import UInput, ecodes
         except ImportError:
-            raise OutputUnavailable("keys: python-evdev is not installed; pip install 'drape[uinput]'") from None
+            raise OutputUnavailable("keys: python-evdev is not installed; pip install 'drape-bridge[uinput]'") from None
         self._ecodes = ecodes
         self._codes = {k: getattr(ecodes, v) for k, v in uinput_code_names().items()}
         try:

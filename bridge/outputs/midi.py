@@ -90,7 +90,7 @@ class MidiPortOutput(Output):
         except ImportError as exc:
             raise OutputUnavailable(
                 f"MIDI output {name!r}: the MIDI backend {api!r} cannot load ({exc}); "
-                "install the extra: pip install 'drape[midi]'") from None
+                "install the extra: pip install 'drape-bridge[midi]'") from None
         if virtual and not port_name:
             raise ValueError(f"MIDI output {name!r}: a virtual port needs a port_name")
         try:
