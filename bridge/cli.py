@@ -125,11 +125,25 @@ def cmd_demo(a) -> int:
     from .service import Pipeline, StopFlag, run
     from .sources.simulated import SimulatedSource
 
+    import numpy as np
+    from .evaluation.narration import Narrator
+    from .garment import GESTURES, tour_script
+    from .recognition import ModelError
+
     mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
+    # The simulated wearer first performs each gesture once (a tour), then at random.
+    tour = [g for g in GESTURES]
+    source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s,
+                             first=tour_script(np.random.default_rng([a.seed, a.wearer, 23]), tour))
     if a.model:  # a model of the simulated jacket saved before: no training wait
-        from .recognition import ModelError, load_model
+        from .recognition import load_model
         try:
             model = load_model(a.model)
+            model.check_source(len(source.channel_names), source.rate_hz)
+            if tuple(model.channel_names) != source.channel_names:
+                raise ModelError(f"{a.model} was trained on channels {', '.join(model.channel_names)}; the simulated "
+                                 f"jacket has {', '.join(source.channel_names)}: use a model of the simulated jacket "
+                                 f"(or leave out --model to train one)")
         except ModelError as exc:
             return _err(str(exc))
         print(f"model {a.model}: {len(model.classes) - 1} gestures", flush=True)
@@ -149,26 +163,37 @@ def cmd_demo(a) -> int:
     mapping = watcher.mapping
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
-        print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
+        if name in outputs:  # one that could not open was reported as left out
+            print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
     if a.mapping or mapping_path.parent.name == "mappings":
         print(f"edit {mapping_path} while this runs: saved changes take effect at once", flush=True)
     else:  # the copy shipped inside the package: not the file to edit
         print(f"mapping: the built-in demo mapping; copy {mapping_path} to a folder of yours, edit it and pass "
               f"--mapping FILE (saved changes take effect at once)", flush=True)
-    source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s)
+    narrator = Narrator(source.truth, say=lambda line: print(line, flush=True))
+    source.on_read = narrator.on_read
+
+    def on_event(e, timing=None):
+        if not narrator.on_event(e):
+            _print_event(e, timing)
+
     stop = StopFlag()
     _stop_on_signals(stop)
-    print("the simulated wearer is performing; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
+    print("the simulated wearer is performing: each of the " f"{len(tour)} demo gestures once (about 50 s), then at "
+          "random; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
     try:
-        stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=_print_event,
+        stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=on_event,
                     watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report)
     finally:
         _close_outputs(outputs)
         if inbox:
             inbox.close()
-    performed = [iv for iv in source.truth if iv.end_s <= stats.samples / source.rate_hz]
-    print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {stats.samples / source.rate_hz:.1f} s of stream, "
-          f"{len(performed)} gestures performed, {stats.events} events", flush=True)
+    end_s = stats.samples / source.rate_hz
+    t = narrator.summary(end_s)
+    under_way = f"; {t['open']} still under way at the stop, not counted" if t["open"] else ""
+    print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {end_s:.1f} s of stream; "
+          f"{t['performed']} gestures performed, {t['recognised']} recognised, {t['missed']} missed, "
+          f"{t['false_triggers']} false {'trigger' if t['false_triggers'] == 1 else 'triggers'}{under_way}", flush=True)
     return 0
 
 

@@ -195,7 +195,7 @@ def soak(hours: float, model=None, mapping_path=None, seed: int = 5, block_s=(0.
     """Run ``hours`` of simulated performance through the live loop and compare with replay.
 
     model: a loaded ``Model`` of simulated wearer 1, jacket seed 4 (None: train a small one,
-    about half a minute). mapping_path: an OSC mapping (default mappings/demo.toml); its destinations are
+    a few seconds). mapping_path: an OSC mapping (default mappings/demo.toml); its destinations are
     pointed at a loopback receiver. warmup_s: stream time before the first memory reading
     (default: a tenth of the soak, at least 60 s, at most 10 min). out_dir: where the take
     goes (default a temporary folder, removed afterwards). heap: also trace the Python heap.
