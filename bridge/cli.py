@@ -301,7 +301,9 @@ def cmd_start(a) -> int:
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
           + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:
-        print(f"drape: waiting for the garment ({source.last_error})", file=sys.stderr, flush=True)
+        hint = "" if cfg.input != "serial" or "drape ports" in source.last_error else \
+            "; `drape ports` lists the serial ports of this machine"
+        print(f"drape: waiting for the garment ({source.last_error}){hint}", file=sys.stderr, flush=True)
     if hasattr(source, "on_change"):
         source.on_change = said
 

@@ -120,7 +120,7 @@ class PynputKeyboard(Keyboard):
         if sys.platform.startswith("linux") and not os.environ.get("DISPLAY"):
             raise OutputUnavailable(
                 "keys: no X display (DISPLAY is not set). Run drape inside the desktop session "
-                "that should receive the keys, or use key_backend = \"uinput\" (Linux, needs /dev/uinput)")
+                "that should receive the keys, or give the destination keys = \"uinput\" (Linux, needs /dev/uinput)")
         try:
             from pynput import keyboard
         except ImportError as exc:

@@ -3,8 +3,8 @@
 A config names a port by its path (``/dev/ttyACM0``, ``COM4``), or by its USB identity so a
 garment plugged into another socket is still found:
 
-    usb:2341:8037             vendor id : product id (hex), the first such device
-    usb:2341:8037:5A3F2B11    ... with this USB serial number
+    usb:f00d:0001             vendor id : product id (hex), the first such device
+    usb:f00d:0001:5A3F2B11    ... with this USB serial number
     serial:5A3F2B11           any device with this USB serial number
 
 pyserial URLs (``loop://``, ``socket://host:port``) are passed through.
