@@ -1,8 +1,8 @@
 """Keystrokes: our key names pressed through a small keyboard backend.
 
 Cautions. Keys go to whatever window has the focus at that moment, which may not be the
-one you meant; keep the show computer's focus fixed and map a disarm gesture
-(``Release(disarm=True)``). Keys are pressed only for gestures of the wearer: no network
+one you meant; keep the show computer's focus fixed and give the wearer a way to disarm
+(a mapping's ``[safety] arm_posture``; disarming sends ``Release(disarm=True)`` here). Keys are pressed only for gestures of the wearer: no network
 input ever reaches this output. Every key held down is let go on ``up``, on ``Release``,
 on close and when pressing fails half-way.
 
