@@ -890,11 +890,15 @@ def cmd_range(a) -> int:
             source = SerialTextSource(a.port, model.n_channels, model.rate_hz, a.baud, model.channel_names)
             settings, names = model.conditioning, model.channel_names
         else:
-            source, settings, names = _simulated_range_source(a.seed, a.wearer)
+            source, settings, names = _simulated_range_source(a.seed, a.wearer, a.seconds, a.countdown_s)
     except (SourceGone, ValueError) as exc:
         return _err(str(exc))
+    if a.seconds <= 0 or a.countdown_s < 0:
+        source.close()
+        return _err("--seconds must be above 0 and --countdown-s 0 or more")
     try:
-        rng = capture_range(source, Conditioner(settings), names, a.seconds, prompt=lambda t: print(t, flush=True))
+        rng = capture_range(source, Conditioner(settings), names, a.seconds, prompt=lambda t: print(t, flush=True),
+                            countdown_s=a.countdown_s, leave_out_flat=a.leave_out_flat)
     except RangeError as exc:
         return _err(str(exc))
     finally:
@@ -902,12 +906,16 @@ def cmd_range(a) -> int:
     rng.save(a.out)
     for n, lo, hi in zip(rng.channel_names, rng.relaxed, rng.closest):
         print(f"  {n:<14} relaxed {lo:+.4f}  closest {hi:+.4f}  (ΔC/C0)")
+    flat = [n for n in names if n not in rng.channel_names]
+    if flat:
+        print(f"  left out (did not rise): {', '.join(flat)}; a control cannot mix them with this range file")
     print(f"{a.out}: written; use it in a mapping's [[control]] as range = \"{a.out}\"")
     return 0
 
 
-def _simulated_range_source(seed: int, wearer: int):
-    """The simulated wearer standing, then holding hands on hips (near the front antennas)."""
+def _simulated_range_source(seed: int, wearer: int, seconds: float = 5.0, countdown_s: float = 3.0):
+    """The simulated wearer standing, then holding hands on hips (near the front antennas),
+    timed to the captures: the move to the posture happens during the second countdown."""
     import numpy as np
     from .garment import Jacket
     from .signal import BandPass
@@ -915,7 +923,8 @@ def _simulated_range_source(seed: int, wearer: int):
     from .sources.replay import ReplaySource
 
     jacket = Jacket(seed=seed, wearer=wearer, session=0)
-    take = jacket.perform([("standing", 6.0), ("hands_on_hips", 6.0)])
+    take = jacket.perform([("standing", countdown_s + seconds + 0.5),
+                           ("hands_on_hips", countdown_s + seconds + 1.0)])
     rec = Recording(take.rate_hz, tuple(take.channel_names), take.t_s, take.freq_hz)
     return ReplaySource(rec, 0.1), BandPass(take.rate_hz), tuple(take.channel_names)
 
@@ -1070,6 +1079,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--model", help="model of this garment (channel names and rate); needed with --port")
     g.add_argument("--baud", type=int, default=115200)
     g.add_argument("--seconds", type=float, default=5.0, help="length of each capture, s")
+    g.add_argument("--countdown-s", type=float, default=3.0, help="countdown before each capture, s (0: none)")
+    g.add_argument("--leave-out-flat", action="store_true",
+                   help="leave out of the range file the channels whose level did not rise in the second capture")
     g.add_argument("--seed", type=int, default=1)
     g.add_argument("--wearer", type=int, default=0)
     g.set_defaults(func=cmd_range)
