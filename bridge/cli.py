@@ -191,9 +191,12 @@ def cmd_demo(a) -> int:
     end_s = stats.samples / source.rate_hz
     t = narrator.summary(end_s)
     under_way = f"; {t['open']} still under way at the stop, not counted" if t["open"] else ""
+    kinds = (f" ({t['doubles']} double, {t['wrong_name']} wrong name, {t['ordinary']} in ordinary movement)"
+             if t["false_triggers"] and {"doubles", "wrong_name", "ordinary"} <= set(t) else "")
     print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {end_s:.1f} s of stream; "
           f"{t['performed']} gestures performed, {t['recognised']} recognised, {t['missed']} missed, "
-          f"{t['false_triggers']} false {'trigger' if t['false_triggers'] == 1 else 'triggers'}{under_way}", flush=True)
+          f"{t['false_triggers']} false {'trigger' if t['false_triggers'] == 1 else 'triggers'}{kinds}{under_way}",
+          flush=True)
     return 0
 
 

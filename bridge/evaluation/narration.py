@@ -14,6 +14,14 @@ from dataclasses import fields
 from .matching import FIRING, match_events
 
 
+KIND_WORDS = {  # how a false firing is marked, by the matcher's name for its kind
+    "ordinary": "FALSE TRIGGER: not performed",
+    "doubles": "FALSE TRIGGER: fired again for the same gesture",
+    "double": "FALSE TRIGGER: fired again for the same gesture",
+    "wrong_name": "FALSE TRIGGER: another gesture was performed",
+}
+
+
 class Narrator:
     """Lines about a live simulated performance.
 
@@ -87,12 +95,11 @@ class Narrator:
                 if e.kind == "entered":
                     return f"{e.t_s:9.2f} s    → {e.gesture} entered {e.confidence:.2f}, {_after(e.t_s - iv.start_s, 'began')}"
                 return f"{e.t_s:9.2f} s    → {e.gesture} {e.confidence:.2f}, {_after(e.t_s - iv.end_s, 'ended')}"
+        for f in fields(m):  # the kinds of false firing the matcher names, when it names them
+            if f.name not in ("hits", "missed", "false") and any(x is e for x in getattr(m, f.name)):
+                return f"{e.t_s:9.2f} s    → {e.gesture} {e.confidence:.2f}  {KIND_WORDS.get(f.name, f.name.upper())}"
         if any(x is e for x in m.false):
-            return f"{e.t_s:9.2f} s    → {e.gesture} {e.confidence:.2f}  FALSE TRIGGER: not performed"
-        for f in fields(m):  # a kind of firing the matcher names beyond hits and false ones
-            if f.name not in ("hits", "missed", "false") and any(x is e or (isinstance(x, tuple) and e in x)
-                                                                 for x in getattr(m, f.name)):
-                return f"{e.t_s:9.2f} s    → {e.gesture} {e.confidence:.2f}  {f.name.replace('_', ' ').upper()}"
+            return f"{e.t_s:9.2f} s    → {e.gesture} {e.confidence:.2f}  FALSE TRIGGER"
         return f"{e.t_s:9.2f} s    → {e.gesture} {e.confidence:.2f}"
 
     def summary(self, end_s: float) -> dict:
@@ -101,9 +108,12 @@ class Narrator:
         A gesture whose decision window was still open at the end is counted apart (``open``)."""
         m = match_events(self.events, self._started(end_s), self.slack_s)
         missed = [iv for iv in m.missed if iv.end_s + self.slack_s <= end_s]
-        open_ = len(m.missed) - len(missed)
-        return {"performed": len(m.hits) + len(missed), "recognised": len(m.hits), "missed": len(missed),
-                "false_triggers": len(m.false), "open": open_}
+        out = {"performed": len(m.hits) + len(missed), "recognised": len(m.hits), "missed": len(missed),
+               "false_triggers": len(m.false), "open": len(m.missed) - len(missed)}
+        for f in fields(m):  # kinds of false firing, when the matcher tells them apart
+            if f.name not in ("hits", "missed", "false"):
+                out[f.name] = len(getattr(m, f.name))
+        return out
 
 
 def _after(dt_s: float, what: str) -> str:
