@@ -687,6 +687,9 @@ def _bench_fuzz(a) -> int:
 
 
 def cmd_replay(a) -> int:
+    from dataclasses import fields
+
+    from .evaluation.matching import match_events
     from .mapping import MappingError, load_mapping
     from .recognition import ModelError, load_model
     from .service import Pipeline
@@ -699,27 +702,76 @@ def cmd_replay(a) -> int:
         mapping = load_mapping(a.mapping, model.classes, model.kinds) if a.mapping else None
     except (ModelError, RecordingError, MappingError) as exc:
         return _err(str(exc))
-    from .service import Pipeline
     from .sources.replay import ReplaySource
 
     pipe = Pipeline(model, mapping)
     src = ReplaySource(rec, 0.1)
+    events, sent = [], []
     while True:
         ended = src.ended
-        events = pipe.stop() if ended else pipe.feed(src.read().freq_hz)
-        for e in events:
-            _print_event(e)
-        for d in pipe.dispatches(events) + (pipe.let_go() if ended else []):
-            print(f"{'':14}→ {d.destination}: {_show(d.message)}")
+        batch = pipe.stop() if ended else pipe.feed(src.read().freq_hz)
+        events += [e for e in batch if e.kind != "control"]
+        sent += pipe.dispatches(batch) + (pipe.let_go() if ended else [])
         if ended:
-            return 0
+            break
+    print(f"{a.recording}: {rec.freq_hz.shape[0] / rec.rate_hz:.1f} s, {_plural(len(rec.intervals), 'gesture')} "
+          f"performed (the take's labels), replayed through {a.model}"
+          + (f" and {a.mapping}; nothing is sent: the messages a live run would send are listed under their events"
+             if a.mapping else "; nothing is sent (no mapping given)"))
+    # What was performed beside each decision: the one matcher evaluation and tuning count with.
+    m = match_events(events, rec.intervals)
+    verdict = {id(e): f"{iv.label}: hit, {_offset(e.t_s - (iv.start_s if e.kind == 'entered' else iv.end_s), e.kind)}"
+               for iv, e in m.hits}
+    for f in fields(m):  # kinds of false firing, when the matcher tells them apart
+        if f.name not in ("hits", "missed", "false"):
+            for e in getattr(m, f.name):
+                verdict[id(e)] = f"FALSE TRIGGER ({'double' if f.name == 'doubles' else f.name.replace('_', ' ')})"
+    for e in m.false:
+        verdict.setdefault(id(e), "FALSE TRIGGER")
+    messages = {}
+    for d in sent:
+        messages.setdefault(round(d.decided_s, 6), []).append(d)
+    rows = sorted([(e.t_s, 0, i) for i, e in enumerate(events)] +
+                  [(iv.end_s + 2.5, 1, i) for i, iv in enumerate(m.missed)])
+    print(f"{'time':>9}    {'decided':<16} {'kind':<8} {'conf':>4}  performed")
+    for t, missed, i in rows:
+        if missed:
+            iv = m.missed[i]
+            print(f"{t:9.2f} s  {'-':<16} {'':<8} {'':>4}  {iv.label}: MISSED (performed {iv.start_s:.2f}-{iv.end_s:.2f} s)")
+            continue
+        e = events[i]
+        if e.kind in ("armed", "disarmed", "panic", "layer"):
+            print(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + e.detail if e.detail else ''}")
+        else:
+            during = next((iv.label for iv in rec.intervals if iv.start_s <= e.t_s <= iv.end_s), "")
+            held = f"held {e.duration_s:.1f} s" if e.kind in ("held", "left") else ""
+            col = verdict.get(id(e)) or ", ".join(x for x in (during and f"during {during}", held) if x)
+            print(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} {e.confidence:4.2f}  {col}")
+        for d in messages.pop(round(e.t_s, 6), []):
+            print(f"{'':14}→ {d.destination}: {_show(d.message)}")
+    for ds in messages.values():  # what is let go at the end of the take
+        for d in ds:
+            print(f"{d.decided_s:9.2f} s  → {d.destination}: {_show(d.message)}")
+    print(f"{_plural(len(m.hits) + len(m.missed), 'gesture')} performed, {len(m.hits)} recognised, "
+          f"{len(m.missed)} missed, {_plural(len(m.false), 'false trigger')}")
+    return 0
+
+
+def _plural(n: int, word: str) -> str:
+    """'1 take', '3 takes'."""
+    return f"{n} {word}{'' if n == 1 else 's'}"
+
+
+def _offset(dt_s: float, kind: str) -> str:
+    """'0.18 s after it ended' (a gesture) or '0.80 s after it began' (a posture's entry)."""
+    return f"{abs(dt_s):.2f} s {'after' if dt_s >= 0 else 'before'} it {'began' if kind == 'entered' else 'ended'}"
 
 
 def _show(message) -> str:
-    """One line for a message value."""
+    """One line for a message value, numbers rounded for reading."""
     from .mapping.messages import OscMessage
     if isinstance(message, OscMessage):
-        return f"{message.address} {' '.join(map(str, message.args))}"
+        return f"{message.address} {' '.join(f'{v:.4g}' if isinstance(v, float) else str(v) for v in message.args)}"
     return repr(message)
 
 
