@@ -194,7 +194,7 @@ def cmd_demo(a) -> int:
     kinds = (f" ({t['doubles']} double, {t['wrong_name']} wrong name, {t['ordinary']} in ordinary movement)"
              if t["false_triggers"] and {"doubles", "wrong_name", "ordinary"} <= set(t) else "")
     print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {end_s:.1f} s of stream; "
-          f"{t['performed']} gestures performed, {t['recognised']} recognised, {t['missed']} missed, "
+          f"{_plural(t['performed'], 'gesture')} performed, {t['recognised']} recognised, {t['missed']} missed, "
           f"{t['false_triggers']} false {'trigger' if t['false_triggers'] == 1 else 'triggers'}{kinds}{under_way}",
           flush=True)
     return 0
@@ -538,7 +538,7 @@ def cmd_fit(a) -> int:
             recs, kinds = _read_takes(a.recordings)
             model = fit_recordings(a.classifier, recs, kinds, TrainingSettings(window_s=a.window_s, hop_s=a.hop_s),
                                    progress=step, **options)
-            source = f"{len(recs)} takes"
+            source = _plural(len(recs), "take")
     except (RecordingError, TsFormatError, ValueError) as exc:
         close()
         return _err(str(exc))
@@ -597,7 +597,7 @@ def cmd_evaluate(a) -> int:
                 for r in recs:
                     model.check_source(len(r.channel_names), r.rate_hz)
                 result = evaluate_takes(model, recs, progress=step)
-                title = f"{a.model} on {len(recs)} takes"
+                title = f"{a.model} on {_plural(len(recs), 'take')}"
             else:
                 close()
                 return _err("with --model, give take files or --ts TEST.ts to score it on")
@@ -608,7 +608,7 @@ def cmd_evaluate(a) -> int:
             recs, kinds = _read_takes(a.recordings)
             result = cross_validate(recs, kinds, a.scheme, a.classifier,
                                     TrainingSettings(window_s=a.window_s, hop_s=a.hop_s), progress=step)
-            title = f"{a.classifier}, {a.scheme}, {len(recs)} takes"
+            title = f"{a.classifier}, {a.scheme}, {_plural(len(recs), 'take')}"
     except (ModelError, RecordingError, TsFormatError, ValueError) as exc:
         close()
         return _err(str(exc))
@@ -620,13 +620,25 @@ def cmd_evaluate(a) -> int:
         except ImportError as exc:
             return _err(str(exc))
         print(f"report: {page}", file=sys.stderr)
-    if a.json:
-        import json
-        print(json.dumps(_json_ready(result), indent=1, default=str))
-    else:
-        print(title)
-        _print_result(result)
+    try:
+        if a.json:
+            import json
+            print(json.dumps(_json_ready(result), indent=1, default=str))
+        else:
+            print(title)
+            _print_result(result)
+        sys.stdout.flush()
+    except BrokenPipeError:  # the reader stopped early (`| head`): what it read is what it wanted
+        _stdout_to_devnull()
     return 0
+
+
+def _stdout_to_devnull() -> None:
+    """After a closed pipe: point stdout at /dev/null so Python's flush at exit does not fail again."""
+    import os
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, sys.stdout.fileno())
+    os.close(devnull)
 
 
 def cmd_bench(a) -> int:
@@ -872,7 +884,7 @@ def cmd_check(a) -> int:
                                model.channel_names if model else None)
     except (ModelError, MappingError) as exc:
         return _err(str(exc))
-    print(f"{a.file}: OK, {len(mapping.rules)} rules, {len(mapping.controls)} continuous controls"
+    print(f"{a.file}: OK, {_plural(len(mapping.rules), 'rule')}, {_plural(len(mapping.controls), 'continuous control')}"
           + ("" if model else " (not checked against a model: give --model to check gestures and channels)"))
     print("destinations:")
     for name, d in mapping.destinations.items():
@@ -914,7 +926,7 @@ def cmd_tune(a) -> int:
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
-    print(f"replaying {len(recs)} takes ({hours * 60:.1f} min, {sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
+    print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, {sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
     result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour)
     print(f"untuned: {format_point(result.before)}")
     print(f"tuned:   {format_point(result.after)}")

@@ -106,7 +106,7 @@ def test_demo_subprocess_sends_mapped_osc_to_a_separate_receiver(tmp_path):
     assert {g for t, g in performing if t < 60} == set(GESTURES)
     # The stop line sums up what the lines said.
     lines = proc.stdout.splitlines()
-    total = re.search(r"(\d+) gestures performed, (\d+) recognised, (\d+) missed, (\d+) false trigger", proc.stdout)
+    total = re.search(r"(\d+) gestures? performed, (\d+) recognised, (\d+) missed, (\d+) false trigger", proc.stdout)
     assert total, proc.stdout
     performed, recognised, missed, false = map(int, total.groups())
     assert recognised == sum(bool(re.search(r"→ \w+ (entered )?\d\.\d\d, .* (after|before) it", l)) for l in lines)

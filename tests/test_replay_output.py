@@ -42,3 +42,16 @@ def test_replay_without_a_mapping_says_nothing_is_sent(take_file, demo_model_fil
     assert main(["replay", str(path), "--model", str(demo_model_file)]) == 0
     out = capsys.readouterr().out
     assert "nothing is sent (no mapping given)" in out and "→" not in out
+
+
+def test_evaluate_into_a_reader_that_stops_early_ends_without_a_traceback(take_file, demo_model_file):
+    # `drape evaluate ... | head`: the reader is gone before the figures are printed.
+    import subprocess
+    from tests.conftest import drape_cmd
+    _, path = take_file
+    proc = subprocess.Popen(drape_cmd("evaluate", "--model", str(demo_model_file), str(path)),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc.stdout.close()
+    err = proc.stderr.read()
+    assert proc.wait(timeout=120) == 0, err
+    assert "Traceback" not in err and "BrokenPipe" not in err

@@ -428,7 +428,7 @@ class Service:
                 self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
                                    + self.state_messages(now))
             return
-        log.info("control: %s%s for %s", cmd, f" {detail}" if detail else "", target or "every garment")
+        log.info("control message: %s%s asked for %s", cmd, f" {detail}" if detail else "", target or "every garment")
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
