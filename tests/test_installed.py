@@ -83,3 +83,9 @@ def test_soak_makes_its_output_folder(installed, tmp_path, second_model_file):
     assert "Traceback" not in done.stderr, done.stderr
     assert done.returncode in (0, 1), done.stdout + done.stderr  # 1 means live and replay differ: a finding, not a crash
     assert (out / "soak-take.csv").is_file()
+
+
+def test_bench_live_from_a_scratch_folder(installed, tmp_path):
+    done = run_installed(installed, tmp_path, "bench", "--live", "--live-s", "5")
+    assert done.returncode == 0 and "Traceback" not in done.stderr, done.stdout + done.stderr
+    assert "live through a pty" in done.stdout

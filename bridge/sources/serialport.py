@@ -12,6 +12,7 @@ pyserial URLs (``loop://``, ``socket://host:port``) are passed through.
 
 from __future__ import annotations
 
+import os
 import time
 from dataclasses import dataclass
 
@@ -111,7 +112,10 @@ class SerialSource(Source):
             else:
                 self.serial = serial.Serial(self.device, baud, timeout=timeout_s)
         except (serial.SerialException, OSError) as exc:
-            raise SourceGone(f"cannot open serial port {port}: {exc}") from None
+            device = getattr(self, "device", port)
+            gone = "://" not in device and not os.path.exists(device) and "drape ports" not in str(exc)
+            hint = " (no such device here; `drape ports` lists the serial ports)" if gone else ""
+            raise SourceGone(f"cannot open serial port {port}: {exc}{hint}") from None
 
     @property
     def channel_names(self) -> tuple[str, ...]:
