@@ -136,6 +136,4 @@ class PromptedSimulatedSource(Source):
             delay = self._start + self._emitted / self.rate_hz - self._clock()
             if delay > 0:
                 self._sleep(delay)
-        if self.on_read:
-            self.on_read(self._emitted / self.rate_hz)
         return Block(t, f, self._clock())
