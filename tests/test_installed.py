@@ -8,7 +8,6 @@ Slow (a venv and a real install, about a minute): skip it with ``-m "not install
 import os
 import shutil
 import subprocess
-import sys
 import venv
 from pathlib import Path
 
