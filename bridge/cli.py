@@ -120,19 +120,18 @@ def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int 
 
 
 def cmd_demo(a) -> int:
-    from .mapping import MappingError, MappingWatcher
-    from .mapping.rules import describe_destination
-    from .service import Pipeline, StopFlag, run
-    from .sources.simulated import SimulatedSource
-
     import numpy as np
     from .evaluation.narration import Narrator
     from .garment import GESTURES, tour_script
+    from .mapping import MappingError, MappingWatcher
+    from .mapping.rules import describe_destination
     from .recognition import ModelError
+    from .service import Pipeline, StopFlag, run
+    from .sources.simulated import SimulatedSource
 
     mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
     # The simulated wearer first performs each gesture once (a tour), then at random.
-    tour = [g for g in GESTURES]
+    tour = list(GESTURES)
     source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s,
                              first=tour_script(np.random.default_rng([a.seed, a.wearer, 23]), tour))
     if a.model:  # a model of the simulated jacket saved before: no training wait
@@ -179,8 +178,8 @@ def cmd_demo(a) -> int:
 
     stop = StopFlag()
     _stop_on_signals(stop)
-    print("the simulated wearer is performing: each of the " f"{len(tour)} demo gestures once (about 50 s), then at "
-          "random; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
+    print(f"the simulated wearer is performing: each of the {len(tour)} demo gestures once (about 50 s), then at "
+          f"random; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
     try:
         stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=on_event,
                     watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report)
@@ -195,7 +194,7 @@ def cmd_demo(a) -> int:
              if t["false_triggers"] and {"doubles", "wrong_name", "ordinary"} <= set(t) else "")
     print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {end_s:.1f} s of stream; "
           f"{_plural(t['performed'], 'gesture')} performed, {t['recognised']} recognised, {t['missed']} missed, "
-          f"{t['false_triggers']} false {'trigger' if t['false_triggers'] == 1 else 'triggers'}{kinds}{under_way}",
+          f"{_plural(t['false_triggers'], 'false trigger')}{kinds}{under_way}",
           flush=True)
     return 0
 
