@@ -72,11 +72,13 @@ def _open_one(d):
     return open_output(d)
 
 
-def _default_mapping() -> Path | None:
-    for p in (Path.cwd() / "mappings" / "demo.toml", Path(__file__).resolve().parent.parent / "mappings" / "demo.toml"):
-        if p.is_file():
-            return p
-    return None
+def _default_mapping() -> Path:
+    """mappings/demo.toml in the current folder (a checkout, or the user's own copy), else the shipped one."""
+    here = Path.cwd() / "mappings" / "demo.toml"
+    if here.is_file():
+        return here
+    from .examples_data import example_path
+    return example_path("demo.toml")
 
 
 def _open_outputs(mapping, open_fn=None):
@@ -119,18 +121,29 @@ def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int 
 
 
 def cmd_demo(a) -> int:
+    import numpy as np
+    from .evaluation.narration import Narrator
+    from .garment import GESTURES, tour_script
     from .mapping import MappingError, MappingWatcher
     from .mapping.rules import describe_destination
+    from .recognition import ModelError
     from .service import Pipeline, StopFlag, run
     from .sources.simulated import SimulatedSource
 
     mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
-    if mapping_path is None:
-        return _err("no mappings/demo.toml here; run from the drape checkout or pass --mapping FILE")
+    # The simulated wearer first performs each gesture once (a tour), then at random.
+    tour = list(GESTURES)
+    source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s,
+                             first=tour_script(np.random.default_rng([a.seed, a.wearer, 23]), tour))
     if a.model:  # a model of the simulated jacket saved before: no training wait
-        from .recognition import ModelError, load_model
+        from .recognition import load_model
         try:
             model = load_model(a.model)
+            model.check_source(len(source.channel_names), source.rate_hz)
+            if tuple(model.channel_names) != source.channel_names:
+                raise ModelError(f"{a.model} was trained on channels {', '.join(model.channel_names)}; the simulated "
+                                 f"jacket has {', '.join(source.channel_names)}: use a model of the simulated jacket "
+                                 f"(or leave out --model to train one)")
         except ModelError as exc:
             return _err(str(exc))
         print(f"model {a.model}: {len(model.classes) - 1} gestures", flush=True)
@@ -150,22 +163,40 @@ def cmd_demo(a) -> int:
     mapping = watcher.mapping
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
-        print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
-    print(f"edit {mapping_path} while this runs: saved changes take effect at once", flush=True)
-    source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s)
+        if name in outputs:  # one that could not open was reported as left out
+            print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
+    if a.mapping or mapping_path.parent.name == "mappings":
+        print(f"edit {mapping_path} while this runs: saved changes take effect at once", flush=True)
+    else:  # the copy shipped inside the package: not the file to edit
+        print(f"mapping: the built-in demo mapping; copy {mapping_path} to a folder of yours, edit it and pass "
+              f"--mapping FILE (saved changes take effect at once)", flush=True)
+    narrator = Narrator(source.truth, say=lambda line: print(line, flush=True))
+    source.on_read = narrator.on_read
+
+    def on_event(e, timing=None):
+        if not narrator.on_event(e):
+            _print_event(e, timing)
+
     stop = StopFlag()
     _stop_on_signals(stop)
-    print("the simulated wearer is performing; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
+    print(f"the simulated wearer is performing: each of the {len(tour)} demo gestures once (about 50 s), then at "
+          f"random; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
     try:
-        stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=_print_event,
+        stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=on_event,
                     watcher=watcher, inbox=inbox, open_fn=_open_one, report=_report)
     finally:
         _close_outputs(outputs)
         if inbox:
             inbox.close()
-    performed = [iv for iv in source.truth if iv.end_s <= stats.samples / source.rate_hz]
-    print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {stats.samples / source.rate_hz:.1f} s of stream, "
-          f"{len(performed)} gestures performed, {stats.events} events", flush=True)
+    end_s = stats.samples / source.rate_hz
+    t = narrator.summary(end_s)
+    under_way = f"; {t['open']} still under way at the stop, not counted" if t["open"] else ""
+    kinds = (f" ({t['doubles']} double, {t['wrong_name']} wrong name, {t['ordinary']} in ordinary movement)"
+             if t["false_triggers"] and {"doubles", "wrong_name", "ordinary"} <= set(t) else "")
+    print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {end_s:.1f} s of stream; "
+          f"{_plural(t['performed'], 'gesture')} performed, {t['recognised']} recognised, {t['missed']} missed, "
+          f"{_plural(t['false_triggers'], 'false trigger')}{kinds}{under_way}",
+          flush=True)
     return 0
 
 
@@ -273,7 +304,9 @@ def cmd_start(a) -> int:
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
           + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:
-        print(f"drape: waiting for the garment ({source.last_error})", file=sys.stderr, flush=True)
+        hint = "" if cfg.input != "serial" or "drape ports" in source.last_error else \
+            "; `drape ports` lists the serial ports of this machine"
+        print(f"drape: waiting for the garment ({source.last_error}){hint}", file=sys.stderr, flush=True)
     if hasattr(source, "on_change"):
         source.on_change = said
 
@@ -447,21 +480,10 @@ def cmd_capture(a) -> int:
 
 
 def _progress(desc: str):
-    """A progress callback (done, total) drawing a tqdm bar on stderr, and its closer.
-
-    Without tqdm (the ``progress`` extra) the work runs without a bar.
-    """
-    try:
-        from tqdm import tqdm
-    except ImportError:
-        return None, lambda: None
-    bar = tqdm(desc=desc, file=sys.stderr, leave=False, disable=None, unit="step")
-
-    def step(done: int, total: int) -> None:
-        bar.total = total
-        bar.n = done
-        bar.refresh()
-    return step, bar.close
+    """A progress callback (done, total) drawing a bar on stderr when it is a terminal, and its closer."""
+    from .progress import progress_bar
+    bar = progress_bar(desc)
+    return bar, bar.close
 
 
 def _read_takes(paths):
@@ -527,7 +549,7 @@ def cmd_fit(a) -> int:
                     raise ValueError("--ordinary applies to --classifier minirocket or dtw")
                 options["ordinary"] = _read_takes(a.ordinary)[0]
             model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
-            source = f"{len(recs)} takes"
+            source = _plural(len(recs), "take")
     except (RecordingError, TsFormatError, ValueError) as exc:
         close()
         return _err(str(exc))
@@ -586,7 +608,7 @@ def cmd_evaluate(a) -> int:
                 for r in recs:
                     model.check_source(len(r.channel_names), r.rate_hz)
                 result = evaluate_takes(model, recs, progress=step)
-                title = f"{a.model} on {len(recs)} takes"
+                title = f"{a.model} on {_plural(len(recs), 'take')}"
             else:
                 close()
                 return _err("with --model, give take files or --ts TEST.ts to score it on")
@@ -596,7 +618,7 @@ def cmd_evaluate(a) -> int:
                 return _err("give take files and --scheme leave-session-out or leave-wearer-out (or --model M with held-out data)")
             recs, kinds = _read_takes(a.recordings)
             result = cross_validate(recs, kinds, a.scheme, a.classifier, _training_settings(a), progress=step)
-            title = f"{a.classifier}, {a.scheme}, {len(recs)} takes"
+            title = f"{a.classifier}, {a.scheme}, {_plural(len(recs), 'take')}"
     except (ModelError, RecordingError, TsFormatError, ValueError) as exc:
         close()
         return _err(str(exc))
@@ -608,13 +630,25 @@ def cmd_evaluate(a) -> int:
         except ImportError as exc:
             return _err(str(exc))
         print(f"report: {page}", file=sys.stderr)
-    if a.json:
-        import json
-        print(json.dumps(_json_ready(result), indent=1, default=str))
-    else:
-        print(title)
-        _print_result(result)
+    try:
+        if a.json:
+            import json
+            print(json.dumps(_json_ready(result), indent=1, default=str))
+        else:
+            print(title)
+            _print_result(result)
+        sys.stdout.flush()
+    except BrokenPipeError:  # the reader stopped early (`| head`): what it read is what it wanted
+        _stdout_to_devnull()
     return 0
+
+
+def _stdout_to_devnull() -> None:
+    """After a closed pipe: point stdout at /dev/null so Python's flush at exit does not fail again."""
+    import os
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, sys.stdout.fileno())
+    os.close(devnull)
 
 
 def cmd_bench(a) -> int:
@@ -674,6 +708,11 @@ def _bench_soak(a) -> int:
         return _err(str(exc))
     print(f"soak: {a.soak:g} simulated hours through the live loop (blocks of 10-50 ms, OSC to loopback, take captured)",
           flush=True)
+    if a.soak_out:  # made here, so a bad folder is named before the hours of stream, not after
+        try:
+            Path(a.soak_out).mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            return _err(f"--soak-out {a.soak_out}: cannot make this folder ({exc.strerror or exc})")
     r = soak(a.soak, model=model, out_dir=a.soak_out, heap=a.soak_heap, report=lambda t: print(t, flush=True))
     for line in r.lines():
         print(line)
@@ -696,6 +735,9 @@ def _bench_fuzz(a) -> int:
 
 
 def cmd_replay(a) -> int:
+    from dataclasses import fields
+
+    from .evaluation.matching import match_events
     from .mapping import MappingError, load_mapping
     from .recognition import ModelError, load_model
     from .service import Pipeline
@@ -708,27 +750,76 @@ def cmd_replay(a) -> int:
         mapping = load_mapping(a.mapping, model.classes, model.kinds) if a.mapping else None
     except (ModelError, RecordingError, MappingError) as exc:
         return _err(str(exc))
-    from .service import Pipeline
     from .sources.replay import ReplaySource
 
     pipe = Pipeline(model, mapping)
     src = ReplaySource(rec, 0.1)
+    events, sent = [], []
     while True:
         ended = src.ended
-        events = pipe.stop() if ended else pipe.feed(src.read().freq_hz)
-        for e in events:
-            _print_event(e)
-        for d in pipe.dispatches(events) + (pipe.let_go() if ended else []):
-            print(f"{'':14}→ {d.destination}: {_show(d.message)}")
+        batch = pipe.stop() if ended else pipe.feed(src.read().freq_hz)
+        events += [e for e in batch if e.kind != "control"]
+        sent += pipe.dispatches(batch) + (pipe.let_go() if ended else [])
         if ended:
-            return 0
+            break
+    print(f"{a.recording}: {rec.freq_hz.shape[0] / rec.rate_hz:.1f} s, {_plural(len(rec.intervals), 'gesture')} "
+          f"performed (the take's labels), replayed through {a.model}"
+          + (f" and {a.mapping}; nothing is sent: the messages a live run would send are listed under their events"
+             if a.mapping else "; nothing is sent (no mapping given)"))
+    # What was performed beside each decision: the one matcher evaluation and tuning count with.
+    m = match_events(events, rec.intervals)
+    verdict = {id(e): f"{iv.label}: hit, {_offset(e.t_s - (iv.start_s if e.kind == 'entered' else iv.end_s), e.kind)}"
+               for iv, e in m.hits}
+    for f in fields(m):  # kinds of false firing, when the matcher tells them apart
+        if f.name not in ("hits", "missed", "false"):
+            for e in getattr(m, f.name):
+                verdict[id(e)] = f"FALSE TRIGGER ({'double' if f.name == 'doubles' else f.name.replace('_', ' ')})"
+    for e in m.false:
+        verdict.setdefault(id(e), "FALSE TRIGGER")
+    messages = {}
+    for d in sent:
+        messages.setdefault(round(d.decided_s, 6), []).append(d)
+    rows = sorted([(e.t_s, 0, i) for i, e in enumerate(events)] +
+                  [(iv.end_s + 2.5, 1, i) for i, iv in enumerate(m.missed)])
+    print(f"{'time':>9}    {'decided':<16} {'kind':<8} {'conf':>4}  performed")
+    for t, missed, i in rows:
+        if missed:
+            iv = m.missed[i]
+            print(f"{t:9.2f} s  {'-':<16} {'':<8} {'':>4}  {iv.label}: MISSED (performed {iv.start_s:.2f}-{iv.end_s:.2f} s)")
+            continue
+        e = events[i]
+        if e.kind in ("armed", "disarmed", "panic", "layer"):
+            print(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + e.detail if e.detail else ''}")
+        else:
+            during = next((iv.label for iv in rec.intervals if iv.start_s <= e.t_s <= iv.end_s), "")
+            held = f"held {e.duration_s:.1f} s" if e.kind in ("held", "left") else ""
+            col = verdict.get(id(e)) or ", ".join(x for x in (during and f"during {during}", held) if x)
+            print(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} {e.confidence:4.2f}  {col}")
+        for d in messages.pop(round(e.t_s, 6), []):
+            print(f"{'':14}→ {d.destination}: {_show(d.message)}")
+    for ds in messages.values():  # what is let go at the end of the take
+        for d in ds:
+            print(f"{d.decided_s:9.2f} s  → {d.destination}: {_show(d.message)}")
+    print(f"{_plural(len(m.hits) + len(m.missed), 'gesture')} performed, {len(m.hits)} recognised, "
+          f"{len(m.missed)} missed, {_plural(len(m.false), 'false trigger')}")
+    return 0
+
+
+def _plural(n: int, word: str) -> str:
+    """'1 take', '3 takes'."""
+    return f"{n} {word}{'' if n == 1 else 's'}"
+
+
+def _offset(dt_s: float, kind: str) -> str:
+    """'0.18 s after it ended' (a gesture) or '0.80 s after it began' (a posture's entry)."""
+    return f"{abs(dt_s):.2f} s {'after' if dt_s >= 0 else 'before'} it {'began' if kind == 'entered' else 'ended'}"
 
 
 def _show(message) -> str:
-    """One line for a message value."""
+    """One line for a message value, numbers rounded for reading."""
     from .mapping.messages import OscMessage
     if isinstance(message, OscMessage):
-        return f"{message.address} {' '.join(map(str, message.args))}"
+        return f"{message.address} {' '.join(f'{v:.4g}' if isinstance(v, float) else str(v) for v in message.args)}"
     return repr(message)
 
 
@@ -829,7 +920,7 @@ def cmd_check(a) -> int:
                                model.channel_names if model else None)
     except (ModelError, MappingError) as exc:
         return _err(str(exc))
-    print(f"{a.file}: OK, {len(mapping.rules)} rules, {len(mapping.controls)} continuous controls"
+    print(f"{a.file}: OK, {_plural(len(mapping.rules), 'rule')}, {_plural(len(mapping.controls), 'continuous control')}"
           + ("" if model else " (not checked against a model: give --model to check gestures and channels)"))
     print("destinations:")
     for name, d in mapping.destinations.items():
@@ -872,7 +963,7 @@ def cmd_tune(a) -> int:
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
-    print(f"replaying {len(recs)} take{'s' if len(recs) != 1 else ''} ({hours * 60:.1f} min, "
+    print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, "
           f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
     step, close = _progress("replaying")
     try:
@@ -931,11 +1022,15 @@ def cmd_range(a) -> int:
             source = SerialTextSource(a.port, model.n_channels, model.rate_hz, a.baud, model.channel_names)
             settings, names = model.conditioning, model.channel_names
         else:
-            source, settings, names = _simulated_range_source(a.seed, a.wearer)
+            source, settings, names = _simulated_range_source(a.seed, a.wearer, a.seconds, a.countdown_s)
     except (SourceGone, ValueError) as exc:
         return _err(str(exc))
+    if a.seconds <= 0 or a.countdown_s < 0:
+        source.close()
+        return _err("--seconds must be above 0 and --countdown-s 0 or more")
     try:
-        rng = capture_range(source, Conditioner(settings), names, a.seconds, prompt=lambda t: print(t, flush=True))
+        rng = capture_range(source, Conditioner(settings), names, a.seconds, prompt=lambda t: print(t, flush=True),
+                            countdown_s=a.countdown_s, leave_out_flat=a.leave_out_flat)
     except RangeError as exc:
         return _err(str(exc))
     finally:
@@ -943,12 +1038,16 @@ def cmd_range(a) -> int:
     rng.save(a.out)
     for n, lo, hi in zip(rng.channel_names, rng.relaxed, rng.closest):
         print(f"  {n:<14} relaxed {lo:+.4f}  closest {hi:+.4f}  (ΔC/C0)")
+    flat = [n for n in names if n not in rng.channel_names]
+    if flat:
+        print(f"  left out (did not rise): {', '.join(flat)}; a control cannot mix them with this range file")
     print(f"{a.out}: written; use it in a mapping's [[control]] as range = \"{a.out}\"")
     return 0
 
 
-def _simulated_range_source(seed: int, wearer: int):
-    """The simulated wearer standing, then holding hands on hips (near the front antennas)."""
+def _simulated_range_source(seed: int, wearer: int, seconds: float = 5.0, countdown_s: float = 3.0):
+    """The simulated wearer standing, then holding hands on hips (near the front antennas),
+    timed to the captures: the move to the posture happens during the second countdown."""
     import numpy as np
     from .garment import Jacket
     from .signal import BandPass
@@ -956,7 +1055,8 @@ def _simulated_range_source(seed: int, wearer: int):
     from .sources.replay import ReplaySource
 
     jacket = Jacket(seed=seed, wearer=wearer, session=0)
-    take = jacket.perform([("standing", 6.0), ("hands_on_hips", 6.0)])
+    take = jacket.perform([("standing", countdown_s + seconds + 0.5),
+                           ("hands_on_hips", countdown_s + seconds + 1.0)])
     rec = Recording(take.rate_hz, tuple(take.channel_names), take.t_s, take.freq_hz)
     return ReplaySource(rec, 0.1), BandPass(take.rate_hz), tuple(take.channel_names)
 
@@ -1129,6 +1229,9 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--model", help="model of this garment (channel names and rate); needed with --port")
     g.add_argument("--baud", type=int, default=115200)
     g.add_argument("--seconds", type=float, default=5.0, help="length of each capture, s")
+    g.add_argument("--countdown-s", type=float, default=3.0, help="countdown before each capture, s (0: none)")
+    g.add_argument("--leave-out-flat", action="store_true",
+                   help="leave out of the range file the channels whose level did not rise in the second capture")
     g.add_argument("--seed", type=int, default=1)
     g.add_argument("--wearer", type=int, default=0)
     g.set_defaults(func=cmd_range)

@@ -61,3 +61,26 @@ def test_range_from_captures_and_file_round_trip(tmp_path):
     (tmp_path / "bad.json").write_text(json.dumps({"channels": ["a"], "relaxed": [0.1], "closest": [0.0]}))
     with pytest.raises(RangeError, match="closest must be above relaxed"):
         load_range(tmp_path / "bad.json")
+
+
+def test_channels_that_do_not_rise_can_be_left_out():
+    rng = np.random.default_rng(0)
+    relaxed = rng.normal(0.001, 1e-4, size=(500, 3))
+    closest = np.column_stack([np.linspace(0, 0.05, 500), np.zeros(500), np.linspace(0, 0.02, 500)])
+    with pytest.raises(RangeError, match="--leave-out-flat"):  # the error names the option that exists
+        range_from_levels(("a", "b", "c"), relaxed, closest)
+    r = range_from_levels(("a", "b", "c"), relaxed, closest, leave_out_flat=True)
+    assert r.channel_names == ("a", "c") and len(r.relaxed) == len(r.closest) == 2
+    with pytest.raises(RangeError, match="on a, b, c"):  # nothing rose: nothing to keep
+        range_from_levels(("a", "b", "c"), relaxed, np.zeros((500, 3)), leave_out_flat=True)
+
+
+def test_range_counts_down_before_each_capture_and_the_countdown_is_not_captured(capsys, tmp_path):
+    from bridge.cli import main
+    assert main(["range", "--out", str(tmp_path / "r.json"), "--seconds", "2", "--countdown-s", "3"]) == 0
+    lines = capsys.readouterr().out.splitlines()
+    reach = next(i for i, l in enumerate(lines) if l.startswith("reach as close"))
+    # Right before the second capture: its announcement and a countdown to it.
+    assert lines[reach - 3].startswith("next: reach as close") and "starting in 3 s" in lines[reach - 3]
+    assert [l.strip() for l in lines[reach - 2:reach]] == ["2 ...", "1 ..."]
+    assert lines[0].startswith("next: stand relaxed")

@@ -67,3 +67,24 @@ keys = "enter"
     # the garment's own gesture still presses its key once armed
     [d] = pipe.dispatches([Event(1.0, "raise_right", "gesture", 0.9)])
     assert d.message == KeyAction(("space",), "tap")
+
+
+def test_a_switch_to_a_layer_that_does_not_exist_is_not_reported_as_a_switch(demo_model):
+    # A layer event would be printed and logged as a switch ("** layer act9") right before the
+    # router's "staying in": no event at all, only the warning.
+    text = """
+[destinations.show]
+osc = "127.0.0.1:9"
+[[rule]]
+gesture = "raise_left"
+layer = "act2"
+to = "show"
+address = "/x"
+"""
+    from bridge.service import Pipeline
+    m = parse_mapping(text, "m.toml", demo_model.classes, demo_model.kinds, demo_model.channel_names)
+    pipe = Pipeline(demo_model, m)
+    assert pipe.command("layer", "act9") == []
+    assert pipe.router.warnings == ["no layer 'act9' in m.toml (control message); staying in 'act2'"]
+    [e] = pipe.command("layer", "act2")
+    assert e.kind == "layer" and e.detail == "act2"

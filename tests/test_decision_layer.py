@@ -107,7 +107,7 @@ address = "/drape/status"
 [[rule]]
 gesture = "wave"
 to = "desk"
-address = "/cue/go"
+address = "/show/next"
 
 [[rule]]
 gesture = "hold"
@@ -143,7 +143,7 @@ def test_router_holds_notes_and_keys_with_the_posture_and_times_note_offs():
     assert [(d.destination, d.message) for d in out] == [
         ("synth", MidiNote(2, 60, 100)), ("game", KeyAction(("shift", "w"), "down"))]
     out = r.route([ev(2.0, "wave", "gesture", conf=1.0)])
-    assert [d.message for d in out] == [OscMessage("/cue/go"), MidiNote(1, 64, 127)]
+    assert [d.message for d in out] == [OscMessage("/show/next"), MidiNote(1, 64, 127)]
     assert r.due(2.4) == [] and [d.message for d in r.due(2.5)] == [MidiNote(1, 64, 0, on=False)]
     out = r.route([ev(3.0, "hold", "left", dur=2.0)])
     assert [d.message for d in out] == [MidiNote(2, 60, 0, on=False), KeyAction(("shift", "w"), "up")]
@@ -162,7 +162,7 @@ def test_disarmed_sends_nothing_but_status_and_lets_go_of_what_is_held():
     assert r.route([ev(2.0, "wave", "gesture"), ev(2.5, "hold", "entered"), ev(3.0, "hold", "left")]) == []
     out = r.route([ev(4.0, "", "armed")])
     assert [(d.destination, d.message) for d in out] == [("game", Arm()), ("desk", OscMessage("/drape/status", ("armed", "")))]
-    assert [d.message for d in r.route([ev(5.0, "wave", "gesture", conf=0.5)])] == [OscMessage("/cue/go"), MidiNote(1, 64, 64)]
+    assert [d.message for d in r.route([ev(5.0, "wave", "gesture", conf=0.5)])] == [OscMessage("/show/next"), MidiNote(1, 64, 64)]
 
 
 def test_panic_releases_every_output_and_forgets_holdings():

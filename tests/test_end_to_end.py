@@ -84,7 +84,9 @@ def test_demo_subprocess_sends_mapped_osc_to_a_separate_receiver(tmp_path):
         proc = subprocess.run(drape_cmd("demo", "--for", "90", "--fast", "--mapping", str(mapping)),
                               capture_output=True, text=True, timeout=120)
         assert proc.returncode == 0, proc.stderr
-        printed = [l for l in proc.stdout.splitlines() if re.search(r"confidence \d\.\d\d\s+latency", l)]
+        # Each decision that sends: a firing line ("→ raise_right 0.94, ...") or a posture left.
+        printed = [l for l in proc.stdout.splitlines()
+                   if re.search(r" s    → \w+ (entered )?\d\.\d\d", l) or re.search(r" s      \w+ left, ", l)]
         assert len(printed) >= 5, proc.stdout
         deadline = time.monotonic() + 2
         while len(catcher.got) < len(printed) and time.monotonic() < deadline:
@@ -98,6 +100,19 @@ def test_demo_subprocess_sends_mapped_osc_to_a_separate_receiver(tmp_path):
     address, args = catcher.got[0]
     assert args[0] in GESTURES and isinstance(args[1], float)
     assert len(catcher.got) == len(printed)
+    # The tour: every demo gesture is performed once within the first minute, and said so.
+    performing = [re.match(r"\s*([\d.]+) s  performing (\w+)", l) for l in proc.stdout.splitlines()]
+    performing = [(float(m.group(1)), m.group(2)) for m in performing if m]
+    assert {g for t, g in performing if t < 60} == set(GESTURES)
+    # The stop line sums up what the lines said.
+    lines = proc.stdout.splitlines()
+    total = re.search(r"(\d+) gestures? performed, (\d+) recognised, (\d+) missed, (\d+) false trigger", proc.stdout)
+    assert total, proc.stdout
+    performed, recognised, missed, false = map(int, total.groups())
+    assert recognised == sum(bool(re.search(r"→ \w+ (entered )?\d\.\d\d, .* (after|before) it", l)) for l in lines)
+    assert missed == sum("MISSED" in l for l in lines)
+    assert false == sum("FALSE TRIGGER" in l for l in lines)
+    assert performed == recognised + missed and performed >= len(GESTURES)
 
 
 def test_demo_stops_cleanly_on_sigint():

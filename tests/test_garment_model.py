@@ -232,14 +232,35 @@ def test_serve_cli_behaves_like_a_serial_garment():
     finally:
         proc.kill()
     assert proc.returncode == 0, err
+    # A host that opens the port first gets the channel names, as `drape simulate` writes them.
+    assert data.startswith(b"t_s,left_sleeve,right_sleeve,left_front,right_front\n"), data[:80]
     parser = TextLineParser(4)
     samples = parser.feed(data)
+    assert parser.channel_names == ("left_sleeve", "right_sleeve", "left_front", "right_front")
     # Real time: about 100 lines a second, each a device time and four frequencies.
-    assert 150 <= len(samples) <= 300 and parser.stats.bad <= 1  # the first read may start mid-line
+    assert 150 <= len(samples) <= 300 and parser.stats.bad == 0
     times = np.array([s[0] for s in samples])
     assert np.all(np.diff(times) > 0)
     assert np.all((np.array([s[1] for s in samples]) > 150e3) & (np.array([s[1] for s in samples]) < 500e3))
     assert "lines sent" in err
+
+
+def test_capture_from_the_served_jacket_names_the_channels_as_simulate_does(tmp_path):
+    from bridge.garment import Jacket
+    proc = subprocess.Popen(drape_cmd("simulate", "--serve", "--for", "30", "--seed", "3"), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    try:
+        path = proc.stdout.readline().strip()
+        out = tmp_path / "served.take"
+        cap = subprocess.run(drape_cmd("capture", "--port", path, "--out", str(out), "--yes", "--no-keys",
+                                       "--gestures", "bow", "--reps", "1", "--countdown-s", "0.5", "--window-s", "1",
+                                       "--rest-s", "0.5", "--lead-s", "0.5"),
+                             capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL)
+    finally:
+        proc.terminate()
+        proc.communicate(timeout=20)
+    assert cap.returncode == 0, cap.stdout + cap.stderr
+    assert read_recording(out).channel_names == tuple(Jacket(seed=3).channel_names)
 
 
 # ----- separability -------------------------------------------------------------------------

@@ -17,7 +17,7 @@ osc = "127.0.0.1:9000"
 [[rule]]
 gesture = "raise_right"
 to = "desk"
-address = "/cue/go"
+address = "/show/next"
 args = ["{gesture}", "{confidence}", 3, true]
 
 [[rule]]
@@ -40,7 +40,7 @@ def test_good_mapping_dispatches_filled_messages():
     ev = Event(1.5, "raise_right", "gesture", 0.875)
     [d] = m.dispatches(ev)
     assert d.destination == "desk"
-    assert d.message == OscMessage("/cue/go", ("raise_right", 0.875, 3, True))
+    assert d.message == OscMessage("/show/next", ("raise_right", 0.875, 3, True))
     [d] = m.dispatches(Event(9.0, "arms_crossed", "left", 0.9, 2.5))
     assert d.message == OscMessage("/light/warm", (2.5,))
     assert m.dispatches(Event(9.0, "arms_crossed", "entered", 0.9)) == []
@@ -52,7 +52,7 @@ def test_unknown_gesture_names_line_and_suggests():
 
 
 def test_bad_address_port_destination_and_event_kind():
-    text = GOOD.replace('"/cue/go"', '"cue go"').replace("9000", "70000")
+    text = GOOD.replace('"/show/next"', '"show next"').replace("9000", "70000")
     problems = errors(text)
     assert any(p.startswith("show.toml:2: destinations.desk.osc: port 70000 out of range") for p in problems)
     assert any(p.startswith("show.toml:7: rule[1].address:") for p in problems)
@@ -63,7 +63,7 @@ def test_bad_address_port_destination_and_event_kind():
 
 
 def test_unknown_key_missing_key_bad_args():
-    problems = errors(GOOD.replace('address = "/cue/go"', 'adress = "/cue/go"'))
+    problems = errors(GOOD.replace('address = "/show/next"', 'adress = "/show/next"'))
     assert "show.toml:7: rule[1].adress: unknown key" in problems[0]
     assert "show.toml:4: rule[1].address: missing" in problems[1]
     problems = errors(GOOD.replace("3, true", "3, {x = 1}"))
@@ -75,7 +75,7 @@ def test_unknown_key_missing_key_bad_args():
 
 
 def test_toml_syntax_error_has_line():
-    [p] = errors(GOOD.replace('to = "desk"\naddress = "/cue/go"', 'to = "desk\naddress = "/cue/go"'))
+    [p] = errors(GOOD.replace('to = "desk"\naddress = "/show/next"', 'to = "desk\naddress = "/show/next"'))
     assert p.startswith("show.toml:6: not valid TOML")
 
 

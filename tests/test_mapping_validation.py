@@ -46,7 +46,7 @@ def one(action, to="desk", extra=""):
 
 def test_each_action_builds_its_message():
     cases = [
-        ("desk", 'address = "/cue/go"\nargs = [1, 2.5, "x", true, "{level}"]', OscMessage("/cue/go", (1, 2.5, "x", True, 0.25))),
+        ("desk", 'address = "/show/next"\nargs = [1, 2.5, "x", true, "{level}"]', OscMessage("/show/next", (1, 2.5, "x", True, 0.25))),
         ("desk", 'bundle = [{ address = "/a", args = [1] }, { address = "/b" }]',
          OscBundle((OscMessage("/a", (1,)), OscMessage("/b")))),
         ("synth", "note = 60\nchannel = 10\nvelocity = 90\nlength_s = 0.2", MidiNote(10, 60, 90)),
@@ -83,7 +83,7 @@ def test_validation_errors_with_lines():
     assert one("cc = 7\nchannel = 0", to="synth") == "show.toml:15: rule[1].channel: MIDI channel must be a whole number 1 to 16 (got 0)"
     assert one("program = 1\nchannel = 17", to="synth").startswith("show.toml:15: rule[1].channel: MIDI channel must be")
     # OSC addresses not starting with "/"
-    assert one('address = "cue/go"').startswith("show.toml:14: rule[1].address: OSC addresses start with '/'")
+    assert one('address = "show/next"').startswith("show.toml:14: rule[1].address: OSC addresses start with '/'")
     assert one('bundle = [{ address = "go" }]').startswith("show.toml:14: rule[1].bundle[1].address: OSC addresses start with '/'")
     # unknown key names, with a suggestion
     assert one('keys = ["ctrl", "escpe"]', to="game") == "show.toml:14: rule[1].keys: unknown key 'escpe'; did you mean 'escape'?"
@@ -107,7 +107,7 @@ def test_destination_problems():
         ('[destinations.d]\nkeys = "wayland"\n', "show.toml:2: destinations.d.keys: use \"x11\""),
         ('[destinations.d]\nsacn = 70000\n', "show.toml:2: destinations.d.sacn: sACN universe must be a whole number 1 to 63999"),
         ('[destinations.d]\nsacn = 1\nsafe = { 600 = 1 }\n', "show.toml:3: destinations.d.safe: DMX slot '600' must be 1 to 512"),
-        ('[destinations.d]\nosc = "127.0.0.1:9000"\nframing = "1.0"\n', "show.toml:3: destinations.d.framing: unknown key for a osc destination"),
+        ('[destinations.d]\nosc = "127.0.0.1:9000"\nframing = "1.0"\n', "show.toml:3: destinations.d.framing: unknown key 'framing' for osc destinations"),
         ('[destinations.d]\nmidi_file = "take.wav"\n', "show.toml:2: destinations.d.midi_file: a file name ending in .mid"),
     ):
         with pytest.raises(MappingError) as info:
@@ -145,7 +145,7 @@ def test_safety_and_status_problems():
     assert one('address = "/x"', extra='\n[safety]\npanic_gesture = "bwo"\n') == \
         "show.toml:17: safety.panic_gesture: unknown gesture 'bwo': did you mean 'bow'?"
     assert one('address = "/x"', extra='\n[status]\nto = "synth"\n').startswith(
-        "show.toml:17: status.to: destination 'synth' is midi; address needs a osc or osc-tcp destination")
+        "show.toml:17: status.to: destination 'synth' is midi; address needs an osc or osc-tcp destination")
 
 
 def test_example_mappings_are_valid_against_the_simulated_jacket():

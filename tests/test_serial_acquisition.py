@@ -276,13 +276,13 @@ def test_replug_through_socat_resumes_without_restart(tmp_path, protocol):
 
 def test_ports_are_found_by_usb_identity():
     ports = [PortInfo("/dev/ttyS0", None, None, None, "n/a", None),
-             PortInfo("/dev/ttyACM0", 0x2341, 0x8037, "AAA1", "jacket", "maker"),
-             PortInfo("/dev/ttyACM1", 0x2341, 0x8037, "BBB2", "trousers", "maker")]
+             PortInfo("/dev/ttyACM0", 0xF00D, 0x0001, "AAA1", "jacket", "maker"),
+             PortInfo("/dev/ttyACM1", 0xF00D, 0x0001, "BBB2", "trousers", "maker")]
     assert resolve_port("/dev/ttyACM7", ports) == "/dev/ttyACM7"
-    assert resolve_port("usb:2341:8037", ports) == "/dev/ttyACM0"
-    assert resolve_port("usb:2341:8037:BBB2", ports) == "/dev/ttyACM1"
+    assert resolve_port("usb:f00d:0001", ports) == "/dev/ttyACM0"
+    assert resolve_port("usb:f00d:0001:BBB2", ports) == "/dev/ttyACM1"
     assert resolve_port("serial:BBB2", ports) == "/dev/ttyACM1"
-    assert ports[1].usb_id == "usb:2341:8037:AAA1"
+    assert ports[1].usb_id == "usb:f00d:0001:AAA1"
     with pytest.raises(SourceGone, match="drape ports"):
         resolve_port("usb:1234:5678", ports)
     with pytest.raises(ValueError, match="hex ids"):

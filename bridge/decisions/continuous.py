@@ -122,44 +122,68 @@ MIN_SPAN = 1e-6  # ΔC/C0: a closest reach must rise at least this much above re
 
 
 def range_from_levels(channel_names, relaxed_level: np.ndarray, closest_level: np.ndarray,
-                      closest_quantile: float = 0.95) -> LevelRange:
+                      closest_quantile: float = 0.95, leave_out_flat: bool = False) -> LevelRange:
     """The range from two short captures of the ``level`` stream, each (n, channels):
     relaxed (arms down, standing still) then reaching as close as the wearer will on stage.
 
     Relaxed is the median of its capture; closest is the ``closest_quantile`` of its capture
     (a high quantile rather than the maximum, so one spike does not set the top).
-    Raises RangeError naming the channels whose closest reach did not rise above relaxed.
+    Raises RangeError naming the channels whose closest reach did not rise above relaxed;
+    with ``leave_out_flat`` those channels are left out of the range instead (a control can
+    then not mix them), and only a capture where no channel rose is an error.
     """
     r = np.median(np.asarray(relaxed_level, dtype=float), axis=0)
     c = np.quantile(np.asarray(closest_level, dtype=float), closest_quantile, axis=0)
     names = tuple(channel_names)
-    flat = [n for n, lo, hi in zip(names, r, c) if not hi - lo > MIN_SPAN]
-    if flat:
+    rose = [hi - lo > MIN_SPAN for lo, hi in zip(r, c)]
+    flat = [n for n, up in zip(names, rose) if not up]
+    if flat and not (leave_out_flat and any(rose)):
         raise RangeError(f"closest reach did not rise above relaxed on {', '.join(flat)}: "
-                         f"reach nearer to those antennas during the second capture, or leave them out")
-    return LevelRange(names, tuple(float(v) for v in r), tuple(float(v) for v in c))
+                         f"reach nearer to those antennas during the second capture"
+                         + ("" if leave_out_flat else ", or leave them out (`drape range --leave-out-flat`)"))
+    keep = [i for i, up in enumerate(rose) if up]
+    return LevelRange(tuple(names[i] for i in keep), tuple(float(r[i]) for i in keep), tuple(float(c[i]) for i in keep))
 
 
-def capture_range(source, conditioner, channel_names, seconds: float = 5.0, prompt=print) -> LevelRange:
+def capture_range(source, conditioner, channel_names, seconds: float = 5.0, prompt=print,
+                  countdown_s: float = 3.0, leave_out_flat: bool = False) -> LevelRange:
     """Run the two captures on a live source: ``seconds`` relaxed, then ``seconds`` closest.
 
     ``source`` is a ``bridge.sources`` Source, ``conditioner`` a ``bridge.signal.Conditioner``
     started on this source (its baseline and resting frequencies carry over). ``prompt``
-    tells the wearer what to do next. Used by the range calibration verb.
+    tells the wearer what to do next. Before each capture, ``countdown_s`` of stream time
+    counts down (one prompt a second) while the wearer gets into place; those samples are
+    conditioned but not kept. ``leave_out_flat``: see ``range_from_levels``. Used by the
+    range calibration verb.
     """
     parts = []
     for what in ("stand relaxed, arms down", "reach as close to the antennas as you will on stage, and hold"):
+        if countdown_s > 0:
+            prompt(f"next: {what}; starting in {countdown_s:g} s")
+            _levels(source, conditioner, countdown_s, prompt)
         prompt(f"{what} for {seconds:g} s ...")
-        got, need = [], int(round(seconds * source.rate_hz))
-        while sum(len(g) for g in got) < need and not source.ended:
-            block = source.read()
-            if len(block):
-                level, _ = conditioner.process(block.freq_hz, hold_baseline=True)
-                got.append(level)
+        got = _levels(source, conditioner, seconds)
         if not got:
             raise RangeError("the source gave no samples")
         parts.append(np.concatenate(got))
-    return range_from_levels(channel_names, parts[0], parts[1])
+    return range_from_levels(channel_names, parts[0], parts[1], leave_out_flat=leave_out_flat)
+
+
+def _levels(source, conditioner, seconds: float, tick=None) -> list:
+    """``seconds`` of the source's stream as conditioned levels; ``tick`` gets each whole second left."""
+    got, n, need = [], 0, int(round(seconds * source.rate_hz))
+    said = math.ceil(seconds)
+    while n < need and not source.ended:
+        block = source.read()
+        if len(block):
+            level, _ = conditioner.process(block.freq_hz, hold_baseline=True)
+            got.append(level)
+            n += len(level)
+            left = math.ceil((need - n) / source.rate_hz)
+            if tick and 0 < left < said:
+                said = left
+                tick(f"  {left} ...")
+    return got
 
 
 def load_range(path: str | Path) -> LevelRange:

@@ -268,6 +268,7 @@ def bench_live(seconds: float = 30.0, print_fn=print) -> dict:
     from pythonosc.osc_server import ThreadingOSCUDPServer
 
     from ..cli import train_simulated
+    from ..examples_data import example_text
     from ..sources import format_line
     from ..sources.simulated import SimulatedSource
 
@@ -276,11 +277,10 @@ def bench_live(seconds: float = 30.0, print_fn=print) -> dict:
     disp.set_default_handler(lambda *_: got.append(time.monotonic()))
     server = ThreadingOSCUDPServer(("127.0.0.1", 0), disp)
     threading.Thread(target=server.serve_forever, daemon=True).start()
-    root = Path(__file__).resolve().parents[2]
     with tempfile.TemporaryDirectory() as tmp:
         tmp = Path(tmp)
         train_simulated(1, 0).save(tmp / "jacket.npz")
-        mapping = (root / "mappings" / "demo.toml").read_text().replace("127.0.0.1:9000", f"127.0.0.1:{server.server_address[1]}")
+        mapping = example_text("demo.toml").replace("127.0.0.1:9000", f"127.0.0.1:{server.server_address[1]}")
         (tmp / "map.toml").write_text(mapping)
         master, slave = os.openpty()
         (tmp / "live.toml").write_text(f'[garment]\nname = "bench"\nport = "{os.ttyname(slave)}"\n'

@@ -109,7 +109,7 @@ class FuzzResult:
 
 def _text_seeds(rng: random.Random) -> list[bytes]:
     from ..sources.textline import format_line
-    out = [b"t_s,left_sleeve,right_sleeve,front_left,front_right\n", b"# counter v2\n",
+    out = [b"t_s,left_sleeve,right_sleeve,left_front,right_front\n", b"# counter v2\n",
            b"left right front back\n"]
     for k in range(40):
         vals = [rng.uniform(1e5, 5e5) for _ in range(4)]
@@ -203,7 +203,7 @@ class _OscInput:
     def __init__(self):
         from ..sources.oscinput import OscUdpSource
         self.src = OscUdpSource("127.0.0.1:0", "/jacket/antennas",
-                                ["t_s", "left_sleeve", "right_sleeve", "front_left", "front_right"], 100.0)
+                                ["t_s", "left_sleeve", "right_sleeve", "left_front", "right_front"], 100.0)
 
     def __call__(self, data: bytes, r: random.Random, viol: Counter) -> str:
         self.src.feed_datagram(data)
@@ -325,7 +325,7 @@ class _Mapping:
     KINDS = {"raise_right": "gesture", "raise_left": "gesture", "sweep_across": "gesture", "tap_left_sleeve": "gesture",
              "push_forward": "gesture", "bow": "gesture", "arms_crossed": "posture", "hands_on_hips": "posture",
              "hand_on_heart": "posture"}
-    CHANNELS = ("left_sleeve", "right_sleeve", "front_left", "front_right")
+    CHANNELS = ("left_sleeve", "right_sleeve", "left_front", "right_front")
 
     def __init__(self, texts: list[str], base_dir: Path):
         import tomllib
@@ -495,11 +495,9 @@ def model_seed_members() -> list[dict[str, bytes]]:
 
 
 def _mapping_texts() -> tuple[list[str], Path]:
-    root = Path(__file__).resolve().parents[2]
-    texts = [p.read_text(encoding="utf-8") for p in sorted((root / "mappings").glob("*.toml"))]
-    texts += [p.read_text(encoding="utf-8") for p in sorted((root / "examples" / "service").glob("*.toml"))
-              if "[[rule]]" in p.read_text(encoding="utf-8")]
-    return texts, root / "mappings"
+    """The shipped example mappings (seeds for the mapping fuzzer) and a folder for relative paths."""
+    from ..examples_data import NAMES, example_path, example_text
+    return [example_text(n) for n in NAMES], example_path("demo.toml").parent
 
 
 TARGETS = ("text", "frames", "osc", "control", "mapping", "model")

@@ -195,7 +195,7 @@ def soak(hours: float, model=None, mapping_path=None, seed: int = 5, block_s=(0.
     """Run ``hours`` of simulated performance through the live loop and compare with replay.
 
     model: a loaded ``Model`` of simulated wearer 1, jacket seed 4 (None: train a small one,
-    about half a minute). mapping_path: an OSC mapping (default mappings/demo.toml); its destinations are
+    a few seconds). mapping_path: an OSC mapping (default mappings/demo.toml); its destinations are
     pointed at a loopback receiver. warmup_s: stream time before the first memory reading
     (default: a tenth of the soak, at least 60 s, at most 10 min). out_dir: where the take
     goes (default a temporary folder, removed afterwards). heap: also trace the Python heap.
@@ -212,7 +212,10 @@ def soak(hours: float, model=None, mapping_path=None, seed: int = 5, block_s=(0.
     duration_s = hours * 3600.0
     warmup_s = min(600.0, max(60.0, duration_s / 10)) if warmup_s is None else warmup_s
     warmup_s = min(warmup_s, duration_s / 2)
-    mapping_path = Path(mapping_path) if mapping_path else Path(__file__).resolve().parents[2] / "mappings" / "demo.toml"
+    if mapping_path is None:
+        from ..examples_data import example_path
+        mapping_path = example_path("demo.toml")
+    mapping_path = Path(mapping_path)
     receiver = Receiver()
     receiver.start()
     text = mapping_path.read_text(encoding="utf-8")
@@ -222,6 +225,7 @@ def soak(hours: float, model=None, mapping_path=None, seed: int = 5, block_s=(0.
     if out_dir is None:
         tmp = tempfile.TemporaryDirectory(prefix="drape-soak-")
         out_dir = tmp.name
+    Path(out_dir).mkdir(parents=True, exist_ok=True)  # --soak-out may name a folder not made yet
     take = Path(out_dir) / "soak-take.csv"
     events_path = Path(out_dir) / "soak-live-events.txt"
     rate = model.rate_hz

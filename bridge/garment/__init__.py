@@ -32,6 +32,7 @@ from .jacket import (
     Take,
     random_script,
     simulate_take,
+    tour_script,
     training_script,
 )
 from .layout import GarmentLayout, LayoutError, default_layout, load_layout
@@ -53,5 +54,6 @@ __all__ = [
     "Take",
     "random_script",
     "simulate_take",
+    "tour_script",
     "training_script",
 ]

@@ -8,6 +8,9 @@ Nothing runs behind the caller's back: no threads; the caller paces ``step``.
 
 POSIX only (pseudo-terminals).  While nobody has the port open, lines are
 discarded, as a real board's USB serial discards them with no host listening.
+When a host opens the port, the first line it gets is the channel-name header
+(``t_s,left_sleeve,...``), as from a board that starts over when its port is
+opened, so a capture names the channels as ``drape simulate`` does.
 """
 
 from __future__ import annotations
@@ -56,6 +59,9 @@ class PseudoGarment:
         self._pending: list[tuple[float, bytes]] = []
         self._next = 0
         self._start: float | None = None
+        self._host = False  # a host has the port open (the header goes first when one comes)
+        names = ",".join(jacket.channel_names)
+        self.header = (f"t_s,{names}" if with_time else names).encode() + b"\n"
 
     def _refill(self) -> None:
         take = self.jacket.perform(random_script(self.rng, self.chunk_s, self.gestures,
@@ -79,13 +85,23 @@ class PseudoGarment:
         while self._pending[self._next][0] <= t:
             chunk.append(self._pending[self._next][1])
             self._next += 1
+        host = self._host_present()
+        if host and not self._host:  # a host has just opened the port: the header first
+            chunk.insert(0, self.header)
+        self._host = host
         if chunk:
             self._write(b"".join(chunk), len(chunk))
-        try:  # whatever the host sends is read and ignored
-            os.read(self._master, 4096)
-        except (BlockingIOError, OSError):
-            pass
         return max(0.0, self._pending[self._next][0] - t)
+
+    def _host_present(self) -> bool:
+        """Read and ignore what the host sends; with no host holding the port open, the read fails (EIO)."""
+        try:
+            os.read(self._master, 4096)
+        except BlockingIOError:
+            return True
+        except OSError:
+            return False
+        return True
 
     def _write(self, data: bytes, n_lines: int) -> None:
         try:

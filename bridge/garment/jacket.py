@@ -398,6 +398,24 @@ def training_script(rng: np.random.Generator, repetitions: int = 10, gestures=No
     return script
 
 
+def tour_script(rng: np.random.Generator, gestures=None, lead_s: float = 3.0, idle_s=(2.0, 3.0),
+                hold_s: float = 4.0) -> list[tuple[str, float | None]]:
+    """Each gesture once, in shuffled order, with standing between: a short guided tour of a vocabulary.
+
+    lead_s: standing before the first gesture (the chain settles), s; idle_s: range of the
+    standing between gestures, s; hold_s: how long each posture is held, s. With the demo
+    vocabulary (6 gestures, 3 postures) the tour lasts about 45-55 s.
+    """
+    gestures, _ = _script_parts(gestures, NULL_ACTIVITIES)
+    order = list(gestures)
+    rng.shuffle(order)
+    script: list[tuple[str, float | None]] = [("standing", lead_s)]
+    for g in order:
+        script.append((g, hold_s if FULL_GESTURES[g] == "posture" else None))
+        script.append(("standing", float(rng.uniform(*idle_s))))
+    return script
+
+
 def simulate_take(seed: int = 0, wearer: int = 0, session: int = 0, script=None, duration_s: float = 60.0,
                   n_antennas: int = 4, rate_hz: float = DEFAULT_RATE_HZ, layout: GarmentLayout | None = None) -> Take:
     """Render one take; without a script, a random one about ``duration_s`` long."""

@@ -112,6 +112,14 @@ def _near(word: str, known, what: str) -> str:
     return f"did you mean {near[0]!r}?" if near else f"{what}: {', '.join(known) or 'none'}"
 
 
+def _unknown(key: str, known, what: str) -> str:
+    """'unknown key 'adress'; did you mean 'address'?' or the keys there are."""
+    return f"unknown key {key!r}; {_near(str(key), sorted(known), what)}"
+
+
+TOP_TABLES = ("destinations", "rule", "control", "safety", "status", "layers")
+
+
 class _Checker:
     def __init__(self, name, lines, classes, kinds, channel_names, base_dir):
         self.name, self.lines = name, lines
@@ -208,9 +216,10 @@ def parse_mapping(text: str, name: str = "<mapping>", classes=None, kinds: dict[
         raise MappingError([f"{name}:{m.group(1) if m else 1}: not valid TOML ({exc})"]) from None
     ck = _Checker(name, _Lines(text), classes, kinds, channel_names, base_dir or Path.cwd())
     for k in doc:
-        if k not in ("destinations", "rule", "control", "safety", "status", "layers"):
-            ck.bad(1, k, "unknown top-level table; use [destinations.NAME], [[rule]], [[control]], "
-                         "[safety], [status] or [layers]")
+        if k not in TOP_TABLES:
+            near = difflib.get_close_matches(k, TOP_TABLES, n=1)
+            ck.bad(1, k, f"unknown top-level table {k!r}; " + (f"did you mean {near[0]!r}?" if near else
+                         "use [destinations.NAME], [[rule]], [[control]], [safety], [status] or [layers]"))
     dests, declared = _destinations(ck, doc.get("destinations", {}))
     rules = _rules(ck, doc.get("rule", []), dests, declared)
     controls = _controls(ck, doc.get("control", []), dests, declared)
@@ -229,7 +238,9 @@ def parse_mapping(text: str, name: str = "<mapping>", classes=None, kinds: dict[
         ck.bad(1, "layers", 'write [layers] with first = "NAME"')
         lay = {}
     for k in set(lay) - {"first"}:
-        ck.bad(ck.lines.of("[layers]", 0, k), f"layers.{k}", 'unknown key; [layers] has first = "NAME"')
+        ck.bad(ck.lines.of("[layers]", 0, k), f"layers.{k}",
+               f"unknown key {k!r}; " + ("did you mean 'first'?" if difflib.get_close_matches(k, ["first"]) else
+                                         '[layers] has first = "NAME"'))
     if "first" in lay:
         first = lay["first"]
         if first not in layers:
@@ -252,15 +263,22 @@ def _destinations(ck: _Checker, dests) -> tuple[dict, dict]:
         path = f"destinations.{dname}"
         kinds = [k for k in DEST_KINDS if isinstance(d, dict) and k in d]
         if len(kinds) != 1:
+            extras = set().union(*DEST_EXTRA.values())
+            typos = [(k, difflib.get_close_matches(k, list(DEST_KINDS), n=1)) for k in (d if isinstance(d, dict) else {})
+                     if k not in DEST_KINDS and k not in extras]
+            hint = "".join(f"; unknown key {k!r}, did you mean {near[0]!r}?" for k, near in typos if near)
             ck.bad(ck.lines.of(header), path, f"needs exactly one of {', '.join(DEST_KINDS)} "
-                                              f"(e.g. osc = \"127.0.0.1:9000\"){'; found ' + ', '.join(kinds) if kinds else ''}")
+                                              f"(e.g. osc = \"127.0.0.1:9000\"){'; found ' + ', '.join(kinds) if kinds else ''}"
+                                              + hint)
             continue
         key = kinds[0]
         kind = DEST_KINDS[key]
         at = lambda k=key: ck.lines.of(header, 0, k)
         for k in sorted(set(d) - {key} - DEST_EXTRA[kind]):
-            ck.bad(at(k), f"{path}.{k}", f"unknown key for a {key} destination"
-                                          f"{'; it takes ' + ', '.join(sorted(DEST_EXTRA[kind])) if DEST_EXTRA[kind] else ''}")
+            near = difflib.get_close_matches(k, sorted(DEST_EXTRA[kind]), n=1)
+            ck.bad(at(k), f"{path}.{k}", f"unknown key {k!r} for {key} destinations"
+                                          + (f"; did you mean {near[0]!r}?" if near else
+                                             f"{'; it takes ' + ', '.join(sorted(DEST_EXTRA[kind])) if DEST_EXTRA[kind] else ''}"))
         v = d[key]
         if kind in ("osc", "osc-tcp"):
             hp = ck.host_port(at(), f"{path}.{key}", v)
@@ -328,7 +346,8 @@ def _dest_ok(ck, at, path, to, dests, declared, action) -> bool:
         return False
     need = NEEDS[action]
     if dests[to].kind not in need:
-        ck.bad(at, path, f"destination {to!r} is {dests[to].kind}; {action} needs a {' or '.join(need)} destination")
+        ck.bad(at, path, f"destination {to!r} is {dests[to].kind}; {action} needs "
+                         f"{'an' if need[0] in ('osc', 'osc-tcp', 'sacn') else 'a'} {' or '.join(need)} destination")
         return False
     return True
 
@@ -347,7 +366,7 @@ def _tables(ck: _Checker, raw, name: str, known) -> Iterator[tuple[int, dict, Ca
             ck.bad(at(), path, f"write each {name} as a [[{name}]] table")
             continue
         for k in sorted(set(t) - known):
-            ck.bad(at(k), f"{path}.{k}", f"unknown key; a {name} has {', '.join(sorted(known))}")
+            ck.bad(at(k), f"{path}.{k}", _unknown(k, known, f"a {name} has"))
         yield i, t, at, path
 
 
@@ -540,7 +559,7 @@ def _safety(ck: _Checker, s) -> SafetySettings:
         return SafetySettings()
     at = lambda k=None: ck.lines.of("[safety]", 0, k)
     for k in sorted(set(s) - SAFETY_KEYS):
-        ck.bad(at(k), f"safety.{k}", f"unknown key; [safety] has {', '.join(sorted(SAFETY_KEYS))}")
+        ck.bad(at(k), f"safety.{k}", _unknown(k, SAFETY_KEYS, "[safety] has"))
     arm = s.get("arm_posture", "")
     if arm:
         arm = ck.gesture(at("arm_posture"), "safety.arm_posture", arm, posture_only=True) or ""
@@ -567,7 +586,7 @@ def _status(ck: _Checker, s, dests, declared) -> StatusTarget | None:
         ck.bad(at(), "status", 'needs to = "DESTINATION" and address = "/..." (an OSC destination)')
         return None
     for k in sorted(set(s) - {"to", "address"}):
-        ck.bad(at(k), f"status.{k}", "unknown key; [status] has to and address")
+        ck.bad(at(k), f"status.{k}", _unknown(k, ("to", "address"), "[status] has"))
     if not _dest_ok(ck, at("to"), "status.to", s["to"], dests, declared, "address"):
         return None
     a = ck.address(at("address"), "status.address", s.get("address", "/drape/status"))

@@ -123,9 +123,15 @@ class Router:
     def _keys(self):
         return [n for n, d in self.mapping.destinations.items() if d.kind == "keys"]
 
+    def can_switch(self, layer: str, why: str) -> bool:
+        """Whether ``layer`` exists; if not, a warning says so and that the layer stays."""
+        if layer in self.mapping.layers:
+            return True
+        self.warnings.append(f"no layer {layer!r} in {self.mapping.source} ({why}); staying in {self.layer!r}")
+        return False
+
     def _switch(self, t_s: float, layer: str, why: str) -> list[Dispatch]:
-        if layer not in self.mapping.layers:
-            self.warnings.append(f"no layer {layer!r} in {self.mapping.source} ({why}); staying in {self.layer!r}")
+        if not self.can_switch(layer, why):
             return []
         self.layer = layer
         return self._status(t_s, "layer", layer)

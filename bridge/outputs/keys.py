@@ -1,8 +1,8 @@
 """Keystrokes: our key names pressed through a small keyboard backend.
 
 Cautions. Keys go to whatever window has the focus at that moment, which may not be the
-one you meant; keep the show computer's focus fixed and map a disarm gesture
-(``Release(disarm=True)``). Keys are pressed only for gestures of the wearer: no network
+one you meant; keep the show computer's focus fixed and give the wearer a way to disarm
+(a mapping's ``[safety] arm_posture``; disarming sends ``Release(disarm=True)`` here). Keys are pressed only for gestures of the wearer: no network
 input ever reaches this output. Every key held down is let go on ``up``, on ``Release``,
 on close and when pressing fails half-way.
 
@@ -120,12 +120,12 @@ class PynputKeyboard(Keyboard):
         if sys.platform.startswith("linux") and not os.environ.get("DISPLAY"):
             raise OutputUnavailable(
                 "keys: no X display (DISPLAY is not set). Run drape inside the desktop session "
-                "that should receive the keys, or use key_backend = \"uinput\" (Linux, needs /dev/uinput)")
+                "that should receive the keys, or give the destination keys = \"uinput\" (Linux, needs /dev/uinput)")
         try:
             from pynput import keyboard
         except ImportError as exc:
             if "pynput" in str(exc) and "No module" in str(exc):
-                raise OutputUnavailable("keys: pynput is not installed; pip install 'drape[keys]'") from None
+                raise OutputUnavailable("keys: pynput is not installed; pip install 'drape-bridge[keys]'") from None
             raise OutputUnavailable(f"keys: cannot reach the display {os.environ.get('DISPLAY', '')!r}: "
                                     f"{str(exc).strip().splitlines()[0]}") from None
         try:
@@ -229,7 +229,7 @@ class UinputKeyboard(Keyboard):
         try:
             from evdev import UInput, ecodes
         except ImportError:
-            raise OutputUnavailable("keys: python-evdev is not installed; pip install 'drape[uinput]'") from None
+            raise OutputUnavailable("keys: python-evdev is not installed; pip install 'drape-bridge[uinput]'") from None
         self._ecodes = ecodes
         self._codes = {k: getattr(ecodes, v) for k, v in uinput_code_names().items()}
         try:

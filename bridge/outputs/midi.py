@@ -66,8 +66,8 @@ class SoundingNotes:
 NO_MIDI_SYSTEM = (
     "no MIDI system to open a port with ({error}). On Linux either load the ALSA sequencer "
     "(sudo modprobe snd-seq; check that /dev/snd/seq exists) or start a JACK server "
-    "(e.g. jackd --no-realtime -d dummy) and set midi_api = \"mido.backends.rtmidi/UNIX_JACK\" "
-    "(or MIDO_BACKEND). macOS has CoreMIDI built in; on Windows use a named port, as Windows "
+    "(e.g. jackd --no-realtime -d dummy) and set api = \"mido.backends.rtmidi/UNIX_JACK\" on the "
+    "destination (or MIDO_BACKEND). macOS has CoreMIDI built in; on Windows use a named port, as Windows "
     "MIDI cannot create virtual ports. The other destinations keep running."
 )
 
@@ -90,7 +90,7 @@ class MidiPortOutput(Output):
         except ImportError as exc:
             raise OutputUnavailable(
                 f"MIDI output {name!r}: the MIDI backend {api!r} cannot load ({exc}); "
-                "install the extra: pip install 'drape[midi]'") from None
+                "install the extra: pip install 'drape-bridge[midi]'") from None
         if virtual and not port_name:
             raise ValueError(f"MIDI output {name!r}: a virtual port needs a port_name")
         try:

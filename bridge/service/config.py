@@ -9,7 +9,7 @@
 
 Acquisition (all optional; see docs/acquisition.md):
 
-    port = "usb:2341:8037"       # or by USB vendor:product[:serial], or "serial:SERIALNO"
+    port = "usb:f00d:0001"       # or by USB vendor:product[:serial], or "serial:SERIALNO"
     protocol = "auto"            # "text", "frames" or "auto" (told from the first bytes)
     timestamp = true             # text lines start with the device time (default: detect)
     resample = true              # device-timed samples onto the model's rate
@@ -17,11 +17,12 @@ Acquisition (all optional; see docs/acquisition.md):
     input = "osc"                # instead of a serial port: OSC over UDP
     listen = "0.0.0.0:9100"
     address = "/jacket/antennas"
-    arguments = ["t_s", "left_sleeve", "right_sleeve", "front_left", "front_right"]
+    arguments = ["t_s", "left_sleeve", "right_sleeve", "left_front", "right_front"]
 """
 
 from __future__ import annotations
 
+import difflib
 import re
 import tomllib
 from dataclasses import dataclass
@@ -30,6 +31,20 @@ from pathlib import Path
 
 class ConfigError(ValueError):
     pass
+
+
+GARMENT_KEYS = ("name", "port", "baud", "model", "mapping", "protocol", "timestamp", "resample", "stall_s", "input",
+                "listen", "address", "arguments", "simulated", "seed", "wearer")
+SERVICE_KEYS = {"control": ("listen", "token"), "status": ("to", "levels_hz"), "calibration": ("hold_still_s", "shift")}
+
+
+def _unknown_keys(path: Path, table: dict, known, where: str) -> None:
+    """Refuse a key the config does not have, naming the closest one (a typo gets no silent default)."""
+    for k in table:
+        if k not in known:
+            near = difflib.get_close_matches(str(k), list(known), n=1)
+            raise ConfigError(f"{path}: {where} has no key {k!r}; "
+                              + (f"did you mean {near[0]!r}?" if near else f"its keys are {', '.join(known)}"))
 
 
 @dataclass(frozen=True)
@@ -68,10 +83,12 @@ def load_config(path: str | Path) -> GarmentConfig:
     g = doc.get("garment")
     if not isinstance(g, dict):
         raise ConfigError(f"{path}: needs a [garment] table with port and model")
+    _unknown_keys(path, doc, ("garment", *SERVICE_KEYS), "the config")
     return _garment(path, g, "[garment]")
 
 
 def _garment(path: Path, g: dict, where: str) -> GarmentConfig:
+    _unknown_keys(path, g, GARMENT_KEYS, where)
     simulated = g.get("simulated", False)
     if not isinstance(simulated, bool):
         raise ConfigError(f"{path}: {where} simulated must be true or false")
@@ -81,6 +98,9 @@ def _garment(path: Path, g: dict, where: str) -> GarmentConfig:
     for key in (("port", "model") if kind == "serial" else ("model",)):
         if not isinstance(g.get(key), str):
             raise ConfigError(f"{path}: {where} {key} must be a string (the {'serial device' if key == 'port' else 'model file'})")
+    if kind == "serial" and not g["port"].strip():
+        raise ConfigError(f"{path}: {where} port is empty: name the garment's serial device, e.g. \"/dev/ttyACM0\" "
+                          f"or \"usb:VID:PID\" (`drape ports` lists them)")
     baud = g.get("baud", 115200)
     if not isinstance(baud, int) or baud <= 0:
         raise ConfigError(f"{path}: {where} baud must be a positive integer")
@@ -197,9 +217,11 @@ def load_service(path: str | Path) -> ServiceConfig:
     c = doc.get("control", {})
     s = doc.get("status", {})
     k = doc.get("calibration", {})
+    _unknown_keys(path, doc, ("garment", *SERVICE_KEYS), "the config")
     for table, v in (("control", c), ("status", s), ("calibration", k)):
         if not isinstance(v, dict):
             raise ConfigError(f"{path}: [{table}] must be a table")
+        _unknown_keys(path, v, SERVICE_KEYS[table], f"[{table}]")
     listen = c.get("listen", "127.0.0.1:9100")
     token = c.get("token", "")
     if not isinstance(listen, str) or ":" not in listen:

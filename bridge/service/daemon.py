@@ -227,9 +227,10 @@ class Service:
             self.garments.append(g)
             try:
                 if cfg.simulated and not Path(cfg.model).is_file():
-                    log.info("%s: no model at %s; training one on the simulated wearer (about half a minute)",
-                             g.name, cfg.model)
+                    log.info("%s: no model at %s; training one on the simulated wearer ...", g.name, cfg.model)
+                    t0 = time.monotonic()
                     g.model = train_simulated_model(cfg, Path(cfg.model))
+                    log.info("%s: trained in %.1f s, saved as %s", g.name, time.monotonic() - t0, cfg.model)
                 else:
                     g.model = load_model(cfg.model)
                 g.model_sig = file_signature(cfg.model)
@@ -427,7 +428,7 @@ class Service:
                 self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
                                    + self.state_messages(now))
             return
-        log.info("control: %s%s for %s", cmd, f" {detail}" if detail else "", target or "every garment")
+        log.info("control message: %s%s asked for %s", cmd, f" {detail}" if detail else "", target or "every garment")
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)

@@ -288,6 +288,8 @@ class Pipeline:
         if kind == "panic":
             return self.safety.panic(t, why)
         if kind == "layer":
+            if self.router is not None and not self.router.can_switch(detail, "control message"):
+                return []  # no layer event: nothing may report a switch that did not happen (the router warns)
             return [Event(t, "", "layer", 1.0, 0.0, self.garment, 0.0, detail)]
         raise ValueError(f"unknown command {kind!r}; use arm, disarm, panic or layer")
 

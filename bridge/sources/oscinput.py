@@ -7,7 +7,7 @@ argument is, in order::
     input = "osc"
     listen = "0.0.0.0:9100"
     address = "/jacket/antennas"
-    arguments = ["t_s", "left_sleeve", "right_sleeve", "front_left", "front_right"]
+    arguments = ["t_s", "left_sleeve", "right_sleeve", "left_front", "right_front"]
 
 "t_s" is the device time in seconds (optional), "-" an argument to ignore; every other name
 is a channel, in the model's channel order or not (they are matched by name). Messages may

@@ -3,8 +3,8 @@
 A config names a port by its path (``/dev/ttyACM0``, ``COM4``), or by its USB identity so a
 garment plugged into another socket is still found:
 
-    usb:2341:8037             vendor id : product id (hex), the first such device
-    usb:2341:8037:5A3F2B11    ... with this USB serial number
+    usb:f00d:0001             vendor id : product id (hex), the first such device
+    usb:f00d:0001:5A3F2B11    ... with this USB serial number
     serial:5A3F2B11           any device with this USB serial number
 
 pyserial URLs (``loop://``, ``socket://host:port``) are passed through.
@@ -12,6 +12,7 @@ pyserial URLs (``loop://``, ``socket://host:port``) are passed through.
 
 from __future__ import annotations
 
+import os
 import time
 from dataclasses import dataclass
 
@@ -111,7 +112,10 @@ class SerialSource(Source):
             else:
                 self.serial = serial.Serial(self.device, baud, timeout=timeout_s)
         except (serial.SerialException, OSError) as exc:
-            raise SourceGone(f"cannot open serial port {port}: {exc}") from None
+            device = getattr(self, "device", port)
+            gone = "://" not in device and not os.path.exists(device) and "drape ports" not in str(exc)
+            hint = " (no such device here; `drape ports` lists the serial ports)" if gone else ""
+            raise SourceGone(f"cannot open serial port {port}: {exc}{hint}") from None
 
     @property
     def channel_names(self) -> tuple[str, ...]:

@@ -15,12 +15,14 @@ class SimulatedSource(Source):
 
     realtime: pace blocks to the wall clock (live demo) or return them at once (tests,
     benchmarks). duration_s: stop after this much stream time (None: endless).
-    ``truth`` collects the performed intervals, for checking what was recognised.
+    first: a script performed before the random part (e.g. ``tour_script``: each gesture once).
+    on_read: called with the stream time reached (s) after each block, e.g. to say what is
+    being performed. ``truth`` collects the performed intervals, for checking what was recognised.
     """
 
     def __init__(self, seed: int = 0, wearer: int = 0, session: int = 0, realtime: bool = True,
                  block_s: float = 0.02, duration_s: float | None = None, chunk_s: float = 30.0,
-                 gestures=None, clock=time.monotonic, sleep=time.sleep):
+                 gestures=None, clock=time.monotonic, sleep=time.sleep, first=None, on_read=None):
         self.jacket = Jacket(seed=seed, wearer=wearer, session=session)
         self.rng = np.random.default_rng([seed, wearer, session, 7])
         self.rate_hz = self.jacket.rate_hz
@@ -36,13 +38,16 @@ class SimulatedSource(Source):
         self._f = np.empty((0, len(self.channel_names)))
         self._start = None
         self._emitted = 0
+        self._first = list(first) if first else None
+        self.on_read = on_read
 
     def read(self) -> Block:
         if self._start is None:
             self._start = self._clock()
         limit = None if self.duration_s is None else int(round(self.duration_s * self.rate_hz))
         while self._t.size < self.block_n:
-            take = self.jacket.perform(random_script(self.rng, self.chunk_s, self.gestures))
+            script, self._first = self._first or random_script(self.rng, self.chunk_s, self.gestures), None
+            take = self.jacket.perform(script)
             self.truth.extend(take.intervals)
             self._t = np.concatenate([self._t, take.t_s])
             self._f = np.concatenate([self._f, take.freq_hz])
@@ -59,6 +64,8 @@ class SimulatedSource(Source):
             delay = due - self._clock()
             if delay > 0:
                 self._sleep(delay)
+        if self.on_read:
+            self.on_read(self._emitted / self.rate_hz)
         return Block(t, f, self._clock())
 
 

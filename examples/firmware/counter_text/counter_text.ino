@@ -1,16 +1,18 @@
 // Counts N oscillator frequencies over a gate time and prints one text-protocol line per gate:
-//   t_s,left_sleeve,right_sleeve,front_left,front_right
+//   t_s,left_sleeve,right_sleeve,left_front,right_front
 //   0.0200,181200.0,250800.0,331000.0,429800.0
-// An example for drape, not part of it. Arduino-style C++ for a 32-bit board (SAMD21, RP2040,
-// ESP32 ...) fast enough for tens of thousands of pin interrupts per second.
+// An example for drape, not part of it. Requirements: a 32-bit microcontroller board with
+// pin-change interrupts on four pins, a microsecond timer and a USB serial port, fast enough
+// for tens of thousands of pin interrupts per second; written in the common setup()/loop()
+// C++ style (attachInterrupt, micros, Serial): adapt the calls to your board's toolchain.
 //
-// Each LC oscillator's output goes through a divide-by-PRESCALE counter (e.g. one stage of a
-// 74HC4040 or 74HC393) to an interrupt-capable pin, so the board sees a few kHz, not hundreds.
+// Each LC oscillator's output goes through a divide-by-PRESCALE counter (one stage of a
+// binary ripple-counter chip) to an interrupt-capable pin, so the board sees a few kHz, not hundreds.
 // See README.md beside this file for wiring and cautions.
 
 const uint8_t N_CHANNELS = 4;
 const uint8_t PINS[N_CHANNELS] = {2, 3, 4, 5};
-const char *NAMES[N_CHANNELS] = {"left_sleeve", "right_sleeve", "front_left", "front_right"};
+const char *NAMES[N_CHANNELS] = {"left_sleeve", "right_sleeve", "left_front", "right_front"};
 const uint32_t PRESCALE = 16;        // external divider ratio in front of each pin
 const uint32_t GATE_US = 20000;      // gate time: 20 ms, 50 samples per second
 const uint32_t BAUD = 115200;        // ignored by native-USB boards
