@@ -21,8 +21,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..signal import BandPass
-from .dtw import (class_distances_pruned, distance_matrix, envelope, fit_templates, per_class_min, scores_from_distances,
-                  spread)
+from .dtw import (StreamCosts, class_distances_pruned, distance_matrix, envelope, fit_templates, per_class_min,
+                  scores_from_distances, spread)
 from .features import window_features
 from .linear import expected_calibration_error, fit_temperature, probabilities
 from .minirocket import fit_minirocket, minirocket_transform, rolling_transform
@@ -226,7 +226,8 @@ class MiniRocketRecogniser:
 
 
 class DtwRecogniser:
-    """Window ring and template envelopes; nearest-template distances (LB_Keogh-pruned) every hop.
+    """Window ring, template envelopes and the stream's costs against the templates
+    (``StreamCosts``); exact nearest-template distances, pruned by lower bounds, every hop.
 
     Null templates are matched as one more class. ``computed`` counts the template
     comparisons actually run, ``offered`` those possible.
@@ -239,6 +240,7 @@ class DtwRecogniser:
         self.templates = np.concatenate([model.templates, model.null_templates])
         self.template_class = np.concatenate([model.template_class, np.full(len(model.null_templates), self.k)])
         self.upper, self.lower = envelope(self.templates, model.radius)
+        self.costs = StreamCosts(self.templates, model.radius)
         self.computed = 0
         self.offered = 0
 
@@ -250,9 +252,11 @@ class DtwRecogniser:
             return [], np.empty((0, len(m.classes)))
         cases = windows_to_cases(windows, m.stream)
         dist = np.empty((len(cases), self.k + 1))
+        length = m.windows.length
         for i, q in enumerate(cases):
+            costs = self.costs.band(ends[i] - length, q)
             dist[i], n = class_distances_pruned(q, self.templates, self.template_class, self.k + 1, m.radius,
-                                                self.upper, self.lower)
+                                                self.upper, self.lower, costs)
             self.computed += n
             self.offered += len(self.templates)
         null = dist[:, self.k] if len(m.null_templates) else None
