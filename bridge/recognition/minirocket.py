@@ -216,8 +216,21 @@ def fit_minirocket(x: np.ndarray, n_features: int = DEFAULT_FEATURES, seed: int 
     return MiniRocketParams(n, n_ch, dil, fpk, mask, biases, edges)
 
 
-def minirocket_transform(params: MiniRocketParams, x: np.ndarray, chunk: int | None = None) -> np.ndarray:
+def compiled_kernels():
+    """The compiled kernels module (``minirocket_kernels``), or None without numba."""
+    try:
+        from . import minirocket_kernels
+    except ImportError:
+        return None
+    return minirocket_kernels
+
+
+def minirocket_transform(params: MiniRocketParams, x: np.ndarray, chunk: int | None = None,
+                         engine: str = "auto") -> np.ndarray:
     """PPV features (m, n_features) of cases x (m, channels, length).
+
+    engine: "numpy", "compiled" (the ``accelerate`` extra's kernels: same features, bit
+    for bit) or "auto" (compiled when numba is installed).
 
     Bit-equal to ``reference_transform`` (same convolution outputs, same comparisons),
     computed with fewer passes: the taps of every kernel at a dilation are gathered from
@@ -233,12 +246,44 @@ def minirocket_transform(params: MiniRocketParams, x: np.ndarray, chunk: int | N
     out = np.empty((m, params.n_features))
     if m == 0:
         return out
+    if engine not in ("auto", "numpy", "compiled"):
+        raise ValueError(f"engine must be auto, numpy or compiled, not {engine!r}")
+    kernels = compiled_kernels() if engine != "numpy" else None
+    if engine == "compiled" and kernels is None:
+        raise ValueError("the compiled engine needs numba (pip install 'drape[accelerate]')")
+    if kernels is not None:
+        _compiled_features(params, kernels, x, out)
+        return out
     if chunk is None:
         chunk = max(1, min(m, 2_000_000 // (N_KERNELS * n * max(4, int(params.features_per_kernel.max())))))
     plan = _batch_plan(params)
     for a in range(0, m, chunk):
         _batch_features(params, plan, x[a:a + chunk], out[a:a + chunk])
     return out
+
+
+def _compiled_features(params: MiniRocketParams, kernels, x: np.ndarray, out: np.ndarray) -> None:
+    """The batch transform by the compiled kernels (inputs laid out as the numpy path's)."""
+    m, n_ch, n = x.shape
+    dil = params.dilations.astype(np.int64)
+    fpk = params.features_per_kernel.astype(np.int64)
+    beta = kernel_positions()
+    offs = params.offsets().astype(np.int64)
+    if params.edges == "valid":
+        subsets, which = np.unique(params.channel_mask.reshape(-1, n_ch), axis=0, return_inverse=True)
+        which = which.reshape(len(dil), N_KERNELS).astype(np.int64)
+        used = np.zeros((len(dil), len(subsets)), dtype=np.bool_)
+        used[np.arange(len(dil))[:, None], which] = True
+        ys = subsets[None, :, 0, None] * x[:, None, 0]
+        for c in range(1, n_ch):
+            ys = ys + subsets[None, :, c, None] * x[:, None, c]
+        kernels.valid_features(np.ascontiguousarray(ys), used, dil, fpk, which, beta, params.biases, offs, out)
+    else:
+        pad = 4 * int(dil.max())
+        xp = np.zeros((m, n_ch, n + 2 * pad))
+        xp[:, :, pad:pad + n] = x
+        kernels.alternate_features(xp, pad, dil, fpk, np.ascontiguousarray(params.channel_mask), beta,
+                                   params.biases, offs, out)
 
 
 def _batch_plan(params: MiniRocketParams) -> dict:
