@@ -31,23 +31,29 @@ def valid_features(ys, used, dilations, fpk, kernel_u, beta, biases, offsets, ou
             for u in range(n_sub):
                 if not used[di, u]:
                     continue
+                row = ys[c, u]
+                al = alpha[u]
                 for p in range(p_n):
-                    a = ys[c, u, p]
-                    for k in range(1, 9):
-                        a = a + ys[c, u, p + k * d]
-                    alpha[u, p] = a
+                    al[p] = row[p]
+                for k in range(1, 9):  # α = ((tap 0 + tap 1) + tap 2) + …, in order
+                    tap = row[k * d:k * d + p_n]
+                    for p in range(p_n):
+                        al[p] = al[p] + tap[p]
             for k in range(84):
                 u = kernel_u[di, k]
+                row = ys[c, u]
                 o0, o1, o2 = beta[k, 0] * d, beta[k, 1] * d, beta[k, 2] * d
-                for p in range(p_n):
-                    g = ys[c, u, p + o0] + ys[c, u, p + o1]
-                    g = g + ys[c, u, p + o2]
-                    conv[p] = 3.0 * g - alpha[u, p]
+                t0, t1, t2 = row[o0:o0 + p_n], row[o1:o1 + p_n], row[o2:o2 + p_n]
+                al = alpha[u]
+                for p in range(p_n):  # loops over 1-d slices: the compiler vectorises them
+                    g = t0[p] + t1[p]
+                    g = g + t2[p]
+                    conv[p] = 3.0 * g - al[p]
                 base = offsets[di] + k * f
                 for j in range(f):
                     b = biases[base + j]
                     count = 0
-                    for p in range(p_n):  # a tight loop the compiler vectorises
+                    for p in range(p_n):
                         count += conv[p] > b
                     out[c, base + j] = count / p_n
 
@@ -66,34 +72,41 @@ def alternate_features(xp, pad, dilations, fpk, mask, beta, biases, offsets, out
             f = fpk[di]
             alpha = np.empty((n_ch, n))
             for ch in range(n_ch):
+                row = xp[c, ch]
+                al = alpha[ch]
                 for p in range(n):
-                    a = xp[c, ch, s0 + p]
-                    for k in range(1, 9):
-                        a = a + xp[c, ch, s0 + p + k * d]
-                    alpha[ch, p] = a
+                    al[p] = row[s0 + p]
+                for k in range(1, 9):  # α in order of taps, as the numpy path adds them
+                    tap = row[s0 + k * d:s0 + k * d + n]
+                    for p in range(n):
+                        al[p] = al[p] + tap[p]
             for k in range(84):
                 o0, o1, o2 = s0 + beta[k, 0] * d, s0 + beta[k, 1] * d, s0 + beta[k, 2] * d
                 first = True
                 for ch in range(n_ch):
                     if mask[di, k, ch] == 0.0:
                         continue
-                    if first:  # two branch-free loops, so each vectorises
+                    row = xp[c, ch]
+                    t0, t1, t2 = row[o0:o0 + n], row[o1:o1 + n], row[o2:o2 + n]
+                    al = alpha[ch]
+                    if first:  # two branch-free loops over 1-d slices, so each vectorises
                         for p in range(n):
-                            g = xp[c, ch, p + o0] + xp[c, ch, p + o1]
-                            g = g + xp[c, ch, p + o2]
-                            conv[p] = 3.0 * g - alpha[ch, p]
+                            g = t0[p] + t1[p]
+                            g = g + t2[p]
+                            conv[p] = 3.0 * g - al[p]
                         first = False
                     else:
                         for p in range(n):
-                            g = xp[c, ch, p + o0] + xp[c, ch, p + o1]
-                            g = g + xp[c, ch, p + o2]
-                            conv[p] = conv[p] + (3.0 * g - alpha[ch, p])
+                            g = t0[p] + t1[p]
+                            g = g + t2[p]
+                            conv[p] = conv[p] + (3.0 * g - al[p])
                 padded = (di + k) % 2 == 0
                 lo, hi = (0, n) if padded else (4 * d, n - 4 * d)
                 base = offsets[di] + k * f
+                pooled = conv[lo:hi]
                 for j in range(f):
                     b = biases[base + j]
                     count = 0
-                    for p in range(lo, hi):
-                        count += conv[p] > b
+                    for p in range(hi - lo):
+                        count += pooled[p] > b
                     out[c, base + j] = count / (hi - lo)
