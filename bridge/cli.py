@@ -668,7 +668,8 @@ def cmd_bench(a) -> int:
     if a.spotting:
         return _bench_spotting(a)
     run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
-            classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")))
+            classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")), compare=a.compare,
+            batch_windows=a.batch_windows)
     return 0
 
 
@@ -1160,6 +1161,11 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--fit-minutes", type=float, default=30.0, help="minutes of 4-channel data to time fitting on (0 to skip)")
     b.add_argument("--classifier", action="append", choices=tuple(CLASSIFIERS), help="only this one (repeatable)")
     b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
+    b.add_argument("--compare", action="store_true",
+                   help="also time the reference implementations in the same run and print ratios "
+                        "(the numba MiniRocket needs the compare extra)")
+    b.add_argument("--batch-windows", type=int, default=1000,
+                   help="windows of the batch minirocket transform figure (0 to skip)")
     b.add_argument("--live", action="store_true",
                    help="end to end instead: the simulated jacket through a pty into `drape start`, out to loopback OSC")
     b.add_argument("--live-s", type=float, default=30.0, help="--live: seconds of stream")

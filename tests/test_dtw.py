@@ -174,3 +174,41 @@ def test_a_class_with_one_template_does_not_flatten_the_probabilities():
     assert list(p.argmax(axis=1)) == [1, 2] and (p.max(axis=1) > 0.5).all()
     single = fit_cases("dtw", X[[0, 5]], y[[0, 5]], ["up", "down"], band=0.1)   # one template each, no null
     assert single.temperature == 1.0 and single.summary["leave_one_out_accuracy"] is None
+
+
+@pytest.mark.parametrize("n_ch, radius, hop", [(8, 20, 5), (3, 4, 1), (2, 0, 7), (1, 39, 3)])
+def test_stream_search_equals_the_exhaustive_search_bit_for_bit(n_ch, radius, hop):
+    # The lower-bound cascade (LB_Kim, LB_Keogh both ways; Rakthanmanon et al., KDD 2012),
+    # the diagonal-path upper bound, early abandoning and the costs kept over hops must not
+    # change a single distance: the exhaustive search computes every template in full.
+    from bridge.recognition.dtw import StreamCosts
+    rng = np.random.default_rng(n_ch * 100 + radius)
+    n = 40
+    templates = rng.normal(size=(15, n_ch, n)).cumsum(axis=2)
+    cls = np.repeat(np.arange(5), 3)
+    stream = rng.normal(size=(n_ch, n + 30 * hop)).cumsum(axis=1)
+    templates[4] = stream[:, 10:10 + n] + 0.01  # one near match, so abandoning has work to do
+    up, lo = envelope(templates, radius)
+    costs = StreamCosts(templates, radius)
+    pruned_some = False
+    for start in range(0, stream.shape[1] - n + 1, hop):
+        q = stream[:, start:start + n]
+        got, computed = class_distances_pruned(q, templates, cls, 5, radius, up, lo, costs.band(start, q))
+        full = per_class_min(distance_matrix(q[None], templates, radius), cls, 5)[0]
+        np.testing.assert_array_equal(got, full)
+        pruned_some |= computed < len(templates)
+    assert pruned_some
+
+
+def test_abandoning_only_drops_pairs_above_their_bound():
+    from bridge.recognition.dtw import band_dtw
+    rng = np.random.default_rng(9)
+    q = rng.normal(size=(6, 2, 50)).cumsum(axis=2)
+    t = rng.normal(size=(6, 2, 50)).cumsum(axis=2)
+    exact = band_dtw(q, t, 5)
+    bound = exact * np.array([0.5, 2.0, 1.0, 0.99, 1.01, np.inf])
+    got = band_dtw(q, t, 5, bound)
+    keep = exact <= bound
+    np.testing.assert_array_equal(got[keep], exact[keep])
+    # above the bound: abandoned (inf) once a whole row exceeds it, else computed in full
+    assert (np.isinf(got[~keep]) | (got[~keep] == exact[~keep])).all() and np.isinf(got[0])

@@ -12,6 +12,7 @@ import time
 import numpy as np
 
 from ..recognition.classifiers import fit_cases, make_recogniser
+from ..recognition.features import window_features
 from ..recognition.windows import WindowSpec
 from ..signal import BandPass
 
@@ -139,10 +140,10 @@ def bench_fit(name: str, minutes: float = 30.0) -> dict:
     from ..garment import GESTURES
     from ..recognition.classifiers import fit_recordings
     takes = _troupe_takes(minutes)
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     fit_recordings(name, takes, dict(GESTURES))
     return {"classifier": name, "data_minutes": round(sum(t.freq_hz.shape[0] / t.rate_hz for t in takes) / 60.0, 1),
-            "fit_s": round(time.perf_counter() - t0, 2)}
+            "fit_s": round(time.perf_counter() - t0, 2), "cpu_s": round(time.process_time() - c0, 2)}
 
 
 def bench_replay(name: str, duration_s: float = 300.0, hop_s: float = 0.05) -> dict:
@@ -179,6 +180,175 @@ HOP_TARGET_MS = {"linear": 0.2, "minirocket": 3.0}
 REPLAY_TARGET_X = {"linear": 2000.0, "minirocket": 100.0}
 
 
+# Targets of the speed work where users wait (figures printed by ``run_all``; ratios are
+# taken against a reference timed in the same process, interleaved, so load cancels out).
+BATCH_TARGET_RATIO = 1.0          # minirocket batch transform / the numba peer, 1,000 windows 4×200
+FIT_TARGET_S = {"minirocket": 30.0}  # fit on about 34 min of 4-channel takes
+DTW_HOP_TARGET_MS = {8: 3.0}      # dtw per hop at 8 channels
+LINEAR_FLOOR_TARGET_RATIO = 1.5   # linear per hop at 16 channels / the bare numpy arithmetic
+CONTROL_TARGET_MS = 2.0           # continuous control: added latency, p99
+JITTER_TARGET_MS = 1.0            # continuous control: p99 − median
+
+
+def load_average() -> str:
+    """The 1-minute load average (Linux), as printed beside each figure; "?" elsewhere."""
+    try:
+        return open("/proc/loadavg").read().split()[0]
+    except OSError:
+        return "?"
+
+
+def _interleaved(fns: dict, reps: int) -> dict:
+    """Median wall and CPU time (s) of each callable, run in turn ``reps`` times (a, b, a, b, …)
+    after one untimed warm-up each, so that load on a shared machine hits all alike."""
+    for f in fns.values():
+        f()
+    wall = {k: [] for k in fns}
+    cpu = {k: [] for k in fns}
+    for _ in range(reps):
+        for k, f in fns.items():
+            t0, c0 = time.perf_counter(), time.process_time()
+            f()
+            wall[k].append(time.perf_counter() - t0)
+            cpu[k].append(time.process_time() - c0)
+    return {k: (float(np.median(wall[k])), float(np.median(cpu[k]))) for k in fns}
+
+
+def peer_minirocket():
+    """The reference MiniRocket (numba) of the optional ``compare`` extra, or None."""
+    try:
+        from aeon.transformations.collection.convolution_based import MiniRocket
+    except ImportError:
+        return None
+    return MiniRocket
+
+
+def bench_batch_transform(windows: int = 1000, n_channels: int = 4, length: int = 200, n_features: int = 10_000,
+                          reps: int = 3, compare: bool = True, seed: int = 0) -> list[dict]:
+    """Batch MiniRocket transform of ``windows`` random-walk windows, both edge modes, with
+    the numba peer (when installed and ``compare``) timed interleaved in the same process.
+
+    Returns one dict per edge mode: {"edges", "windows", "drape_s", "drape_cpu_s",
+    "peer_s", "peer_cpu_s", "ratio", "cpu_ratio"} (peer figures None without the peer).
+    """
+    from ..recognition.minirocket import fit_minirocket, minirocket_transform
+    rng = np.random.default_rng(seed)
+    x = _cases(rng, windows, n_channels, length)
+    peer_cls = peer_minirocket() if compare else None
+    fns = {}
+    for edges in ("valid", "alternate"):
+        params = fit_minirocket(x, n_features, seed, edges)
+        fns[edges] = (lambda p=params: minirocket_transform(p, x))
+    if peer_cls is not None:
+        peer = peer_cls(n_kernels=n_features, random_state=seed, n_jobs=1)
+        peer.fit(x)
+        fns["peer"] = lambda: peer.transform(x)
+    t = _interleaved(fns, reps)
+    out = []
+    for edges in ("valid", "alternate"):
+        row = {"edges": edges, "windows": windows, "drape_s": round(t[edges][0], 3),
+               "drape_cpu_s": round(t[edges][1], 3), "peer_s": None, "ratio": None}
+        row["peer_cpu_s"] = row["cpu_ratio"] = None
+        if "peer" in t:
+            row["peer_s"] = round(t["peer"][0], 3)
+            row["ratio"] = round(t[edges][0] / t["peer"][0], 2)
+            row["peer_cpu_s"] = round(t["peer"][1], 3)
+            row["cpu_ratio"] = round(t[edges][1] / max(t["peer"][1], 1e-9), 2)
+        out.append(row)
+    return out
+
+
+def bench_dtw_search(n_channels: int = 8, hops: int = 100, compare: bool = True, seed: int = 0) -> dict:
+    """dtw per hop (live recogniser: bounds, abandoning, stream costs) against the
+    exhaustive search of the same windows (every template in full), interleaved hop by hop.
+
+    Returns {"channels", "hop_median_ms", "cpu_median_ms", "exhaustive_median_ms", "ratio",
+    "same"}; "same" says whether every distance agreed exactly.
+    """
+    from ..recognition.classifiers import windows_to_cases
+    from ..recognition.dtw import distance_matrix, per_class_min
+    rng = np.random.default_rng(seed)
+    spec = WindowSpec(100.0, 2.0, 0.05)
+    labels = [f"g{i}" for i in range(5)]
+    X = _cases(rng, 30, n_channels, spec.length)
+    y = np.array(sum([[c] * 5 for c in labels], []) + ["null"] * 5)
+    model = fit_cases("dtw", X, y, labels, rate_hz=100.0, windows=spec, conditioning=BandPass(100.0),
+                      channel_names=tuple(f"ch{i}" for i in range(n_channels)), stream="level",
+                      templates_per_class=5, band=0.1)
+    rec = make_recogniser(model)
+    level = rng.normal(size=(spec.length + hops * spec.hop, n_channels)).cumsum(axis=0) * 0.01
+    motion = np.zeros_like(level)
+    rec.push(level[:spec.length], motion[:spec.length])
+    live, cpu, full, same = [], [], [], True
+    k = rec.k + 1
+    for h in range(hops):
+        a = spec.length + h * spec.hop
+        t0, c0 = time.perf_counter(), time.process_time()
+        rec.push(level[a:a + spec.hop], motion[a:a + spec.hop])
+        live.append(time.perf_counter() - t0)
+        cpu.append(time.process_time() - c0)
+        if compare:
+            w = level[a + spec.hop - spec.length:a + spec.hop]
+            q = windows_to_cases(np.stack([w, np.zeros_like(w)])[None], "level")
+            t0 = time.perf_counter()
+            d = per_class_min(distance_matrix(q, rec.templates, model.radius), rec.template_class, k)
+            full.append(time.perf_counter() - t0)
+            from ..recognition.dtw import class_distances_pruned
+            got, _ = class_distances_pruned(q[0], rec.templates, rec.template_class, k, model.radius, rec.upper,
+                                            rec.lower)
+            same &= bool(np.array_equal(got, d[0]))
+    out = {"channels": n_channels, "hop_median_ms": round(float(np.median(live)) * 1e3, 3),
+           "cpu_median_ms": round(float(np.median(cpu)) * 1e3, 3), "exhaustive_median_ms": None, "ratio": None,
+           "same": same if compare else None}
+    if compare:
+        out["exhaustive_median_ms"] = round(float(np.median(full)) * 1e3, 3)
+        out["ratio"] = round(out["hop_median_ms"] / out["exhaustive_median_ms"], 2)
+    return out
+
+
+def bench_linear_floor(n_channels: int = 16, hops: int = 300, seed: int = 0) -> dict:
+    """linear per hop through the live recogniser against a bare-numpy floor doing the same
+    arithmetic on a ready-cut window (features, Fourier map, scores, softmax: no ring, no
+    bookkeeping), interleaved hop by hop. Also checks that the hop-by-hop probabilities
+    are bit-equal to those of the whole stream pushed as one block (a replay).
+
+    Returns {"channels", "hop_median_ms", "floor_median_ms", "ratio", "live_equals_batch",
+    "live_batch_max_diff"}.
+    """
+    from ..recognition.linear import probabilities
+    rng = np.random.default_rng(seed)
+    spec = WindowSpec(100.0, 2.0, 0.05)
+    X = _cases(rng, 60, n_channels, spec.length)
+    y = np.array(["a"] * 20 + ["b"] * 20 + ["null"] * 20)
+    model = fit_cases("linear", X, y, ["a", "b"], rate_hz=100.0, windows=spec, conditioning=BandPass(100.0),
+                      channel_names=tuple(f"ch{i}" for i in range(n_channels)), stream="level",
+                      fourier_features=2000)
+    rec = make_recogniser(model)
+    n = spec.length + hops * spec.hop
+    level = rng.normal(size=(n, n_channels)).cumsum(axis=0) * 0.01
+    motion = rng.normal(size=(n, n_channels)) * 0.01
+    rec.push(level[:spec.length], motion[:spec.length])
+    live, floor, probs = [], [], []
+    for h in range(hops):
+        a = spec.length + h * spec.hop
+        t0 = time.perf_counter()
+        _, p = rec.push(level[a:a + spec.hop], motion[a:a + spec.hop])
+        live.append(time.perf_counter() - t0)
+        e = a + spec.hop
+        w = np.stack([level[e - spec.length:e], motion[e - spec.length:e]])[None]
+        t0 = time.perf_counter()
+        probabilities(model.scores(window_features(w)), model.temperature)
+        floor.append(time.perf_counter() - t0)
+        probs.append(p[0])
+    replay = make_recogniser(model)           # the same stream in one block, as a replay reads it
+    _, batch = replay.push(level, motion)
+    batch = batch[1:]                          # the first window was the untimed start-up
+    med, fl = float(np.median(live)) * 1e3, float(np.median(floor)) * 1e3
+    return {"channels": n_channels, "hop_median_ms": round(med, 3), "floor_median_ms": round(fl, 3),
+            "ratio": round(med / fl, 2), "live_equals_batch": bool(np.array_equal(np.stack(probs), batch)),
+            "live_batch_max_diff": float(np.abs(np.stack(probs) - batch).max())}
+
+
 def verdict(value: float, target: float | None, below: bool) -> str:
     """"target ≤ 0.2 ms: met" style text for a figure, or "" when there is no target."""
     if target is None:
@@ -194,52 +364,88 @@ def _verdicts(wall: float, cpu: float, target: float | None, below: bool) -> str
 
 
 def run_all(channels=(4, 8), hops: int = 200, replay_s: float = 300.0, fit_minutes: float = 30.0,
-            classifiers=("linear", "minirocket", "dtw"), print_fn=print) -> list[dict]:
+            classifiers=("linear", "minirocket", "dtw"), print_fn=print, compare: bool = False,
+            batch_windows: int = 1000) -> list[dict]:
     """Every classifier at each channel count: 2 s window, 100 Hz, 50 ms hop. Prints a table.
 
-    Then replay speed through the pipeline and fit time on ``fit_minutes`` of data.
+    Then replay speed through the pipeline, fit time on ``fit_minutes`` of data, the batch
+    MiniRocket transform of ``batch_windows`` windows (0 to skip), linear at 16 channels
+    against its numpy floor, and the continuous control. Each figure is printed beside its
+    target and the load average. ``compare``: also time the reference implementations in
+    the same process, interleaved, and print ratios (the numba MiniRocket of the
+    ``compare`` extra when installed; dtw's exhaustive search).
     Targets on a laptop-class machine: linear ≤ 0.2 ms per hop and ≥ 2000× real time;
-    minirocket ≤ 3 ms per hop and ≥ 100× real time.
+    minirocket ≤ 3 ms per hop and ≥ 100× real time; the rest in the constants above.
     """
     rows = []
-    if print_fn:
-        import os
-        try:
-            load = open("/proc/loadavg").read().split()[:3]
-        except OSError:
-            load = ["?"]
-        print_fn(f"load average {' '.join(load)} on {os.cpu_count()} CPUs; BLAS threads "
-                 f"{os.environ.get('OPENBLAS_NUM_THREADS', 'default')} (targets are for a quiet machine)", flush=True)
+    say = print_fn or (lambda *a, **k: None)
+    import os
+    say(f"load average {' '.join(open('/proc/loadavg').read().split()[:3]) if os.path.exists('/proc/loadavg') else '?'} "
+        f"on {os.cpu_count()} CPUs; BLAS threads {os.environ.get('OPENBLAS_NUM_THREADS', 'default')} "
+        "(targets are for a quiet machine; ratios to a reference run in the same process hold under load)", flush=True)
     for n_ch in channels:
         for name in classifiers:
             rows.append(bench_classifier(name, n_channels=n_ch, hops=hops))
-            if print_fn:
-                r = rows[-1]
-                extra = f"  compared {r['dtw_computed_fraction']:.0%} of templates" if "dtw_computed_fraction" in r else ""
-                print_fn(f"{r['classifier']:>10}  {r['channels']} ch  hop median {r['hop_median_ms']:.3f} ms  "
-                         f"p99 {r['hop_p99_ms']:.3f} ms  (CPU time median {r['cpu_median_ms']:.3f} ms){extra}"
-                         + _verdicts(r["hop_median_ms"], r["cpu_median_ms"], HOP_TARGET_MS.get(name), True),
-                         flush=True)
+            r = rows[-1]
+            extra = f"  compared {r['dtw_computed_fraction']:.0%} of templates" if "dtw_computed_fraction" in r else ""
+            target = HOP_TARGET_MS.get(name) if name != "dtw" else DTW_HOP_TARGET_MS.get(n_ch)
+            say(f"{r['classifier']:>10}  {r['channels']} ch  hop median {r['hop_median_ms']:.3f} ms  "
+                f"p99 {r['hop_p99_ms']:.3f} ms  (CPU time median {r['cpu_median_ms']:.3f} ms){extra}"
+                + _verdicts(r["hop_median_ms"], r["cpu_median_ms"], target, True) + f"  [load {load_average()}]",
+                flush=True)
+    if compare and "dtw" in classifiers:
+        for n_ch in channels:
+            r = bench_dtw_search(n_ch, hops=min(hops, 100))
+            rows.append({"classifier": "dtw search", **r})
+            say(f"{'dtw':>10}  {n_ch} ch  hop median {r['hop_median_ms']:.3f} ms (CPU {r['cpu_median_ms']:.3f} ms) "
+                f"against the exhaustive search {r['exhaustive_median_ms']:.3f} ms, same run: ratio {r['ratio']:.2f}; "
+                f"distances identical: {'yes' if r['same'] else 'NO'}"
+                + _verdicts(r["hop_median_ms"], r["cpu_median_ms"], DTW_HOP_TARGET_MS.get(n_ch), True)
+                + f"  [load {load_average()}]", flush=True)
     for name in classifiers if replay_s else ():
         rows.append(bench_replay(name, replay_s))
-        if print_fn:
-            r = rows[-1]
-            print_fn(f"{name:>10}  replay of {r['replayed_s']:.0f} s (hop {r['hop_s']} s): "
-                     f"{r['x_real_time_block_5s']:.0f}× real time in 5 s blocks (by CPU time {r['x_cpu_block_5s']:.0f}×), "
-                     f"{r['x_real_time_block_100ms']:.0f}× in 0.1 s blocks (CPU {r['x_cpu_block_100ms']:.0f}×)"
-                     + _verdicts(r["x_real_time_block_5s"], r["x_cpu_block_5s"], REPLAY_TARGET_X.get(name), False),
-                     flush=True)
+        r = rows[-1]
+        say(f"{name:>10}  replay of {r['replayed_s']:.0f} s (hop {r['hop_s']} s): "
+            f"{r['x_real_time_block_5s']:.0f}× real time in 5 s blocks (by CPU time {r['x_cpu_block_5s']:.0f}×), "
+            f"{r['x_real_time_block_100ms']:.0f}× in 0.1 s blocks (CPU {r['x_cpu_block_100ms']:.0f}×)"
+            + _verdicts(r["x_real_time_block_5s"], r["x_cpu_block_5s"], REPLAY_TARGET_X.get(name), False)
+            + f"  [load {load_average()}]", flush=True)
     for name in classifiers if fit_minutes else ():
         rows.append(bench_fit(name, fit_minutes))
-        if print_fn:
-            r = rows[-1]
-            print_fn(f"{name:>10}  fit on {r['data_minutes']:.0f} min of 4-channel data: {r['fit_s']:.1f} s", flush=True)
+        r = rows[-1]
+        say(f"{name:>10}  fit on {r['data_minutes']:.0f} min of 4-channel data: {r['fit_s']:.1f} s "
+            f"(CPU {r['cpu_s']:.1f} s)" + _verdicts(r["fit_s"], r["cpu_s"], FIT_TARGET_S.get(name), True).replace(" ms", " s")
+            + f"  [load {load_average()}]", flush=True)
+    if batch_windows and "minirocket" in classifiers:
+        batch = bench_batch_transform(batch_windows, compare=compare)
+        rows += [{"classifier": "minirocket batch", **r} for r in batch]
+        for r in batch:
+            if r["ratio"] is None:
+                peer = "no reference timed" + ("" if not compare else " (install the compare extra: pip install 'drape[compare]')")
+                ratio = ""
+            else:
+                peer = f"numba peer {r['peer_s']:.2f} s (CPU {r['peer_cpu_s']:.2f} s), same run"
+                ratio = (f": ratio {r['ratio']:.2f} (by CPU time {r['cpu_ratio']:.2f}), target ≤ {BATCH_TARGET_RATIO:g}: "
+                         f"{'met' if r['ratio'] <= BATCH_TARGET_RATIO else 'NOT met'} "
+                         f"(by CPU time: {'met' if r['cpu_ratio'] <= BATCH_TARGET_RATIO else 'NOT met'})")
+            say(f"minirocket  batch transform, {r['windows']} windows 4×200, {r['edges']} edges: {r['drape_s']:.2f} s "
+                f"(CPU {r['drape_cpu_s']:.2f} s); {peer}{ratio}  [load {load_average()}]", flush=True)
+    if "linear" in classifiers:
+        r = bench_linear_floor()
+        rows.append({"classifier": "linear floor", **r})
+        say(f"{'linear':>10}  16 ch hop median {r['hop_median_ms']:.3f} ms against the bare numpy arithmetic "
+            f"{r['floor_median_ms']:.3f} ms, same run: ratio {r['ratio']:.2f}, target ≤ {LINEAR_FLOOR_TARGET_RATIO:g}: "
+            f"{'met' if r['ratio'] <= LINEAR_FLOOR_TARGET_RATIO else 'NOT met'}; hop-by-hop probabilities equal "
+            f"those of one block (replay) bit for bit: "
+            f"{'yes' if r['live_equals_batch'] else 'no, largest difference %.1e (float32 map)' % r['live_batch_max_diff']}"
+            f"  [load {load_average()}]", flush=True)
     c = bench_continuous()
     rows.append({"classifier": "continuous control", **c})
-    if print_fn:  # target: ≤ 2 ms added, ≤ 1 ms jitter
-        print_fn(f"continuous control, sample → OSC datagram: median {c['median_ms']:.3f} ms, p99 {c['p99_ms']:.3f} ms, "
-                 f"max {c['max_ms']:.3f} ms, jitter (std) {c['jitter_std_ms']:.3f} ms, p99 − median {c['jitter_p99_ms']:.3f} ms; "
-                 f"CPU time median {c['cpu_median_ms']:.3f} ms, p99 {c['cpu_p99_ms']:.3f} ms")
+    say(f"continuous control, sample → OSC datagram: median {c['median_ms']:.3f} ms, p99 {c['p99_ms']:.3f} ms, "
+        f"max {c['max_ms']:.3f} ms, jitter (std) {c['jitter_std_ms']:.3f} ms, p99 − median {c['jitter_p99_ms']:.3f} ms; "
+        f"CPU time median {c['cpu_median_ms']:.3f} ms, p99 {c['cpu_p99_ms']:.3f} ms; "
+        f"{verdict(c['p99_ms'], CONTROL_TARGET_MS, True)} (p99 added), "
+        f"jitter {verdict(c['jitter_p99_ms'], JITTER_TARGET_MS, True)}  [load {load_average()}]", flush=True)
     return rows
 
 

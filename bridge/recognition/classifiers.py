@@ -21,14 +21,14 @@ from __future__ import annotations
 import numpy as np
 
 from ..signal import BandPass
-from .dtw import (class_distances_pruned, distance_matrix, envelope, fit_templates, per_class_min, scores_from_distances,
-                  spread)
+from .dtw import (StreamCosts, class_distances_pruned, distance_matrix, envelope, fit_templates, per_class_min,
+                  scores_from_distances, spread)
 from .features import window_features
 from .linear import expected_calibration_error, fit_temperature, probabilities
 from .minirocket import fit_minirocket, minirocket_transform, rolling_transform
 from .model import NULL, STREAMS, DtwModel, MiniRocketModel, Model
 from .recogniser import Recogniser
-from .ridge import fit_ridge_loo
+from .ridge import fit_ridge_heldout
 from .windows import WindowSpec, Windower
 
 
@@ -135,25 +135,38 @@ def _linear_scores(model: Model, X: np.ndarray) -> np.ndarray:
 # --- minirocket ---------------------------------------------------------------------------
 
 def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_features: int = 10_000,
-                         seed: int = 0, edges: str = "alternate", **options) -> MiniRocketModel:
-    """Convolution features and ridge; temperature from the ridge's leave-one-out scores.
+                         seed: int = 0, edges: str = "alternate", splits=None, held_out_by: str = "",
+                         **options) -> MiniRocketModel:
+    """Convolution features and ridge; temperature from the ridge's held-out scores.
 
     ``edges``: "alternate" (the paper's padding, for ready-cut cases) or "valid" (no
     padding: what a stream's arbitrary window edges call for; see ``minirocket``).
+    ``splits``: None when the cases are independent (held out one at a time), or
+    (held, dropped) masks of grouped folds (``ridge.fit_ridge_heldout``) when they are
+    overlapping windows of recordings; ``held_out_by`` names the grouping in the summary.
+    Features are computed once: the held-out scores of every penalty come from the one
+    ridge decomposition. The transform's biases and the feature scaling are taken from
+    all cases (they never see a label).
     """
     params = fit_minirocket(X, n_features, seed, edges)
     f = minirocket_transform(params, X)
     mean = f.mean(axis=0)
     scale = f.std(axis=0)
     scale[scale < 1e-12] = 1.0
-    w, b, alpha, loo = fit_ridge_loo((f - mean) / scale, y, len(full))
-    temperature = fit_temperature(loo, y, bounds=(-9.0, 5.0))
-    prob = probabilities(loo, temperature)
+    w, b, alpha, held = fit_ridge_heldout((f - mean) / scale, y, len(full), splits)
+    temperature = fit_temperature(held, y, bounds=(-9.0, 5.0))
+    prob = probabilities(held, temperature)
+    accuracy = round(float((prob.argmax(1) == y).mean()), 4)
+    summary = {"cases": int(len(y)), "ridge_alpha": alpha}
+    if splits is None:
+        summary["leave_one_out_accuracy"] = accuracy
+    else:
+        summary.update(cross_validated_window_accuracy=accuracy, held_out_by=held_out_by or "groups",
+                       folds=len(splits))
+    summary["calibration_error"] = round(expected_calibration_error(prob, y), 4)
     return MiniRocketModel(**_common(X, full, options), stream=options.get("stream", "level"), params=params,
                            feature_mean=mean, feature_scale=scale, weights=w, bias=b, temperature=temperature,
-                           summary={"cases": int(len(y)), "ridge_alpha": alpha,
-                                    "leave_one_out_accuracy": round(float((prob.argmax(1) == y).mean()), 4),
-                                    "calibration_error": round(expected_calibration_error(prob, y), 4)})
+                           summary=summary)
 
 
 def _minirocket_scores(model: MiniRocketModel, X: np.ndarray) -> np.ndarray:
@@ -213,7 +226,8 @@ class MiniRocketRecogniser:
 
 
 class DtwRecogniser:
-    """Window ring and template envelopes; nearest-template distances (LB_Keogh-pruned) every hop.
+    """Window ring, template envelopes and the stream's costs against the templates
+    (``StreamCosts``); exact nearest-template distances, pruned by lower bounds, every hop.
 
     Null templates are matched as one more class. ``computed`` counts the template
     comparisons actually run, ``offered`` those possible.
@@ -226,6 +240,7 @@ class DtwRecogniser:
         self.templates = np.concatenate([model.templates, model.null_templates])
         self.template_class = np.concatenate([model.template_class, np.full(len(model.null_templates), self.k)])
         self.upper, self.lower = envelope(self.templates, model.radius)
+        self.costs = StreamCosts(self.templates, model.radius)
         self.computed = 0
         self.offered = 0
 
@@ -237,9 +252,11 @@ class DtwRecogniser:
             return [], np.empty((0, len(m.classes)))
         cases = windows_to_cases(windows, m.stream)
         dist = np.empty((len(cases), self.k + 1))
+        length = m.windows.length
         for i, q in enumerate(cases):
+            costs = self.costs.band(ends[i] - length, q)
             dist[i], n = class_distances_pruned(q, self.templates, self.template_class, self.k + 1, m.radius,
-                                                self.upper, self.lower)
+                                                self.upper, self.lower, costs)
             self.computed += n
             self.offered += len(self.templates)
         null = dist[:, self.k] if len(m.null_templates) else None
@@ -325,12 +342,14 @@ def _thin(y: np.ndarray, per_class: int, per_null: int | None = None) -> np.ndar
     return np.sort(np.concatenate(keep))
 
 
-def recording_windows(recordings, kinds: dict[str, str], settings=None, progress=None):
+def recording_windows(recordings, kinds: dict[str, str], settings=None, progress=None, with_ends: bool = False):
     """Labelled windows of recordings, the way every classifier is trained on them.
 
     Returns (windows (m, 2, length, channels), labels (m,) class indices, recording index
-    (m,), classes, conditioning, spec). Windows are labelled by ``training.label_windows``;
-    ambiguous ones are left out. progress(done, total) is called after each recording.
+    (m,), classes, conditioning, spec), and with ``with_ends`` also each window's end
+    (m,), in samples from its recording's start. Windows are labelled by
+    ``training.label_windows``; ambiguous ones are left out. progress(done, total) is
+    called after each recording.
     """
     from .training import TrainingSettings, condition_recording, label_windows
     from .windows import all_windows
@@ -349,7 +368,7 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
     classes = (NULL, *labels)
     conditioning = settings.band(rate)
     spec = WindowSpec(rate, settings.window_s, settings.hop_s)
-    ws, ys, gs = [], [], []
+    ws, ys, gs, es = [], [], [], []
     for i, r in enumerate(recordings):
         if tuple(r.channel_names) != channels or abs(r.rate_hz - rate) > 1e-6 * rate:
             raise ValueError("all recordings must share channels and rate; "
@@ -359,9 +378,43 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
         y = label_windows(ends, spec.length, rate, r.intervals, classes, kinds)
         keep = y >= 0
         ws.append(w[keep]); ys.append(y[keep]); gs.append(np.full(int(keep.sum()), i))
+        es.append(np.asarray(ends)[keep])
         if progress:
             progress(i + 1, len(recordings))
-    return np.concatenate(ws), np.concatenate(ys), np.concatenate(gs), classes, conditioning, spec
+    out = np.concatenate(ws), np.concatenate(ys), np.concatenate(gs), classes, conditioning, spec
+    return (*out, np.concatenate(es)) if with_ends else out
+
+
+def window_splits(groups: np.ndarray, ends: np.ndarray, length: int, n_folds: int = 5):
+    """Grouped folds for windows of recordings, so that no window overlaps both sides.
+
+    groups: recording index per window; ends: end sample per window (within its
+    recording); length: window length in samples. Several recordings: whole recordings
+    per fold (recording i in fold i mod k, k = min(n_folds, recordings)). One recording:
+    k contiguous stretches of its windows in time, each fold also dropping from its fit
+    the windows that share samples with a held one (ends less than ``length`` apart).
+    Returns (list of (held, dropped) masks, how they are grouped), or (None, reason) when
+    no fold would leave windows to fit on.
+    """
+    groups = np.asarray(groups)
+    ends = np.asarray(ends, dtype=np.int64)
+    takes = np.unique(groups)
+    if len(takes) > 1:
+        k = min(n_folds, len(takes))
+        fold = np.searchsorted(takes, groups) % k
+        return [(fold == f, fold == f) for f in range(k)], "recording"
+    order = np.argsort(ends, kind="stable")
+    for k in range(min(n_folds, len(ends) // 2), 1, -1):
+        splits = []
+        for block in np.array_split(order, k):
+            held = np.zeros(len(ends), bool)
+            held[block] = True
+            lo, hi = ends[block].min(), ends[block].max()
+            dropped = held | ((ends > lo - length) & (ends < hi + length))
+            splits.append((held, dropped))
+        if all((~d).any() for _, d in splits):
+            return splits, "stretches of one recording"
+    return None, "one recording too short for folds"
 
 
 def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, progress=None, **options):
@@ -371,6 +424,9 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     out by recording). The others fit on the windows of ``recording_windows`` with
     ``RECORDING_DEFAULTS`` (overridable through options); their summary carries a
     held-out window accuracy estimated by recording (2 to 5 folds) when there are several.
+    ``minirocket`` estimates it without refitting, from folds of ``window_splits`` (by
+    recording, or by stretches of a single one), and fits its temperature on those
+    held-out scores.
     """
     from .training import TrainingSettings, fit_linear
     settings = settings or TrainingSettings()
@@ -393,7 +449,8 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         if r.intervals:
             raise ValueError("ordinary-movement takes must hold no labelled gestures; "
                              f"one holds {len(r.intervals)} (of {', '.join(sorted({iv.label for iv in r.intervals}))})")
-    w, y, g, classes, conditioning, spec = recording_windows(recordings + ordinary, kinds, settings, progress)
+    w, y, g, classes, conditioning, spec, e = recording_windows(recordings + ordinary, kinds, settings, progress,
+                                                                with_ends=True)
     missing = [c for k, c in enumerate(classes) if not (y == k).any()]
     if missing:
         raise ValueError(f"no usable windows for: {', '.join(missing)} (recordings too short or gestures longer than the window)")
@@ -402,43 +459,51 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         keep = np.flatnonzero(own)[_thin(y[own], per_class, per_null)]
         if ordinary:   # ordinary movement of others: null windows of their own quota
             keep = np.sort(np.concatenate([keep, np.flatnonzero(~own)[_thin(y[~own], ordinary_cases)]]))
-        w, y, g = w[keep], y[keep], g[keep]
+        w, y, g, e = w[keep], y[keep], g[keep], e[keep]
     labels = list(classes[1:])
     channels = tuple(recordings[0].channel_names)
 
     def fit(sel):
+        extra = {}
+        if name == "minirocket":  # held-out figures and temperature from grouped folds, in closed form
+            extra["splits"], extra["held_out_by"] = window_splits(g[sel], e[sel], spec.length)
         return fit_cases(name, windows_to_cases(w[sel], stream), np.array(classes)[y[sel]], labels,
                          kinds={c: kinds[c] for c in labels}, channel_names=channels, conditioning=conditioning,
-                         windows=spec, stream=stream, **opts)
+                         windows=spec, stream=stream, **opts, **extra)
 
     model = fit(np.ones(len(y), bool))
     if mine_rounds and len(recordings) > 1:
         # Out-of-fold mining: a model fitted without a recording finds the ordinary
         # movement in it that looks like a gesture (in-sample, the model knows its own
-        # null windows' neighbours and finds almost none).
-        # At most ``mine_folds`` fits: recording i is mined by the model of fold i mod k.
+        # null windows' neighbours and finds almost none). At most ``mine_folds`` fits:
+        # recording i is mined by the model of fold i mod k.
         k = min(mine_folds, len(recordings))
-        found_w, found_g = [], []
+        found = []
         for f in range(k):
             mined = [i for i in range(len(recordings)) if i % k == f]
             others = ~np.isin(g, mined)
             if len(np.unique(y[others])) < len(classes):
                 continue
-            mw, origin = hard_negatives(fit(others), [recordings[i] for i in mined], kinds, settings,
-                                        level=mine_level, most=max(1, mine_most * len(mined) // len(recordings)))
-            found_w.append(mw)
-            found_g.append(np.asarray(mined)[origin] if len(origin) else np.empty(0, dtype=int))
-        if found_w and sum(len(x) for x in found_w):
-            w = np.concatenate([w, *found_w])
-            y = np.concatenate([y, np.zeros(sum(len(x) for x in found_w), dtype=y.dtype)])
-            g = np.concatenate([g, *found_g])
+            mw, origin, ends = hard_negatives(fit(others), [recordings[i] for i in mined], kinds, settings,
+                                              level=mine_level, most=max(1, mine_most * len(mined) // len(recordings)))
+            found.append((mw, np.asarray(mined, dtype=int)[origin], ends))
+        n_found = sum(len(x[0]) for x in found)
+        if n_found:
+            w = np.concatenate([w, *(x[0] for x in found)])
+            y = np.concatenate([y, np.zeros(n_found, dtype=y.dtype)])
+            g = np.concatenate([g, *(x[1] for x in found)])
+            e = np.concatenate([e, *(x[2] for x in found)])
             model = fit(np.ones(len(y), bool))
-        model.summary["hard_negatives"] = int(sum(len(x) for x in found_w))
+        model.summary["hard_negatives"] = int(n_found)
     model.summary["recordings"] = len(set(g[g < len(recordings)].tolist()))
     if ordinary:
         model.summary["ordinary_takes"] = len(ordinary)
+    if name == "minirocket":
+        splits, why = window_splits(g, e, spec.length)
+        if splits is None:
+            model.summary["held_out_note"] = why + ": the leave-one-out figures overlap"
     groups = np.unique(g)
-    if estimate and len(groups) > 1:
+    if estimate and len(groups) > 1 and name != "minirocket":
         folds = groups % min(5, len(groups))
         fold_of = folds[np.searchsorted(groups, g)]
         correct = 0
@@ -457,16 +522,16 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
 
 
 def hard_negatives(model, recordings, kinds: dict[str, str], settings=None, level: float = 0.3,
-                   most: int = 2000) -> tuple[np.ndarray, np.ndarray]:
+                   most: int = 2000) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Null windows of the training recordings that the model takes for a gesture: the
     windows outside every labelled gesture (``training.label_windows`` null) whose highest
     non-null probability, from the live recogniser run over the whole recording, is at
-    least ``level``. Returns (windows (m, 2, length, channels), recording index (m,)), the
-    ``most`` most confident, for training them as null (hard-negative mining).
+    least ``level``. Returns (windows (m, 2, length, channels), recording index (m,), end
+    sample (m,)), the ``most`` most confident, for training them as null (hard-negative mining).
     """
     from .training import TrainingSettings, condition_recording, label_windows
     settings = settings or TrainingSettings()
-    found, conf, origin = [], [], []
+    found, conf, origin, at = [], [], [], []
     length = model.windows.length
     for i, r in enumerate(recordings):
         streams = condition_recording(r, model.conditioning)
@@ -484,11 +549,12 @@ def hard_negatives(model, recordings, kinds: dict[str, str], settings=None, leve
         found.append(streams[:, idx].transpose(1, 0, 2, 3))      # (m, 2, length, channels)
         conf.append(top[pick])
         origin.append(np.full(len(pick), i))
+        at.append(ends[pick])
     if not found:
-        return np.empty((0, 2, length, model.n_channels)), np.empty(0, dtype=int)
-    wins, conf, origin = np.concatenate(found), np.concatenate(conf), np.concatenate(origin)
+        return np.empty((0, 2, length, model.n_channels)), np.empty(0, dtype=int), np.empty(0, dtype=int)
+    wins, conf, origin, at = np.concatenate(found), np.concatenate(conf), np.concatenate(origin), np.concatenate(at)
     keep = np.sort(np.argsort(-conf, kind="stable")[:most])
-    return wins[keep], origin[keep]
+    return wins[keep], origin[keep], at[keep]
 
 
 def window_scores(model, windows: np.ndarray) -> np.ndarray:

@@ -36,50 +36,107 @@ def dtw_cost(query: np.ndarray, templates: np.ndarray, radius: int) -> np.ndarra
 
     query: (..., channels, n) and templates: (..., channels, n), broadcastable in the
     leading axes; returns the path cost (sum of squared differences, unit²) per pair.
-    Both must have the same length n.
-
-    Row by row, the recursion D[i,j] = c[i,j] + min(D[i−1,j−1], D[i−1,j], D[i,j−1]) is
-    solved for a whole band row at once: with S the running sum of c along the row,
-    D[i,j] = S[j] + min_{k≤j}(a[k] − S[k] + c[k]), a[k] = min(D[i−1,k−1], D[i−1,k]).
+    Both must have the same length n. See ``band_dtw`` for the recursion.
     """
     q = np.asarray(query, dtype=float)
     t = np.asarray(templates, dtype=float)
     n = q.shape[-1]
     if t.shape[-1] != n:
         raise ValueError(f"query has {n} samples but templates have {t.shape[-1]}")
-    r = int(max(0, min(radius, n - 1)))
+    if q.shape[-2] != t.shape[-2]:
+        raise ValueError(f"query has {q.shape[-2]} channels but templates have {t.shape[-2]}")
     lead = np.broadcast_shapes(q.shape[:-2], t.shape[:-2])
-    prev = np.full(lead + (n + 1,), np.inf)  # prev[..., j+1] = D[i-1, j]; prev[..., 0] = D[i-1, -1]
-    prev[..., 0] = 0.0
-    cur = np.empty_like(prev)
+    shape = lead + q.shape[-2:]
+    qf = np.broadcast_to(q, shape).reshape(-1, *q.shape[-2:])
+    tf = np.broadcast_to(t, shape).reshape(-1, *q.shape[-2:])
+    return band_dtw(qf, tf, radius).reshape(lead)
+
+
+def _band_costs(q: np.ndarray, t: np.ndarray, r: int, rows: slice) -> np.ndarray:
+    """Local costs (rows, 2r + 1, pairs) in band coordinates: entry w of row i is the
+    squared difference, summed over channels in order, of query sample i and template
+    sample j = i − r + w; 0 where j is outside the template (never on a path, see
+    ``band_dtw``)."""
+    p, n_ch, n = q.shape
     width = 2 * r + 1
-    band = None
-    if int(np.prod(lead, dtype=np.int64)) * q.shape[-2] * n * width <= 4_000_000:
-        # all band costs at once: band[..., i, r + j - i] = cost of (i, j)
-        tp = np.pad(t, [(0, 0)] * (t.ndim - 1) + [(r, r)])
-        win = np.lib.stride_tricks.sliding_window_view(tp, width, axis=-1)     # (..., ch, n, width)
-        diff = q[..., :, :, None] - win
-        band = (diff * diff).sum(axis=-3)                                      # (..., n, width)
-    for i in range(n):
-        lo, hi = max(0, i - r), min(n, i + r + 1)
-        if band is not None:
-            c = band[..., i, lo - i + r:hi - i + r]
-        else:
-            diff = q[..., 0, i, None] - t[..., 0, lo:hi]      # (..., w), channels summed below
-            c = diff * diff
-            for ch in range(1, q.shape[-2]):
-                diff = q[..., ch, i, None] - t[..., ch, lo:hi]
-                c += diff * diff
-        a = np.minimum(prev[..., lo:hi], prev[..., lo + 1:hi + 1])
-        s = np.cumsum(c, axis=-1)
-        a -= s
-        a += c
-        row = np.minimum.accumulate(a, axis=-1)
-        row += s
-        cur[...] = np.inf
-        cur[..., lo + 1:hi + 1] = row
-        prev, cur = cur, prev
-    return prev[..., n].copy()
+    i = np.arange(n)[rows]
+    tp = np.zeros((p, n_ch, n + 2 * r))
+    tp[:, :, r:r + n] = t
+    st = tp.strides
+    view = np.lib.stride_tricks.as_strided(tp[:, :, i[0]:], (p, n_ch, len(i), width), st + (st[2],),
+                                           writeable=False)                 # view[.., i, w] = tp[.., i + w]
+    c = None
+    for ch in range(n_ch):
+        d = q[:, ch, i, None] - view[:, ch]
+        c = d * d if c is None else c + d * d
+    j = i[:, None] - r + np.arange(width)
+    c *= (j >= 0) & (j < n)
+    return np.ascontiguousarray(c.transpose(1, 2, 0))
+
+
+def band_dtw(q: np.ndarray, t: np.ndarray, radius: int, bound: np.ndarray | None = None,
+             costs: np.ndarray | None = None) -> np.ndarray:
+    """Banded DTW path costs (pairs,) of queries q (pairs, channels, n) to templates t (same shape).
+
+    Row by row, the recursion D[i,j] = c[i,j] + min(D[i−1,j−1], D[i−1,j], D[i,j−1]) is
+    solved for a whole band row at once: with S the running sum of c along the row,
+    D[i,j] = S[j] + min_{k≤j}(a[k] − S[k] + c[k]), a[k] = min(D[i−1,k−1], D[i−1,k]).
+    Rows are kept in band coordinates (entry w of row i is column i − r + w), so both
+    terms of a are plain shifts of the previous row. Columns before the template's
+    start hold inf from row 0 on; those past its end hold values that only ever feed
+    other columns past the end, never the answer D[n−1, n−1].
+
+    bound: (pairs,) optional; a pair whose every entry of some row exceeds its bound
+    is abandoned (every path crosses every row, so its cost exceeds the bound too) and
+    gets inf. Without a bound (or inf) the cost is exact.
+
+    costs: optional (n, 2r + 1, pairs), the local costs as ``_band_costs`` gives them
+    (from ``StreamCosts`` in a stream); q and t then only give the shapes.
+    """
+    q = np.asarray(q, dtype=float)
+    t = np.asarray(t, dtype=float)
+    pairs, _, n = q.shape
+    r = int(max(0, min(radius, n - 1)))
+    width = 2 * r + 1
+    out = np.full(pairs, np.inf)
+    if pairs == 0:
+        return out
+    live = np.arange(pairs)
+    bound = None if bound is None else np.asarray(bound, dtype=float)
+    # Band costs and their running sums, precomputed in blocks of rows (bounded memory);
+    # pairs last, so each step of a row is one vector operation over all pairs.
+    block = n if costs is not None else max(1, min(n, 4_000_000 // max(1, pairs * width)))
+    prev = np.full((width + 1, pairs), np.inf)
+    a = np.empty((width, pairs))
+    for start in range(0, n, block):
+        rows = slice(start, min(n, start + block))
+        c = np.ascontiguousarray(costs) if costs is not None else _band_costs(q[live], t[live], r, rows)
+        s = np.empty_like(c)                 # running sum along the band (as cumsum adds: in order,
+        s[:, 0] = c[:, 0]                    # one column at a time, which is faster on this layout)
+        for w in range(1, width):
+            np.add(s[:, w - 1], c[:, w], out=s[:, w])
+        for k in range(c.shape[0]):
+            i = start + k
+            if i == 0:
+                # D[−1, −1] = 0 starts every path: row 0 is the running sum from column 0.
+                prev[:width] = s[0]
+                prev[:r] = np.inf
+            else:
+                np.minimum(prev[:width], prev[1:], out=a)
+                a -= s[k]
+                a += c[k]
+                np.minimum.accumulate(a, axis=0, out=prev[:width])
+                prev[:width] += s[k]
+            if bound is not None and (k % 8 == 7 or i == n - 1):
+                gone = prev[:width].min(axis=0) > bound
+                if gone.any():
+                    keep = ~gone
+                    live, prev, bound = live[keep], prev[:, keep], bound[keep]
+                    c, s, a = c[:, :, keep], s[:, :, keep], a[:, keep]
+                    if not len(live):
+                        return out
+    out[live] = prev[r]
+    return out
 
 
 def distance_matrix(queries: np.ndarray, templates: np.ndarray, radius: int, chunk_pairs: int = 20_000) -> np.ndarray:
@@ -112,29 +169,108 @@ def lb_keogh(query: np.ndarray, upper: np.ndarray, lower: np.ndarray) -> np.ndar
     return np.einsum("kcn,kcn->k", e, e)
 
 
+def lb_kim(query: np.ndarray, templates: np.ndarray) -> np.ndarray:
+    """LB_Kim (first and last samples) lower bounds (k,) of the DTW path cost of query
+    (channels, n) to templates (k, channels, n): every path holds the cells (0, 0) and
+    (n − 1, n − 1)."""
+    first = ((query[None, :, 0] - templates[:, :, 0]) ** 2).sum(axis=1)
+    if query.shape[-1] == 1:
+        return first
+    return first + ((query[None, :, -1] - templates[:, :, -1]) ** 2).sum(axis=1)
+
+
+def lb_keogh_reversed(templates: np.ndarray, query: np.ndarray, radius: int) -> np.ndarray:
+    """LB_Keogh the other way round (k,): each template's excursion outside the query's
+    envelope. Banded DTW is symmetric, so this bounds it too."""
+    size = 2 * radius + 1
+    up = maximum_filter1d(query, size, axis=-1, mode="nearest")
+    lo = minimum_filter1d(query, size, axis=-1, mode="nearest")
+    e = np.maximum(templates - up, 0.0) + np.maximum(lo - templates, 0.0)
+    return np.einsum("kcn,kcn->k", e, e)
+
+
+# Bounds are compared with a hair of slack, so rounding in a bound's sum can never prune
+# a template whose distance ties the best so far.
+_SLACK = 1.0 + 1e-9
+
+
 def class_distances_pruned(query: np.ndarray, templates: np.ndarray, template_class: np.ndarray, n_classes: int,
-                           radius: int, upper: np.ndarray, lower: np.ndarray) -> tuple[np.ndarray, int]:
+                           radius: int, upper: np.ndarray, lower: np.ndarray, costs=None) -> tuple[np.ndarray, int]:
     """Exact nearest-template distance per class (n_classes,) for one query, with pruning.
 
-    Round one computes, per class, the template with the lowest LB_Keogh bound; round two
-    only the templates whose bound is below their class's distance so far. Classes with
-    no template get inf. Returns (distances, number of templates whose DTW was computed).
+    Lower bounds, all vectorised (Rakthanmanon et al., KDD 2012): LB_Kim, LB_Keogh with
+    the templates' envelopes (``upper``, ``lower``), LB_Keogh with the query's; a
+    template's bound is the largest. Upper bound of each class: its nearest template by
+    the diagonal (Euclidean) path, which is one of the paths DTW minimises over. Only the
+    templates whose lower bound is within their class's upper bound are matched, all in
+    one pass over the rows, each abandoned as soon as a whole row exceeds that upper bound
+    (``band_dtw``): the nearest template of a class never is, so the result is exact.
+    Classes with no template get inf. costs: optional (n, 2r + 1, templates) local costs
+    (``StreamCosts.band``). Returns (distances, number of templates whose DTW was started).
     """
-    lb = lb_keogh(query, upper, lower)
+    query = np.asarray(query, dtype=float)
+    lb = np.maximum(lb_kim(query, templates), lb_keogh(query, upper, lower))
+    lb = np.maximum(lb, lb_keogh_reversed(templates, query, radius))
+    diff = templates - query[None]
+    diagonal = np.einsum("kcn,kcn->k", diff, diff)
+    upper_cls = np.full(n_classes, np.inf)
+    np.minimum.at(upper_cls, template_class, diagonal)
+    bound = upper_cls[template_class] * _SLACK
+    todo = np.flatnonzero(lb <= bound)
+    todo = todo[np.argsort(lb[todo], kind="stable")]
+    d = band_dtw(np.broadcast_to(query[None], (len(todo),) + query.shape), templates[todo], radius, bound[todo],
+                 None if costs is None else costs[:, :, todo])
     best = np.full(n_classes, np.inf)
-    first = []
-    for c in np.unique(template_class):
-        idx = np.flatnonzero(template_class == c)
-        first.append(idx[np.argmin(lb[idx])])
-    first = np.array(first)
-    d1 = dtw_cost(query[None], templates[first], radius)
-    np.minimum.at(best, template_class[first], d1)
-    rest = np.setdiff1d(np.arange(len(templates)), first)
-    rest = rest[lb[rest] < best[template_class[rest]]]
-    if len(rest):
-        d2 = dtw_cost(query[None], templates[rest], radius)
-        np.minimum.at(best, template_class[rest], d2)
-    return np.sqrt(best), len(first) + len(rest)
+    np.minimum.at(best, template_class[todo], d)
+    return np.sqrt(best), len(todo)
+
+
+class StreamCosts:
+    """Local costs of a stream's samples against every template sample, kept over hops.
+
+    A hop moves the window by a few samples, but each sample's costs against the
+    templates do not depend on the window: only the new samples are costed (against all
+    template samples, with the band's margin of r zero columns on either side), and each
+    window's band of costs is a strided view of the store. State: the store (a ring of
+    2 × ``length`` sample rows, written twice so that any window's rows are contiguous),
+    and the next sample index it lacks. Costs are summed over channels in the order of
+    ``_band_costs``, so they are bit-equal to it.
+    """
+
+    def __init__(self, templates: np.ndarray, radius: int):
+        t = np.asarray(templates, dtype=float)
+        k, n_ch, n = t.shape
+        self.length, self.r = n, int(max(0, min(radius, n - 1)))
+        cols = n + 2 * self.r
+        tp = np.zeros((n_ch, cols, k))
+        tp[:, self.r:self.r + n] = t.transpose(1, 2, 0)
+        self.columns = tp                                          # (channels, columns, templates)
+        self.inside = np.zeros((cols, 1))
+        self.inside[self.r:self.r + n] = 1.0
+        self.ring = 2 * n
+        self.store = np.zeros((2 * self.ring, cols, k))
+        self.next = 0
+
+    def band(self, start: int, window: np.ndarray) -> np.ndarray:
+        """Costs (n, 2r + 1, templates) of the window (channels, n) that starts at stream
+        sample ``start``; windows must come in order of start."""
+        n, ring = self.length, self.ring
+        first = max(self.next, start)
+        if first < start + n:
+            x = window[:, first - start:]                          # (channels, new samples)
+            c = None
+            for ch in range(x.shape[0]):
+                d = x[ch, :, None, None] - self.columns[ch][None]
+                c = d * d if c is None else c + d * d
+            c *= self.inside
+            rows = np.arange(first, start + n) % ring
+            self.store[rows] = c
+            self.store[rows + ring] = c
+            self.next = start + n
+        st = self.store.strides
+        base = self.store[start % ring:]
+        return np.lib.stride_tricks.as_strided(base, (n, 2 * self.r + 1, base.shape[2]),
+                                               (st[0] + st[1], st[1], st[2]), writeable=False)
 
 
 def scores_from_distances(class_dist: np.ndarray, thresholds, null_dist: np.ndarray | None = None,

@@ -216,8 +216,212 @@ def fit_minirocket(x: np.ndarray, n_features: int = DEFAULT_FEATURES, seed: int 
     return MiniRocketParams(n, n_ch, dil, fpk, mask, biases, edges)
 
 
-def minirocket_transform(params: MiniRocketParams, x: np.ndarray, chunk: int = 32) -> np.ndarray:
-    """PPV features (m, n_features) of cases x (m, channels, length)."""
+def compiled_kernels():
+    """The compiled kernels module (``minirocket_kernels``), or None without numba."""
+    try:
+        from . import minirocket_kernels
+    except ImportError:
+        return None
+    return minirocket_kernels
+
+
+def minirocket_transform(params: MiniRocketParams, x: np.ndarray, chunk: int | None = None,
+                         engine: str = "auto") -> np.ndarray:
+    """PPV features (m, n_features) of cases x (m, channels, length).
+
+    engine: "numpy", "compiled" (the ``accelerate`` extra's kernels: same features, bit
+    for bit) or "auto" (compiled when numba is installed).
+
+    Bit-equal to ``reference_transform`` (same convolution outputs, same comparisons),
+    computed with fewer passes: the taps of every kernel at a dilation are gathered from
+    the series by precomputed flat indices (no zero-padded copies per dilation), only the
+    channels a kernel sums over are convolved, in place, and the positive outcomes are
+    counted as small integers along the positions axis. Cases go in chunks of ``chunk`` (by default sized to keep the
+    working arrays near a few megabytes).
+    """
+    x = np.asarray(x, dtype=float)
+    m, n_ch, n = x.shape
+    if n != params.length or n_ch != params.n_channels:
+        raise ValueError(f"cases are {n_ch}×{n}; the transform was fitted to {params.n_channels}×{params.length}")
+    out = np.empty((m, params.n_features))
+    if m == 0:
+        return out
+    if engine not in ("auto", "numpy", "compiled"):
+        raise ValueError(f"engine must be auto, numpy or compiled, not {engine!r}")
+    kernels = compiled_kernels() if engine != "numpy" else None
+    if engine == "compiled" and kernels is None:
+        raise ValueError("the compiled engine needs numba (pip install 'drape[accelerate]')")
+    if kernels is not None:
+        _compiled_features(params, kernels, x, out)
+        return out
+    if chunk is None:
+        chunk = max(1, min(m, 2_000_000 // (N_KERNELS * n * max(4, int(params.features_per_kernel.max())))))
+    plan = _batch_plan(params)
+    for a in range(0, m, chunk):
+        _batch_features(params, plan, x[a:a + chunk], out[a:a + chunk])
+    return out
+
+
+def _compiled_features(params: MiniRocketParams, kernels, x: np.ndarray, out: np.ndarray) -> None:
+    """The batch transform by the compiled kernels (inputs laid out as the numpy path's)."""
+    m, n_ch, n = x.shape
+    dil = params.dilations.astype(np.int64)
+    fpk = params.features_per_kernel.astype(np.int64)
+    beta = kernel_positions()
+    offs = params.offsets().astype(np.int64)
+    if params.edges == "valid":
+        subsets, which = np.unique(params.channel_mask.reshape(-1, n_ch), axis=0, return_inverse=True)
+        which = which.reshape(len(dil), N_KERNELS).astype(np.int64)
+        used = np.zeros((len(dil), len(subsets)), dtype=np.bool_)
+        used[np.arange(len(dil))[:, None], which] = True
+        ys = subsets[None, :, 0, None] * x[:, None, 0]
+        for c in range(1, n_ch):
+            ys = ys + subsets[None, :, c, None] * x[:, None, c]
+        kernels.valid_features(np.ascontiguousarray(ys), used, dil, fpk, which, beta, params.biases, offs, out)
+    else:
+        pad = 4 * int(dil.max())
+        xp = np.zeros((m, n_ch, n + 2 * pad))
+        xp[:, :, pad:pad + n] = x
+        kernels.alternate_features(xp, pad, dil, fpk, np.ascontiguousarray(params.channel_mask), beta,
+                                   params.biases, offs, out)
+
+
+def _batch_plan(params: MiniRocketParams) -> dict:
+    """What ``_batch_features`` needs of params, worked out once per call.
+
+    Per dilation the kernels are taken in an order (``order``) that makes the in-place
+    steps plain slices: valid edges, grouped by channel subset; alternate, padded ones
+    first, then by number of channels, most first (so the kernels with an s-th channel
+    are a leading range of each group).
+    """
+    beta = kernel_positions()
+    n_ch = params.n_channels
+    plan = {"beta": beta, "offs": params.offsets(), "dil": []}
+    if params.edges == "valid":
+        subsets, which = np.unique(params.channel_mask.reshape(-1, n_ch), axis=0, return_inverse=True)
+        plan["subsets"] = subsets
+        which = which.reshape(len(params.dilations), N_KERNELS)
+        for di in range(len(params.dilations)):
+            order = np.argsort(which[di], kind="stable")
+            ku = which[di][order]
+            used, first = np.unique(ku, return_index=True)
+            bounds = np.append(first, N_KERNELS)
+            d, p = int(params.dilations[di]), params.length - 8 * int(params.dilations[di])
+            # flat tap indices into the (subset, sample) series of a case, (84, P) per weight-2 tap
+            taps = [(ku * params.length + beta[order, i] * d)[:, None] + np.arange(p) for i in range(3)]
+            plan["dil"].append({"order": order, "taps": taps, "used": used,
+                                "groups": [(j, int(bounds[j]), int(bounds[j + 1])) for j in range(len(used))]})
+    else:
+        width = params.length + 8 * int(params.dilations.max())        # zero-padded series
+        for di in range(len(params.dilations)):
+            d = int(params.dilations[di])
+            first = 4 * int(params.dilations.max()) - 4 * d             # the first tap of position 0
+            mask = params.channel_mask[di] > 0
+            size = mask.sum(axis=1)
+            pad = params.padded(di)
+            order = np.lexsort((-size, ~pad))
+            n_pad = int(pad.sum())
+            # slot s: the s-th channel of each kernel, in channel order (the order ``_conv`` adds them)
+            slots = []
+            for sl in range(int(size.max())):
+                for a, z in ((0, n_pad), (n_pad, N_KERNELS)):
+                    ks = order[a:z][size[order[a:z]] > sl]
+                    if len(ks):
+                        chans = np.array([np.flatnonzero(mask[k])[sl] for k in ks])
+                        taps = [(chans * width + first + beta[ks, i] * d)[:, None] + np.arange(params.length)
+                                for i in range(3)]
+                        slots.append((sl, a, a + len(ks), chans, taps))
+            plan["dil"].append({"order": order, "slots": slots, "n_padded": n_pad})
+    return plan
+
+
+def _count_positive(conv: np.ndarray, biases: np.ndarray, out: np.ndarray) -> None:
+    """out (m, kernels, f) = number of positions where conv (m, kernels, P) > biases (kernels, f)."""
+    p = conv.shape[-1]
+    dtype = np.uint8 if p < 256 else np.uint16 if p < 65536 else np.int64
+    step = max(1, 1_000_000 // max(1, conv.shape[1] * biases.shape[1] * p))
+    buffer = np.empty((min(step, conv.shape[0]), conv.shape[1], biases.shape[1], p), dtype=bool)
+    for a in range(0, conv.shape[0], step):
+        positive = buffer[:min(step, conv.shape[0] - a)]
+        np.greater(conv[a:a + step, :, None, :], biases[None, :, :, None], out=positive)
+        out[a:a + step] = positive.view(np.uint8).sum(axis=-1, dtype=dtype)
+
+
+def _batch_features(params: MiniRocketParams, plan: dict, x: np.ndarray, out: np.ndarray) -> None:
+    """Features of the cases x (mb, channels, length) into out (mb, n_features)."""
+    mb, n_ch, n = x.shape
+    beta, offs = plan["beta"], plan["offs"]
+    rows = np.arange(mb)[:, None]
+    if params.edges == "valid":
+        # channel-subset series, summed in channel order as ``_conv_summed`` does: (mb, U, n)
+        sub = plan["subsets"]
+        ys = sub[None, :, 0, None] * x[:, None, 0]
+        for c in range(1, n_ch):
+            ys = ys + sub[None, :, c, None] * x[:, None, c]
+    else:
+        taps_max = 4 * int(params.dilations.max())
+        xp = np.zeros((mb, n_ch, n + 2 * taps_max))
+        xp[:, :, taps_max:taps_max + n] = x
+    for di, d in enumerate(params.dilations):
+        d = int(d)
+        f = int(params.features_per_kernel[di])
+        info = plan["dil"][di]
+        order = info["order"]
+        b = params.biases[offs[di]:offs[di + 1]].reshape(N_KERNELS, f)[order]
+        counts = np.empty((mb, N_KERNELS, f), dtype=float)         # kernels in ``order``
+        if params.edges == "valid":
+            p = n - 8 * d
+            sub = ys[:, info["used"]]                                   # (mb, used subsets, n)
+            alpha = sub[:, :, 0:p]
+            for k in range(1, KERNEL_LENGTH):
+                alpha = alpha + sub[:, :, k * d:k * d + p]
+            flat = ys.reshape(mb, -1)
+            t0, t1, t2 = info["taps"]
+            # (mb, 84, P), in place from here: the same operations in the same order as
+            # ``_conv_summed`` ("clip": indices are in range, and it avoids a buffered copy)
+            conv = np.take(flat, t0, axis=1, mode="clip")
+            tmp = np.take(flat, t1, axis=1, mode="clip")
+            conv += tmp
+            conv += np.take(flat, t2, axis=1, out=tmp, mode="clip")
+            conv *= 3.0
+            for j, a, z in info["groups"]:
+                conv[:, a:z] -= alpha[:, j, None]
+            _count_positive(conv, b, counts)
+            counts /= float(p)
+        else:
+            s0 = taps_max - 4 * d
+            alpha = xp[:, :, s0:s0 + n]
+            for k in range(1, KERNEL_LENGTH):
+                alpha = alpha + xp[:, :, s0 + k * d:s0 + k * d + n]    # (mb, ch, n)
+            flat = xp.reshape(mb, -1)
+            conv = np.empty((mb, N_KERNELS, n))
+            for sl, a, z, chans, (t0, t1, t2) in info["slots"]:
+                # (mb, z − a, n), in place in ``_conv``'s order
+                per_channel = np.take(flat, t0, axis=1, mode="clip")
+                tmp = np.take(flat, t1, axis=1, mode="clip")
+                per_channel += tmp
+                per_channel += np.take(flat, t2, axis=1, out=tmp, mode="clip")
+                per_channel *= 3.0
+                per_channel -= np.take(alpha, chans, axis=1, out=tmp, mode="clip")
+                if sl == 0:
+                    conv[:, a:z] = per_channel
+                else:
+                    conv[:, a:z] += per_channel
+            n_pad = info["n_padded"]
+            if n_pad:
+                _count_positive(conv[:, :n_pad], b[:n_pad], counts[:, :n_pad])
+                counts[:, :n_pad] /= float(n)
+            if n_pad < N_KERNELS:
+                _count_positive(conv[:, n_pad:, 4 * d:n - 4 * d], b[n_pad:], counts[:, n_pad:])
+                counts[:, n_pad:] /= float(n - 8 * d)
+        done = np.empty_like(counts)
+        done[:, order] = counts
+        out[:, offs[di]:offs[di + 1]] = done.reshape(mb, N_KERNELS * f)
+
+
+def reference_transform(params: MiniRocketParams, x: np.ndarray, chunk: int = 32) -> np.ndarray:
+    """``minirocket_transform`` the plain way (``_conv`` or ``_conv_summed`` on zero-padded
+    taps, one dilation at a time): the reference the faster path is tested against."""
     x = np.asarray(x, dtype=float)
     m, n_ch, n = x.shape
     if n != params.length or n_ch != params.n_channels:

@@ -128,13 +128,23 @@ class SerialSource(Source):
         return tuple(f"ch{i + 1}" for i in range(n or 0))
 
     def read(self) -> Block:
+        """Everything that has arrived, as one block: waits up to the port's timeout for
+        the first byte, then takes all bytes waiting; while a line or frame is still under
+        way (bytes but no whole sample yet) it reads on, up to the timeout, so that blocks
+        hold whole samples instead of one empty block per fragment."""
+        start = self.clock()
+        samples: list = []
         try:
             data = self.serial.read(max(1, self.serial.in_waiting))
+            while data:
+                samples += self.decoder.feed(data)
+                if samples or self.clock() - start >= (self.serial.timeout or 0.0):
+                    break
+                data = self.serial.read(max(1, self.serial.in_waiting))
         except (serial.SerialException, OSError, TypeError) as exc:
             # pyserial raises TypeError from in_waiting on a port closed under it
             raise SourceGone(f"serial port {self.port} failed: {exc}") from None
         now = self.clock()
-        samples = self.decoder.feed(data) if data else []
         self._check_channels()
         n_ch = self.decoder.decided_channels or 0
         if not samples:
