@@ -681,6 +681,7 @@ def _bench_spotting(a) -> int:
         return _err("--spotting-wearers must be at least 2 and --spotting-score-min positive")
     p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min)
     cache = Path(a.spotting_cache or f"drape-spotting-{a.spotting_seed}-{a.spotting_wearers}-{a.spotting_score_min:g}")
+    from .recognition.classifiers import DEFAULT_CLASSIFIER
     classifier = (a.classifier or [DEFAULT_CLASSIFIER])[0]
     print(f"spotting protocol, {classifier}: {p.wearers} simulated wearers, full vocabulary; fit on 2 sessions "
           f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), tune on a third "
@@ -1117,12 +1118,13 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("--port", type=int, help="shorthand for --to 127.0.0.1:PORT")
     n.add_argument("--token", default="", help="the shared token, when the daemon's port has one")
     n.set_defaults(func=cmd_send)
-    from .recognition.classifiers import CLASSIFIERS
+    from .recognition.classifiers import CLASSIFIERS, DEFAULT_CLASSIFIER
     f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])
     f.add_argument("recordings", nargs="*", metavar="TAKE")
     f.add_argument("--ts", metavar="TRAIN.ts", help="train on the cases of a .ts file instead of takes")
-    f.add_argument("--classifier", choices=tuple(CLASSIFIERS), default="linear",
-                   help="linear (default, tiny), minirocket (convolution features) or dtw (few-shot templates)")
+    f.add_argument("--classifier", choices=tuple(CLASSIFIERS), default=DEFAULT_CLASSIFIER,
+                   help="minirocket (default: convolution features, trained against false cues), "
+                        "linear (tiny) or dtw (few-shot templates)")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
     f.add_argument("--window-s", type=float, default=2.0, help="window length, s")
     f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
@@ -1144,7 +1146,7 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("recordings", nargs="*", metavar="TAKE")
     e.add_argument("--scheme", choices=("leave-session-out", "leave-wearer-out"),
                    help="hold out each session (new recordings of known wearers) or each wearer (unseen wearers)")
-    e.add_argument("--classifier", choices=tuple(CLASSIFIERS), default="linear")
+    e.add_argument("--classifier", choices=tuple(CLASSIFIERS), default=DEFAULT_CLASSIFIER)
     e.add_argument("--model", help="score this model on held-out takes or --ts cases instead")
     e.add_argument("--ts", metavar="TEST.ts", help="cases to score --model on (resampled to its window)")
     e.add_argument("--json", action="store_true", help="print a machine-readable summary")

@@ -266,6 +266,10 @@ class DtwRecogniser:
 
 # --- the registry -------------------------------------------------------------------------
 
+DEFAULT_CLASSIFIER = "minirocket"
+"""What ``drape fit`` trains unless told otherwise: on the spotting protocol it recognised the
+most with the fewest false firings (docs/benchmarks.md, "Spotting")."""
+
 CLASSIFIERS = {
     "linear": {"fit": fit_linear_cases, "scores": _linear_scores, "recogniser": Recogniser, "model": Model},
     "minirocket": {"fit": fit_minirocket_cases, "scores": _minirocket_scores, "recogniser": MiniRocketRecogniser,
@@ -311,20 +315,17 @@ def make_recogniser(model):
 
 
 # Settings for recordings, chosen for live use on a laptop or small board. Both read the
-# level stream: the motion stream's band (1–10 Hz) keeps little of a gesture's shape. On
-# the simulated troupe, one unseen wearer: dtw's nearest-template accuracy on gesture
-# windows 0.78 on level against 0.40 on motion; minirocket's window accuracy 0.96 on level,
-# 0.92 on both, 0.80 on motion, with 5, 8 and 9 false triggers during null activity.
+# level stream: the motion stream's band (1–10 Hz) keeps little of a gesture's shape.
 # minirocket: fewer convolution features, convolutions without padding ("valid" edges: a
 # stream's window edges are arbitrary, and the live transform then costs only the hop's
 # new positions). At most ``cases_per_class`` windows per class, evenly spread, so fits
-# stay in seconds; more of null (``null_cases``), the class live use sees most: on the same
-# fold (padded edges, motion) 1500 null windows instead of 300 took minirocket's false
-# triggers from 35 to 20 for a recall of 0.91 instead of 0.93; for dtw they give the null
-# templates and thresholds.
+# stay in seconds; more of null (``null_cases``), the class live use sees most, and one
+# round of out-of-fold hard-negative mining (``mine_rounds``: the ordinary movement a
+# model fitted without a take mistakes for a gesture joins the null class). For dtw the
+# null windows give the null templates and thresholds. Figures: docs/benchmarks.md.
 RECORDING_DEFAULTS = {
     "minirocket": {"stream": "level", "n_features": 2_000, "cases_per_class": 300, "null_cases": 1500,
-                   "edges": "valid"},
+                   "edges": "valid", "mine_rounds": 1},
     "dtw": {"stream": "level", "cases_per_class": 60, "null_cases": 300, "templates_per_class": 5, "band": 0.1},
 }
 
