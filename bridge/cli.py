@@ -679,14 +679,17 @@ def _bench_spotting(a) -> int:
     from .evaluation.spotting import Protocol, format_table, run_protocol
     if a.spotting_wearers < 2 or a.spotting_score_min <= 0:
         return _err("--spotting-wearers must be at least 2 and --spotting-score-min positive")
-    p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min)
+    p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min,
+                 prior_wearers=a.spotting_prior)
     cache = Path(a.spotting_cache or f"drape-spotting-{a.spotting_seed}-{a.spotting_wearers}-{a.spotting_score_min:g}")
     from .recognition.classifiers import DEFAULT_CLASSIFIER
     classifier = (a.classifier or [DEFAULT_CLASSIFIER])[0]
     print(f"spotting protocol, {classifier}: {p.wearers} simulated wearers, full vocabulary; fit on 2 sessions "
           f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), tune on a third "
           f"({p.tune_reps} + {p.tune_null_s / 60:g} min), score a fourth ({p.score_reps} + {p.score_null_s / 60:g} min); "
-          f"takes cached in {cache}", flush=True)
+          f"takes cached in {cache}"
+          + (f"; every fit adds 10 min of ordinary movement of each of {p.prior_wearers} other simulated people"
+             if p.prior_wearers else ""), flush=True)
     try:
         result = run_protocol(p, classifier, cache, progress=lambda m: print("  " + m, flush=True))
     except ValueError as exc:
@@ -1182,6 +1185,8 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--spotting-score-min", type=float, default=60.0,
                    help="--spotting: minutes of ordinary movement in each scored session (default 60)")
     b.add_argument("--spotting-seed", type=int, default=1)
+    b.add_argument("--spotting-prior", type=int, default=0, metavar="N",
+                   help="--spotting: add ordinary movement of N other simulated people to every fit (default 0)")
     b.add_argument("--spotting-cache", metavar="DIR", help="--spotting: folder for the rendered takes (kept for reruns)")
     b.add_argument("--spotting-json", metavar="FILE", help="--spotting: also write the full result as JSON")
     b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")
