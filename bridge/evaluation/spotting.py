@@ -94,7 +94,8 @@ def protocol_takes(p: Protocol, cache: str | Path, progress=None) -> dict:
     folder = Path(cache)
     folder.mkdir(parents=True, exist_ok=True)
     stamp = folder / "protocol.json"
-    if stamp.exists() and json.loads(stamp.read_text()) != asdict(p):
+    sessions = {k: v for k, v in asdict(p).items() if not k.startswith("prior_")}   # prior takes are named apart
+    if stamp.exists() and {k: v for k, v in json.loads(stamp.read_text()).items() if not k.startswith("prior_")} != sessions:
         raise ValueError(f"{folder} holds takes of another protocol; give an empty folder")
     stamp.write_text(json.dumps(asdict(p), indent=1))
     out = {}
