@@ -225,20 +225,24 @@ def peer_minirocket():
 
 def bench_batch_transform(windows: int = 1000, n_channels: int = 4, length: int = 200, n_features: int = 10_000,
                           reps: int = 3, compare: bool = True, seed: int = 0) -> list[dict]:
-    """Batch MiniRocket transform of ``windows`` random-walk windows, both edge modes, with
-    the numba peer (when installed and ``compare``) timed interleaved in the same process.
+    """Batch MiniRocket transform of ``windows`` random-walk windows, both edge modes, by
+    the numpy path and (with numba) the compiled kernels, with the numba peer (when
+    installed and ``compare``) timed interleaved in the same process.
 
-    Returns one dict per edge mode: {"edges", "windows", "drape_s", "drape_cpu_s",
-    "peer_s", "peer_cpu_s", "ratio", "cpu_ratio"} (peer figures None without the peer).
+    Returns one dict per edge mode and engine: {"edges", "engine", "windows", "drape_s",
+    "drape_cpu_s", "peer_s", "peer_cpu_s", "ratio", "cpu_ratio"} (peer figures None
+    without the peer).
     """
-    from ..recognition.minirocket import fit_minirocket, minirocket_transform
+    from ..recognition.minirocket import compiled_kernels, fit_minirocket, minirocket_transform
     rng = np.random.default_rng(seed)
     x = _cases(rng, windows, n_channels, length)
     peer_cls = peer_minirocket() if compare else None
+    engines = ("numpy", "compiled") if compiled_kernels() is not None else ("numpy",)
     fns = {}
     for edges in ("valid", "alternate"):
         params = fit_minirocket(x, n_features, seed, edges)
-        fns[edges] = (lambda p=params: minirocket_transform(p, x))
+        for engine in engines:
+            fns[edges, engine] = (lambda p=params, e=engine: minirocket_transform(p, x, engine=e))
     if peer_cls is not None:
         peer = peer_cls(n_kernels=n_features, random_state=seed, n_jobs=1)
         peer.fit(x)
@@ -246,15 +250,16 @@ def bench_batch_transform(windows: int = 1000, n_channels: int = 4, length: int 
     t = _interleaved(fns, reps)
     out = []
     for edges in ("valid", "alternate"):
-        row = {"edges": edges, "windows": windows, "drape_s": round(t[edges][0], 3),
-               "drape_cpu_s": round(t[edges][1], 3), "peer_s": None, "ratio": None}
-        row["peer_cpu_s"] = row["cpu_ratio"] = None
-        if "peer" in t:
-            row["peer_s"] = round(t["peer"][0], 3)
-            row["ratio"] = round(t[edges][0] / t["peer"][0], 2)
-            row["peer_cpu_s"] = round(t["peer"][1], 3)
-            row["cpu_ratio"] = round(t[edges][1] / max(t["peer"][1], 1e-9), 2)
-        out.append(row)
+        for engine in engines:
+            wall, cpu = t[edges, engine]
+            row = {"edges": edges, "engine": engine, "windows": windows, "drape_s": round(wall, 3),
+                   "drape_cpu_s": round(cpu, 3), "peer_s": None, "ratio": None, "peer_cpu_s": None, "cpu_ratio": None}
+            if "peer" in t:
+                row["peer_s"] = round(t["peer"][0], 3)
+                row["ratio"] = round(wall / t["peer"][0], 2)
+                row["peer_cpu_s"] = round(t["peer"][1], 3)
+                row["cpu_ratio"] = round(cpu / max(t["peer"][1], 1e-9), 2)
+            out.append(row)
     return out
 
 
@@ -428,7 +433,8 @@ def run_all(channels=(4, 8), hops: int = 200, replay_s: float = 300.0, fit_minut
                 ratio = (f": ratio {r['ratio']:.2f} (by CPU time {r['cpu_ratio']:.2f}), target ≤ {BATCH_TARGET_RATIO:g}: "
                          f"{'met' if r['ratio'] <= BATCH_TARGET_RATIO else 'NOT met'} "
                          f"(by CPU time: {'met' if r['cpu_ratio'] <= BATCH_TARGET_RATIO else 'NOT met'})")
-            say(f"minirocket  batch transform, {r['windows']} windows 4×200, {r['edges']} edges: {r['drape_s']:.2f} s "
+            say(f"minirocket  batch transform, {r['windows']} windows 4×200, {r['edges']} edges, {r['engine']}: "
+                f"{r['drape_s']:.2f} s "
                 f"(CPU {r['drape_cpu_s']:.2f} s); {peer}{ratio}  [load {load_average()}]", flush=True)
     if "linear" in classifiers:
         r = bench_linear_floor()
