@@ -31,28 +31,59 @@ def _err(msg: str) -> int:
     return 2
 
 
+def _line(text: str) -> None:
+    """One line to standard output for the live loops. A reader that went away (`| head`,
+    a dead `tee`) must not stop the show: printing stops, stderr says so once, and fd 1
+    points to /dev/null from then on (so Python's own flush at exit stays quiet too)."""
+    try:
+        print(text, flush=True)
+    except (BrokenPipeError, ValueError, OSError) as exc:
+        import os
+        try:
+            null = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(null, sys.stdout.fileno())
+            os.close(null)
+        except (OSError, ValueError):
+            sys.stdout = open(os.devnull, "w")
+        _report(f"standard output closed ({type(exc).__name__}); no more event lines, the show goes on")
+
+
 def _print_event(e, timing=None) -> None:
     if e.kind == "control":
         return  # many per second: their messages are the output
     if e.kind in ("armed", "disarmed", "panic", "layer"):
-        print(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + e.detail if e.detail else ''}", flush=True)
+        _line(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + e.detail if e.detail else ''}")
         return
     extra = f"  held {e.duration_s:5.2f} s" if e.kind == "left" else ""
-    lat = f"  latency {timing.send_ms:5.2f} ms" if timing else ""
-    print(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}", flush=True)
+    if timing is not None and timing.disarmed:
+        lat = "  disarmed: not sent"
+    else:
+        lat = f"  latency {timing.send_ms:5.2f} ms" if timing else ""
+    _line(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}")
 
 
-def _stop_on_signals(flag):
+def _stop_on_signals(flag, reload: bool = False):
+    """Every signal that ends the process only sets the flag: the loop then lets go of
+    every key and note and puts lights to their safe look before it exits. SIGHUP (a
+    closed terminal, a dropped SSH session) reloads the mapping with ``reload``, and
+    stops cleanly otherwise; SIGUSR1 panics."""
     def handler(signum, _frame):
         flag.set(signal.Signals(signum).name)
-    for s in (signal.SIGINT, signal.SIGTERM):
-        signal.signal(s, handler)
-    if hasattr(signal, "SIGUSR1"):  # panic: `kill -USR1 PID` releases every output
+    ending = ["SIGINT", "SIGTERM", "SIGQUIT"] + ([] if reload else ["SIGHUP"])
+    for name in ending:
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), handler)
+    if reload and hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, lambda *_: flag.request_reload())
+    if hasattr(signal, "SIGUSR1"):  # panic: releases every output (see also `drape send panic`)
         signal.signal(signal.SIGUSR1, lambda *_: flag.request_panic())
 
 
 def _report(text: str) -> None:
-    print(f"drape: {text}", file=sys.stderr, flush=True)
+    try:
+        print(f"drape: {text}", file=sys.stderr, flush=True)
+    except (OSError, ValueError):  # stderr gone too (a closed terminal): keep running
+        pass
 
 
 def _inbox(listen):
@@ -147,13 +178,13 @@ def cmd_demo(a) -> int:
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
     mapping = watcher.mapping
+    stop = StopFlag()
+    _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
         print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
     print(f"edit {mapping_path} while this runs: saved changes take effect at once", flush=True)
     source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s)
-    stop = StopFlag()
-    _stop_on_signals(stop)
     print("the simulated wearer is performing; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
     try:
         stats = run(source, Pipeline(model, mapping, "demo"), outputs, stop, on_event=_print_event,
@@ -163,8 +194,8 @@ def cmd_demo(a) -> int:
         if inbox:
             inbox.close()
     performed = [iv for iv in source.truth if iv.end_s <= stats.samples / source.rate_hz]
-    print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {stats.samples / source.rate_hz:.1f} s of stream, "
-          f"{len(performed)} gestures performed, {stats.events} events", flush=True)
+    _line(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {stats.samples / source.rate_hz:.1f} s of stream, "
+          f"{len(performed)} gestures performed, {stats.events} events")
     return 0
 
 
@@ -266,9 +297,9 @@ def cmd_start(a) -> int:
     where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
     from .service.runner import keys_only_for_local_input
     opener = keys_only_for_local_input(_open_one, cfg.input == "osc")  # no keys from network samples
-    outputs = _open_outputs(mapping, opener) if mapping else {}
     stop = StopFlag()
-    _stop_on_signals(stop)
+    _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
+    outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
           + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:

@@ -297,6 +297,23 @@ class Pipeline:
             return []
         return self.router.route(events) + self.router.due(self.t_s)
 
+    def dispatches_marked(self, events: list[Event]) -> tuple[list[Dispatch], list[bool]]:
+        """``dispatches(events)``, and for each event whether it went unsent because the
+        garment was disarmed (a gesture or posture event that produced no message), so
+        logs and views never show such an event as sent."""
+        r = self.router
+        if r is None:
+            return [], [False] * len(events)
+        if r.armed and not any(e.kind in ("disarmed", "panic") for e in events):
+            return r.route(events) + r.due(self.t_s), [False] * len(events)
+        out, unsent = [], []
+        for e in events:  # the arming state can change within the list
+            armed = r.armed
+            ds = r.route([e])
+            out += ds
+            unsent.append(e.kind in ("gesture", "entered", "held", "left") and not armed and not ds)
+        return out + r.due(self.t_s), unsent
+
     def stop(self) -> list[Event]:
         """Release held postures: the "left" events to send before shutting down."""
         return self.gate.release_all(self.t_s)

@@ -23,24 +23,30 @@ class Timing:
 
     decide_ms: float
     send_ms: float
+    disarmed: bool = False  # the event matched nothing because the garment was disarmed: nothing went out
 
 
 @dataclass
 class StopFlag:
     """Set from a signal handler or another thread to end ``run`` after the current block.
 
-    ``request_panic`` (e.g. from SIGUSR1) asks the loop to release every output at once.
+    ``request_panic`` (e.g. from SIGUSR1) asks the loop to release every output at once;
+    ``request_reload`` (SIGHUP) asks it to read the mapping file again.
     """
 
     stopped: bool = False
     reason: str = ""
     panics: int = 0
+    reloads: int = 0
 
     def set(self, reason: str = "") -> None:
         self.stopped, self.reason = True, reason
 
     def request_panic(self) -> None:
         self.panics += 1  # only an integer store: safe from a signal handler
+
+    def request_reload(self) -> None:
+        self.reloads += 1  # the same: the loop does the reading
 
 
 @dataclass
@@ -104,7 +110,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     """
     stop = stop or StopFlag()
     stats = RunStats()
-    panics_seen = stop.panics
+    panics_seen, reloads_seen = stop.panics, stop.reloads
     watchdog = Watchdog(stall_s) if stall_s else None
     reported = None
 
@@ -116,40 +122,49 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
 
     def deliver(events: list[Event], arrived: float) -> None:
         decided = clock()
-        send(pipeline.dispatches(events))
+        dispatches, unsent = pipeline.dispatches_marked(events)
+        send(dispatches)
         sent = clock()
-        for e in events:
+        for e, disarmed in zip(events, unsent):
             if e.kind == "control":
                 stats.controls += 1
             else:
                 stats.events += 1
             if on_event:
-                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3))
+                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3, disarmed))
+
+    def apply(change) -> None:
+        if change.mapping is None:
+            stats.broken_reloads += 1
+            report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
+            return
+        old = pipeline.mapping
+        pipeline.swap_mapping(change.mapping)
+        stats.reloads += 1
+        if open_fn is not None:
+            reconcile_outputs(outputs, old, change.mapping, open_fn, report)
+        m = change.mapping
+        report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
+               + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
 
     def poll() -> None:
-        nonlocal panics_seen
+        nonlocal panics_seen, reloads_seen
         if stop.panics != panics_seen:
             panics_seen = stop.panics
             deliver(pipeline.command("panic", "signal"), clock())
         if inbox is not None:
             for kind, detail in inbox.poll():
                 deliver(pipeline.command(kind, detail), clock())
+        if stop.reloads != reloads_seen:  # SIGHUP: read the mapping file again now
+            reloads_seen = stop.reloads
+            if watcher is not None:
+                apply(watcher.reload_now())
+            else:
+                report("reload asked for, but this garment has no mapping file")
         if watcher is not None:
             change = watcher.poll(clock())
-            if change is None:
-                return
-            if change.mapping is None:
-                stats.broken_reloads += 1
-                report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
-                return
-            old = pipeline.mapping
-            pipeline.swap_mapping(change.mapping)
-            stats.reloads += 1
-            if open_fn is not None:
-                reconcile_outputs(outputs, old, change.mapping, open_fn, report)
-            m = change.mapping
-            report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
-                   + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
+            if change is not None:
+                apply(change)
         if pipeline.router is not None and pipeline.router.warnings:
             for w in pipeline.router.warnings:
                 report(w)
