@@ -79,6 +79,25 @@ def _stop_on_signals(flag, reload: bool = False):
         signal.signal(signal.SIGUSR1, lambda *_: flag.request_panic())
 
 
+def _write_pid_file(path) -> None:
+    """Write this process's id to ``path`` (for `kill -USR1 "$(cat PATH)"`, which can hit no
+    other process), and remove it at exit if it still holds our id."""
+    import atexit
+    import os
+    if not path:
+        return
+    p = Path(path).expanduser()
+    p.write_text(f"{os.getpid()}\n", encoding="ascii")
+
+    def remove():
+        try:
+            if p.read_text(encoding="ascii").strip() == str(os.getpid()):
+                p.unlink()
+        except OSError:
+            pass
+    atexit.register(remove)
+
+
 def _report(text: str) -> None:
     try:
         print(f"drape: {text}", file=sys.stderr, flush=True)
@@ -180,6 +199,10 @@ def cmd_demo(a) -> int:
     mapping = watcher.mapping
     stop = StopFlag()
     _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
+    try:
+        _write_pid_file(a.pid_file)
+    except OSError as exc:
+        return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
         print(f"sending to {describe_destination(d)} ({name}) from {mapping_path}", flush=True)
@@ -251,6 +274,10 @@ def cmd_serve(a) -> int:
     except (ValueError, OSError) as exc:
         return _err(f"control port {cfg.listen}: {exc}")
     _stop_on_signals(stop)
+    try:
+        _write_pid_file(a.pid_file)
+    except OSError as exc:
+        return _err(f"--pid-file: {exc}")
     if hasattr(signal, "SIGHUP"):  # reload every garment's mapping
         def hup(*_):
             service.reloads_asked += 1
@@ -299,6 +326,10 @@ def cmd_start(a) -> int:
     opener = keys_only_for_local_input(_open_one, cfg.input == "osc")  # no keys from network samples
     stop = StopFlag()
     _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
+    try:
+        _write_pid_file(a.pid_file)
+    except OSError as exc:
+        return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
           + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
@@ -931,20 +962,35 @@ def cmd_watch(a) -> int:
     return watch(a.host, a.port, once=a.once, wait_s=a.wait_s)
 
 
+def _send_token(a) -> str:
+    """The control token: --token-file, else the DRAPE_TOKEN environment variable, else
+    --token (visible to every user of the machine in the process list: warned)."""
+    import os
+    from .service.watch import TOKEN_ENV
+    if a.token_file:
+        try:
+            return Path(a.token_file).expanduser().read_text(encoding="utf-8").strip()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise ValueError(f"--token-file: {exc}") from None
+    if os.environ.get(TOKEN_ENV):
+        return os.environ[TOKEN_ENV].strip()
+    if a.token:
+        _report(f"--token is visible to other users in the process list; prefer {TOKEN_ENV} or --token-file")
+    return a.token
+
+
 def cmd_send(a) -> int:
     from .service.watch import send_command
     to = f"127.0.0.1:{a.port}" if a.port else a.to
     if a.what == "layer" and not a.layer:
         return _err("send layer needs the layer's name: drape send layer NAME")
     try:
-        lines = send_command(to, a.what, a.layer or "", a.garment, a.token)
+        answer = send_command(to, a.what, a.layer or "", a.garment, _send_token(a), a.wait_s)
     except (ValueError, OSError) as exc:
         return _err(str(exc))
-    for line in lines:
-        print(line)
-    if a.what == "status" and not lines:
-        return _err(f"no reply from {to} (is the daemon running? right token?)")
-    return 0
+    for line in answer.lines:
+        (print if answer.ok else _report)(line)
+    return 0 if answer.ok else 1
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -958,10 +1004,12 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
     d.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
     d.add_argument("--model", help="use this model of the simulated jacket instead of training one first")
+    d.add_argument("--pid-file", metavar="FILE", help="write the process id here (for kill -USR1 \"$(cat FILE)\")")
     d.set_defaults(func=cmd_demo)
     s = sub.add_parser("start", help=VERBS["start"], description=VERBS["start"])
     s.add_argument("--config", required=True, help="daemon config file (TOML)")
     s.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
+    s.add_argument("--pid-file", metavar="FILE", help="write the process id here (for kill -USR1 \"$(cat FILE)\")")
     s.add_argument("--log-level", default="info", choices=("debug", "info", "warning", "error"),
                    help="with [[garment]] configs: how much to log to stderr")
     s.set_defaults(func=cmd_start)
@@ -979,7 +1027,10 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("--garment", default="", help="only this garment (default: every garment)")
     n.add_argument("--to", default="127.0.0.1:9100", help="the daemon's control port (default 127.0.0.1:9100)")
     n.add_argument("--port", type=int, help="shorthand for --to 127.0.0.1:PORT")
-    n.add_argument("--token", default="", help="the shared token, when the daemon's port has one")
+    n.add_argument("--token", default="", help="the shared token, when the daemon's port has one (other users can "
+                   "see it in the process list: prefer DRAPE_TOKEN or --token-file)")
+    n.add_argument("--token-file", metavar="FILE", help="read the token from this file")
+    n.add_argument("--wait-s", type=float, default=1.0, help="how long to wait for the daemon's answer, s (default 1)")
     n.set_defaults(func=cmd_send)
     from .recognition.classifiers import CLASSIFIERS
     f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])

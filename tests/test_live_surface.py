@@ -185,3 +185,158 @@ def test_a_closed_stdout_does_not_stop_the_show(tmp_path, demo_model_file):
     assert "Traceback" not in text and "Exception ignored" not in text
     assert sum("standard output closed" in l for l in err) == 1
     assert len(peer.terminated()) == 3
+
+
+# ---- commands are acknowledged ---------------------------------------------------------------
+
+def free_port():
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_send_with_nobody_listening_fails(capsys):
+    from bridge.cli import main
+    assert main(["send", "panic", "--port", str(free_port()), "--wait-s", "0.5"]) != 0
+    err = capsys.readouterr().err
+    assert "sent panic" not in err and ("nothing is listening" in err or "no answer" in err)
+
+
+class IdleSource:
+    """A garment that sends nothing: the loop keeps polling its inbox."""
+    ended = False
+    connected = True
+    rate_hz = 100.0
+
+    def __init__(self, n):
+        self.n = n
+
+    def read(self):
+        from bridge.sources.base import empty_block
+        time.sleep(0.01)
+        return empty_block(self.n, time.monotonic())
+
+
+LAYERED = """
+[destinations.show]
+osc = "127.0.0.1:9"
+[layers]
+first = "act1"
+[[rule]]
+gesture = "bow"
+layer = "act1"
+to = "show"
+address = "/x"
+[[rule]]
+gesture = "bow"
+layer = "act2"
+to = "show"
+address = "/y"
+"""
+
+
+def test_the_single_loop_acknowledges_every_command_and_refuses_what_it_cannot_do(demo_model, capsys):
+    from bridge.cli import main
+    from bridge.mapping import parse_mapping
+    from bridge.service import Pipeline, StopFlag, run
+    from bridge.service.control import ControlInbox
+    m = parse_mapping(LAYERED, "m.toml", demo_model.classes, demo_model.kinds, demo_model.channel_names)
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, said = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"), {},
+                                              stop), kwargs=dict(inbox=inbox, report=said.append), daemon=True)
+    loop.start()
+    port = str(inbox.address[1])
+    try:
+        def send(*a):
+            code = main(["send", *a, "--port", port])
+            return code, capsys.readouterr()
+        code, r = send("layer", "act2")
+        assert code == 0 and "layer 'act2'" in r.out
+        code, r = send("layer", "act9")
+        assert code != 0 and "refused" in r.err and "no layer 'act9'" in r.err and "act1, act2" in r.err
+        code, r = send("panic", "--garment", "nobody")
+        assert code != 0 and "no garment 'nobody'" in r.err
+        code, r = send("panic")
+        assert code == 0 and "panic" in r.out
+        code, r = send("rebaseline")
+        assert code != 0 and "refused" in r.err
+        code, r = send("layer", "a\nFAKE drape: armed")   # a forged log line stays on its line
+        assert code != 0
+        assert not any(line.startswith("FAKE") for s in said for line in s.splitlines())
+        assert any("\\n" in s for s in said)
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+
+
+TOKEN = "a-show-token-of-some-length"
+
+
+def _service(tmp_path, model, ctl, extra="", status_port=None, mapping=LAYERED, name="lead"):
+    (tmp_path / "m.toml").write_text(mapping)
+    (tmp_path / "show.toml").write_text(
+        f'[[garment]]\nname = "{name}"\nsimulated = true\nmodel = "{model}"\nmapping = "m.toml"\n'
+        f'[control]\nlisten = "127.0.0.1:{ctl}"\n{extra}\n[calibration]\nhold_still_s = 0.2\n'
+        + (f'[status]\nto = ["127.0.0.1:{status_port}"]\n' if status_port else ""))
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    err = []
+    threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+    wait_for(lambda: any("running 1 garment" in l for l in err) or proc.poll() is not None, 60, "the service to start")
+    return proc, err
+
+
+def test_the_service_acknowledges_and_refuses_with_reasons(tmp_path, demo_model_file):
+    ctl = free_port()
+    (tmp_path / "token").write_text(TOKEN + "\n")
+    proc, err = _service(tmp_path, demo_model_file, ctl, 'token_file = "token"')
+
+    def send(*a, env=None):
+        r = subprocess.run(drape_cmd("send", *a, "--port", str(ctl)), capture_output=True, text=True, timeout=20,
+                           env=dict(os.environ, **(env or {})))
+        return r.returncode, r.stdout + r.stderr
+    try:
+        code, text = send("panic")                                        # no token
+        assert code != 0 and "refused" in text and "token" in text
+        code, text = send("panic", env={"DRAPE_TOKEN": "not-the-token-at-all"})
+        assert code != 0 and "refused" in text and "token" in text
+        code, text = send("layer", "act9", env={"DRAPE_TOKEN": TOKEN})
+        assert code != 0 and "no layer 'act9'" in text
+        code, text = send("arm", "--garment", "nobody", env={"DRAPE_TOKEN": TOKEN})
+        assert code != 0 and "no such running garment 'nobody'" in text and "lead" in text
+        code, text = send("panic", "--token-file", str(tmp_path / "token"))
+        assert code == 0 and "lead: panic" in text
+        code, text = send("layer", "act2", env={"DRAPE_TOKEN": TOKEN})
+        assert code == 0 and "lead: layer 'act2'" in text
+        wait_for(lambda: any("control messages ignored: 1 wrong or missing token" in l or
+                             "control messages ignored: 2 wrong or missing token" in l for l in err), 5,
+                 "ignored messages counted by reason")
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        proc.wait(30)
+
+
+def test_short_tokens_are_refused(tmp_path):
+    from bridge.service.config import ConfigError, load_service
+    from bridge.service.control import ControlPort, TokenMissing
+    (tmp_path / "s.toml").write_text('[[garment]]\nname = "a"\nsimulated = true\nmodel = "a.npz"\n'
+                                     '[control]\nlisten = "0.0.0.0:9100"\ntoken = "s3cret"\n')
+    with pytest.raises(ConfigError, match="at least 16"):
+        load_service(tmp_path / "s.toml")
+    with pytest.raises(TokenMissing, match="at least 16"):
+        ControlPort("127.0.0.1", 0, "s3cret")
+
+
+def test_localhost_is_resolved_and_must_be_loopback(monkeypatch):
+    from bridge.service import control
+    assert control.is_loopback("localhost") and control.is_loopback("127.0.0.5") and control.is_loopback("::1")
+    assert not control.is_loopback("0.0.0.0") and not control.is_loopback("192.0.2.1")  # RFC 5737 documentation net
+    real = socket.getaddrinfo
+    monkeypatch.setattr(control.socket, "getaddrinfo",   # a hosts file that maps localhost elsewhere
+                        lambda host, *a, **k: [(2, 2, 17, "", ("192.0.2.7", 0))] if host == "localhost" else real(host, *a, **k))
+    with pytest.raises(control.TokenMissing):
+        control.ControlInbox("localhost", 0)
+    with pytest.raises(control.TokenMissing):
+        control.ControlPort("localhost", 0)

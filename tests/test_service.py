@@ -40,11 +40,11 @@ def test_config_reads_several_garments_and_refuses_bad_ones(tmp_path):
     p = tmp_path / "show.toml"
     p.write_text('[[garment]]\nname = "a"\nsimulated = true\nmodel = "a.npz"\n'
                  '[[garment]]\nname = "b"\nport = "/dev/null"\nmodel = "b.npz"\n'
-                 '[control]\nlisten = "0.0.0.0:9100"\ntoken = "t"\n[status]\nto = "127.0.0.1:9200"\n')
+                 '[control]\nlisten = "0.0.0.0:9100"\ntoken = "sixteen-chars-ok"\n[status]\nto = "127.0.0.1:9200"\n')
     cfg = load_service(p)
     assert [g.name for g in cfg.garments] == ["a", "b"]
     assert cfg.garments[0].simulated and cfg.garments[1].port == "/dev/null"
-    assert cfg.token == "t" and cfg.status_to == ("127.0.0.1:9200",)
+    assert cfg.token == "sixteen-chars-ok" and cfg.status_to == ("127.0.0.1:9200",)
     p.write_text('[[garment]]\nname = "a"\nsimulated = true\nmodel = "a.npz"\n' * 2)
     with pytest.raises(ConfigError, match="must differ"):
         load_service(p)
@@ -58,13 +58,13 @@ def test_config_reads_several_garments_and_refuses_bad_ones(tmp_path):
 def test_control_port_checks_token_and_target():
     with pytest.raises(TokenMissing):
         ControlPort("0.0.0.0", 0)
-    port = ControlPort("127.0.0.1", 0, token="s3cret")
+    port = ControlPort("127.0.0.1", 0, token="s3cret-long-enough")
     try:
         with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
-            s.sendto(command_message("layer", "act2", "chorus", "s3cret"), port.address)
+            s.sendto(command_message("layer", "act2", "chorus", "s3cret-long-enough"), port.address)
             s.sendto(command_message("arm", "", "", "wrong"), port.address)
             s.sendto(command_message("panic", "", "", ""), port.address)
-            s.sendto(command_message("disarm", "", "lead", "s3cret"), port.address)
+            s.sendto(command_message("disarm", "", "lead", "s3cret-long-enough"), port.address)
             time.sleep(0.1)
             got = [(c, d, g) for c, d, g, _ in port.poll()]
         assert got == [("layer", "act2", "chorus"), ("disarm", "", "lead")]

@@ -152,7 +152,7 @@ class ServiceConfig:
 
         [control]
         listen = "127.0.0.1:9100"    # another address than loopback needs token
-        token = "long random text"
+        token = "long random text"  # at least 16 characters; or token_file = "path"
 
         [status]
         to = ["127.0.0.1:9200"]      # OSC/UDP destinations of the status stream
@@ -206,6 +206,18 @@ def load_service(path: str | Path) -> ServiceConfig:
         raise ConfigError(f"{path}: [control] listen must be \"HOST:PORT\"")
     if not isinstance(token, str):
         raise ConfigError(f"{path}: [control] token must be a string")
+    if "token_file" in c:  # keeps the token out of a config that is shared or checked in
+        if token or not isinstance(c["token_file"], str):
+            raise ConfigError(f"{path}: [control] give either token or token_file (a path), not both")
+        tf = Path(c["token_file"]).expanduser()
+        tf = tf if tf.is_absolute() else path.parent / tf
+        try:
+            token = tf.read_text(encoding="utf-8").strip()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise ConfigError(f"{path}: [control] token_file {tf}: {exc}") from None
+    if token and len(token) < 16:
+        raise ConfigError(f"{path}: [control] token has {len(token)} characters; use at least 16 characters of "
+                          "random text (it is all that stands between the network and a panic or a disarm)")
     to = s.get("to", [])
     to = [to] if isinstance(to, str) else to
     if not isinstance(to, list) or not all(isinstance(x, str) and ":" in x for x in to):

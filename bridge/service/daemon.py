@@ -35,6 +35,7 @@ import numpy as np
 
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
+from .control import printable
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
 from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 
@@ -396,9 +397,9 @@ class Service:
         if self.control is not None:
             for cmd, detail, target, peer in self.control.poll():
                 self.command(cmd, detail, target, peer)
-            if self.control.ignored:
-                log.warning("control message ignored: %s", self.control.last_ignored)
-                self.control.ignored = 0
+            ignored = self.control.take_ignored()
+            if ignored:  # by reason, so none is lost behind the last one
+                log.warning("control messages ignored: %s (last: %s)", ignored, self.control.last_ignored)
         for g in self.live():
             if g.watcher is not None:
                 change = g.watcher.poll(now)
@@ -416,27 +417,57 @@ class Service:
         return [g for g in self.garments if g.state != FAILED and g.pipeline is not None]
 
     def command(self, cmd: str, detail: str, target: str, peer) -> None:
+        """One control message; the sender gets an acknowledgement (``ControlPort.acknowledge``)
+        with what was done, or why it was refused."""
+        ok, text = self.carry_out(cmd, detail, target, peer)
+        if not ok:
+            log.warning("control: %s refused: %s", cmd, text)
+        if peer is not None and self.control is not None and cmd != "status":
+            self.control.acknowledge(peer, ok, cmd, text)
+
+    def carry_out(self, cmd: str, detail: str, target: str, peer) -> tuple[bool, str]:
         chosen = [g for g in self.live() if not target or g.name == target]
         if target and not chosen:
-            log.warning("control message for %r: no such running garment (have %s)", target,
-                        ", ".join(g.name for g in self.garments))
-            return
+            return False, (f"no such running garment {printable(target)!r} (have "
+                           f"{', '.join(g.name + ('' if g.state != FAILED else ' (failed)') for g in self.garments) or 'none'})")
+        if not chosen:
+            return False, "no garment is running"
         if cmd == "status":
             if peer is not None and self.control is not None:
                 now = self.clock()
                 self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
                                    + self.state_messages(now))
-            return
-        log.info("control: %s%s for %s", cmd, f" {detail}" if detail else "", target or "every garment")
+            return True, "status sent"
+        if cmd == "layer":
+            without = [g.name for g in chosen if g.pipeline.mapping is None or detail not in g.pipeline.mapping.layers]
+            if len(without) == len(chosen):
+                return False, f"no layer {printable(detail)!r} in the mapping of {', '.join(without)}"
+            chosen = [g for g in chosen if g.name not in without]
+        log.info("control: %s%s for %s", cmd, f" {printable(detail)}" if detail else "", target or "every garment")
+        said, refused = [], []
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
-                if g.watcher is not None:
-                    self.apply_reload(g, g.watcher.reload_now())
+                if g.watcher is None:
+                    refused.append(f"{g.name}: no mapping file")
+                elif self.apply_reload(g, g.watcher.reload_now()):
+                    said.append(f"{g.name}: mapping reloaded ({len(g.pipeline.mapping.rules)} rules)")
+                else:
+                    refused.append(f"{g.name}: mapping not reloaded, the last good one keeps running (see the log)")
             elif cmd == "rebaseline":
                 self.begin_hold(g, "hold still: re-baselining")
+                said.append(f"{g.name}: hold still, re-baselining")
             else:  # arm, disarm, panic, layer: Pipeline.command never presses keys
                 self.deliver(g, g.pipeline.command(cmd, detail), self.clock())
+                r = g.pipeline.router
+                now = "" if r is None else f"{'armed' if r.armed else 'disarmed'}" + (f", layer {r.layer!r}" if r.layer else "")
+                did = {"arm": "armed", "disarm": "disarmed, keys and notes let go",
+                       "panic": "panic, every note, key and light released", "layer": f"layer {detail!r}"}[cmd]
+                said.append(f"{g.name}: {did}" + (f" (now {now})" if now and cmd in ("panic", "layer") else ""))
+        if cmd == "layer":
+            said += [f"{n}: no layer {printable(detail)!r}, unchanged" for n in
+                     [g.name for g in self.live() if (not target or g.name == target) and g not in chosen]]
+        return not refused, "; ".join(said + refused)
 
     def check_model(self, g: Garment) -> None:
         """On reload: say what became of a model file replaced on disk (never swapped live)."""
@@ -448,18 +479,19 @@ class Service:
         log.log(level, "%s: %s", g.name, text)
         self.status.send([st.notice(g.name, text)])
 
-    def apply_reload(self, g: Garment, change) -> None:
+    def apply_reload(self, g: Garment, change) -> bool:
         if change.mapping is None:
             text = "mapping not reloaded, the last good one keeps running; fix: " + "; ".join(change.problems)
             log.error("%s: %s", g.name, text)
             self.status.send([st.notice(g.name, text)])
-            return
+            return False
         old = g.pipeline.mapping
         g.pipeline.swap_mapping(change.mapping)
         reconcile_outputs(g.outputs, old, change.mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
         text = f"mapping reloaded: {len(change.mapping.rules)} rules"
         log.info("%s: %s", g.name, text)
         self.status.send([st.notice(g.name, text)])
+        return True
 
     # -- status -------------------------------------------------------------------------------
 

@@ -14,6 +14,7 @@ from ..decisions import Event
 from ..outputs import Output
 from ..sources.base import Source
 from ..sources.health import NO_DATA, STREAMING, Watchdog
+from .control import printable
 from .pipeline import Pipeline
 
 
@@ -147,14 +148,51 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
         report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
                + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
 
+    def command(kind: str, detail: str, garment: str) -> tuple[bool, str]:
+        """One control message: (done, what was done or why it was refused)."""
+        name = pipeline.garment or "garment"
+        if garment and garment != pipeline.garment:
+            return False, f"no garment {printable(garment)!r} here; this loop runs {name!r}"
+        if kind == "status":
+            r = pipeline.router
+            return True, (f"{name}: running, {'armed' if r is None or r.armed else 'disarmed'}"
+                          + (f", layer {r.layer!r}" if r is not None and r.layer else "")
+                          + f", {pipeline.samples} samples, {pipeline.skipped} skipped as implausible")
+        if kind == "reload":
+            if watcher is None:
+                return False, f"{name} has no mapping file to reload"
+            change = watcher.reload_now()
+            apply(change)
+            if change.mapping is None:
+                return False, "mapping not reloaded, the last good one keeps running: " + "; ".join(change.problems)
+            return True, f"mapping reloaded: {len(change.mapping.rules)} rules, {len(change.mapping.controls)} controls"
+        if kind == "layer":
+            m = pipeline.mapping
+            if m is None or detail not in m.layers:
+                have = ", ".join(m.layers) if m is not None and m.layers else "none"
+                return False, f"no layer {printable(detail)!r} in the mapping (layers: {have})"
+        if kind not in ("arm", "disarm", "panic", "layer"):
+            return False, f"{kind} is not available in the single-garment loop (use a service config)"
+        deliver(pipeline.command(kind, detail), clock())
+        r = pipeline.router
+        state = "" if r is None else f"; now {'armed' if r.armed else 'disarmed'}" + (f", layer {r.layer!r}" if r.layer else "")
+        done = {"arm": "armed", "disarm": "disarmed: keys and notes let go",
+                "panic": "panic: every note, key and light released", "layer": f"layer {detail!r}"}[kind]
+        return True, f"{name}: {done}{state}"
+
     def poll() -> None:
         nonlocal panics_seen, reloads_seen
         if stop.panics != panics_seen:
             panics_seen = stop.panics
             deliver(pipeline.command("panic", "signal"), clock())
         if inbox is not None:
-            for kind, detail in inbox.poll():
-                deliver(pipeline.command(kind, detail), clock())
+            for kind, detail, garment, peer in inbox.receive():
+                ok, text = command(kind, detail, garment)
+                report(("" if ok else "refused: ") + text)
+                inbox.acknowledge(peer, ok, kind, text)
+            ignored = inbox.take_ignored()
+            if ignored:
+                report(f"control messages ignored: {ignored}")
         if stop.reloads != reloads_seen:  # SIGHUP: read the mapping file again now
             reloads_seen = stop.reloads
             if watcher is not None:

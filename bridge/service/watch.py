@@ -142,16 +142,33 @@ def command_message(what: str, layer: str = "", garment: str = "", token: str = 
     return b.build().dgram
 
 
+TOKEN_ENV = "DRAPE_TOKEN"
+
+
+@dataclass
+class Answer:
+    """What the daemon said to one command: ``ok`` True (done), False (refused) or None (no
+    answer within the wait), and the lines to print."""
+
+    ok: bool | None
+    lines: list
+
+
 def send_command(to: str, what: str, layer: str = "", garment: str = "", token: str = "",
-                 wait_s: float = 1.0) -> list[str]:
-    """Send one command; for "status", wait for the reply and return it as text lines."""
-    from .control import parse_host_port
-    addr = parse_host_port(to)
-    sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+                 wait_s: float = 1.0) -> Answer:
+    """Send one command and wait up to ``wait_s`` for the daemon's acknowledgement
+    (``/drape/ack``: done or refused, and what it did or why); for "status" the reply is
+    the daemon's state, drawn as `drape watch` does."""
+    from .control import ACK, parse_host_port, printable
+    host, port = parse_host_port(to)
+    try:
+        infos = socket.getaddrinfo(host, port, type=socket.SOCK_DGRAM)
+    except socket.gaierror as exc:
+        raise ValueError(f"cannot resolve {host!r}: {exc}") from None
+    family, _, _, _, addr = infos[0]
+    sock = socket.socket(family, socket.SOCK_DGRAM)
     try:
         sock.sendto(command_message(what, layer, garment, token), addr)
-        if what != "status":
-            return [f"sent {what}{' ' + layer if layer else ''} to {to}" + (f" for {garment}" if garment else "")]
         view = StatusView()
         end = time.monotonic() + wait_s
         while time.monotonic() < end:
@@ -161,12 +178,20 @@ def send_command(to: str, what: str, layer: str = "", garment: str = "", token: 
             try:
                 data, _ = sock.recvfrom(65536)
                 m = OscMessage(data)
+            except ConnectionRefusedError:  # ICMP port unreachable: nothing listens there
+                return Answer(None, [f"nothing is listening on {to} (is the daemon running? is it the right port?)"])
             except (OSError, ParseError, IndexError, ValueError):
-                break
-            view.take(m.address, list(m.params))
-            if view.heard_alive and len(view.garments) >= view.expected and all(
+                continue
+            args = list(m.params)
+            if m.address == ACK and len(args) >= 3:
+                return Answer(args[0] == "done", [("" if args[0] == "done" else "refused: ") + printable(args[2], 400)])
+            view.take(m.address, args)
+            if what == "status" and view.heard_alive and len(view.garments) >= view.expected and all(
                     g.channels or g.state == "failed" for g in view.garments.values()):
-                break
-        return render(view).splitlines() if view.heard_alive else []
+                return Answer(True, render(view).splitlines())
+        if what == "status" and view.heard_alive:
+            return Answer(True, render(view).splitlines())
+        return Answer(None, [f"no answer from {to} within {wait_s:g} s: nothing was confirmed (is the daemon "
+                             "running and listening there? with a token, is it the right one?)"])
     finally:
         sock.close()
