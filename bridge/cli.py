@@ -52,7 +52,8 @@ def _print_event(e, timing=None) -> None:
     if e.kind == "control":
         return  # many per second: their messages are the output
     if e.kind in ("armed", "disarmed", "panic", "layer"):
-        _line(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + e.detail if e.detail else ''}")
+        from .service.control import printable  # a layer name can come from the network
+        _line(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + printable(e.detail) if e.detail else ''}")
         return
     extra = f"  held {e.duration_s:5.2f} s" if e.kind == "left" else ""
     if timing is not None and timing.disarmed:
@@ -958,8 +959,13 @@ def _simulated_range_source(seed: int, wearer: int):
 
 
 def cmd_watch(a) -> int:
-    from .service.watch import watch
-    return watch(a.host, a.port, once=a.once, wait_s=a.wait_s)
+    from .service.watch import PortBusy, watch
+    try:
+        return watch(a.host, a.port, once=a.once, wait_s=a.wait_s)
+    except PortBusy as exc:
+        return _err(str(exc))
+    except OSError as exc:
+        return _err(f"cannot listen on {a.host}:{a.port}: {exc}")
 
 
 def _send_token(a) -> str:

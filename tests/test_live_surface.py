@@ -340,3 +340,197 @@ def test_localhost_is_resolved_and_must_be_loopback(monkeypatch):
         control.ControlInbox("localhost", 0)
     with pytest.raises(control.TokenMissing):
         control.ControlPort("localhost", 0)
+
+
+# ---- the watch view, disarmed events, output failures --------------------------------------------
+
+def _status(address, *args):
+    from bridge.service.status import message
+    return message(address, *args)
+
+
+def test_watch_says_when_the_daemon_went_silent_and_marks_every_value_stale():
+    from bridge.service.watch import StatusView, render
+    v = StatusView()
+    v.take("/drape/alive", [12.0, 1, 4242], now_s=100.0)
+    v.take("/drape/g/jacket/state", ["running", 1, "act1", 1, 99.3, 0, 5000, ""], now_s=100.0)
+    v.take("/drape/g/jacket/channels", ["left_sleeve"], now_s=100.0)
+    v.take("/drape/g/jacket/levels", [0.01], now_s=100.0)
+    live = render(v, 200, now_s=101.0)
+    assert "NO HEARTBEAT" not in live and "STALE" not in live and "running  ARMED" in live
+    dead = render(v, 200, now_s=112.5)
+    assert "NO HEARTBEAT FOR 12 s" in dead.splitlines()[0]
+    body = dead.splitlines()[1:]
+    assert body and all("STALE" in line for line in body if "jacket" in line or "left_sleeve" in line or "top" in line)
+
+
+def test_watch_redraws_with_the_terminal_width_and_goes_stale(tmp_path):
+    port = free_port()
+    proc = subprocess.Popen(drape_cmd("watch", "--port", str(port)), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            env=dict(os.environ, COLUMNS="220"))
+    got = bytearray()
+    threading.Thread(target=lambda: [got.extend(b) for b in iter(lambda: proc.stdout.read1(4096), b"")],
+                     daemon=True).start()
+    note = "settling: " + "x" * 150 + " END"
+    try:
+        time.sleep(1.0)
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            s.sendto(_status("/drape/alive", 3.0, 1, 4242), ("127.0.0.1", port))
+            s.sendto(_status("/drape/g/jacket/state", "settling", 1, "", 1, 99.3, 0, 100, note), ("127.0.0.1", port))
+        wait_for(lambda: b"END" in got, 5, "the note to be drawn")
+        assert b"NO HEARTBEAT" not in got
+        wait_for(lambda: b"NO HEARTBEAT FOR" in got, 6, "the silence to be shown")
+        last = got[got.rindex(b"\x1b[H"):].decode()
+        assert "STALE [jacket]" in last and "END" in last   # a long line is not cut at 78 columns
+    finally:
+        proc.terminate()
+        proc.wait(10)
+
+
+def test_a_second_watch_on_a_busy_port_explains_instead_of_a_traceback(capsys):
+    from bridge.cli import main
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as busy:
+        busy.bind(("127.0.0.1", 0))
+        code = main(["watch", "--port", str(busy.getsockname()[1]), "--once", "--wait-s", "0.2"])
+    err = capsys.readouterr().err
+    assert code != 0 and "busy" in err and "--port" in err and "Traceback" not in err
+
+
+def test_disarmed_events_are_marked_not_sent_in_every_view(demo_model, capsys):
+    from bridge.cli import _print_event
+    from bridge.decisions.gate import Event
+    from bridge.mapping import parse_mapping
+    from bridge.service import Pipeline, Timing
+    from bridge.service.status import event
+    from bridge.service.watch import StatusView, render
+    from pythonosc.osc_message import OscMessage
+    m = parse_mapping('[destinations.show]\nosc = "127.0.0.1:9"\n[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/b"\n'
+                      '[safety]\nstart = "disarmed"\n', "m.toml", demo_model.classes, demo_model.kinds,
+                      demo_model.channel_names)
+    p = Pipeline(demo_model, m, "jacket")
+    bow = Event(1.0, "bow", "gesture", 0.9)
+    sent, unsent = p.dispatches_marked([bow])
+    assert sent == [] and unsent == [True]
+    sent, unsent = p.dispatches_marked(p.command("arm") + [bow])
+    assert len(sent) >= 1 and unsent[-1] is False
+    _print_event(bow, Timing(0.4, 1.85, disarmed=True))
+    _print_event(bow, Timing(0.4, 1.85))
+    out = capsys.readouterr().out.splitlines()
+    assert "disarmed: not sent" in out[0] and "latency" not in out[0] and "latency  1.85 ms" in out[1]
+    v = StatusView()
+    for sent_flag in (False, True):
+        msg = OscMessage(event("jacket", bow, 0.0, 0.4, 1.85, sent_flag))
+        v.take(msg.address, list(msg.params))
+    lines = [l for l in render(v, 200).splitlines() if "bow" in l]
+    assert "disarmed: not sent" in lines[0] and "sent" in lines[1] and "disarmed" not in lines[1]
+
+
+class FailingOutput:
+    """An output whose destination went away after its first message."""
+
+    def __init__(self):
+        from bridge.outputs.base import OutputStats
+        self.stats = OutputStats()
+        self.name = "kb"
+
+    def send(self, message):
+        if self.stats.sent == 0:
+            self.stats.sent += 1
+        else:
+            self.stats.dropped += 1
+            self.stats.last_error = "ConnectionClosedError: Display connection closed by server"
+        return True
+
+    def close(self):
+        pass
+
+
+def test_output_failures_are_told_as_they_happen_at_most_once_per_interval():
+    from bridge.service.outputwatch import OutputWatch
+    o = FailingOutput()
+    w = OutputWatch(every_s=5.0)
+    outs = {"kb": o}
+    assert w.poll(outs, 0.0) == []
+    o.send(1)
+    assert w.poll(outs, 0.1) == []         # worked: nothing to say
+    o.send(2)
+    [first] = w.poll(outs, 0.2)
+    assert "output kb failing: ConnectionClosedError" in first and "1 message(s) not sent" in first
+    for t in (0.3, 1.0, 4.0):
+        o.send(3)
+        assert w.poll(outs, t) == []      # rate-limited per destination
+    [again] = w.poll(outs, 5.3)
+    assert "3 message(s) not sent since the last notice" in again
+
+
+def test_the_live_loop_reports_a_failing_output_while_running(demo_model):
+    from bridge.mapping import parse_mapping
+    from bridge.mapping.messages import OscMessage
+    from bridge.service import Pipeline, StopFlag, run
+    m = parse_mapping('[destinations.kb]\nosc = "127.0.0.1:9"\n', "m.toml", demo_model.classes, demo_model.kinds,
+                      demo_model.channel_names)
+    o = FailingOutput()
+    stop, said = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"),
+                                              {"kb": o}, stop), kwargs=dict(report=said.append), daemon=True)
+    loop.start()
+    try:
+        o.send(OscMessage("/a", ()))
+        o.send(OscMessage("/a", ()))
+        wait_for(lambda: any("output kb failing" in s for s in said), 5, "the failure to be reported while running")
+    finally:
+        stop.set("test")
+        loop.join(10)
+
+
+def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_closes_quietly(tmp_path, demo_model_file):
+    import shutil
+    if shutil.which("Xvfb") is None:
+        pytest.skip("Xvfb is not installed (Debian package xvfb)")
+    import importlib.util
+    if importlib.util.find_spec("pynput") is None:  # importing it needs a display
+        pytest.skip("pynput (extra 'keys') is not installed")
+    from bridge.garment import Jacket
+    from bridge.sources.textline import format_line
+    n = next(n for n in range(201, 300) if not os.path.exists(f"/tmp/.X{n}-lock"))
+    xvfb = subprocess.Popen(["Xvfb", f":{n}", "-nolisten", "tcp"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    wait_for(lambda: os.path.exists(f"/tmp/.X11-unix/X{n}"), 10, "Xvfb")
+    take = Jacket(seed=1, wearer=0, session=5).perform([("standing", 8.0), ("arms_crossed", 60.0)])
+    lines = [format_line(v) for v in take.freq_hz]
+    (tmp_path / "keys.toml").write_text('[destinations.kb]\nkeys = "x11"\n[[rule]]\ngesture = "arms_crossed"\n'
+                                        'on = "entered"\nto = "kb"\nkeys = "shift"\nhold = true\n')
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "keys.toml"\n')
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, env=dict(os.environ, DISPLAY=f":{n}"))
+    out, err, done = [], [], threading.Event()
+    threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True).start()
+    threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+
+    def garment():
+        i = 0
+        while not done.is_set() and i < len(lines):
+            os.write(master, b"".join(lines[i:i + 10]))
+            i += 10
+            time.sleep(0.05)
+    try:
+        wait_for(lambda: any(" on " in l for l in err), 30, "drape to start")
+        xvfb.terminate()  # the display goes away mid-show
+        xvfb.wait(5)
+        threading.Thread(target=garment, daemon=True).start()
+        wait_for(lambda: any("arms_crossed" in l and "entered" in l for l in out), 60, "the posture")
+        wait_for(lambda: any("output kb failing" in l for l in err), 10, "the failure to be told while running")
+        assert proc.poll() is None
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(30) == 0
+    finally:
+        done.set()
+        proc.kill()
+        xvfb.kill()
+        os.close(master)
+        os.close(slave)
+    time.sleep(0.2)
+    text = "".join(err)
+    assert "Exception ignored" not in text and "Traceback" not in text
+    assert "output kb: sent" in text

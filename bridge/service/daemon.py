@@ -36,6 +36,7 @@ import numpy as np
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
 from .control import printable
+from .outputwatch import OutputWatch
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
 from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 
@@ -104,6 +105,7 @@ class Garment:
     recent: list = field(default_factory=list)  # (host time, samples) for the rate figure
     latencies_ms: list = field(default_factory=list)
     model_sig: tuple | None = None              # the model file as loaded (see check_model)
+    failures: OutputWatch = field(default_factory=OutputWatch)  # outputs failing, told as it happens
 
     @property
     def flowing(self) -> bool:
@@ -370,18 +372,22 @@ class Service:
         if not events:
             return
         decided = self.clock()
-        self.send(g, g.pipeline.dispatches(events))
+        dispatches, unsent = g.pipeline.dispatches_marked(events)
+        self.send(g, dispatches)
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
         out = []
-        for e in events:
+        for e, disarmed in zip(events, unsent):
             if e.kind == "control":
+                continue
+            out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms, not disarmed))
+            what = f"{g.name}: {e.kind} {e.gesture}{' ' + printable(e.detail) if e.detail else ''} at {e.t_s:.2f} s"
+            if disarmed:
+                log.info("%s; disarmed: not sent", what)
                 continue
             g.latencies_ms.append(lat.send_ms)
             del g.latencies_ms[:-1000]
-            out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms))
-            log.info("%s: %s %s%s at %.2f s; decided %.2f ms, sent %.2f ms after its last sample arrived",
-                     g.name, e.kind, e.gesture, f" {e.detail}" if e.detail else "", e.t_s, lat.decide_ms, lat.send_ms)
+            log.info("%s; decided %.2f ms, sent %.2f ms after its last sample arrived", what, lat.decide_ms, lat.send_ms)
             if self.on_event:
                 self.on_event(g.name, e, lat)
         self.status.send(out)
@@ -407,6 +413,9 @@ class Service:
                     self.apply_reload(g, change)
             if g.state != RUNNING and g.state != FAILED:  # stream time may move while holding
                 self.send(g, g.pipeline.dispatches([]))
+            for text in g.failures.poll(g.outputs, now):
+                log.warning("%s: %s", g.name, text)
+                self.status.send([st.notice(g.name, text)])
             r = g.pipeline.router
             if r is not None and r.warnings:
                 for w in r.warnings:

@@ -15,6 +15,7 @@ from ..outputs import Output
 from ..sources.base import Source
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from .control import printable
+from .outputwatch import OutputWatch
 from .pipeline import Pipeline
 
 
@@ -113,6 +114,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     stats = RunStats()
     panics_seen, reloads_seen = stop.panics, stop.reloads
     watchdog = Watchdog(stall_s) if stall_s else None
+    failures = OutputWatch()
     reported = None
 
     def send(dispatches) -> None:
@@ -203,6 +205,8 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             change = watcher.poll(clock())
             if change is not None:
                 apply(change)
+        for text in failures.poll(outputs, clock()):
+            report(text)
         if pipeline.router is not None and pipeline.router.warnings:
             for w in pipeline.router.warnings:
                 report(w)
