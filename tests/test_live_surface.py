@@ -534,3 +534,107 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
     text = "".join(err)
     assert "Exception ignored" not in text and "Traceback" not in text
     assert "output kb: sent" in text
+
+
+# ---- hot reload that cannot blank the stage ------------------------------------------------------
+
+def test_a_half_written_or_empty_mapping_is_never_applied(tmp_path, demo_model):
+    from bridge.mapping import MappingWatcher
+    f = tmp_path / "show.toml"
+    good = '[destinations.show]\nosc = "127.0.0.1:9"\n[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/b"\n'
+    f.write_text(good)
+    w = MappingWatcher(f, demo_model.classes, demo_model.kinds, demo_model.channel_names, interval_s=0.1)
+    f.write_text('[destinations.show]\nosc = "127.0.0.1:9"\n')   # caught mid-write: parses, 0 rules
+    assert w.poll(0.1) is None                                     # seen changing: not applied yet
+    f.write_text(good + '[[rule]]\ngesture = "raise_right"\nto = "show"\naddress = "/r"\n')
+    assert w.poll(0.2) is None                                     # still changing
+    r = w.poll(0.3)
+    assert r.mapping is not None and len(r.mapping.rules) == 2     # the whole file, once it held still
+    running = w.mapping
+    f.write_text("")                                               # `echo -n > show.toml`, a failed copy
+    assert w.poll(0.4) is None
+    r = w.poll(0.5)
+    assert r.mapping is None and "no destinations and no rules" in r.problems[0] and w.mapping is running
+    assert w.poll(0.6) is None                                     # said once
+    r = w.reload_now()                                             # SIGHUP: the same refusal
+    assert r.mapping is None and "no destinations and no rules" in r.problems[0]
+    # a show that ran with an empty file may save an empty file again
+    f.write_text("")
+    w2 = MappingWatcher(f, demo_model.classes, demo_model.kinds, demo_model.channel_names, interval_s=0.0)
+    f.write_text("# still nothing\n")
+    assert w2.poll(1.0) is None and w2.poll(2.0).mapping is not None
+
+
+class Counted:
+    opened = 0
+
+    def __init__(self, d):
+        from bridge.outputs.base import OutputStats
+        Counted.opened += 1
+        self.d, self.closed, self.stats = d, False, OutputStats()
+
+    def send(self, m):
+        return True
+
+    def close(self):
+        self.closed = True
+
+
+def test_a_reload_keeps_outputs_whose_settings_did_not_change(tmp_path):
+    from bridge.mapping import parse_mapping
+    from bridge.service.runner import reconcile_outputs
+    a = parse_mapping('[destinations.rig]\nsacn = 7\nhost = "127.0.0.1"\n[destinations.show]\nosc = "127.0.0.1:9"\n'
+                      '[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/b"\n', "m.toml", ("null", "bow"),
+                      {"bow": "gesture"})
+    b = parse_mapping('# a comment moves every line\n[destinations.rig]\nsacn = 7\nhost = "127.0.0.1"\n'
+                      '[destinations.show]\nosc = "127.0.0.1:10"\n[destinations.more]\nosc = "127.0.0.1:11"\n'
+                      '[[rule]]\ngesture = "bow"\nto = "more"\naddress = "/c"\n', "m.toml", ("null", "bow"),
+                      {"bow": "gesture"})
+    outputs = {n: Counted(d) for n, d in a.destinations.items()}
+    rig, show = outputs["rig"], outputs["show"]
+    said = []
+    reconcile_outputs(outputs, a, b, Counted, said.append)
+    assert outputs["rig"] is rig and not rig.closed               # same settings: untouched
+    assert show.closed and outputs["show"] is not show            # changed port: reopened
+    assert "more" in outputs and not any("rig" in s for s in said)
+
+
+def test_sacn_sends_the_safe_look_at_start_unless_told_not_to(tmp_path):
+    from bridge.mapping import parse_mapping
+    from bridge.outputs import open_output
+    peer = SacnPeer()
+    try:
+        for at_start, want in (("", 1), ("safe_at_start = false\n", 0)):
+            m = parse_mapping(f'[destinations.rig]\nsacn = 9\nhost = "127.0.0.1"\nport = {peer.port}\nsafe = {{ 3 = 77 }}\n'
+                              + at_start, "m.toml")
+            n = len(peer.packets)
+            out = open_output(m.destinations["rig"])
+            time.sleep(0.5)  # no cue at all
+            got = peer.packets[n:]
+            out.close()
+            if want:
+                assert got and got[0][1] == 9 and got[0][2][2] == 77 and not got[0][0] & STREAM_TERMINATED
+            else:
+                assert got == []
+    finally:
+        peer.close()
+
+
+def test_an_empty_save_in_the_middle_of_a_show_closes_and_reopens_nothing(tmp_path):
+    from bridge.mapping import MappingWatcher
+    from bridge.service import Pipeline, StopFlag, run
+    from test_hot_reload import TEMPLATE, ScriptedSource, small_model
+    f = tmp_path / "show.toml"
+    full = TEMPLATE.format(address="/a")
+    f.write_text(full)
+    model = small_model()
+    w = MappingWatcher(f, model.classes, model.kinds, model.channel_names, interval_s=0.0)
+    outputs = {"desk": Counted(w.mapping.destinations["desk"])}
+    desk = outputs["desk"]
+    Counted.opened = 0
+    said = []
+    edits = {5: lambda: f.write_text(""), 10: lambda: f.write_text(full + "\n# saved again\n")}
+    run(ScriptedSource(16, edits), Pipeline(model, w.mapping), outputs, StopFlag(), watcher=w, open_fn=Counted,
+        report=said.append)
+    assert outputs["desk"] is desk and not desk.closed and Counted.opened == 0
+    assert any("no destinations and no rules" in s for s in said)
