@@ -231,7 +231,8 @@ def open_garment_source(cfg, model, on_change=None):
     from .sources.serialport import SerialSource
 
     if cfg.input == "osc":
-        return OscUdpSource(cfg.listen, cfg.address, cfg.arguments, model.rate_hz, model.channel_names, cfg.resample)
+        return OscUdpSource(cfg.listen, cfg.address, cfg.arguments, model.rate_hz, model.channel_names, cfg.resample,
+                            senders=getattr(cfg, "senders", ()), token=getattr(cfg, "token", ""))
     return ReconnectingSource(
         lambda: SerialSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names,
                              cfg.protocol, cfg.timestamp, cfg.resample),
@@ -344,8 +345,9 @@ def cmd_start(a) -> int:
               file=sys.stderr, flush=True)
 
     code = 0
+    pipeline = Pipeline(model, mapping, cfg.name)
     try:
-        run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event,
+        run(source, pipeline, outputs, stop, on_event=_print_event,
             watcher=watcher, inbox=inbox, open_fn=opener, report=_report,
             stall_s=cfg.stall_s, on_status=status)
     except ProtocolUndecided as exc:
@@ -359,7 +361,8 @@ def cmd_start(a) -> int:
         if inbox:
             inbox.close()
         _close_outputs(outputs)
-        print(f"drape: stopped; {describe_counters(source.counters())}", file=sys.stderr, flush=True)
+        _report(f"stopped; {describe_counters(source.counters())}; "
+                f"samples skipped as implausible (far from the resting frequency) {pipeline.skipped}")
     return code
 
 

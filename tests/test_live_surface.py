@@ -638,3 +638,135 @@ def test_an_empty_save_in_the_middle_of_a_show_closes_and_reopens_nothing(tmp_pa
         report=said.append)
     assert outputs["desk"] is desk and not desk.closed and Counted.opened == 0
     assert any("no destinations and no rules" in s for s in said)
+
+
+# ---- network input ------------------------------------------------------------------------------
+
+def test_osc_sample_input_off_loopback_needs_senders_or_a_token(tmp_path):
+    from bridge.service.config import ConfigError, load_config
+    from bridge.sources.oscinput import OscUdpSource
+    body = '[garment]\nmodel = "m.npz"\ninput = "osc"\nlisten = "0.0.0.0:9100"\naddress = "/j"\narguments = ["a"]\n'
+    (tmp_path / "g.toml").write_text(body)
+    with pytest.raises(ConfigError, match="senders"):
+        load_config(tmp_path / "g.toml")
+    (tmp_path / "g.toml").write_text(body + 'token = "short"\n')
+    with pytest.raises(ConfigError, match="at least 16"):
+        load_config(tmp_path / "g.toml")
+    (tmp_path / "g.toml").write_text(body + 'senders = ["10.0.0.21"]\n')
+    assert load_config(tmp_path / "g.toml").senders == ("10.0.0.21",)
+    with pytest.raises(ValueError, match="senders or a token"):
+        OscUdpSource("0.0.0.0:0", "/j", ["a"], 100.0)
+
+
+def _osc(address, *args):
+    from pythonosc.osc_message_builder import OscMessageBuilder
+    b = OscMessageBuilder(address)
+    for a in args:
+        b.add_arg(a)
+    return b.build().dgram
+
+
+def _read_all(src, want, timeout_s=5.0):
+    got, end = 0, time.monotonic() + timeout_s
+    while got < want and time.monotonic() < end:
+        got += len(src.read())
+    return got
+
+
+def test_osc_sample_input_takes_only_listed_senders_or_the_token():
+    from bridge.sources.oscinput import OscUdpSource
+    from bridge.sources.protocols import describe_counters
+    tok = "board-token-0123456789"
+    src = OscUdpSource("127.0.0.1:0", "/j", ["a", "b"], 100.0, token=tok)
+    other = OscUdpSource("127.0.0.1:0", "/j", ["a", "b"], 100.0, senders=["127.0.0.9"])
+    try:
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            for _ in range(5):
+                s.sendto(_osc("/j", 1000.0, 2000.0), ("127.0.0.1", src.port))        # no token
+                s.sendto(_osc("/j", "wrong-token-of-length", 1000.0, 2000.0), ("127.0.0.1", src.port))
+                s.sendto(_osc("/j", tok, 1000.0, 2000.0), ("127.0.0.1", src.port))
+                s.sendto(_osc("/j", 1000.0, 2000.0), ("127.0.0.1", other.port))      # from 127.0.0.1, not listed
+            time.sleep(0.2)
+        assert _read_all(src, 5) == 5
+        _read_all(other, 1, 0.3)
+        assert src.stats.good == 5 and src.stats.wrong_token == 10
+        assert other.stats.good == 0 and other.stats.not_allowed == 5
+        line = describe_counters(src.counters())
+        assert "OSC samples good 5, ignored 10" in line and "wrong token 10" in line
+    finally:
+        src.close()
+        other.close()
+
+
+def test_control_messages_ignored_are_counted_by_reason():
+    from bridge.service.control import ControlPort
+    from bridge.service.watch import command_message
+    tok = "a-long-enough-token"
+    port = ControlPort("127.0.0.1", 0, tok)
+    try:
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            for d in (command_message("arm", token="bad-token-xxxxxxxx"), command_message("arm"), b"junk",
+                      _osc("/drape/fly"), command_message("arm", token=tok)):
+                s.sendto(d, port.address)
+            time.sleep(0.1)
+            got = port.poll()
+        assert [c for c, *_ in got] == ["arm"]
+        text = port.take_ignored()
+        assert "2 wrong or missing token" in text and "1 not OSC" in text and "1 unknown address" in text
+        assert port.take_ignored() == ""
+    finally:
+        port.close()
+
+
+# ---- counters -----------------------------------------------------------------------------------
+
+def test_a_long_line_without_newline_is_counted_once():
+    from bridge.sources import TextLineParser
+    p = TextLineParser(2)
+    blob = b"1" * 2_000_000
+    for i in range(0, len(blob), 8192):  # as a serial port hands it over
+        assert p.feed(blob[i:i + 8192]) == []
+    assert p.stats.malformed == 1
+    assert p.feed(b"2\n7,8\n") == [(None, [7.0, 8.0])]  # the end of that line goes with it
+    assert p.stats.malformed == 1
+
+
+def test_the_osc_input_loop_stop_line_counts_samples_and_implausible_ones(tmp_path, demo_model_file, demo_model):
+    from bridge.garment import Jacket
+    take = Jacket(seed=1, wearer=0, session=5).perform([("standing", 6.0)])
+    rows = take.freq_hz[:500]
+    port = free_port()
+    names = list(demo_model.channel_names)
+    (tmp_path / "g.toml").write_text(f'[garment]\nname = "jacket"\nmodel = "{demo_model_file}"\ninput = "osc"\n'
+                                     f'listen = "127.0.0.1:{port}"\naddress = "/j"\narguments = {names!r}\n'.replace("'", '"'))
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "g.toml")), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    try:
+        time.sleep(2.0)
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            for i, r in enumerate(rows):
+                v = [float(x) for x in r]
+                if i >= 300 and i % 20 == 0:   # a counter glitch: 1 Hz, 1e-30 Hz, 5e8 Hz
+                    v[0] = (1.0, 1e-30, 5e8)[(i // 20) % 3]
+                s.sendto(_osc("/j", *v), ("127.0.0.1", port))
+                if i % 50 == 0:
+                    time.sleep(0.05)
+        time.sleep(1.0)
+        proc.send_signal(signal.SIGTERM)
+        _, err = proc.communicate(timeout=30)
+    finally:
+        proc.kill()
+    stop = [l for l in err.splitlines() if "stopped;" in l][0]
+    assert "protocol not yet known" not in stop
+    assert "OSC samples good 500" in stop and "implausible (far from the resting frequency) 10" in stop
+
+
+def test_the_status_stream_carries_implausible_samples():
+    from bridge.service.status import garment_state
+    from bridge.service.watch import StatusView, render
+    from pythonosc.osc_message import OscMessage
+    v = StatusView()
+    for d in garment_state("jacket", "running", True, "", True, 100.0, 12, 5000, "", ("a",), implausible=10):
+        m = OscMessage(d)
+        v.take(m.address, list(m.params))
+    assert v.garments["jacket"].implausible == 10 and "dropped 12 (implausible 10)" in render(v, 200)

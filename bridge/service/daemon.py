@@ -512,7 +512,8 @@ class Service:
             layer = p.router.layer if p is not None and p.router is not None else ""
             channels = g.model.channel_names if g.model is not None else ()
             out += st.garment_state(g.name, g.state, armed, layer, g.flowing and g.state != FAILED,
-                                    g.rate_hz(now), g.dropped(), p.samples if p else 0, g.note, channels)
+                                    g.rate_hz(now), g.dropped(), p.samples if p else 0, g.note, channels,
+                                    p.skipped if p else 0)
         return out
 
     def send_levels(self) -> None:

@@ -4,7 +4,7 @@ Addresses (our own design; the table in docs/service.md is the reference):
 
     /drape/alive                  f uptime_s, i garments, i pid                 1 per second
     /drape/g/NAME/state           s state, i armed, s layer, i flowing, f rate_hz,
-                                  i dropped, i samples, s note                  2 per second
+                                  i dropped, i samples, s note, i implausible  2 per second
     /drape/g/NAME/channels        s channel names ...                           with state
     /drape/g/NAME/levels          f level per channel (ΔC/C0 above baseline)    levels_hz
     /drape/g/NAME/top             s class, f probability (three pairs)          levels_hz
@@ -37,9 +37,12 @@ def alive(uptime_s: float, garments: int, pid: int) -> bytes:
     return message("/drape/alive", float(uptime_s), int(garments), int(pid))
 
 
-def garment_state(name, state, armed, layer, flowing, rate_hz, dropped, samples, note, channels) -> list[bytes]:
+def garment_state(name, state, armed, layer, flowing, rate_hz, dropped, samples, note, channels,
+                  implausible: int = 0) -> list[bytes]:
+    """``dropped`` counts every sample lost or skipped; ``implausible`` is the part of it the
+    pipeline skipped as far from the resting frequency (a counter glitch)."""
     return [message(f"/drape/g/{name}/state", str(state), int(bool(armed)), str(layer or ""), int(bool(flowing)),
-                    float(rate_hz), int(dropped), int(samples), str(note or "")),
+                    float(rate_hz), int(dropped), int(samples), str(note or ""), int(implausible)),
             message(f"/drape/g/{name}/channels", *[str(c) for c in channels])]
 
 

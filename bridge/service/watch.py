@@ -33,6 +33,7 @@ class GarmentView:
     events: list = field(default_factory=list)  # (kind, gesture, confidence, send_ms, sent), newest last
     notices: list = field(default_factory=list)
     heard_s: float = 0.0                        # host time of its last state message
+    implausible: int = 0                        # of dropped: skipped as far from rest
 
 
 @dataclass
@@ -61,6 +62,7 @@ class StatusView:
             g.state, g.armed, g.layer, g.flowing = str(args[0]), bool(args[1]), str(args[2]), bool(args[3])
             g.rate_hz, g.dropped, g.samples, g.note = float(args[4]), int(args[5]), int(args[6]), str(args[7])
             g.heard_s = now_s
+            g.implausible = int(args[8]) if len(args) >= 9 else 0
         elif what == "channels":
             g.channels = tuple(str(a) for a in args)
         elif what == "levels":
@@ -100,7 +102,8 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
         g_stale = mark or ("STALE " if now_s is not None and g.heard_s and now_s - g.heard_s > stale_s else "")
         head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {'ARMED' if g.armed else 'disarmed'}  "
                 f"layer {printable(g.layer, 32) or '-'}  "
-                f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}")
+                f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}"
+                + (f" (implausible {g.implausible})" if g.implausible else ""))
         lines.append(head[:width])
         if g.note:
             lines.append(f"  {g_stale}note: {printable(g.note, 400)}"[:width])
