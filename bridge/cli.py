@@ -345,7 +345,9 @@ def cmd_start(a) -> int:
               file=sys.stderr, flush=True)
 
     code = 0
-    pipeline = Pipeline(model, mapping, cfg.name)
+    from .service import Settling
+    # the service's default [calibration]: a 1 s hold-still at start, re-settling after a lasting shift
+    pipeline = Pipeline(model, mapping, cfg.name, settle=Settling())
     try:
         run(source, pipeline, outputs, stop, on_event=_print_event,
             watcher=watcher, inbox=inbox, open_fn=opener, report=_report,

@@ -770,3 +770,43 @@ def test_the_status_stream_carries_implausible_samples():
         m = OscMessage(d)
         v.take(m.address, list(m.params))
     assert v.garments["jacket"].implausible == 10 and "dropped 12 (implausible 10)" in render(v, 200)
+
+
+# ---- re-settling ---------------------------------------------------------------------------------
+
+def test_ordinary_movement_never_re_settles_and_a_stand_coming_near_does(demo_model):
+    # The service's default [calibration] (shift = true) on simulated wearer 0 (the model's own
+    # wearer, a session it never saw): 6 minutes of the demo's ordinary movement, gestures and
+    # postures included, with nothing near; then a grounded stand comes to the sleeve and stays.
+    import numpy as np
+    from bridge.garment import Jacket
+    from bridge.garment.jacket import random_script
+    from bridge.service import Pipeline, Settling
+    from bridge.service.pipeline import SETTLING
+    take = Jacket(seed=7, wearer=0, session=3).perform(random_script(np.random.default_rng([7, 0]), 360.0))
+    p = Pipeline(demo_model, settle=Settling())
+    for i in range(0, take.freq_hz.shape[0], 10):
+        p.feed(take.freq_hz[i:i + 10])
+    assert [h.start_sample for h in p.holds if h.state == SETTLING] == []
+    near = Jacket(seed=7, wearer=0, session=4).perform([("standing", 20.0), ("metal_near", 30.0), ("standing", 20.0)])
+    p = Pipeline(demo_model, settle=Settling())
+    for i in range(0, near.freq_hz.shape[0], 10):
+        p.feed(near.freq_hz[i:i + 10])
+    starts = [h.start_sample / near.rate_hz for h in p.holds if h.state == SETTLING]
+    assert 20.0 < starts[0] < 50.0                     # found while it stays
+    assert all(50.0 < t <= 50.0 + 12.0 for t in starts[1:]) and len(starts) <= 2  # and its leaving, once
+
+
+def test_the_single_loop_calibrates_and_re_settles_as_the_service_does(demo_model, capsys):
+    from bridge.cli import main
+    import inspect
+    from bridge.cli import cmd_start
+    assert "settle=Settling()" in inspect.getsource(cmd_start)
+    from bridge.service import Settling
+    from bridge.service.daemon import Service
+    from types import SimpleNamespace
+    svc = Service(SimpleNamespace(garments=[], status_to=(), hold_still_s=1.0, detect_shift=True), open_fn=None)
+    try:
+        assert svc.settling() == Settling()   # the service's default [calibration] is the single loop's
+    finally:
+        svc.status.close()

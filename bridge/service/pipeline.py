@@ -144,7 +144,8 @@ class Pipeline:
             cut = int(rows[self.shift.fired_at]) + 1  # up to and including the sample it fired at
             events += self._feed(rest[:cut], early)
             i += cut
-            if self.gate.held:  # a posture holds a step too
+            if self.gate.held:  # a posture holds a step too: not a shift, and its end is none either
+                self.shift.dismiss()
                 continue
             names = ", ".join(self.model.channel_names[c] for c in moved)
             events += self._begin_hold(
@@ -196,7 +197,7 @@ class Pipeline:
         self.recogniser = make_recogniser(self.model)  # no window mixes old and new rest
         self._origin = self.samples
         if self.shift is not None:
-            self.shift.reset()
+            self.shift.reset(self.conditioner.state.centre_hz)  # the capture is the rest
         h = self.holds[-1]
         h.end_sample, h.done = self.samples, True
         self.holding, self._held_rows, self._held_n = None, [], 0

@@ -96,6 +96,14 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
                 report(f"destination {name!r} left out: {exc}")
 
 
+def tell_holds(pipeline: Pipeline, told: int, report) -> int:
+    """Report the pipeline's hold-still captures begun since ``told``; returns how many are told."""
+    from .pipeline import SETTLING
+    for h in pipeline.holds[told:]:
+        report(h.why if h.state == SETTLING else f"{h.why} ({pipeline.settle.hold_still_s:g} s)")
+    return len(pipeline.holds)
+
+
 def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: StopFlag | None = None,
         on_event=None, clock=time.monotonic, watcher=None, inbox=None, open_fn=None, report=print,
         stall_s: float | None = None, on_status=None) -> RunStats:
@@ -115,6 +123,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     panics_seen, reloads_seen = stop.panics, stop.reloads
     watchdog = Watchdog(stall_s) if stall_s else None
     failures = OutputWatch()
+    holds_told = tell_holds(pipeline, 0, report)
     reported = None
 
     def send(dispatches) -> None:
@@ -231,6 +240,8 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             stats.blocks += 1
             stats.samples += len(block)
             deliver(events, block.arrived_s)
+            if len(pipeline.holds) != holds_told:  # calibration and re-settling, said as the service says them
+                holds_told = tell_holds(pipeline, holds_told, report)
     finally:
         if stop.panics != panics_seen:
             deliver(pipeline.command("panic", "signal"), clock())
