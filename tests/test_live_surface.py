@@ -82,8 +82,10 @@ def test_sighup_to_the_demo_reloads_and_every_ending_signal_lets_go(tmp_path, de
     peer = SacnPeer()
     mid = tmp_path / "show.mid"
     mapping = demo_mapping(tmp_path, peer.port, mid)
-    proc, out, err = _demo(tmp_path, demo_model_file, mapping)
+    pid_file = tmp_path / "drape.pid"
+    proc, out, err = _demo(tmp_path, demo_model_file, mapping, "--pid-file", str(pid_file))
     try:
+        assert int(pid_file.read_text()) == proc.pid  # `kill -USR1 "$(cat FILE)"` hits this process only
         time.sleep(1.0)
         proc.send_signal(signal.SIGHUP)  # a closed terminal: must not end the show unclean
         wait_for(lambda: any("mapping reloaded" in l for l in err), 10, "SIGHUP to reload the mapping")
@@ -101,6 +103,7 @@ def test_sighup_to_the_demo_reloads_and_every_ending_signal_lets_go(tmp_path, de
     assert len(ended) == 3 and all(u == 7 for _, u, _ in ended)   # E1.31 6.2.6: three terminated packets
     assert ended[0][2][0] == 200                                  # the safe look in slot 1
     assert _unmatched_note_ons(mid) == set()
+    assert not pid_file.exists()  # removed at exit
 
 
 @pytest.mark.parametrize("how", ["SIGHUP then SIGTERM", "SIGQUIT"])
@@ -373,11 +376,13 @@ def test_watch_redraws_with_the_terminal_width_and_goes_stale(tmp_path):
                      daemon=True).start()
     note = "settling: " + "x" * 150 + " END"
     try:
-        time.sleep(1.0)
         with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
-            s.sendto(_status("/drape/alive", 3.0, 1, 4242), ("127.0.0.1", port))
-            s.sendto(_status("/drape/g/jacket/state", "settling", 1, "", 1, 99.3, 0, 100, note), ("127.0.0.1", port))
-        wait_for(lambda: b"END" in got, 5, "the note to be drawn")
+            end = time.monotonic() + 30
+            while b"END" not in got and time.monotonic() < end:  # a heartbeat a second, as the daemon sends
+                s.sendto(_status("/drape/alive", 3.0, 1, 4242), ("127.0.0.1", port))
+                s.sendto(_status("/drape/g/jacket/state", "settling", 1, "", 1, 99.3, 0, 100, note), ("127.0.0.1", port))
+                time.sleep(0.5)
+        assert b"END" in got, "the note was never drawn"
         assert b"NO HEARTBEAT" not in got
         wait_for(lambda: b"NO HEARTBEAT FOR" in got, 6, "the silence to be shown")
         last = got[got.rindex(b"\x1b[H"):].decode()

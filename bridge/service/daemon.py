@@ -435,18 +435,18 @@ class Service:
             self.control.acknowledge(peer, ok, cmd, text)
 
     def carry_out(self, cmd: str, detail: str, target: str, peer) -> tuple[bool, str]:
+        if cmd == "status":  # answered with the state itself, failed garments included
+            if peer is not None and self.control is not None:
+                now = self.clock()
+                self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
+                                   + self.state_messages(now))
+            return True, "status sent"
         chosen = [g for g in self.live() if not target or g.name == target]
         if target and not chosen:
             return False, (f"no such running garment {printable(target)!r} (have "
                            f"{', '.join(g.name + ('' if g.state != FAILED else ' (failed)') for g in self.garments) or 'none'})")
         if not chosen:
             return False, "no garment is running"
-        if cmd == "status":
-            if peer is not None and self.control is not None:
-                now = self.clock()
-                self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
-                                   + self.state_messages(now))
-            return True, "status sent"
         if cmd == "layer":
             without = [g.name for g in chosen if g.pipeline.mapping is None or detail not in g.pipeline.mapping.layers]
             if len(without) == len(chosen):

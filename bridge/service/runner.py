@@ -99,9 +99,10 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
 def tell_holds(pipeline: Pipeline, told: int, report) -> int:
     """Report the pipeline's hold-still captures begun since ``told``; returns how many are told."""
     from .pipeline import SETTLING
-    for h in pipeline.holds[told:]:
+    holds = getattr(pipeline, "holds", [])
+    for h in holds[told:]:
         report(h.why if h.state == SETTLING else f"{h.why} ({pipeline.settle.hold_still_s:g} s)")
-    return len(pipeline.holds)
+    return len(holds)
 
 
 def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: StopFlag | None = None,
@@ -123,6 +124,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     panics_seen, reloads_seen = stop.panics, stop.reloads
     watchdog = Watchdog(stall_s) if stall_s else None
     failures = OutputWatch()
+    marks = hasattr(pipeline, "dispatches_marked")  # a stand-in pipeline may only route
     holds_told = tell_holds(pipeline, 0, report)
     reported = None
 
@@ -134,7 +136,8 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
 
     def deliver(events: list[Event], arrived: float) -> None:
         decided = clock()
-        dispatches, unsent = pipeline.dispatches_marked(events)
+        dispatches, unsent = (pipeline.dispatches_marked(events) if marks else
+                              (pipeline.dispatches(events), [False] * len(events)))
         send(dispatches)
         sent = clock()
         for e, disarmed in zip(events, unsent):
@@ -240,7 +243,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             stats.blocks += 1
             stats.samples += len(block)
             deliver(events, block.arrived_s)
-            if len(pipeline.holds) != holds_told:  # calibration and re-settling, said as the service says them
+            if len(getattr(pipeline, "holds", ())) != holds_told:  # calibration and re-settling, said as the service says them
                 holds_told = tell_holds(pipeline, holds_told, report)
     finally:
         if stop.panics != panics_seen:

@@ -212,10 +212,13 @@ def send_command(to: str, what: str, layer: str = "", garment: str = "", token: 
     the daemon's state, drawn as `drape watch` does."""
     from .control import ACK, parse_host_port, printable
     host, port = parse_host_port(to)
-    try:
-        infos = socket.getaddrinfo(host, port, type=socket.SOCK_DGRAM)
-    except socket.gaierror as exc:
-        raise ValueError(f"cannot resolve {host!r}: {exc}") from None
+    try:  # IPv4 first: "localhost" may also name ::1, where a daemon on 127.0.0.1 is not
+        infos = socket.getaddrinfo(host, port, socket.AF_INET, socket.SOCK_DGRAM)
+    except socket.gaierror:
+        try:
+            infos = socket.getaddrinfo(host, port, type=socket.SOCK_DGRAM)
+        except socket.gaierror as exc:
+            raise ValueError(f"cannot resolve {host!r}: {exc}") from None
     family, _, _, _, addr = infos[0]
     sock = socket.socket(family, socket.SOCK_DGRAM)
     try:
