@@ -32,28 +32,79 @@ def _err(msg: str) -> int:
     return 2
 
 
+def _line(text: str) -> None:
+    """One line to standard output for the live loops. A reader that went away (`| head`,
+    a dead `tee`) must not stop the show: printing stops, stderr says so once, and fd 1
+    points to /dev/null from then on (so Python's own flush at exit stays quiet too)."""
+    try:
+        print(text, flush=True)
+    except (BrokenPipeError, ValueError, OSError) as exc:
+        import os
+        try:
+            null = os.open(os.devnull, os.O_WRONLY)
+            os.dup2(null, sys.stdout.fileno())
+            os.close(null)
+        except (OSError, ValueError):
+            sys.stdout = open(os.devnull, "w")
+        _report(f"standard output closed ({type(exc).__name__}); no more event lines, the show goes on")
+
+
 def _print_event(e, timing=None) -> None:
     if e.kind == "control":
         return  # many per second: their messages are the output
     if e.kind in ("armed", "disarmed", "panic", "layer"):
-        print(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + e.detail if e.detail else ''}", flush=True)
+        from .service.control import printable  # a layer name can come from the network
+        _line(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + printable(e.detail) if e.detail else ''}")
         return
     extra = f"  held {e.duration_s:5.2f} s" if e.kind == "left" else ""
-    lat = f"  latency {timing.send_ms:5.2f} ms" if timing else ""
-    print(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}", flush=True)
+    if timing is not None and timing.disarmed:
+        lat = "  disarmed: not sent"
+    else:
+        lat = f"  latency {timing.send_ms:5.2f} ms" if timing else ""
+    _line(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}")
 
 
-def _stop_on_signals(flag):
+def _stop_on_signals(flag, reload: bool = False):
+    """Every signal that ends the process only sets the flag: the loop then lets go of
+    every key and note and puts lights to their safe look before it exits. SIGHUP (a
+    closed terminal, a dropped SSH session) reloads the mapping with ``reload``, and
+    stops cleanly otherwise; SIGUSR1 panics."""
     def handler(signum, _frame):
         flag.set(signal.Signals(signum).name)
-    for s in (signal.SIGINT, signal.SIGTERM):
-        signal.signal(s, handler)
-    if hasattr(signal, "SIGUSR1"):  # panic: `kill -USR1 PID` releases every output
+    ending = ["SIGINT", "SIGTERM", "SIGQUIT"] + ([] if reload else ["SIGHUP"])
+    for name in ending:
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), handler)
+    if reload and hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, lambda *_: flag.request_reload())
+    if hasattr(signal, "SIGUSR1"):  # panic: releases every output (see also `drape send panic`)
         signal.signal(signal.SIGUSR1, lambda *_: flag.request_panic())
 
 
+def _write_pid_file(path) -> None:
+    """Write this process's id to ``path`` (for `kill -USR1 "$(cat PATH)"`, which can hit no
+    other process), and remove it at exit if it still holds our id."""
+    import atexit
+    import os
+    if not path:
+        return
+    p = Path(path).expanduser()
+    p.write_text(f"{os.getpid()}\n", encoding="ascii")
+
+    def remove():
+        try:
+            if p.read_text(encoding="ascii").strip() == str(os.getpid()):
+                p.unlink()
+        except OSError:
+            pass
+    atexit.register(remove)
+
+
 def _report(text: str) -> None:
-    print(f"drape: {text}", file=sys.stderr, flush=True)
+    try:
+        print(f"drape: {text}", file=sys.stderr, flush=True)
+    except (OSError, ValueError):  # stderr gone too (a closed terminal): keep running
+        pass
 
 
 def _inbox(listen):
@@ -161,6 +212,12 @@ def cmd_demo(a) -> int:
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
     mapping = watcher.mapping
+    stop = StopFlag()
+    _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
+    try:
+        _write_pid_file(a.pid_file)
+    except OSError as exc:
+        return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
         if name in outputs:  # one that could not open was reported as left out
@@ -170,15 +227,13 @@ def cmd_demo(a) -> int:
     else:  # the copy shipped inside the package: not the file to edit
         print(f"mapping: the built-in demo mapping; copy {mapping_path} to a folder of yours, edit it and pass "
               f"--mapping FILE (saved changes take effect at once)", flush=True)
-    narrator = Narrator(source.truth, say=lambda line: print(line, flush=True))
+    narrator = Narrator(source.truth, say=_line)
     source.on_read = narrator.on_read
 
     def on_event(e, timing=None):
         if not narrator.on_event(e):
             _print_event(e, timing)
 
-    stop = StopFlag()
-    _stop_on_signals(stop)
     print(f"the simulated wearer is performing: each of the {len(tour)} demo gestures once (about 50 s), then at "
           f"random; Ctrl-C stops" + (f" (or after {a.for_s:g} s)" if a.for_s else ""), flush=True)
     try:
@@ -193,10 +248,9 @@ def cmd_demo(a) -> int:
     under_way = f"; {t['open']} still under way at the stop, not counted" if t["open"] else ""
     kinds = (f" ({t['doubles']} double, {t['wrong_name']} wrong name, {t['ordinary']} in ordinary movement)"
              if t["false_triggers"] and {"doubles", "wrong_name", "ordinary"} <= set(t) else "")
-    print(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {end_s:.1f} s of stream; "
+    _line(f"stopped{' (' + stop.reason + ')' if stop.reason else ''}: {end_s:.1f} s of stream; "
           f"{_plural(t['performed'], 'gesture')} performed, {t['recognised']} recognised, {t['missed']} missed, "
-          f"{_plural(t['false_triggers'], 'false trigger')}{kinds}{under_way}",
-          flush=True)
+          f"{_plural(t['false_triggers'], 'false trigger')}{kinds}{under_way}")
     return 0
 
 
@@ -208,7 +262,8 @@ def open_garment_source(cfg, model, on_change=None):
     from .sources.serialport import SerialSource
 
     if cfg.input == "osc":
-        return OscUdpSource(cfg.listen, cfg.address, cfg.arguments, model.rate_hz, model.channel_names, cfg.resample)
+        return OscUdpSource(cfg.listen, cfg.address, cfg.arguments, model.rate_hz, model.channel_names, cfg.resample,
+                            senders=getattr(cfg, "senders", ()), token=getattr(cfg, "token", ""))
     return ReconnectingSource(
         lambda: SerialSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names,
                              cfg.protocol, cfg.timestamp, cfg.resample),
@@ -252,6 +307,10 @@ def cmd_serve(a) -> int:
     except (ValueError, OSError) as exc:
         return _err(f"control port {cfg.listen}: {exc}")
     _stop_on_signals(stop)
+    try:
+        _write_pid_file(a.pid_file)
+    except OSError as exc:
+        return _err(f"--pid-file: {exc}")
     if hasattr(signal, "SIGHUP"):  # reload every garment's mapping
         def hup(*_):
             service.reloads_asked += 1
@@ -298,9 +357,13 @@ def cmd_start(a) -> int:
     where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
     from .service.runner import keys_only_for_local_input
     opener = keys_only_for_local_input(_open_one, cfg.input == "osc")  # no keys from network samples
-    outputs = _open_outputs(mapping, opener) if mapping else {}
     stop = StopFlag()
-    _stop_on_signals(stop)
+    _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
+    try:
+        _write_pid_file(a.pid_file)
+    except OSError as exc:
+        return _err(f"--pid-file: {exc}")
+    outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
           + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:
@@ -315,8 +378,11 @@ def cmd_start(a) -> int:
               file=sys.stderr, flush=True)
 
     code = 0
+    from .service import Settling
+    # the service's default [calibration]: a 1 s hold-still at start, re-settling after a lasting shift
+    pipeline = Pipeline(model, mapping, cfg.name, settle=Settling())
     try:
-        run(source, Pipeline(model, mapping, cfg.name), outputs, stop, on_event=_print_event,
+        run(source, pipeline, outputs, stop, on_event=_print_event,
             watcher=watcher, inbox=inbox, open_fn=opener, report=_report,
             stall_s=cfg.stall_s, on_status=status)
     except ProtocolUndecided as exc:
@@ -330,7 +396,8 @@ def cmd_start(a) -> int:
         if inbox:
             inbox.close()
         _close_outputs(outputs)
-        print(f"drape: stopped; {describe_counters(source.counters())}", file=sys.stderr, flush=True)
+        _report(f"stopped; {describe_counters(source.counters())}; "
+                f"samples skipped as implausible (far from the resting frequency) {pipeline.skipped}")
     return code
 
 
@@ -1067,8 +1134,30 @@ def _simulated_range_source(seed: int, wearer: int, seconds: float = 5.0, countd
 
 
 def cmd_watch(a) -> int:
-    from .service.watch import watch
-    return watch(a.host, a.port, once=a.once, wait_s=a.wait_s)
+    from .service.watch import PortBusy, watch
+    try:
+        return watch(a.host, a.port, once=a.once, wait_s=a.wait_s)
+    except PortBusy as exc:
+        return _err(str(exc))
+    except OSError as exc:
+        return _err(f"cannot listen on {a.host}:{a.port}: {exc}")
+
+
+def _send_token(a) -> str:
+    """The control token: --token-file, else the DRAPE_TOKEN environment variable, else
+    --token (visible to every user of the machine in the process list: warned)."""
+    import os
+    from .service.watch import TOKEN_ENV
+    if a.token_file:
+        try:
+            return Path(a.token_file).expanduser().read_text(encoding="utf-8").strip()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise ValueError(f"--token-file: {exc}") from None
+    if os.environ.get(TOKEN_ENV):
+        return os.environ[TOKEN_ENV].strip()
+    if a.token:
+        _report(f"--token is visible to other users in the process list; prefer {TOKEN_ENV} or --token-file")
+    return a.token
 
 
 def cmd_send(a) -> int:
@@ -1077,14 +1166,12 @@ def cmd_send(a) -> int:
     if a.what == "layer" and not a.layer:
         return _err("send layer needs the layer's name: drape send layer NAME")
     try:
-        lines = send_command(to, a.what, a.layer or "", a.garment, a.token)
+        answer = send_command(to, a.what, a.layer or "", a.garment, _send_token(a), a.wait_s)
     except (ValueError, OSError) as exc:
         return _err(str(exc))
-    for line in lines:
-        print(line)
-    if a.what == "status" and not lines:
-        return _err(f"no reply from {to} (is the daemon running? right token?)")
-    return 0
+    for line in answer.lines:
+        (print if answer.ok else _report)(line)
+    return 0 if answer.ok else 1
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -1098,10 +1185,12 @@ def build_parser() -> argparse.ArgumentParser:
     d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
     d.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
     d.add_argument("--model", help="use this model of the simulated jacket instead of training one first")
+    d.add_argument("--pid-file", metavar="FILE", help="write the process id here (for kill -USR1 \"$(cat FILE)\")")
     d.set_defaults(func=cmd_demo)
     s = sub.add_parser("start", help=VERBS["start"], description=VERBS["start"])
     s.add_argument("--config", required=True, help="daemon config file (TOML)")
     s.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
+    s.add_argument("--pid-file", metavar="FILE", help="write the process id here (for kill -USR1 \"$(cat FILE)\")")
     s.add_argument("--log-level", default="info", choices=("debug", "info", "warning", "error"),
                    help="with [[garment]] configs: how much to log to stderr")
     s.set_defaults(func=cmd_start)
@@ -1119,7 +1208,10 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("--garment", default="", help="only this garment (default: every garment)")
     n.add_argument("--to", default="127.0.0.1:9100", help="the daemon's control port (default 127.0.0.1:9100)")
     n.add_argument("--port", type=int, help="shorthand for --to 127.0.0.1:PORT")
-    n.add_argument("--token", default="", help="the shared token, when the daemon's port has one")
+    n.add_argument("--token", default="", help="the shared token, when the daemon's port has one (other users can "
+                   "see it in the process list: prefer DRAPE_TOKEN or --token-file)")
+    n.add_argument("--token-file", metavar="FILE", help="read the token from this file")
+    n.add_argument("--wait-s", type=float, default=1.0, help="how long to wait for the daemon's answer, s (default 1)")
     n.set_defaults(func=cmd_send)
     from .recognition.classifiers import CLASSIFIERS, DEFAULT_CLASSIFIER
     f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])

@@ -15,7 +15,7 @@ def write(tmp_path, body):
 def test_defaults_and_osc_input(tmp_path):
     c = load_config(write(tmp_path, 'port = "usb:f00d:0001"\n'))
     assert (c.protocol, c.timestamp, c.resample, c.stall_s, c.input) == ("auto", None, True, 1.0, "serial")
-    c = load_config(write(tmp_path, 'input = "osc"\nlisten = "0.0.0.0:9100"\naddress = "/j"\n'
+    c = load_config(write(tmp_path, 'input = "osc"\nlisten = "0.0.0.0:9100"\nsenders = ["10.0.0.21"]\naddress = "/j"\n'
                                     'arguments = ["t_s", "a", "-", "b"]\nstall_s = 0.5\n'))
     assert c.input == "osc" and c.arguments == ("t_s", "a", "-", "b") and c.stall_s == 0.5
 

@@ -138,8 +138,9 @@ def test_serial_text_protocol_through_a_pty_gives_the_replay_events(demo_model, 
     for k, b in enumerate(bad):
         lines.insert(1000 + 500 * k, b)
     sent = np.array([[float(x) for x in l.split(b",")] for l in lines if l not in bad])
+    from bridge.service import Settling  # `drape start` calibrates and re-settles as the service does
     expected = replay_events(Recording(test_take.rate_hz, test_take.channel_names, np.arange(len(sent)) / 100.0, sent),
-                             demo_model)
+                             demo_model, settle=Settling())
     expected = [e for e in expected if e.kind != "left" or e.t_s < n / test_take.rate_hz - 0.01]
 
     master, slave = os.openpty()

@@ -53,20 +53,23 @@ def test_watcher_good_broken_and_atomic_replace(tmp_path):
     assert w.poll(0.0) is None                               # nothing changed
     write(f, TEMPLATE.format(address="/bb"))
     assert w.poll(0.05) is None                               # polled at most every 0.1 s
-    r = w.poll(0.1)
+    assert w.poll(0.1) is None                                # changed: used once it looks the same twice
+    r = w.poll(0.2)
     assert r.mapping.controls[0].action.address == "/bb" and w.mapping is r.mapping
     good = w.mapping
     write(f, TEMPLATE.format(address="no-slash"))
-    assert w.poll(0.2) is None                               # maybe an editor mid-write: wait one poll
-    r = w.poll(0.3)
+    assert w.poll(0.3) is None                               # maybe an editor mid-write: wait one poll
+    r = w.poll(0.4)
     assert r.mapping is None and w.mapping is good
     assert r.problems[0].startswith(f"{f}:12: control[1].address: OSC addresses start with '/'")
-    assert w.poll(0.4) is None                               # reported once
+    assert w.poll(0.5) is None                               # reported once
     # an atomic replace with the same size and time stamps: only the inode differs
     write(f, TEMPLATE.format(address="/cc"))
-    assert w.poll(0.5).mapping.controls[0].action.address == "/cc"
+    assert w.poll(0.6) is None
+    assert w.poll(0.7).mapping.controls[0].action.address == "/cc"
     replace_atomically(f, TEMPLATE.format(address="/dd"), keep_stat_of=f)
-    r = w.poll(0.6)
+    assert w.poll(0.8) is None
+    r = w.poll(0.9)
     assert r is not None and r.mapping.controls[0].action.address == "/dd"
 
 
@@ -79,7 +82,8 @@ def test_a_file_missing_for_a_moment_keeps_the_mapping(tmp_path):
     r = w.poll(2.0)
     assert r.mapping is None and "no such mapping file" in r.problems[0]
     write(f, TEMPLATE.format(address="/back"))
-    assert w.poll(3.0).mapping.controls[0].action.address == "/back"
+    assert w.poll(3.0) is None
+    assert w.poll(4.0).mapping.controls[0].action.address == "/back"
 
 
 class Recorder(Output):
@@ -133,8 +137,9 @@ def test_runner_swaps_between_blocks_and_keeps_the_last_good_mapping(tmp_path):
                 watcher=w, report=reports.append)
     addresses = [m.address for m in out.got]
     # every sample gives one control message (min_change 0). A file saved while block i is read
-    # takes effect from block i + 1: blocks 0–5 /a, 6–15 /b (the broken save changes nothing), 16–19 /c
-    assert addresses == ["/a"] * 60 + ["/b"] * 100 + ["/c"] * 40
+    # is seen before block i + 1 and used once it looks the same at the next poll, from block
+    # i + 2: blocks 0–6 /a, 7–16 /b (the broken save changes nothing), 17–19 /c
+    assert addresses == ["/a"] * 70 + ["/b"] * 100 + ["/c"] * 30
     assert stats.reloads == 2 and stats.broken_reloads == 1
     assert any(r.startswith("mapping not reloaded, the last good one keeps running") and f"{f}:" in r for r in reports)
     # values are the one-euro-smoothed mix: rising, within 0..1

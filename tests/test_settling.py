@@ -32,7 +32,7 @@ def _take():
     jacket = Jacket(seed=5, wearer=1, session=2)
     rng = np.random.default_rng(3)
     first = jacket.perform([("standing", 3.0)] + training_script(rng, 1))
-    still = jacket.perform([("standing", 12.0)])
+    still = jacket.perform([("standing", 20.0)])  # the step, then longer than the shift detector's sustain
     second = jacket.perform(training_script(rng, 1))
     freq = np.concatenate([first.freq_hz, still.freq_hz, second.freq_hz])
     step_at = first.freq_hz.shape[0] + int(5.0 * first.rate_hz)
@@ -69,11 +69,12 @@ def test_the_stream_has_a_shift_and_gestures(model):
     events, holds, pipe = _run(model, TAKE.freq_hz, [(0, TAKE.freq_hz.shape[0])])
     n = SETTLE.hold_samples(model.rate_hz)
     assert holds[0] == (CALIBRATING, 0, n, True)
-    # the rail: one capture begun 4 s (sustain) after the step, give or take the fast mean's lag
-    settling = [h for h in holds if h[0] == SETTLING and STEP_AT < h[1] <= STEP_AT + 5.0 * model.rate_hz]
+    # the rail: one capture begun `sustain_s` after the step, give or take the fast mean's lag
+    sustain = ShiftDetector(model.rate_hz).sustain_s
+    settling = [h for h in holds if h[0] == SETTLING and STEP_AT < h[1] <= STEP_AT + (sustain + 1.0) * model.rate_hz]
     assert len(settling) == 1, holds
     fired = settling[0][1]
-    assert fired >= STEP_AT + 4.0 * model.rate_hz
+    assert fired >= STEP_AT + sustain * model.rate_hz
     assert all(h[2] - h[1] == n and h[3] for h in holds)
     assert sum(1 for e in events if e[2] == "gesture") >= 2 and sum(1 for e in events if e[2] == "entered") >= 4
     # nothing is decided inside a capture
@@ -91,7 +92,8 @@ def test_events_and_captures_do_not_depend_on_the_blocks(model, seed, most):
     f = TAKE.freq_hz
     whole = _run(model, f, [(0, f.shape[0])])
     if most == 1:  # sample by sample over the part around the shift only: the slowest case
-        cuts = [(0, STEP_AT)] + [(i, i + 1) for i in range(STEP_AT, STEP_AT + 700)] + [(STEP_AT + 700, f.shape[0])]
+        k = STEP_AT + 1100  # past the shift's report, sustain_s (10 s) after the step
+        cuts = [(0, STEP_AT + 900)] + [(i, i + 1) for i in range(STEP_AT + 900, k)] + [(k, f.shape[0])]
     else:
         cuts = list(_blocks(f.shape[0], seed, most))
     blocked = _run(model, f, cuts)
@@ -199,12 +201,13 @@ def test_live_blocks_decide_what_the_replay_decides(model):
 def test_shift_detector_says_where_it_fired_and_can_stop_there():
     rate = 50.0
     rng = np.random.default_rng(0)
-    f = 1e6 * (1 + 1e-4 * rng.normal(size=(600, 2)))
+    f = 1e6 * (1 + 1e-4 * rng.normal(size=(900, 2)))
     f[100:, 0] *= 0.98
     full = ShiftDetector(rate)
     assert full.step(f) == (0,)
     k = full.fired_at
-    assert 100 + 4.0 * rate - 1 <= k <= 100 + 4.6 * rate
+    sustain = full.sustain_s
+    assert 100 + sustain * rate - 1 <= k <= 100 + (sustain + 0.6) * rate
     stopped = ShiftDetector(rate)
     assert stopped.step(f, stop=True) == (0,) and stopped.fired_at == k
     upto = ShiftDetector(rate)

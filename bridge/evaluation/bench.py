@@ -426,7 +426,7 @@ def run_all(channels=(4, 8), hops: int = 200, replay_s: float = 300.0, fit_minut
         rows += [{"classifier": "minirocket batch", **r} for r in batch]
         for r in batch:
             if r["ratio"] is None:
-                peer = "no reference timed" + ("" if not compare else " (install the compare extra: pip install 'drape[compare]')")
+                peer = "no reference timed" + ("" if not compare else " (install the compare extra: pip install 'drape-bridge[compare]')")
                 ratio = ""
             else:
                 peer = f"numba peer {r['peer_s']:.2f} s (CPU {r['peer_cpu_s']:.2f} s), same run"

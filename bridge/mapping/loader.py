@@ -51,7 +51,7 @@ SAFETY_KEYS = {"arm_posture", "arm_hold_s", "idle_disarm_s", "start", "panic_ges
 DEST_KINDS = {"osc": "osc", "osc_tcp": "osc-tcp", "midi": "midi", "midi_file": "midi-file", "keys": "keys",
               "sacn": "sacn"}
 DEST_EXTRA = {"osc": {"broadcast"}, "osc-tcp": {"framing"}, "midi": {"virtual", "api"}, "midi-file": set(),
-              "keys": set(), "sacn": {"host", "port", "priority", "label", "safe", "interface", "keepalive_s"}}
+              "keys": set(), "sacn": {"host", "port", "priority", "label", "safe", "interface", "keepalive_s", "safe_at_start"}}
 NEEDS = {  # action → destination kinds that can carry it
     "address": ("osc", "osc-tcp"), "bundle": ("osc", "osc-tcp"), "note": ("midi", "midi-file"),
     "cc": ("midi", "midi-file"), "program": ("midi", "midi-file"), "keys": ("keys",), "levels": ("sacn",),
@@ -311,12 +311,16 @@ def _destinations(ck: _Checker, dests) -> tuple[dict, dict]:
             port = ck.integer(at("port"), f"{path}.port", d.get("port", 5568), 1, 65535, "port")
             prio = ck.integer(at("priority"), f"{path}.priority", d.get("priority", 100), 0, 200, "sACN priority")
             safe = _slots(ck, at("safe"), f"{path}.safe", d.get("safe", {}))
+            at_start = d.get("safe_at_start", True)
+            if not isinstance(at_start, bool):
+                ck.bad(at("safe_at_start"), f"{path}.safe_at_start", f"must be true or false (got {at_start!r})")
+                continue
             if None in (u, port, prio, safe):
                 continue
             out[dname] = Destination(dname, kind, host=str(d.get("host", "")), port=port, universe=u,
                                      priority=prio, source_label=str(d.get("label", "drape")),
                                      safe_levels=tuple(sorted(safe.items())), interface=str(d.get("interface", "")),
-                                     keepalive_s=float(d.get("keepalive_s", 0.8)))
+                                     keepalive_s=float(d.get("keepalive_s", 0.8)), safe_at_start=at_start)
     return out, dests
 
 

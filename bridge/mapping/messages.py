@@ -183,7 +183,9 @@ class Destination:
     - ``keys``: ``key_backend`` "x11" (pynput, the focused window) or "uinput" (Linux kernel).
     - ``sacn``: host (unicast) or empty for multicast; ``universe``, ``priority`` 0–200,
       ``source_label``, ``safe_levels`` ((slot, level), …) for stop and panic, ``interface``
-      (local IPv4 address for multicast), ``keepalive_s`` between repeats of steady levels.
+      (local IPv4 address for multicast), ``keepalive_s`` between repeats of steady levels,
+      ``safe_at_start`` to send the safe look as soon as the output opens (receivers see the
+      source from the start, not from the first cue).
     """
 
     name: str
@@ -203,6 +205,7 @@ class Destination:
     safe_levels: tuple = field(default=())
     interface: str = ""
     keepalive_s: float = 0.8
+    safe_at_start: bool = True
 
 
 @dataclass(frozen=True)

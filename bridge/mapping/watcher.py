@@ -3,10 +3,15 @@
 The watcher compares the file's modification time, size and inode at most every
 ``interval_s``: an editor that saves in place changes the first two, one that writes a
 temporary file and renames it over the old one changes the inode. A changed file is
-read and checked in full; only a file without errors replaces the running mapping, so a
-half-finished edit leaves the last good mapping running. A broken file is reported once
-it has stayed the same for one more poll (an editor caught in the middle of writing is
-not reported), and again only after it changes.
+used only once it has looked the same on two polls in a row (an in-place save, an
+`echo ... > file` or a copy caught in the middle are not applied half-written); it is
+then read and checked in full, and only a file without errors replaces the running
+mapping, so a half-finished edit leaves the last good mapping running. A broken file is
+reported then, and again only after it changes.
+
+A file with no destinations and no rules (empty, or cut off before its first table) is
+refused with the reason, unless the running mapping was empty too: applying it would close
+every output in the middle of a show (lights to their safe look, sACN terminated).
 """
 
 from __future__ import annotations
@@ -43,6 +48,8 @@ class MappingWatcher:
         self._next_s = float("-inf")
         self._broken_sig = None    # signature of a broken file waiting to be reported
         self._reported_sig = None  # signature of the broken file last reported
+        self._seen = self._sig     # signature at the last poll: a change is used once it holds
+        self._problems: list = []
 
     def _load(self) -> Mapping:
         return load_mapping(self.path, self.classes, self.kinds, self.channel_names)
@@ -59,18 +66,25 @@ class MappingWatcher:
             return None
         self._next_s = now_s + self.interval_s
         sig = self._signature()
-        if sig == self._sig:
-            if self._broken_sig is not None and sig == self._broken_sig and sig != self._reported_sig:
-                self._reported_sig = sig
-                return Reload(None, tuple(self._problems))
-            return None
+        settled = sig == self._seen   # the same as at the last poll
+        self._seen = sig
+        if sig == self._sig or not settled:
+            return None               # unchanged, or still changing: look again next poll
         self._sig = sig
         try:
             mapping = self._load()
         except MappingError as exc:
             self._broken_sig, self._problems = sig, exc.problems
-            return None
+            if sig == self._reported_sig:
+                return None
+            self._reported_sig = sig
+            return Reload(None, tuple(self._problems))
         self._broken_sig = self._reported_sig = None
+        empty = refuse_empty(mapping, self.mapping, self.path)
+        if empty:
+            self._problems = [empty]
+            self._reported_sig = sig
+            return Reload(None, (empty,))
         self.mapping = mapping
         return Reload(mapping)
 
@@ -78,8 +92,20 @@ class MappingWatcher:
         """Read the file again whether or not it changed (a reload asked for by a signal or
         a control message): the new mapping, or the problems (the last good one stays)."""
         self._sig, self._next_s, self._reported_sig = None, float("-inf"), None
+        self._seen = self._signature()  # asked for: no need to wait for a second look
         found = self.poll(float("-inf"))
-        if found is None:  # broken: poll keeps the problems for the next look; say them now
-            self._reported_sig = self._sig
+        if found is None:
             return Reload(None, tuple(self._problems))
         return found
+
+
+def refuse_empty(new: Mapping, old: Mapping | None, path) -> str:
+    """Why ``new`` is refused ("" when it is not): no destinations and no rules where the
+    running mapping had some."""
+    if new.destinations or new.rules:
+        return ""
+    if old is None or not (old.destinations or old.rules):
+        return ""
+    return (f"{path}: the file has no destinations and no rules (empty, or cut off while being written?); "
+            "refused, the last good mapping keeps running. Save the whole file again; to run without "
+            "outputs on purpose, leave one destination in it")

@@ -103,4 +103,8 @@ def open_output(dest: Destination, queue_size: int = 256) -> Output:
     display); the caller can carry on with its other destinations.
     """
     from .queued import QueuedOutput
-    return QueuedOutput(open_backend(dest), capacity=queue_size)
+    out = QueuedOutput(open_backend(dest), capacity=queue_size)
+    if dest.kind == "sacn" and dest.safe_at_start:
+        from ..mapping.messages import Release
+        out.send(Release())  # the safe look now (and kept alive), not only from the first cue
+    return out

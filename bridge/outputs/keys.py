@@ -192,9 +192,20 @@ class PynputKeyboard(Keyboard):
         self._controller.release(self._code(key))
 
     def close(self) -> None:
-        # dropping the controller closes its display connection now, not at some later collection
-        self._controller = None
-        self._x_display = None
+        # Close the display connection now, not at some later collection; a server that went
+        # away makes closing fail, which would otherwise surface as "Exception ignored in
+        # __del__" at exit: the failure was already counted and reported by the output.
+        controller, self._controller, self._x_display = self._controller, None, None
+        display = getattr(controller, "_display", None) if controller is not None else None
+        if display is not None:
+            try:
+                display.close()
+            except Exception:
+                pass
+            try:
+                del controller._display  # its __del__ closes only what it still has
+            except AttributeError:
+                pass
 
 
 # -- Linux uinput through python-evdev (not tested on our machines: no /dev/uinput) ------

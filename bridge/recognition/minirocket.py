@@ -250,7 +250,7 @@ def minirocket_transform(params: MiniRocketParams, x: np.ndarray, chunk: int | N
         raise ValueError(f"engine must be auto, numpy or compiled, not {engine!r}")
     kernels = compiled_kernels() if engine != "numpy" else None
     if engine == "compiled" and kernels is None:
-        raise ValueError("the compiled engine needs numba (pip install 'drape[accelerate]')")
+        raise ValueError("the compiled engine needs numba (pip install 'drape-bridge[accelerate]')")
     if kernels is not None:
         _compiled_features(params, kernels, x, out)
         return out

@@ -34,8 +34,8 @@ class ConfigError(ValueError):
 
 
 GARMENT_KEYS = ("name", "port", "baud", "model", "mapping", "protocol", "timestamp", "resample", "stall_s", "input",
-                "listen", "address", "arguments", "simulated", "seed", "wearer")
-SERVICE_KEYS = {"control": ("listen", "token"), "status": ("to", "levels_hz"), "calibration": ("hold_still_s", "shift")}
+                "listen", "address", "arguments", "simulated", "seed", "wearer", "senders", "token")
+SERVICE_KEYS = {"control": ("listen", "token", "token_file"), "status": ("to", "levels_hz"), "calibration": ("hold_still_s", "shift")}
 
 
 def _unknown_keys(path: Path, table: dict, known, where: str) -> None:
@@ -65,6 +65,8 @@ class GarmentConfig:
     simulated: bool = False      # the built-in simulated jacket instead of a device
     seed: int = 1
     wearer: int = 0
+    senders: tuple[str, ...] = ()  # OSC input off loopback: the only addresses samples are taken from
+    token: str = ""                # ... or the token each sample message starts with
 
 
 def _read_toml(path: Path) -> dict:
@@ -116,7 +118,7 @@ def _garment(path: Path, g: dict, where: str) -> GarmentConfig:
     stall_s = g.get("stall_s", 1.0)
     if not isinstance(stall_s, (int, float)) or isinstance(stall_s, bool) or not 0 < stall_s <= 3600:
         raise ConfigError(f"{path}: {where} stall_s must be a number of seconds above 0")
-    listen, address, arguments = "", "", ()
+    listen, address, arguments, senders, token = "", "", (), (), ""
     if kind == "osc":
         listen, address, arguments = g.get("listen"), g.get("address"), g.get("arguments")
         if not isinstance(listen, str) or ":" not in listen:
@@ -126,6 +128,7 @@ def _garment(path: Path, g: dict, where: str) -> GarmentConfig:
         if not isinstance(arguments, list) or not arguments or not all(isinstance(a, str) for a in arguments):
             raise ConfigError(f"{path}: {where} arguments must list each OSC argument's name "
                               "(\"t_s\" for the device time, \"-\" to ignore one, else a channel name)")
+        senders, token = _osc_input_guard(path, g, where, listen)
     here = path.resolve().parent
     mapping = g.get("mapping")
     return GarmentConfig(
@@ -145,7 +148,36 @@ def _garment(path: Path, g: dict, where: str) -> GarmentConfig:
         simulated=simulated,
         seed=_int(path, g, "seed", 1, where),
         wearer=_int(path, g, "wearer", 0, where),
+        senders=senders,
+        token=token,
     )
+
+
+def _osc_input_guard(path, g: dict, where: str, listen: str) -> tuple[tuple[str, ...], str]:
+    """``senders`` and ``token`` of an OSC sample input. Samples drive cues (a blackout among
+    them), so an input reachable from the network takes them only from listed senders or with
+    the token, as the control port does; on loopback neither is needed."""
+    import ipaddress
+    from .control import MIN_TOKEN, is_loopback
+    senders = g.get("senders", [])
+    token = g.get("token", "")
+    if not isinstance(senders, list) or not all(isinstance(x, str) for x in senders):
+        raise ConfigError(f"{path}: {where} senders must list IP addresses, e.g. [\"10.0.0.21\"]")
+    for x in senders:
+        try:
+            ipaddress.ip_address(x)
+        except ValueError:
+            raise ConfigError(f"{path}: {where} senders: {x!r} is not an IP address") from None
+    if not isinstance(token, str):
+        raise ConfigError(f"{path}: {where} token must be a string")
+    if token and len(token) < MIN_TOKEN:
+        raise ConfigError(f"{path}: {where} token has {len(token)} characters; use at least {MIN_TOKEN}")
+    host = listen.rpartition(":")[0] or "0.0.0.0"
+    if not is_loopback(host) and not senders and not token:
+        raise ConfigError(f"{path}: {where} listen = {listen!r} takes samples from the network, and samples fire "
+                          "cues: list the garment's address in senders = [\"...\"], or set a token (at least "
+                          f"{MIN_TOKEN} characters) that every sample message starts with; or listen on 127.0.0.1")
+    return tuple(senders), token
 
 
 def _int(path, g, key, default, where):
@@ -172,7 +204,7 @@ class ServiceConfig:
 
         [control]
         listen = "127.0.0.1:9100"    # another address than loopback needs token
-        token = "long random text"
+        token = "long random text"  # at least 16 characters; or token_file = "path"
 
         [status]
         to = ["127.0.0.1:9200"]      # OSC/UDP destinations of the status stream
@@ -228,6 +260,18 @@ def load_service(path: str | Path) -> ServiceConfig:
         raise ConfigError(f"{path}: [control] listen must be \"HOST:PORT\"")
     if not isinstance(token, str):
         raise ConfigError(f"{path}: [control] token must be a string")
+    if "token_file" in c:  # keeps the token out of a config that is shared or checked in
+        if token or not isinstance(c["token_file"], str):
+            raise ConfigError(f"{path}: [control] give either token or token_file (a path), not both")
+        tf = Path(c["token_file"]).expanduser()
+        tf = tf if tf.is_absolute() else path.parent / tf
+        try:
+            token = tf.read_text(encoding="utf-8").strip()
+        except (OSError, UnicodeDecodeError) as exc:
+            raise ConfigError(f"{path}: [control] token_file {tf}: {exc}") from None
+    if token and len(token) < 16:
+        raise ConfigError(f"{path}: [control] token has {len(token)} characters; use at least 16 characters of "
+                          "random text (it is all that stands between the network and a panic or a disarm)")
     to = s.get("to", [])
     to = [to] if isinstance(to, str) else to
     if not isinstance(to, list) or not all(isinstance(x, str) and ":" in x for x in to):

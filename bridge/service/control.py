@@ -13,18 +13,60 @@ rules the garment's own gestures trigger).
 from __future__ import annotations
 
 import hmac
+import ipaddress
 import socket
+from collections import Counter
 
 from pythonosc.osc_message import OscMessage, ParseError
+from pythonosc.osc_message_builder import OscMessageBuilder
 
 LOOPBACK = ("127.0.0.1", "::1", "localhost")
+MIN_TOKEN = 16       # characters: a short token can be guessed from the network
+ACK = "/drape/ack"   # the reply to every command: s outcome ("done" | "refused"), s command, s text
 
 
 class TokenMissing(ValueError):
     """A control port reachable from the network without a shared token."""
 
 
+def printable(text, limit: int = 200) -> str:
+    """``text`` from the network, safe to log or forward: control characters (a newline
+    would forge a log line of its own, an escape sequence would repaint a terminal) are
+    written as escapes, and the text is cut to ``limit`` characters."""
+    s = str(text)
+    out = "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in s[:limit])
+    return out + ("..." if len(s) > limit else "")
+
+
+def is_loopback(host: str) -> bool:
+    """True when ``host`` names this machine only. A name is resolved, and every address it
+    resolves to must be loopback (a hosts file can map "localhost" elsewhere)."""
+    try:
+        return ipaddress.ip_address(host).is_loopback
+    except ValueError:
+        pass
+    try:
+        infos = socket.getaddrinfo(host, None, proto=socket.IPPROTO_UDP)
+    except (socket.gaierror, UnicodeError):
+        return False
+    return bool(infos) and all(ipaddress.ip_address(i[4][0].split("%")[0]).is_loopback for i in infos)
+
+
+def check_token(token: str, where: str) -> None:
+    if token and len(token) < MIN_TOKEN:
+        raise TokenMissing(f"{where}: the token has {len(token)} characters; use at least {MIN_TOKEN} "
+                           "(random text, e.g. from `python -c \"import secrets; print(secrets.token_urlsafe(24))\"`)")
+
+
+def ack_message(outcome: str, command: str, text: str) -> bytes:
+    b = OscMessageBuilder(ACK)
+    for a in (outcome, command, printable(text, 400)):
+        b.add_arg(a)
+    return b.build().dgram
+
+
 COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic", "/drape/layer": "layer"}
+INBOX_COMMANDS = dict(COMMANDS, **{"/drape/reload": "reload", "/drape/status": "status"})
 
 
 def parse_host_port(text: str) -> tuple[str, int]:
@@ -39,47 +81,78 @@ class ControlInbox:
 
     It has no token, so it listens on loopback only (TokenMissing otherwise): a control port
     reachable from the network is the service's ``ControlPort`` with ``[control] token``.
+    ``receive`` returns [(command, detail, garment, sender)] and answers what it refused;
+    the loop answers the rest with ``acknowledge``. ``ignored_by`` counts refusals by reason.
     """
 
     def __init__(self, host: str, port: int):
-        if host not in LOOPBACK:
+        if not is_loopback(host):
             raise TokenMissing(f"--listen {host}:{port} would take commands from the network without a token: "
                                "listen on 127.0.0.1, or use a service config with [control] listen and token")
-        self.sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+        self.sock = socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET, socket.SOCK_DGRAM)
         self.sock.bind((host, port))
         self.sock.setblocking(False)
         self.address = self.sock.getsockname()
         self.ignored = 0
         self.last_ignored = ""
+        self.ignored_by: Counter = Counter()
+
+    def _bad(self, why: str, reason: str, peer=None, address: str = "") -> None:
+        self.ignored += 1
+        self.last_ignored = why
+        self.ignored_by[reason] += 1
+        if peer is not None and address.startswith("/drape/"):  # only our own kind of sender gets an answer
+            self.acknowledge(peer, False, address.rsplit("/", 1)[-1], why)
 
     def poll(self, max_messages: int = 64) -> list[tuple[str, str]]:
+        return [(c, d) for c, d, _, _ in self.receive(max_messages)]
+
+    def receive(self, max_messages: int = 64) -> list[tuple[str, str, str, tuple]]:
         out = []
         for _ in range(max_messages):
             try:
-                data, _peer = self.sock.recvfrom(65536)
+                data, peer = self.sock.recvfrom(65536)
             except (BlockingIOError, InterruptedError):
                 break
+            except OSError:  # e.g. an ICMP error from an earlier answer
+                continue
             try:
                 msg = OscMessage(data)
-            except (ParseError, IndexError, ValueError):
-                self.ignored += 1
-                self.last_ignored = "not an OSC message"
+                args = list(msg.params)
+            except Exception:  # noqa: BLE001 - python-osc raises several kinds on hostile bytes
+                self._bad("not an OSC message", "not OSC")
                 continue
-            cmd = COMMANDS.get(msg.address)
+            cmd = INBOX_COMMANDS.get(msg.address)
             if cmd is None:
-                self.ignored += 1
-                self.last_ignored = f"unknown address {msg.address}; use {', '.join(COMMANDS)}"
+                self._bad(f"unknown address {printable(msg.address, 64)}; use {', '.join(INBOX_COMMANDS)}",
+                          "unknown address", peer, msg.address)
                 continue
-            args = list(msg.params)
+            if not all(isinstance(a, str) for a in args):
+                self._bad(f"{msg.address} takes only strings", "bad arguments", peer, msg.address)
+                continue
+            detail = ""
             if cmd == "layer":
-                if len(args) != 1 or not isinstance(args[0], str):
-                    self.ignored += 1
-                    self.last_ignored = "/drape/layer takes one string, the layer's name"
+                if not args:
+                    self._bad("/drape/layer takes one string, the layer's name", "bad arguments", peer, msg.address)
                     continue
-                out.append((cmd, args[0]))
-            else:
-                out.append((cmd, ""))
+                detail = args.pop(0)
+            if len(args) > 1:
+                self._bad(f"{msg.address}: too many arguments", "bad arguments", peer, msg.address)
+                continue
+            out.append((cmd, detail, args[0] if args else "", peer))
         return out
+
+    def acknowledge(self, peer, ok: bool, command: str, text: str) -> None:
+        try:
+            self.sock.sendto(ack_message("done" if ok else "refused", command, text), peer)
+        except OSError:
+            pass
+
+    def take_ignored(self) -> str:
+        """What was ignored since the last call, by reason ("" when nothing was)."""
+        text = ", ".join(f"{n} {why}" for why, n in self.ignored_by.most_common())
+        self.ignored_by.clear()
+        return text
 
     def close(self) -> None:
         self.sock.close()
@@ -107,9 +180,10 @@ class ControlPort:
     """
 
     def __init__(self, host: str, port: int, token: str = ""):
-        if host not in LOOPBACK and not token:
+        if not is_loopback(host) and not token:
             raise TokenMissing(f"the control port would listen on {host}, reachable from the network: "
                                "set [control] token in the config (or listen on 127.0.0.1)")
+        check_token(token, "[control] token")
         self.token = token
         self.sock = socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET, socket.SOCK_DGRAM)
         self.sock.bind((host, port))
@@ -117,10 +191,24 @@ class ControlPort:
         self.address = self.sock.getsockname()
         self.ignored = 0
         self.last_ignored = ""
+        self.ignored_by: Counter = Counter()
 
-    def _bad(self, why: str) -> None:
+    def _bad(self, why: str, reason: str = "other", peer=None, address: str = "") -> None:
         self.ignored += 1
         self.last_ignored = why
+        self.ignored_by[reason] += 1
+        if peer is not None and address.startswith("/drape/"):  # only our own kind of sender gets an answer
+            self.acknowledge(peer, False, address.rsplit("/", 1)[-1], why)
+
+    def acknowledge(self, peer, ok: bool, command: str, text: str) -> None:
+        self.reply(peer, [ack_message("done" if ok else "refused", command, text)])
+
+    def take_ignored(self) -> str:
+        """What was ignored since the last call, by reason ("" when nothing was)."""
+        text = ", ".join(f"{n} {why}" for why, n in self.ignored_by.most_common())
+        self.ignored_by.clear()
+        self.ignored = 0
+        return text
 
     def poll(self, max_messages: int = 64) -> list[tuple[str, str, str, tuple]]:
         out = []
@@ -129,8 +217,7 @@ class ControlPort:
                 data, peer = self.sock.recvfrom(65536)
             except (BlockingIOError, InterruptedError):
                 break
-            except OSError as exc:  # e.g. an ICMP error from an earlier reply
-                self._bad(str(exc))
+            except OSError:  # e.g. an ICMP error from an earlier reply: not a message
                 continue
             got = self.handle(data, peer)
             if got is not None:
@@ -147,29 +234,31 @@ class ControlPort:
             msg = OscMessage(data)
             params = list(msg.params)
         except Exception:  # noqa: BLE001 - python-osc raises several kinds on hostile bytes
-            self._bad("not an OSC message")
+            self._bad("not an OSC message", "not OSC")
             return None
         cmd = PORT_COMMANDS.get(msg.address)
         if cmd is None:
-            self._bad(f"unknown address {msg.address[:64]!r}; use {', '.join(PORT_COMMANDS)}")
+            self._bad(f"unknown address {printable(msg.address, 64)}; use {', '.join(PORT_COMMANDS)}",
+                      "unknown address", peer, msg.address)
             return None
         args = params
         if self.token:
             given = args.pop(0) if args and isinstance(args[0], str) else ""
             if not hmac.compare_digest(given.encode("utf-8", "surrogatepass"), self.token.encode("utf-8")):
-                self._bad(f"{msg.address} from {peer[0]} without the right token")
+                self._bad(f"{msg.address} from {printable(peer[0])} without the right token", "wrong or missing token",
+                          peer, msg.address)
                 return None
         if not all(isinstance(a, str) for a in args):
-            self._bad(f"{msg.address} takes only strings")
+            self._bad(f"{msg.address} takes only strings", "bad arguments", peer, msg.address)
             return None
         detail = ""
         if cmd == "layer":
             if not args:
-                self._bad("/drape/layer needs the layer's name")
+                self._bad("/drape/layer needs the layer's name", "bad arguments", peer, msg.address)
                 return None
             detail = args.pop(0)
         if len(args) > 1:
-            self._bad(f"{msg.address}: too many arguments")
+            self._bad(f"{msg.address}: too many arguments", "bad arguments", peer, msg.address)
             return None
         return (cmd, detail, args[0] if args else "", peer)
 

@@ -35,6 +35,8 @@ import numpy as np
 
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
+from .control import printable
+from .outputwatch import OutputWatch
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
 from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 
@@ -103,6 +105,7 @@ class Garment:
     recent: list = field(default_factory=list)  # (host time, samples) for the rate figure
     latencies_ms: list = field(default_factory=list)
     model_sig: tuple | None = None              # the model file as loaded (see check_model)
+    failures: OutputWatch = field(default_factory=OutputWatch)  # outputs failing, told as it happens
 
     @property
     def flowing(self) -> bool:
@@ -370,18 +373,22 @@ class Service:
         if not events:
             return
         decided = self.clock()
-        self.send(g, g.pipeline.dispatches(events))
+        dispatches, unsent = g.pipeline.dispatches_marked(events)
+        self.send(g, dispatches)
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
         out = []
-        for e in events:
+        for e, disarmed in zip(events, unsent):
             if e.kind == "control":
+                continue
+            out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms, not disarmed))
+            what = f"{g.name}: {e.kind} {e.gesture}{' ' + printable(e.detail) if e.detail else ''} at {e.t_s:.2f} s"
+            if disarmed:
+                log.info("%s; disarmed: not sent", what)
                 continue
             g.latencies_ms.append(lat.send_ms)
             del g.latencies_ms[:-1000]
-            out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms))
-            log.info("%s: %s %s%s at %.2f s; decided %.2f ms, sent %.2f ms after its last sample arrived",
-                     g.name, e.kind, e.gesture, f" {e.detail}" if e.detail else "", e.t_s, lat.decide_ms, lat.send_ms)
+            log.info("%s; decided %.2f ms, sent %.2f ms after its last sample arrived", what, lat.decide_ms, lat.send_ms)
             if self.on_event:
                 self.on_event(g.name, e, lat)
         self.status.send(out)
@@ -397,9 +404,9 @@ class Service:
         if self.control is not None:
             for cmd, detail, target, peer in self.control.poll():
                 self.command(cmd, detail, target, peer)
-            if self.control.ignored:
-                log.warning("control message ignored: %s", self.control.last_ignored)
-                self.control.ignored = 0
+            ignored = self.control.take_ignored()
+            if ignored:  # by reason, so none is lost behind the last one
+                log.warning("control messages ignored: %s (last: %s)", ignored, self.control.last_ignored)
         for g in self.live():
             if g.watcher is not None:
                 change = g.watcher.poll(now)
@@ -407,6 +414,9 @@ class Service:
                     self.apply_reload(g, change)
             if g.state != RUNNING and g.state != FAILED:  # stream time may move while holding
                 self.send(g, g.pipeline.dispatches([]))
+            for text in g.failures.poll(g.outputs, now):
+                log.warning("%s: %s", g.name, text)
+                self.status.send([st.notice(g.name, text)])
             r = g.pipeline.router
             if r is not None and r.warnings:
                 for w in r.warnings:
@@ -417,27 +427,58 @@ class Service:
         return [g for g in self.garments if g.state != FAILED and g.pipeline is not None]
 
     def command(self, cmd: str, detail: str, target: str, peer) -> None:
-        chosen = [g for g in self.live() if not target or g.name == target]
-        if target and not chosen:
-            log.warning("control message for %r: no such running garment (have %s)", target,
-                        ", ".join(g.name for g in self.garments))
-            return
-        if cmd == "status":
+        """One control message; the sender gets an acknowledgement (``ControlPort.acknowledge``)
+        with what was done, or why it was refused."""
+        ok, text = self.carry_out(cmd, detail, target, peer)
+        if not ok:
+            log.warning("control: %s refused: %s", cmd, text)
+        if peer is not None and self.control is not None and cmd != "status":
+            self.control.acknowledge(peer, ok, cmd, text)
+
+    def carry_out(self, cmd: str, detail: str, target: str, peer) -> tuple[bool, str]:
+        if cmd == "status":  # answered with the state itself, failed garments included
             if peer is not None and self.control is not None:
                 now = self.clock()
                 self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
                                    + self.state_messages(now))
-            return
-        log.info("control message: %s%s asked for %s", cmd, f" {detail}" if detail else "", target or "every garment")
+            return True, "status sent"
+        chosen = [g for g in self.live() if not target or g.name == target]
+        if target and not chosen:
+            return False, (f"no such running garment {printable(target)!r} (have "
+                           f"{', '.join(g.name + ('' if g.state != FAILED else ' (failed)') for g in self.garments) or 'none'})")
+        if not chosen:
+            return False, "no garment is running"
+        if cmd == "layer":
+            without = [g.name for g in chosen if g.pipeline.mapping is None or detail not in g.pipeline.mapping.layers]
+            if len(without) == len(chosen):
+                return False, f"no layer {printable(detail)!r} in the mapping of {', '.join(without)}"
+            chosen = [g for g in chosen if g.name not in without]
+        log.info("control message: %s%s asked for %s", cmd, f" {printable(detail)}" if detail else "",
+                 target or "every garment")
+        said, refused = [], []
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
-                if g.watcher is not None:
-                    self.apply_reload(g, g.watcher.reload_now())
+                if g.watcher is None:
+                    refused.append(f"{g.name}: no mapping file")
+                elif self.apply_reload(g, g.watcher.reload_now()):
+                    said.append(f"{g.name}: mapping reloaded ({len(g.pipeline.mapping.rules)} rules)")
+                else:
+                    refused.append(f"{g.name}: mapping not reloaded, the last good one keeps running (see the log)")
             elif cmd == "rebaseline":
                 self.begin_hold(g, "hold still: re-baselining")
+                said.append(f"{g.name}: hold still, re-baselining")
             else:  # arm, disarm, panic, layer: Pipeline.command never presses keys
                 self.deliver(g, g.pipeline.command(cmd, detail), self.clock())
+                r = g.pipeline.router
+                now = "" if r is None else f"{'armed' if r.armed else 'disarmed'}" + (f", layer {r.layer!r}" if r.layer else "")
+                did = {"arm": "armed", "disarm": "disarmed, keys and notes let go",
+                       "panic": "panic, every note, key and light released", "layer": f"layer {detail!r}"}[cmd]
+                said.append(f"{g.name}: {did}" + (f" (now {now})" if now and cmd in ("panic", "layer") else ""))
+        if cmd == "layer":
+            said += [f"{n}: no layer {printable(detail)!r}, unchanged" for n in
+                     [g.name for g in self.live() if (not target or g.name == target) and g not in chosen]]
+        return not refused, "; ".join(said + refused)
 
     def check_model(self, g: Garment) -> None:
         """On reload: say what became of a model file replaced on disk (never swapped live)."""
@@ -449,18 +490,19 @@ class Service:
         log.log(level, "%s: %s", g.name, text)
         self.status.send([st.notice(g.name, text)])
 
-    def apply_reload(self, g: Garment, change) -> None:
+    def apply_reload(self, g: Garment, change) -> bool:
         if change.mapping is None:
             text = "mapping not reloaded, the last good one keeps running; fix: " + "; ".join(change.problems)
             log.error("%s: %s", g.name, text)
             self.status.send([st.notice(g.name, text)])
-            return
+            return False
         old = g.pipeline.mapping
         g.pipeline.swap_mapping(change.mapping)
         reconcile_outputs(g.outputs, old, change.mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
         text = f"mapping reloaded: {len(change.mapping.rules)} rules"
         log.info("%s: %s", g.name, text)
         self.status.send([st.notice(g.name, text)])
+        return True
 
     # -- status -------------------------------------------------------------------------------
 
@@ -472,7 +514,8 @@ class Service:
             layer = p.router.layer if p is not None and p.router is not None else ""
             channels = g.model.channel_names if g.model is not None else ()
             out += st.garment_state(g.name, g.state, armed, layer, g.flowing and g.state != FAILED,
-                                    g.rate_hz(now), g.dropped(), p.samples if p else 0, g.note, channels)
+                                    g.rate_hz(now), g.dropped(), p.samples if p else 0, g.note, channels,
+                                    p.skipped if p else 0)
         return out
 
     def send_levels(self) -> None:

@@ -144,7 +144,8 @@ class Pipeline:
             cut = int(rows[self.shift.fired_at]) + 1  # up to and including the sample it fired at
             events += self._feed(rest[:cut], early)
             i += cut
-            if self.gate.held:  # a posture holds a step too
+            if self.gate.held:  # a posture holds a step too: not a shift, and its end is none either
+                self.shift.dismiss()
                 continue
             names = ", ".join(self.model.channel_names[c] for c in moved)
             events += self._begin_hold(
@@ -196,7 +197,7 @@ class Pipeline:
         self.recogniser = make_recogniser(self.model)  # no window mixes old and new rest
         self._origin = self.samples
         if self.shift is not None:
-            self.shift.reset()
+            self.shift.reset(self.conditioner.state.centre_hz)  # the capture is the rest
         h = self.holds[-1]
         h.end_sample, h.done = self.samples, True
         self.holding, self._held_rows, self._held_n = None, [], 0
@@ -298,6 +299,23 @@ class Pipeline:
         if self.router is None:
             return []
         return self.router.route(events) + self.router.due(self.t_s)
+
+    def dispatches_marked(self, events: list[Event]) -> tuple[list[Dispatch], list[bool]]:
+        """``dispatches(events)``, and for each event whether it went unsent because the
+        garment was disarmed (a gesture or posture event that produced no message), so
+        logs and views never show such an event as sent."""
+        r = self.router
+        if r is None:
+            return [], [False] * len(events)
+        if r.armed and not any(e.kind in ("disarmed", "panic") for e in events):
+            return r.route(events) + r.due(self.t_s), [False] * len(events)
+        out, unsent = [], []
+        for e in events:  # the arming state can change within the list
+            armed = r.armed
+            ds = r.route([e])
+            out += ds
+            unsent.append(e.kind in ("gesture", "entered", "held", "left") and not armed and not ds)
+        return out + r.due(self.t_s), unsent
 
     def stop(self) -> list[Event]:
         """Release held postures: the "left" events to send before shutting down."""

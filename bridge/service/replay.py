@@ -13,7 +13,7 @@ def replay_events(rec, model, mapping=None, block_s: float = 0.1, settle: Settli
     at the same samples whatever the blocks, and hold-still captures take the same samples),
     so a long block only saves per-call work. ``settle``: the ``Settling`` the live chain
     ran with (a service garment: its ``[calibration]``; see ``Service.settling``), None for
-    none (``drape run``, the demo).
+    none (the demo); `drape start` with one [garment] runs with ``Settling()``.
     """
     return replay_take(rec, model, mapping, block_s, settle)[0]
 

@@ -14,6 +14,8 @@ from ..decisions import Event
 from ..outputs import Output
 from ..sources.base import Source
 from ..sources.health import NO_DATA, STREAMING, Watchdog
+from .control import printable
+from .outputwatch import OutputWatch
 from .pipeline import Pipeline
 
 
@@ -23,24 +25,30 @@ class Timing:
 
     decide_ms: float
     send_ms: float
+    disarmed: bool = False  # the event matched nothing because the garment was disarmed: nothing went out
 
 
 @dataclass
 class StopFlag:
     """Set from a signal handler or another thread to end ``run`` after the current block.
 
-    ``request_panic`` (e.g. from SIGUSR1) asks the loop to release every output at once.
+    ``request_panic`` (e.g. from SIGUSR1) asks the loop to release every output at once;
+    ``request_reload`` (SIGHUP) asks it to read the mapping file again.
     """
 
     stopped: bool = False
     reason: str = ""
     panics: int = 0
+    reloads: int = 0
 
     def set(self, reason: str = "") -> None:
         self.stopped, self.reason = True, reason
 
     def request_panic(self) -> None:
         self.panics += 1  # only an integer store: safe from a signal handler
+
+    def request_reload(self) -> None:
+        self.reloads += 1  # the same: the loop does the reading
 
 
 @dataclass
@@ -88,6 +96,15 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
                 report(f"destination {name!r} left out: {exc}")
 
 
+def tell_holds(pipeline: Pipeline, told: int, report) -> int:
+    """Report the pipeline's hold-still captures begun since ``told``; returns how many are told."""
+    from .pipeline import SETTLING
+    holds = getattr(pipeline, "holds", [])
+    for h in holds[told:]:
+        report(h.why if h.state == SETTLING else f"{h.why} ({pipeline.settle.hold_still_s:g} s)")
+    return len(holds)
+
+
 def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: StopFlag | None = None,
         on_event=None, clock=time.monotonic, watcher=None, inbox=None, open_fn=None, report=print,
         stall_s: float | None = None, on_status=None) -> RunStats:
@@ -104,8 +121,11 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     """
     stop = stop or StopFlag()
     stats = RunStats()
-    panics_seen = stop.panics
+    panics_seen, reloads_seen = stop.panics, stop.reloads
     watchdog = Watchdog(stall_s) if stall_s else None
+    failures = OutputWatch()
+    marks = hasattr(pipeline, "dispatches_marked")  # a stand-in pipeline may only route
+    holds_told = tell_holds(pipeline, 0, report)
     reported = None
 
     def send(dispatches) -> None:
@@ -116,40 +136,89 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
 
     def deliver(events: list[Event], arrived: float) -> None:
         decided = clock()
-        send(pipeline.dispatches(events))
+        dispatches, unsent = (pipeline.dispatches_marked(events) if marks else
+                              (pipeline.dispatches(events), [False] * len(events)))
+        send(dispatches)
         sent = clock()
-        for e in events:
+        for e, disarmed in zip(events, unsent):
             if e.kind == "control":
                 stats.controls += 1
             else:
                 stats.events += 1
             if on_event:
-                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3))
+                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3, disarmed))
+
+    def apply(change) -> None:
+        if change.mapping is None:
+            stats.broken_reloads += 1
+            report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
+            return
+        old = pipeline.mapping
+        pipeline.swap_mapping(change.mapping)
+        stats.reloads += 1
+        if open_fn is not None:
+            reconcile_outputs(outputs, old, change.mapping, open_fn, report)
+        m = change.mapping
+        report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
+               + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
+
+    def command(kind: str, detail: str, garment: str) -> tuple[bool, str]:
+        """One control message: (done, what was done or why it was refused)."""
+        name = pipeline.garment or "garment"
+        if garment and garment != pipeline.garment:
+            return False, f"no garment {printable(garment)!r} here; this loop runs {name!r}"
+        if kind == "status":
+            r = pipeline.router
+            return True, (f"{name}: running, {'armed' if r is None or r.armed else 'disarmed'}"
+                          + (f", layer {r.layer!r}" if r is not None and r.layer else "")
+                          + f", {pipeline.samples} samples, {pipeline.skipped} skipped as implausible")
+        if kind == "reload":
+            if watcher is None:
+                return False, f"{name} has no mapping file to reload"
+            change = watcher.reload_now()
+            apply(change)
+            if change.mapping is None:
+                return False, "mapping not reloaded, the last good one keeps running: " + "; ".join(change.problems)
+            return True, f"mapping reloaded: {len(change.mapping.rules)} rules, {len(change.mapping.controls)} controls"
+        if kind == "layer":
+            m = pipeline.mapping
+            if m is None or detail not in m.layers:
+                have = ", ".join(m.layers) if m is not None and m.layers else "none"
+                return False, f"no layer {printable(detail)!r} in the mapping (layers: {have})"
+        if kind not in ("arm", "disarm", "panic", "layer"):
+            return False, f"{kind} is not available in the single-garment loop (use a service config)"
+        deliver(pipeline.command(kind, detail), clock())
+        r = pipeline.router
+        state = "" if r is None else f"; now {'armed' if r.armed else 'disarmed'}" + (f", layer {r.layer!r}" if r.layer else "")
+        done = {"arm": "armed", "disarm": "disarmed: keys and notes let go",
+                "panic": "panic: every note, key and light released", "layer": f"layer {detail!r}"}[kind]
+        return True, f"{name}: {done}{state}"
 
     def poll() -> None:
-        nonlocal panics_seen
+        nonlocal panics_seen, reloads_seen
         if stop.panics != panics_seen:
             panics_seen = stop.panics
             deliver(pipeline.command("panic", "signal"), clock())
         if inbox is not None:
-            for kind, detail in inbox.poll():
-                deliver(pipeline.command(kind, detail), clock())
+            for kind, detail, garment, peer in inbox.receive():
+                ok, text = command(kind, detail, garment)
+                report(("" if ok else "refused: ") + text)
+                inbox.acknowledge(peer, ok, kind, text)
+            ignored = inbox.take_ignored()
+            if ignored:
+                report(f"control messages ignored: {ignored}")
+        if stop.reloads != reloads_seen:  # SIGHUP: read the mapping file again now
+            reloads_seen = stop.reloads
+            if watcher is not None:
+                apply(watcher.reload_now())
+            else:
+                report("reload asked for, but this garment has no mapping file")
         if watcher is not None:
             change = watcher.poll(clock())
-            if change is None:
-                return
-            if change.mapping is None:
-                stats.broken_reloads += 1
-                report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
-                return
-            old = pipeline.mapping
-            pipeline.swap_mapping(change.mapping)
-            stats.reloads += 1
-            if open_fn is not None:
-                reconcile_outputs(outputs, old, change.mapping, open_fn, report)
-            m = change.mapping
-            report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
-                   + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
+            if change is not None:
+                apply(change)
+        for text in failures.poll(outputs, clock()):
+            report(text)
         if pipeline.router is not None and pipeline.router.warnings:
             for w in pipeline.router.warnings:
                 report(w)
@@ -174,6 +243,8 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             stats.blocks += 1
             stats.samples += len(block)
             deliver(events, block.arrived_s)
+            if len(getattr(pipeline, "holds", ())) != holds_told:  # calibration and re-settling, said as the service says them
+                holds_told = tell_holds(pipeline, holds_told, report)
     finally:
         if stop.panics != panics_seen:
             deliver(pipeline.command("panic", "signal"), clock())

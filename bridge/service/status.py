@@ -4,12 +4,13 @@ Addresses (our own design; the table in docs/service.md is the reference):
 
     /drape/alive                  f uptime_s, i garments, i pid                 1 per second
     /drape/g/NAME/state           s state, i armed, s layer, i flowing, f rate_hz,
-                                  i dropped, i samples, s note                  2 per second
+                                  i dropped, i samples, s note, i implausible  2 per second
     /drape/g/NAME/channels        s channel names ...                           with state
     /drape/g/NAME/levels          f level per channel (ΔC/C0 above baseline)    levels_hz
     /drape/g/NAME/top             s class, f probability (three pairs)          levels_hz
     /drape/g/NAME/event           s kind, s gesture, f confidence, f t_s (stream), f arrived_s
-                                  (host monotonic), f decide_ms, f send_ms      each event
+                                  (host monotonic), f decide_ms, f send_ms,
+                                  i sent (0: disarmed, nothing went out)       each event
     /drape/g/NAME/notice          s text (shift found, reload, failure)         when it happens
 
 Building a message is separate from sending it (python-osc style): the functions here return
@@ -36,9 +37,12 @@ def alive(uptime_s: float, garments: int, pid: int) -> bytes:
     return message("/drape/alive", float(uptime_s), int(garments), int(pid))
 
 
-def garment_state(name, state, armed, layer, flowing, rate_hz, dropped, samples, note, channels) -> list[bytes]:
+def garment_state(name, state, armed, layer, flowing, rate_hz, dropped, samples, note, channels,
+                  implausible: int = 0) -> list[bytes]:
+    """``dropped`` counts every sample lost or skipped; ``implausible`` is the part of it the
+    pipeline skipped as far from the resting frequency (a counter glitch)."""
     return [message(f"/drape/g/{name}/state", str(state), int(bool(armed)), str(layer or ""), int(bool(flowing)),
-                    float(rate_hz), int(dropped), int(samples), str(note or "")),
+                    float(rate_hz), int(dropped), int(samples), str(note or ""), int(implausible)),
             message(f"/drape/g/{name}/channels", *[str(c) for c in channels])]
 
 
@@ -54,13 +58,16 @@ def top(name, classes, probabilities, n: int = 3) -> bytes:
     return message(f"/drape/g/{name}/top", *args)
 
 
-def event(name, e, arrived_s: float, decide_ms: float, send_ms: float) -> bytes:
-    return message(f"/drape/g/{name}/event", str(e.kind), str(e.gesture or e.detail), float(e.confidence),
-                   float(e.t_s), float(arrived_s), float(decide_ms), float(send_ms))
+def event(name, e, arrived_s: float, decide_ms: float, send_ms: float, sent: bool = True) -> bytes:
+    """``sent`` False: the garment was disarmed and nothing went out for this event."""
+    from .control import printable  # a layer name from the network is forwarded escaped
+    return message(f"/drape/g/{name}/event", str(e.kind), printable(e.gesture or e.detail), float(e.confidence),
+                   float(e.t_s), float(arrived_s), float(decide_ms), float(send_ms), int(bool(sent)))
 
 
 def notice(name, text: str) -> bytes:
-    return message(f"/drape/g/{name}/notice", str(text))
+    from .control import printable
+    return message(f"/drape/g/{name}/notice", printable(text, 1000))
 
 
 class StatusStream:

@@ -30,8 +30,10 @@ class GarmentView:
     channels: tuple = ()
     levels: tuple = ()
     top: list = field(default_factory=list)
-    events: list = field(default_factory=list)  # (kind, gesture, confidence, send_ms), newest last
+    events: list = field(default_factory=list)  # (kind, gesture, confidence, send_ms, sent), newest last
     notices: list = field(default_factory=list)
+    heard_s: float = 0.0                        # host time of its last state message
+    implausible: int = 0                        # of dropped: skipped as far from rest
 
 
 @dataclass
@@ -43,12 +45,14 @@ class StatusView:
     pid: int = 0
     heard_alive: bool = False
     expected: int = 0          # garments the daemon runs (from its heartbeat)
+    alive_s: float = 0.0       # host time the last heartbeat came in
 
-    def take(self, address: str, args: list) -> None:
+    def take(self, address: str, args: list, now_s: float = 0.0) -> None:
         parts = address.split("/")
         if address == "/drape/alive" and len(args) >= 3:
             self.uptime_s, self.pid, self.heard_alive = float(args[0]), int(args[2]), True
             self.expected = int(args[1])
+            self.alive_s = now_s
             return
         if len(parts) != 5 or parts[1] != "drape" or parts[2] != "g":
             return
@@ -57,6 +61,8 @@ class StatusView:
         if what == "state" and len(args) >= 8:
             g.state, g.armed, g.layer, g.flowing = str(args[0]), bool(args[1]), str(args[2]), bool(args[3])
             g.rate_hz, g.dropped, g.samples, g.note = float(args[4]), int(args[5]), int(args[6]), str(args[7])
+            g.heard_s = now_s
+            g.implausible = int(args[8]) if len(args) >= 9 else 0
         elif what == "channels":
             g.channels = tuple(str(a) for a in args)
         elif what == "levels":
@@ -64,7 +70,8 @@ class StatusView:
         elif what == "top":
             g.top = [(str(args[i]), float(args[i + 1])) for i in range(0, len(args) - 1, 2)]
         elif what == "event" and len(args) >= 7:
-            g.events = (g.events + [(str(args[0]), str(args[1]), float(args[2]), float(args[6]))])[-6:]
+            sent = bool(args[7]) if len(args) >= 8 else True
+            g.events = (g.events + [(str(args[0]), str(args[1]), float(args[2]), float(args[6]), sent)])[-6:]
         elif what == "notice" and args:
             g.notices = (g.notices + [str(args[0])])[-2:]
 
@@ -74,34 +81,78 @@ def bar(value: float, full: float, width: int = 24) -> str:
     return "#" * k + "." * (width - k)
 
 
-def render(view: StatusView, width: int = 78) -> str:
-    """One frame of plain text (no escape codes)."""
-    lines = [f"drape daemon pid {view.pid}, up {view.uptime_s:.0f} s" if view.heard_alive else "waiting for the daemon's heartbeat ..."]
+STALE_S = 3.0  # the daemon sends a heartbeat every second: three missed is silence
+
+
+def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_s: float = STALE_S) -> str:
+    """One frame of plain text (no escape codes). With ``now_s``, a daemon silent for more
+    than ``stale_s`` is said to be so at the top, and every value shown is marked stale."""
+    from .control import printable
+    silent = None
+    if now_s is not None and view.heard_alive and now_s - view.alive_s > stale_s:
+        silent = now_s - view.alive_s
+    if silent is not None:
+        lines = [f"!! NO HEARTBEAT FOR {silent:.0f} s: the daemon (pid {view.pid}) stopped or cannot be heard; "
+                 "everything below is STALE, from when it was last heard"]
+    else:
+        lines = [f"drape daemon pid {view.pid}, up {view.uptime_s:.0f} s" if view.heard_alive else "waiting for the daemon's heartbeat ..."]
+    mark = "STALE " if silent is not None else ""
     for name in sorted(view.garments):
         g = view.garments[name]
-        head = (f"[{name}] {g.state}  {'ARMED' if g.armed else 'disarmed'}  layer {g.layer or '-'}  "
-                f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}")
+        g_stale = mark or ("STALE " if now_s is not None and g.heard_s and now_s - g.heard_s > stale_s else "")
+        head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {'ARMED' if g.armed else 'disarmed'}  "
+                f"layer {printable(g.layer, 32) or '-'}  "
+                f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}"
+                + (f" (implausible {g.implausible})" if g.implausible else ""))
         lines.append(head[:width])
         if g.note:
-            lines.append(f"  note: {g.note}"[:width])
+            lines.append(f"  {g_stale}note: {printable(g.note, 400)}"[:width])
         full = max([0.02] + [abs(v) for v in g.levels])
         for ch, v in zip(g.channels or [f"ch{i}" for i in range(len(g.levels))], g.levels):
-            lines.append(f"  {ch[:14]:<14} {bar(v, full)} {v:+.4f}")
+            lines.append(f"  {g_stale}{printable(ch, 14):<14} {bar(v, full)} {v:+.4f}"[:width])
         if g.top:
-            lines.append("  top: " + "  ".join(f"{c} {p:.2f}" for c, p in g.top))
-        for kind, gesture, conf, send_ms in g.events[-4:]:
-            lines.append(f"  {kind:<9} {gesture:<16} conf {conf:.2f}  sent {send_ms:6.2f} ms after arrival")
+            lines.append(f"  {g_stale}top: " + "  ".join(f"{printable(c, 20)} {p:.2f}" for c, p in g.top))
+        for kind, gesture, conf, send_ms, *rest in g.events[-4:]:
+            sent = rest[0] if rest else True
+            how = f"sent {send_ms:6.2f} ms after arrival" if sent else "disarmed: not sent"
+            lines.append(f"  {kind:<9} {printable(gesture, 32):<16} conf {conf:.2f}  {how}"[:width])
         for n in g.notices:
-            lines.append(f"  ! {n}"[:width])
+            lines.append(f"  ! {printable(n, 1000)}"[:width])
     return "\n".join(lines)
 
 
-def watch(host: str, port: int, once: bool = False, wait_s: float = 5.0, out=None, refresh_hz: float = 15.0) -> int:
+def _width(out) -> int:
+    """The terminal's width (COLUMNS, else the terminal's, else 78) for cutting lines."""
+    import shutil
+    return max(40, shutil.get_terminal_size((78, 24)).columns)
+
+
+class PortBusy(OSError):
+    """Another program (another `drape watch`?) listens on the status port."""
+
+
+def listen_socket(host: str, port: int) -> socket.socket:
+    sock = socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET, socket.SOCK_DGRAM)
+    try:
+        sock.bind((host, port))
+    except OSError as exc:
+        sock.close()
+        import errno
+        if exc.errno == errno.EADDRINUSE:
+            raise PortBusy(f"port {port} on {host} is busy: another program (another drape watch?) listens there. "
+                           f"Pick another with --port N and add \"{host}:N\" to the daemon's [status] to = [...] "
+                           "list (each watcher needs its own port)") from None
+        raise
+    return sock
+
+
+def watch(host: str, port: int, once: bool = False, wait_s: float = 5.0, out=None, refresh_hz: float = 15.0,
+          stale_s: float = STALE_S) -> int:
     """Listen for the stream and redraw; ``once``: print one frame when every garment named
-    so far has sent its state and levels (or after wait_s), then return."""
+    so far has sent its state and levels (or after wait_s), then return. A daemon not heard
+    for ``stale_s`` is shown as silent, its values as stale."""
     out = out or sys.stdout
-    sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
-    sock.bind((host, port))
+    sock = listen_socket(host, port)
     view = StatusView()
     started = time.monotonic()
     next_draw = started
@@ -112,8 +163,8 @@ def watch(host: str, port: int, once: bool = False, wait_s: float = 5.0, out=Non
                 data, _ = sock.recvfrom(65536)
                 try:
                     m = OscMessage(data)
-                    view.take(m.address, list(m.params))
-                except (ParseError, IndexError, ValueError):
+                    view.take(m.address, list(m.params), time.monotonic())
+                except (ParseError, IndexError, ValueError, TypeError):
                     pass
                 ready, _, _ = select.select([sock], [], [], 0)
             now = time.monotonic()
@@ -121,13 +172,13 @@ def watch(host: str, port: int, once: bool = False, wait_s: float = 5.0, out=Non
                 complete = view.heard_alive and len(view.garments) >= max(1, view.expected) and all(
                     g.state != "?" and (g.levels or g.state != "running") for g in view.garments.values())
                 if complete or now - started > wait_s:
-                    out.write(render(view) + "\n")
+                    out.write(render(view, _width(out), now, stale_s) + "\n")
                     out.flush()
                     return 0 if complete else 1
                 continue
             if now >= next_draw:
                 next_draw = now + 1.0 / refresh_hz
-                out.write("\x1b[H\x1b[2J" + render(view).replace("\n", "\x1b[K\n") + "\n")
+                out.write("\x1b[H\x1b[2J" + render(view, _width(out), now, stale_s).replace("\n", "\x1b[K\n") + "\n")
                 out.flush()
     except KeyboardInterrupt:
         return 0
@@ -142,16 +193,36 @@ def command_message(what: str, layer: str = "", garment: str = "", token: str = 
     return b.build().dgram
 
 
+TOKEN_ENV = "DRAPE_TOKEN"
+
+
+@dataclass
+class Answer:
+    """What the daemon said to one command: ``ok`` True (done), False (refused) or None (no
+    answer within the wait), and the lines to print."""
+
+    ok: bool | None
+    lines: list
+
+
 def send_command(to: str, what: str, layer: str = "", garment: str = "", token: str = "",
-                 wait_s: float = 1.0) -> list[str]:
-    """Send one command; for "status", wait for the reply and return it as text lines."""
-    from .control import parse_host_port
-    addr = parse_host_port(to)
-    sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+                 wait_s: float = 1.0) -> Answer:
+    """Send one command and wait up to ``wait_s`` for the daemon's acknowledgement
+    (``/drape/ack``: done or refused, and what it did or why); for "status" the reply is
+    the daemon's state, drawn as `drape watch` does."""
+    from .control import ACK, parse_host_port, printable
+    host, port = parse_host_port(to)
+    try:  # IPv4 first: "localhost" may also name ::1, where a daemon on 127.0.0.1 is not
+        infos = socket.getaddrinfo(host, port, socket.AF_INET, socket.SOCK_DGRAM)
+    except socket.gaierror:
+        try:
+            infos = socket.getaddrinfo(host, port, type=socket.SOCK_DGRAM)
+        except socket.gaierror as exc:
+            raise ValueError(f"cannot resolve {host!r}: {exc}") from None
+    family, _, _, _, addr = infos[0]
+    sock = socket.socket(family, socket.SOCK_DGRAM)
     try:
         sock.sendto(command_message(what, layer, garment, token), addr)
-        if what != "status":
-            return [f"sent {what}{' ' + layer if layer else ''} to {to}" + (f" for {garment}" if garment else "")]
         view = StatusView()
         end = time.monotonic() + wait_s
         while time.monotonic() < end:
@@ -161,12 +232,20 @@ def send_command(to: str, what: str, layer: str = "", garment: str = "", token: 
             try:
                 data, _ = sock.recvfrom(65536)
                 m = OscMessage(data)
+            except ConnectionRefusedError:  # ICMP port unreachable: nothing listens there
+                return Answer(None, [f"nothing is listening on {to} (is the daemon running? is it the right port?)"])
             except (OSError, ParseError, IndexError, ValueError):
-                break
-            view.take(m.address, list(m.params))
-            if view.heard_alive and len(view.garments) >= view.expected and all(
+                continue
+            args = list(m.params)
+            if m.address == ACK and len(args) >= 3:
+                return Answer(args[0] == "done", [("" if args[0] == "done" else "refused: ") + printable(args[2], 400)])
+            view.take(m.address, args)
+            if what == "status" and view.heard_alive and len(view.garments) >= view.expected and all(
                     g.channels or g.state == "failed" for g in view.garments.values()):
-                break
-        return render(view).splitlines() if view.heard_alive else []
+                return Answer(True, render(view).splitlines())
+        if what == "status" and view.heard_alive:
+            return Answer(True, render(view).splitlines())
+        return Answer(None, [f"no answer from {to} within {wait_s:g} s: nothing was confirmed (is the daemon "
+                             "running and listening there? with a token, is it the right one?)"])
     finally:
         sock.close()

@@ -5,9 +5,11 @@ argument is, in order::
 
     [garment]
     input = "osc"
-    listen = "0.0.0.0:9100"
+    listen = "127.0.0.1:9100"       # another address than loopback needs senders or a token
     address = "/jacket/antennas"
     arguments = ["t_s", "left_sleeve", "right_sleeve", "left_front", "right_front"]
+    # senders = ["10.0.0.21"]       # only samples from these addresses
+    # token = "..."                 # or: each message starts with this string (16+ characters)
 
 "t_s" is the device time in seconds (optional), "-" an argument to ignore; every other name
 is a channel, in the model's channel order or not (they are matched by name). Messages may
@@ -45,6 +47,8 @@ class OscInputStats:
     other_address: int = 0   # a message for another address (ignored)
     wrong_count: int = 0     # another number of arguments than the layout names
     out_of_range: int = 0    # not numbers, NaN, inf, zero or negative frequencies
+    not_allowed: int = 0     # from an address not in ``senders``
+    wrong_token: int = 0     # without the token as first argument
 
 
 def parse_listen(spec: str) -> tuple[str, int]:
@@ -67,7 +71,14 @@ class OscUdpSource(Source):
     """
 
     def __init__(self, listen: str, address: str, arguments, rate_hz: float, channel_names=None,
-                 resample: bool = True, wait_s: float = 0.02, clock=time.monotonic):
+                 resample: bool = True, wait_s: float = 0.02, clock=time.monotonic, senders=(), token: str = ""):
+        from ..service.control import is_loopback
+        host, port = parse_listen(listen)
+        if not is_loopback(host) and not senders and not token:
+            raise ValueError(f"OSC input on {listen} would take samples (and so fire cues) from anyone on the "
+                             "network: give senders or a token, or listen on 127.0.0.1")
+        self.senders = frozenset(senders)
+        self.token = token
         self.address = address
         self.arguments = tuple(arguments)
         names = [a for a in self.arguments if a not in (TIME_ARG, SKIP_ARG)]
@@ -93,7 +104,6 @@ class OscUdpSource(Source):
         self.dispatcher = Dispatcher()
         self.dispatcher.map(address, self._on_sample)
         self.dispatcher.set_default_handler(self._on_other)
-        host, port = parse_listen(listen)
         try:
             self.sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
             self.sock.bind((host, port))
@@ -109,6 +119,13 @@ class OscUdpSource(Source):
         self.stats.other_address += 1
 
     def _on_sample(self, address, *args) -> None:
+        if self.token:
+            import hmac
+            given = args[0] if args and isinstance(args[0], str) else ""
+            if not hmac.compare_digest(given.encode("utf-8", "surrogatepass"), self.token.encode("utf-8")):
+                self.stats.wrong_token += 1
+                return
+            args = args[1:]
         if len(args) != len(self.arguments):
             self.stats.wrong_count += 1
             return
@@ -140,10 +157,13 @@ class OscUdpSource(Source):
             ready, _, _ = select.select([self.sock], [], [], self.wait_s)
             while ready:
                 try:
-                    data = self.sock.recv(MAX_DATAGRAM)
+                    data, peer = self.sock.recvfrom(MAX_DATAGRAM)
                 except BlockingIOError:
                     break
-                self.feed_datagram(data)
+                if self.senders and peer[0] not in self.senders:
+                    self.stats.not_allowed += 1
+                else:
+                    self.feed_datagram(data)
         except OSError as exc:
             raise SourceGone(f"OSC input failed: {exc}") from None
         now = self.clock()

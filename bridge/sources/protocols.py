@@ -99,6 +99,11 @@ def describe_counters(c: dict) -> str:
     elif c.get("protocol") == "text":
         s = (f"lines good {c['good']}, skipped {c['malformed'] + c['wrong_count'] + c['out_of_range']} "
              f"(malformed {c['malformed']}, wrong count {c['wrong_count']}, out of range {c['out_of_range']})")
+    elif c.get("protocol") == "osc":
+        kinds = [(k, c.get(k, 0)) for k in ("malformed", "other_address", "wrong_count", "out_of_range",
+                                             "not_allowed", "wrong_token")]
+        s = (f"OSC samples good {c['good']}, ignored {sum(n for _, n in kinds)} ("
+             + ", ".join(f"{k.replace('_', ' ')} {n}" for k, n in kinds) + ")")
     else:
         s = "no samples (protocol not yet known)"
     extra = [f"{k.replace('_', ' ')} {c[k]}" for k in ("gaps", "jumps", "restarts", "reconnects", "outages") if c.get(k)]

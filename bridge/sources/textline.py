@@ -63,6 +63,7 @@ class TextLineParser:
     last_problem: str = ""
     header: tuple[str, ...] | None = None
     held: list = field(default_factory=list)
+    discarding: bool = False  # inside a line already counted as too long: drop up to its newline
 
     @property
     def decided(self) -> bool:
@@ -70,10 +71,16 @@ class TextLineParser:
 
     def feed(self, data: bytes) -> list[tuple[float | None, list[float]]]:
         """Parse bytes; returns the complete good samples as (device time or None, values)."""
+        if self.discarding:  # the rest of a line counted once already
+            end = data.find(b"\n")
+            if end < 0:
+                return []
+            data, self.discarding = data[end + 1:], False
         self.pending += data
         *lines, self.pending = self.pending.split(b"\n")
-        if len(self.pending) > MAX_LINE:  # a line that never ends: drop it, count it
+        if len(self.pending) > MAX_LINE:  # a line that never ends: drop it, count it once
             self.pending = b""
+            self.discarding = True
             self._bad("malformed", "line longer than 4096 bytes")
         out: list = []
         for raw in lines:

@@ -1,0 +1,817 @@
+"""The live surface a technician meets: signals, a closed stdout, acknowledgements, the
+watch view, reloads, network input and counters. Peers are independent where it matters:
+sACN packets are read at the byte offsets of ANSI E1.31-2018 (Table 4-1: options at octet
+112, universe at 113-114), MIDI files are read back with mido."""
+
+import os
+import signal
+import socket
+import subprocess
+import threading
+import time
+
+import pytest
+
+from conftest import ROOT, drape_cmd
+from test_keys import xvfb  # noqa: F401  (Xvfb as the independent key peer)
+
+E131_OPTIONS, E131_UNIVERSE = 112, 113   # ANSI E1.31-2018 Table 4-1 (framing layer)
+STREAM_TERMINATED = 0x40                  # ANSI E1.31-2018 6.2.6: options bit 6
+
+
+def wait_for(condition, timeout_s=20.0, what="condition"):
+    end = time.monotonic() + timeout_s
+    while time.monotonic() < end:
+        if condition():
+            return
+        time.sleep(0.05)
+    raise AssertionError(f"timed out waiting for {what}")
+
+
+class SacnPeer:
+    """A UDP socket on loopback collecting sACN packets: (options, universe, slots)."""
+
+    def __init__(self):
+        self.sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+        self.sock.bind(("127.0.0.1", 0))
+        self.sock.settimeout(0.1)
+        self.port = self.sock.getsockname()[1]
+        self.packets = []
+        self.done = threading.Event()
+        threading.Thread(target=self._run, daemon=True).start()
+
+    def _run(self):
+        while not self.done.is_set():
+            try:
+                data = self.sock.recv(1024)
+            except (socket.timeout, OSError):
+                continue
+            self.packets.append((data[E131_OPTIONS], int.from_bytes(data[E131_UNIVERSE:E131_UNIVERSE + 2], "big"),
+                                 data[126:]))
+
+    def terminated(self):
+        return [p for p in self.packets if p[0] & STREAM_TERMINATED]
+
+    def close(self):
+        self.done.set()
+        self.sock.close()
+
+
+def demo_mapping(tmp_path, sacn_port, mid):
+    text = (ROOT / "mappings" / "demo.toml").read_text().replace("127.0.0.1:9000", "127.0.0.1:9")
+    text += (f'\n[destinations.rig]\nsacn = 7\nhost = "127.0.0.1"\nport = {sacn_port}\nsafe = {{ 1 = 200 }}\n'
+             f'\n[destinations.synth]\nmidi_file = "{mid}"\n'
+             '\n[[rule]]\ngesture = "raise_right"\nto = "synth"\nnote = 64\nlength_s = 30\n')
+    path = tmp_path / "demo.toml"
+    path.write_text(text)
+    return path
+
+
+def _demo(tmp_path, model, mapping, *extra):
+    proc = subprocess.Popen(drape_cmd("demo", "--mapping", str(mapping), "--for", "120", "--model", str(model), *extra),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    out, err = [], []
+    threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True).start()
+    threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+    wait_for(lambda: any("performing" in l for l in out), 60, "the demo to start")
+    return proc, out, err
+
+
+def test_sighup_to_the_demo_reloads_and_every_ending_signal_lets_go(tmp_path, demo_model_file):
+    from test_faults import _unmatched_note_ons
+    peer = SacnPeer()
+    mid = tmp_path / "show.mid"
+    mapping = demo_mapping(tmp_path, peer.port, mid)
+    pid_file = tmp_path / "drape.pid"
+    proc, out, err = _demo(tmp_path, demo_model_file, mapping, "--pid-file", str(pid_file))
+    try:
+        assert int(pid_file.read_text()) == proc.pid  # `kill -USR1 "$(cat FILE)"` hits this process only
+        time.sleep(1.0)
+        proc.send_signal(signal.SIGHUP)  # a closed terminal: must not end the show unclean
+        wait_for(lambda: any("mapping reloaded" in l for l in err), 10, "SIGHUP to reload the mapping")
+        time.sleep(0.3)
+        assert proc.poll() is None
+        proc.send_signal(signal.SIGQUIT)
+        assert proc.wait(30) == 0
+    finally:
+        proc.kill()
+        peer.close()
+    text = "".join(err)
+    assert "Traceback" not in text
+    assert "output rig: sent" in text and "output synth: sent" in text
+    ended = peer.terminated()
+    assert len(ended) == 3 and all(u == 7 for _, u, _ in ended)   # E1.31 6.2.6: three terminated packets
+    assert ended[0][2][0] == 200                                  # the safe look in slot 1
+    assert _unmatched_note_ons(mid) == set()
+    assert not pid_file.exists()  # removed at exit
+
+
+@pytest.mark.parametrize("how", ["SIGHUP then SIGTERM", "SIGQUIT"])
+def test_a_hangup_or_quit_to_the_single_loop_never_leaves_a_key_or_note_held(how, xvfb, tmp_path, demo_model_file):
+    import mido
+    from bridge.garment import Jacket
+    from bridge.sources.textline import format_line
+    from test_faults import HOLD_MAPPING, _unmatched_note_ons
+    from test_keys import _keys_down
+    take = Jacket(seed=1, wearer=0, session=5).perform([("standing", 4.0), ("arms_crossed", 120.0)])
+    lines = [format_line(v) for v in take.freq_hz]
+    mid = tmp_path / "show.mid"
+    (tmp_path / "hold.toml").write_text(HOLD_MAPPING.format(mid=mid))
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "hold.toml"\n')
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    out, err, done = [], [], threading.Event()
+    threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True).start()
+
+    def garment():
+        os.write(master, b"".join(lines[:800]))
+        i = 800
+        while not done.is_set() and i < len(lines):
+            os.write(master, b"".join(lines[i:i + 5]))
+            i += 5
+            time.sleep(0.04)
+
+    try:
+        assert "on " + os.ttyname(slave) in proc.stderr.readline()
+        threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+        threading.Thread(target=garment, daemon=True).start()
+        wait_for(lambda: any("arms_crossed" in l and "entered" in l for l in out), 60, "the posture to be entered")
+        wait_for(lambda: len(_keys_down(xvfb)) == 1, 20, "shift to be held down")
+        if how.startswith("SIGHUP"):
+            proc.send_signal(signal.SIGHUP)
+            wait_for(lambda: any("mapping reloaded" in l for l in err), 10, "SIGHUP to reload the mapping")
+            assert proc.poll() is None and len(_keys_down(xvfb)) == 1  # same destination: kept, still held
+            proc.send_signal(signal.SIGTERM)
+        else:
+            proc.send_signal(signal.SIGQUIT)
+        assert proc.wait(30) == 0
+    finally:
+        done.set()
+        proc.kill()
+        os.close(master)
+        os.close(slave)
+    time.sleep(0.2)
+    assert _keys_down(xvfb) == []
+    assert "Traceback" not in "".join(err)
+    msgs = [m for m in mido.MidiFile(mid).tracks[0] if not m.is_meta]
+    assert any(m.type == "note_on" and m.velocity > 0 and m.note == 60 for m in msgs)
+    assert _unmatched_note_ons(mid) == set()
+
+
+def test_a_closed_stdout_does_not_stop_the_show(tmp_path, demo_model_file):
+    peer = SacnPeer()
+    mid = tmp_path / "show.mid"
+    mapping = demo_mapping(tmp_path, peer.port, mid)
+    r, w = os.pipe()
+    proc = subprocess.Popen(drape_cmd("demo", "--mapping", str(mapping), "--for", "120", "--model", str(demo_model_file)),
+                            stdout=w, stderr=subprocess.PIPE, text=True)
+    os.close(w)
+    err = []
+    threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+    try:
+        reader = os.fdopen(r, "r")
+        got = []
+        while not any("performing" in l for l in got):
+            got.append(reader.readline())
+        reader.close()  # the `| head` is gone
+        wait_for(lambda: any("standard output closed" in l for l in err), 60, "the closed stdout to be noticed")
+        time.sleep(1.0)
+        assert proc.poll() is None  # still running the show
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(30) == 0
+    finally:
+        proc.kill()
+        peer.close()
+    text = "".join(err)
+    assert "Traceback" not in text and "Exception ignored" not in text
+    assert sum("standard output closed" in l for l in err) == 1
+    assert len(peer.terminated()) == 3
+
+
+# ---- commands are acknowledged ---------------------------------------------------------------
+
+def free_port():
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+def test_send_with_nobody_listening_fails(capsys):
+    from bridge.cli import main
+    assert main(["send", "panic", "--port", str(free_port()), "--wait-s", "0.5"]) != 0
+    err = capsys.readouterr().err
+    assert "sent panic" not in err and ("nothing is listening" in err or "no answer" in err)
+
+
+class IdleSource:
+    """A garment that sends nothing: the loop keeps polling its inbox."""
+    ended = False
+    connected = True
+    rate_hz = 100.0
+
+    def __init__(self, n):
+        self.n = n
+
+    def read(self):
+        from bridge.sources.base import empty_block
+        time.sleep(0.01)
+        return empty_block(self.n, time.monotonic())
+
+
+LAYERED = """
+[destinations.show]
+osc = "127.0.0.1:9"
+[layers]
+first = "act1"
+[[rule]]
+gesture = "bow"
+layer = "act1"
+to = "show"
+address = "/x"
+[[rule]]
+gesture = "bow"
+layer = "act2"
+to = "show"
+address = "/y"
+"""
+
+
+def test_the_single_loop_acknowledges_every_command_and_refuses_what_it_cannot_do(demo_model, capsys):
+    from bridge.cli import main
+    from bridge.mapping import parse_mapping
+    from bridge.service import Pipeline, StopFlag, run
+    from bridge.service.control import ControlInbox
+    m = parse_mapping(LAYERED, "m.toml", demo_model.classes, demo_model.kinds, demo_model.channel_names)
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, said = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"), {},
+                                              stop), kwargs=dict(inbox=inbox, report=said.append), daemon=True)
+    loop.start()
+    port = str(inbox.address[1])
+    try:
+        def send(*a):
+            code = main(["send", *a, "--port", port])
+            return code, capsys.readouterr()
+        code, r = send("layer", "act2")
+        assert code == 0 and "layer 'act2'" in r.out
+        code, r = send("layer", "act9")
+        assert code != 0 and "refused" in r.err and "no layer 'act9'" in r.err and "act1, act2" in r.err
+        code, r = send("panic", "--garment", "nobody")
+        assert code != 0 and "no garment 'nobody'" in r.err
+        code, r = send("panic")
+        assert code == 0 and "panic" in r.out
+        code, r = send("rebaseline")
+        assert code != 0 and "refused" in r.err
+        code, r = send("layer", "a\nFAKE drape: armed")   # a forged log line stays on its line
+        assert code != 0
+        assert not any(line.startswith("FAKE") for s in said for line in s.splitlines())
+        assert any("\\n" in s for s in said)
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+
+
+TOKEN = "a-show-token-of-some-length"
+
+
+def _service(tmp_path, model, ctl, extra="", status_port=None, mapping=LAYERED, name="lead"):
+    (tmp_path / "m.toml").write_text(mapping)
+    (tmp_path / "show.toml").write_text(
+        f'[[garment]]\nname = "{name}"\nsimulated = true\nmodel = "{model}"\nmapping = "m.toml"\n'
+        f'[control]\nlisten = "127.0.0.1:{ctl}"\n{extra}\n[calibration]\nhold_still_s = 0.2\n'
+        + (f'[status]\nto = ["127.0.0.1:{status_port}"]\n' if status_port else ""))
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    err = []
+    threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+    wait_for(lambda: any("running 1 garment" in l for l in err) or proc.poll() is not None, 60, "the service to start")
+    return proc, err
+
+
+def test_the_service_acknowledges_and_refuses_with_reasons(tmp_path, demo_model_file):
+    ctl = free_port()
+    (tmp_path / "token").write_text(TOKEN + "\n")
+    proc, err = _service(tmp_path, demo_model_file, ctl, 'token_file = "token"')
+
+    def send(*a, env=None):
+        r = subprocess.run(drape_cmd("send", *a, "--port", str(ctl)), capture_output=True, text=True, timeout=20,
+                           env=dict(os.environ, **(env or {})))
+        return r.returncode, r.stdout + r.stderr
+    try:
+        code, text = send("panic")                                        # no token
+        assert code != 0 and "refused" in text and "token" in text
+        code, text = send("panic", env={"DRAPE_TOKEN": "not-the-token-at-all"})
+        assert code != 0 and "refused" in text and "token" in text
+        code, text = send("layer", "act9", env={"DRAPE_TOKEN": TOKEN})
+        assert code != 0 and "no layer 'act9'" in text
+        code, text = send("arm", "--garment", "nobody", env={"DRAPE_TOKEN": TOKEN})
+        assert code != 0 and "no such running garment 'nobody'" in text and "lead" in text
+        code, text = send("panic", "--token-file", str(tmp_path / "token"))
+        assert code == 0 and "lead: panic" in text
+        code, text = send("layer", "act2", env={"DRAPE_TOKEN": TOKEN})
+        assert code == 0 and "lead: layer 'act2'" in text
+        wait_for(lambda: any("control messages ignored: 1 wrong or missing token" in l or
+                             "control messages ignored: 2 wrong or missing token" in l for l in err), 5,
+                 "ignored messages counted by reason")
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        proc.wait(30)
+
+
+def test_short_tokens_are_refused(tmp_path):
+    from bridge.service.config import ConfigError, load_service
+    from bridge.service.control import ControlPort, TokenMissing
+    (tmp_path / "s.toml").write_text('[[garment]]\nname = "a"\nsimulated = true\nmodel = "a.npz"\n'
+                                     '[control]\nlisten = "0.0.0.0:9100"\ntoken = "s3cret"\n')
+    with pytest.raises(ConfigError, match="at least 16"):
+        load_service(tmp_path / "s.toml")
+    with pytest.raises(TokenMissing, match="at least 16"):
+        ControlPort("127.0.0.1", 0, "s3cret")
+
+
+def test_localhost_is_resolved_and_must_be_loopback(monkeypatch):
+    from bridge.service import control
+    assert control.is_loopback("localhost") and control.is_loopback("127.0.0.5") and control.is_loopback("::1")
+    assert not control.is_loopback("0.0.0.0") and not control.is_loopback("192.0.2.1")  # RFC 5737 documentation net
+    real = socket.getaddrinfo
+    monkeypatch.setattr(control.socket, "getaddrinfo",   # a hosts file that maps localhost elsewhere
+                        lambda host, *a, **k: [(2, 2, 17, "", ("192.0.2.7", 0))] if host == "localhost" else real(host, *a, **k))
+    with pytest.raises(control.TokenMissing):
+        control.ControlInbox("localhost", 0)
+    with pytest.raises(control.TokenMissing):
+        control.ControlPort("localhost", 0)
+
+
+# ---- the watch view, disarmed events, output failures --------------------------------------------
+
+def _status(address, *args):
+    from bridge.service.status import message
+    return message(address, *args)
+
+
+def test_watch_says_when_the_daemon_went_silent_and_marks_every_value_stale():
+    from bridge.service.watch import StatusView, render
+    v = StatusView()
+    v.take("/drape/alive", [12.0, 1, 4242], now_s=100.0)
+    v.take("/drape/g/jacket/state", ["running", 1, "act1", 1, 99.3, 0, 5000, ""], now_s=100.0)
+    v.take("/drape/g/jacket/channels", ["left_sleeve"], now_s=100.0)
+    v.take("/drape/g/jacket/levels", [0.01], now_s=100.0)
+    live = render(v, 200, now_s=101.0)
+    assert "NO HEARTBEAT" not in live and "STALE" not in live and "running  ARMED" in live
+    dead = render(v, 200, now_s=112.5)
+    assert "NO HEARTBEAT FOR 12 s" in dead.splitlines()[0]
+    body = dead.splitlines()[1:]
+    assert body and all("STALE" in line for line in body if "jacket" in line or "left_sleeve" in line or "top" in line)
+
+
+def test_watch_redraws_with_the_terminal_width_and_goes_stale(tmp_path):
+    port = free_port()
+    proc = subprocess.Popen(drape_cmd("watch", "--port", str(port)), stdout=subprocess.PIPE, stderr=subprocess.PIPE,
+                            env=dict(os.environ, COLUMNS="220"))
+    got = bytearray()
+    threading.Thread(target=lambda: [got.extend(b) for b in iter(lambda: proc.stdout.read1(4096), b"")],
+                     daemon=True).start()
+    note = "settling: " + "x" * 150 + " END"
+    try:
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            end = time.monotonic() + 30
+            while b"END" not in got and time.monotonic() < end:  # a heartbeat a second, as the daemon sends
+                s.sendto(_status("/drape/alive", 3.0, 1, 4242), ("127.0.0.1", port))
+                s.sendto(_status("/drape/g/jacket/state", "settling", 1, "", 1, 99.3, 0, 100, note), ("127.0.0.1", port))
+                time.sleep(0.5)
+        assert b"END" in got, "the note was never drawn"
+        assert b"NO HEARTBEAT" not in got
+        wait_for(lambda: b"NO HEARTBEAT FOR" in got, 6, "the silence to be shown")
+        last = got[got.rindex(b"\x1b[H"):].decode()
+        assert "STALE [jacket]" in last and "END" in last   # a long line is not cut at 78 columns
+    finally:
+        proc.terminate()
+        proc.wait(10)
+
+
+def test_a_second_watch_on_a_busy_port_explains_instead_of_a_traceback(capsys):
+    from bridge.cli import main
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as busy:
+        busy.bind(("127.0.0.1", 0))
+        code = main(["watch", "--port", str(busy.getsockname()[1]), "--once", "--wait-s", "0.2"])
+    err = capsys.readouterr().err
+    assert code != 0 and "busy" in err and "--port" in err and "Traceback" not in err
+
+
+def test_disarmed_events_are_marked_not_sent_in_every_view(demo_model, capsys):
+    from bridge.cli import _print_event
+    from bridge.decisions.gate import Event
+    from bridge.mapping import parse_mapping
+    from bridge.service import Pipeline, Timing
+    from bridge.service.status import event
+    from bridge.service.watch import StatusView, render
+    from pythonosc.osc_message import OscMessage
+    m = parse_mapping('[destinations.show]\nosc = "127.0.0.1:9"\n[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/b"\n'
+                      '[safety]\nstart = "disarmed"\n', "m.toml", demo_model.classes, demo_model.kinds,
+                      demo_model.channel_names)
+    p = Pipeline(demo_model, m, "jacket")
+    bow = Event(1.0, "bow", "gesture", 0.9)
+    sent, unsent = p.dispatches_marked([bow])
+    assert sent == [] and unsent == [True]
+    sent, unsent = p.dispatches_marked(p.command("arm") + [bow])
+    assert len(sent) >= 1 and unsent[-1] is False
+    _print_event(bow, Timing(0.4, 1.85, disarmed=True))
+    _print_event(bow, Timing(0.4, 1.85))
+    out = capsys.readouterr().out.splitlines()
+    assert "disarmed: not sent" in out[0] and "latency" not in out[0] and "latency  1.85 ms" in out[1]
+    v = StatusView()
+    for sent_flag in (False, True):
+        msg = OscMessage(event("jacket", bow, 0.0, 0.4, 1.85, sent_flag))
+        v.take(msg.address, list(msg.params))
+    lines = [l for l in render(v, 200).splitlines() if "bow" in l]
+    assert "disarmed: not sent" in lines[0] and "sent" in lines[1] and "disarmed" not in lines[1]
+
+
+class FailingOutput:
+    """An output whose destination went away after its first message."""
+
+    def __init__(self):
+        from bridge.outputs.base import OutputStats
+        self.stats = OutputStats()
+        self.name = "kb"
+
+    def send(self, message):
+        if self.stats.sent == 0:
+            self.stats.sent += 1
+        else:
+            self.stats.dropped += 1
+            self.stats.last_error = "ConnectionClosedError: Display connection closed by server"
+        return True
+
+    def close(self):
+        pass
+
+
+def test_output_failures_are_told_as_they_happen_at_most_once_per_interval():
+    from bridge.service.outputwatch import OutputWatch
+    o = FailingOutput()
+    w = OutputWatch(every_s=5.0)
+    outs = {"kb": o}
+    assert w.poll(outs, 0.0) == []
+    o.send(1)
+    assert w.poll(outs, 0.1) == []         # worked: nothing to say
+    o.send(2)
+    [first] = w.poll(outs, 0.2)
+    assert "output kb failing: ConnectionClosedError" in first and "1 message(s) not sent" in first
+    for t in (0.3, 1.0, 4.0):
+        o.send(3)
+        assert w.poll(outs, t) == []      # rate-limited per destination
+    [again] = w.poll(outs, 5.3)
+    assert "3 message(s) not sent since the last notice" in again
+
+
+def test_the_live_loop_reports_a_failing_output_while_running(demo_model):
+    from bridge.mapping import parse_mapping
+    from bridge.mapping.messages import OscMessage
+    from bridge.service import Pipeline, StopFlag, run
+    m = parse_mapping('[destinations.kb]\nosc = "127.0.0.1:9"\n', "m.toml", demo_model.classes, demo_model.kinds,
+                      demo_model.channel_names)
+    o = FailingOutput()
+    stop, said = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"),
+                                              {"kb": o}, stop), kwargs=dict(report=said.append), daemon=True)
+    loop.start()
+    try:
+        o.send(OscMessage("/a", ()))
+        o.send(OscMessage("/a", ()))
+        wait_for(lambda: any("output kb failing" in s for s in said), 5, "the failure to be reported while running")
+    finally:
+        stop.set("test")
+        loop.join(10)
+
+
+def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_closes_quietly(tmp_path, demo_model_file):
+    import shutil
+    if shutil.which("Xvfb") is None:
+        pytest.skip("Xvfb is not installed (Debian package xvfb)")
+    import importlib.util
+    if importlib.util.find_spec("pynput") is None:  # importing it needs a display
+        pytest.skip("pynput (extra 'keys') is not installed")
+    from bridge.garment import Jacket
+    from bridge.sources.textline import format_line
+    n = next(n for n in range(201, 300) if not os.path.exists(f"/tmp/.X{n}-lock"))
+    xvfb = subprocess.Popen(["Xvfb", f":{n}", "-nolisten", "tcp"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
+    wait_for(lambda: os.path.exists(f"/tmp/.X11-unix/X{n}"), 10, "Xvfb")
+    take = Jacket(seed=1, wearer=0, session=5).perform([("standing", 8.0), ("arms_crossed", 60.0)])
+    lines = [format_line(v) for v in take.freq_hz]
+    (tmp_path / "keys.toml").write_text('[destinations.kb]\nkeys = "x11"\n[[rule]]\ngesture = "arms_crossed"\n'
+                                        'on = "entered"\nto = "kb"\nkeys = "shift"\nhold = true\n')
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "keys.toml"\n')
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True, env=dict(os.environ, DISPLAY=f":{n}"))
+    out, err, done = [], [], threading.Event()
+    threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True).start()
+    threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+
+    def garment():
+        i = 0
+        while not done.is_set() and i < len(lines):
+            os.write(master, b"".join(lines[i:i + 10]))
+            i += 10
+            time.sleep(0.05)
+    try:
+        wait_for(lambda: any(" on " in l for l in err), 30, "drape to start")
+        xvfb.terminate()  # the display goes away mid-show
+        xvfb.wait(5)
+        threading.Thread(target=garment, daemon=True).start()
+        wait_for(lambda: any("arms_crossed" in l and "entered" in l for l in out), 60, "the posture")
+        wait_for(lambda: any("output kb failing" in l for l in err), 10, "the failure to be told while running")
+        assert proc.poll() is None
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(30) == 0
+    finally:
+        done.set()
+        proc.kill()
+        xvfb.kill()
+        os.close(master)
+        os.close(slave)
+    time.sleep(0.2)
+    text = "".join(err)
+    assert "Exception ignored" not in text and "Traceback" not in text
+    assert "output kb: sent" in text
+
+
+# ---- hot reload that cannot blank the stage ------------------------------------------------------
+
+def test_a_half_written_or_empty_mapping_is_never_applied(tmp_path, demo_model):
+    from bridge.mapping import MappingWatcher
+    f = tmp_path / "show.toml"
+    good = '[destinations.show]\nosc = "127.0.0.1:9"\n[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/b"\n'
+    f.write_text(good)
+    w = MappingWatcher(f, demo_model.classes, demo_model.kinds, demo_model.channel_names, interval_s=0.1)
+    f.write_text('[destinations.show]\nosc = "127.0.0.1:9"\n')   # caught mid-write: parses, 0 rules
+    assert w.poll(0.1) is None                                     # seen changing: not applied yet
+    f.write_text(good + '[[rule]]\ngesture = "raise_right"\nto = "show"\naddress = "/r"\n')
+    assert w.poll(0.2) is None                                     # still changing
+    r = w.poll(0.3)
+    assert r.mapping is not None and len(r.mapping.rules) == 2     # the whole file, once it held still
+    running = w.mapping
+    f.write_text("")                                               # `echo -n > show.toml`, a failed copy
+    assert w.poll(0.4) is None
+    r = w.poll(0.5)
+    assert r.mapping is None and "no destinations and no rules" in r.problems[0] and w.mapping is running
+    assert w.poll(0.6) is None                                     # said once
+    r = w.reload_now()                                             # SIGHUP: the same refusal
+    assert r.mapping is None and "no destinations and no rules" in r.problems[0]
+    # a show that ran with an empty file may save an empty file again
+    f.write_text("")
+    w2 = MappingWatcher(f, demo_model.classes, demo_model.kinds, demo_model.channel_names, interval_s=0.0)
+    f.write_text("# still nothing\n")
+    assert w2.poll(1.0) is None and w2.poll(2.0).mapping is not None
+
+
+class Counted:
+    opened = 0
+
+    def __init__(self, d):
+        from bridge.outputs.base import OutputStats
+        Counted.opened += 1
+        self.d, self.closed, self.stats = d, False, OutputStats()
+
+    def send(self, m):
+        return True
+
+    def close(self):
+        self.closed = True
+
+
+def test_a_reload_keeps_outputs_whose_settings_did_not_change(tmp_path):
+    from bridge.mapping import parse_mapping
+    from bridge.service.runner import reconcile_outputs
+    a = parse_mapping('[destinations.rig]\nsacn = 7\nhost = "127.0.0.1"\n[destinations.show]\nosc = "127.0.0.1:9"\n'
+                      '[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/b"\n', "m.toml", ("null", "bow"),
+                      {"bow": "gesture"})
+    b = parse_mapping('# a comment moves every line\n[destinations.rig]\nsacn = 7\nhost = "127.0.0.1"\n'
+                      '[destinations.show]\nosc = "127.0.0.1:10"\n[destinations.more]\nosc = "127.0.0.1:11"\n'
+                      '[[rule]]\ngesture = "bow"\nto = "more"\naddress = "/c"\n', "m.toml", ("null", "bow"),
+                      {"bow": "gesture"})
+    outputs = {n: Counted(d) for n, d in a.destinations.items()}
+    rig, show = outputs["rig"], outputs["show"]
+    said = []
+    reconcile_outputs(outputs, a, b, Counted, said.append)
+    assert outputs["rig"] is rig and not rig.closed               # same settings: untouched
+    assert show.closed and outputs["show"] is not show            # changed port: reopened
+    assert "more" in outputs and not any("rig" in s for s in said)
+
+
+def test_sacn_sends_the_safe_look_at_start_unless_told_not_to(tmp_path):
+    from bridge.mapping import parse_mapping
+    from bridge.outputs import open_output
+    peer = SacnPeer()
+    try:
+        for at_start, want in (("", 1), ("safe_at_start = false\n", 0)):
+            m = parse_mapping(f'[destinations.rig]\nsacn = 9\nhost = "127.0.0.1"\nport = {peer.port}\nsafe = {{ 3 = 77 }}\n'
+                              + at_start, "m.toml")
+            n = len(peer.packets)
+            out = open_output(m.destinations["rig"])
+            time.sleep(0.5)  # no cue at all
+            got = peer.packets[n:]
+            out.close()
+            if want:
+                assert got and got[0][1] == 9 and got[0][2][2] == 77 and not got[0][0] & STREAM_TERMINATED
+            else:
+                assert got == []
+    finally:
+        peer.close()
+
+
+def test_an_empty_save_in_the_middle_of_a_show_closes_and_reopens_nothing(tmp_path):
+    from bridge.mapping import MappingWatcher
+    from bridge.service import Pipeline, StopFlag, run
+    from test_hot_reload import TEMPLATE, ScriptedSource, small_model
+    f = tmp_path / "show.toml"
+    full = TEMPLATE.format(address="/a")
+    f.write_text(full)
+    model = small_model()
+    w = MappingWatcher(f, model.classes, model.kinds, model.channel_names, interval_s=0.0)
+    outputs = {"desk": Counted(w.mapping.destinations["desk"])}
+    desk = outputs["desk"]
+    Counted.opened = 0
+    said = []
+    edits = {5: lambda: f.write_text(""), 10: lambda: f.write_text(full + "\n# saved again\n")}
+    run(ScriptedSource(16, edits), Pipeline(model, w.mapping), outputs, StopFlag(), watcher=w, open_fn=Counted,
+        report=said.append)
+    assert outputs["desk"] is desk and not desk.closed and Counted.opened == 0
+    assert any("no destinations and no rules" in s for s in said)
+
+
+# ---- network input ------------------------------------------------------------------------------
+
+def test_osc_sample_input_off_loopback_needs_senders_or_a_token(tmp_path):
+    from bridge.service.config import ConfigError, load_config
+    from bridge.sources.oscinput import OscUdpSource
+    body = '[garment]\nmodel = "m.npz"\ninput = "osc"\nlisten = "0.0.0.0:9100"\naddress = "/j"\narguments = ["a"]\n'
+    (tmp_path / "g.toml").write_text(body)
+    with pytest.raises(ConfigError, match="senders"):
+        load_config(tmp_path / "g.toml")
+    (tmp_path / "g.toml").write_text(body + 'token = "short"\n')
+    with pytest.raises(ConfigError, match="at least 16"):
+        load_config(tmp_path / "g.toml")
+    (tmp_path / "g.toml").write_text(body + 'senders = ["10.0.0.21"]\n')
+    assert load_config(tmp_path / "g.toml").senders == ("10.0.0.21",)
+    with pytest.raises(ValueError, match="senders or a token"):
+        OscUdpSource("0.0.0.0:0", "/j", ["a"], 100.0)
+
+
+def _osc(address, *args):
+    from pythonosc.osc_message_builder import OscMessageBuilder
+    b = OscMessageBuilder(address)
+    for a in args:
+        b.add_arg(a)
+    return b.build().dgram
+
+
+def _read_all(src, want, timeout_s=5.0):
+    got, end = 0, time.monotonic() + timeout_s
+    while got < want and time.monotonic() < end:
+        got += len(src.read())
+    return got
+
+
+def test_osc_sample_input_takes_only_listed_senders_or_the_token():
+    from bridge.sources.oscinput import OscUdpSource
+    from bridge.sources.protocols import describe_counters
+    tok = "board-token-0123456789"
+    src = OscUdpSource("127.0.0.1:0", "/j", ["a", "b"], 100.0, token=tok)
+    other = OscUdpSource("127.0.0.1:0", "/j", ["a", "b"], 100.0, senders=["127.0.0.9"])
+    try:
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            for _ in range(5):
+                s.sendto(_osc("/j", 1000.0, 2000.0), ("127.0.0.1", src.port))        # no token
+                s.sendto(_osc("/j", "wrong-token-of-length", 1000.0, 2000.0), ("127.0.0.1", src.port))
+                s.sendto(_osc("/j", tok, 1000.0, 2000.0), ("127.0.0.1", src.port))
+                s.sendto(_osc("/j", 1000.0, 2000.0), ("127.0.0.1", other.port))      # from 127.0.0.1, not listed
+            time.sleep(0.2)
+        assert _read_all(src, 5) == 5
+        _read_all(other, 1, 0.3)
+        assert src.stats.good == 5 and src.stats.wrong_token == 10
+        assert other.stats.good == 0 and other.stats.not_allowed == 5
+        line = describe_counters(src.counters())
+        assert "OSC samples good 5, ignored 10" in line and "wrong token 10" in line
+    finally:
+        src.close()
+        other.close()
+
+
+def test_control_messages_ignored_are_counted_by_reason():
+    from bridge.service.control import ControlPort
+    from bridge.service.watch import command_message
+    tok = "a-long-enough-token"
+    port = ControlPort("127.0.0.1", 0, tok)
+    try:
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            for d in (command_message("arm", token="bad-token-xxxxxxxx"), command_message("arm"), b"junk",
+                      _osc("/drape/fly"), command_message("arm", token=tok)):
+                s.sendto(d, port.address)
+            time.sleep(0.1)
+            got = port.poll()
+        assert [c for c, *_ in got] == ["arm"]
+        text = port.take_ignored()
+        assert "2 wrong or missing token" in text and "1 not OSC" in text and "1 unknown address" in text
+        assert port.take_ignored() == ""
+    finally:
+        port.close()
+
+
+# ---- counters -----------------------------------------------------------------------------------
+
+def test_a_long_line_without_newline_is_counted_once():
+    from bridge.sources import TextLineParser
+    p = TextLineParser(2)
+    blob = b"1" * 2_000_000
+    for i in range(0, len(blob), 8192):  # as a serial port hands it over
+        assert p.feed(blob[i:i + 8192]) == []
+    assert p.stats.malformed == 1
+    assert p.feed(b"2\n7,8\n") == [(None, [7.0, 8.0])]  # the end of that line goes with it
+    assert p.stats.malformed == 1
+
+
+def test_the_osc_input_loop_stop_line_counts_samples_and_implausible_ones(tmp_path, demo_model_file, demo_model):
+    from bridge.garment import Jacket
+    take = Jacket(seed=1, wearer=0, session=5).perform([("standing", 6.0)])
+    rows = take.freq_hz[:500]
+    port = free_port()
+    names = list(demo_model.channel_names)
+    (tmp_path / "g.toml").write_text(f'[garment]\nname = "jacket"\nmodel = "{demo_model_file}"\ninput = "osc"\n'
+                                     f'listen = "127.0.0.1:{port}"\naddress = "/j"\narguments = {names!r}\n'.replace("'", '"'))
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "g.toml")), stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    try:
+        time.sleep(2.0)
+        with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+            for i, r in enumerate(rows):
+                v = [float(x) for x in r]
+                if i >= 300 and i % 20 == 0:   # a counter glitch: 1 Hz, 1e-30 Hz, 5e8 Hz
+                    v[0] = (1.0, 1e-30, 5e8)[(i // 20) % 3]
+                s.sendto(_osc("/j", *v), ("127.0.0.1", port))
+                if i % 50 == 0:
+                    time.sleep(0.05)
+        time.sleep(1.0)
+        proc.send_signal(signal.SIGTERM)
+        _, err = proc.communicate(timeout=30)
+    finally:
+        proc.kill()
+    stop = [l for l in err.splitlines() if "stopped;" in l][0]
+    assert "protocol not yet known" not in stop
+    assert "OSC samples good 500" in stop and "implausible (far from the resting frequency) 10" in stop
+
+
+def test_the_status_stream_carries_implausible_samples():
+    from bridge.service.status import garment_state
+    from bridge.service.watch import StatusView, render
+    from pythonosc.osc_message import OscMessage
+    v = StatusView()
+    for d in garment_state("jacket", "running", True, "", True, 100.0, 12, 5000, "", ("a",), implausible=10):
+        m = OscMessage(d)
+        v.take(m.address, list(m.params))
+    assert v.garments["jacket"].implausible == 10 and "dropped 12 (implausible 10)" in render(v, 200)
+
+
+# ---- re-settling ---------------------------------------------------------------------------------
+
+def test_ordinary_movement_never_re_settles_and_a_stand_coming_near_does(demo_model):
+    # The service's default [calibration] (shift = true) on simulated wearer 0 (the model's own
+    # wearer, a session it never saw): 6 minutes of the demo's ordinary movement, gestures and
+    # postures included, with nothing near; then a grounded stand comes to the sleeve and stays.
+    import numpy as np
+    from bridge.garment import Jacket
+    from bridge.garment.jacket import random_script
+    from bridge.service import Pipeline, Settling
+    from bridge.service.pipeline import SETTLING
+    take = Jacket(seed=7, wearer=0, session=3).perform(random_script(np.random.default_rng([7, 0]), 360.0))
+    p = Pipeline(demo_model, settle=Settling())
+    for i in range(0, take.freq_hz.shape[0], 10):
+        p.feed(take.freq_hz[i:i + 10])
+    assert [h.start_sample for h in p.holds if h.state == SETTLING] == []
+    near = Jacket(seed=7, wearer=0, session=4).perform([("standing", 20.0), ("metal_near", 30.0), ("standing", 20.0)])
+    p = Pipeline(demo_model, settle=Settling())
+    for i in range(0, near.freq_hz.shape[0], 10):
+        p.feed(near.freq_hz[i:i + 10])
+    starts = [h.start_sample / near.rate_hz for h in p.holds if h.state == SETTLING]
+    assert 20.0 < starts[0] < 50.0                     # found while it stays
+    assert all(50.0 < t <= 50.0 + 12.0 for t in starts[1:]) and len(starts) <= 2  # and its leaving, once
+
+
+def test_the_single_loop_calibrates_and_re_settles_as_the_service_does(demo_model, capsys):
+    from bridge.cli import main
+    import inspect
+    from bridge.cli import cmd_start
+    assert "settle=Settling()" in inspect.getsource(cmd_start)
+    from bridge.service import Settling
+    from bridge.service.daemon import Service
+    from types import SimpleNamespace
+    svc = Service(SimpleNamespace(garments=[], status_to=(), hold_still_s=1.0, detect_shift=True), open_fn=None)
+    try:
+        assert svc.settling() == Settling()   # the service's default [calibration] is the single loop's
+    finally:
+        svc.status.close()
