@@ -127,3 +127,15 @@ def test_a_block_of_hops_decides_exactly_as_hop_by_hop():
             got += many.step_many(t[a:b], p[a:b])
             a = b
         assert got == want and len(want) > 3
+
+
+def test_a_posture_that_flickers_out_and_back_fires_once():
+    s = GateSettings(threshold=0.8, exit_threshold=0.35, agree_k=2, agree_n=2, rearm_below=0.3, rearm_hops=3)
+    # left on two hops at 0.32 (below the exit level, above the re-arm level): back in is no new entry
+    g = Gate(CLASSES, KINDS, {c: s for c in KINDS})
+    ev = run(g, [("hold", 0.9)] * 5 + [("hold", 0.32)] * 2 + [("hold", 0.9)] * 5)
+    assert [e.kind for e in ev] == ["entered", "left"]
+    # fallen away for three hops from the hop it was left at: entered again
+    g = Gate(CLASSES, KINDS, {c: s for c in KINDS})
+    ev = run(g, [("hold", 0.9)] * 5 + [("null", 0.9)] * 4 + [("hold", 0.9)] * 5)
+    assert [e.kind for e in ev] == ["entered", "left", "entered"]

@@ -5,7 +5,8 @@ then no gesture fires for its refractory time, and the same gesture does not fir
 until it has re-armed: its probability below ``rearm_below`` for ``rearm_hops`` hops in a
 row. The evidence of a gesture stays in the classifier's window for up to a window's
 length after the movement, so a fixed quiet time shorter than that fires it twice; the
-re-arm rule waits for the evidence itself to fall away, however long the window. A posture is "entered" on the same k-of-n rule
+re-arm rule waits for the evidence itself to fall away, however long the window. A
+posture that was left re-arms by the same rule before it can be entered again. A posture is "entered" on the same k-of-n rule
 and "left" when k of the last n hops fall below its lower exit threshold (hysteresis); while
 it stays held a "held" event repeats every ``held_every_s`` seconds (0: never).
 """
@@ -128,12 +129,17 @@ class Gate:
                         entered_at, conf = self.held.pop(name)
                         self.held_next_s.pop(name, None)
                         events.append(Event(t_s, name, LEFT, conf, t_s - entered_at, self.garment))
+                        # re-entered only once it has fallen away (this hop counts): a posture
+                        # that flickers out and back in during one hold fires once
+                        low_now = int(cols[-1, j] < s.rearm_below)
+                        if low_now < s.rearm_hops:
+                            self.latched[name] = low_now
                     elif s.held_every_s > 0 and t_s >= self.held_next_s[name] - 1e-9:
                         entered_at, conf = self.held[name]
                         # the next one counts from the schedule, not from this hop, so it does not drift
                         self.held_next_s[name] += s.held_every_s
                         events.append(Event(t_s, name, HELD, conf, t_s - entered_at, self.garment))
-                elif agreed:
+                elif agreed and name not in self.latched:
                     conf = float(np.mean(cols[voting[:, j], j]))
                     self.held[name] = (t_s, conf)
                     self.held_next_s[name] = t_s + s.held_every_s

@@ -125,6 +125,7 @@ def class_firings(times_s: np.ndarray, probs: np.ndarray, j: int, kind: str, s: 
     agreed = np.flatnonzero(_rolling_count(votes, s.agree_n) >= s.agree_k)
     out = []
     i = 0
+    low = p < s.rearm_below
     if kind == "posture":
         leaving = np.flatnonzero(_rolling_count(p < s.exit_threshold, s.agree_n) >= s.agree_k)
         while True:
@@ -136,9 +137,11 @@ def class_firings(times_s: np.ndarray, probs: np.ndarray, j: int, kind: str, s: 
             b = np.searchsorted(leaving, enter + 1)
             if b >= len(leaving):
                 break
-            i = leaving[b] + 1
+            again = _rearmed_from(low, leaving[b], s.rearm_hops)   # re-entry waits for the re-arm
+            if again is None:
+                break
+            i = max(leaving[b] + 1, again)
         return np.array(out)
-    low = p < s.rearm_below
     idx = np.arange(len(p))
     run = idx - np.maximum.accumulate(np.where(low, -1, idx))       # low hops in a row ending here
     rearmed = np.flatnonzero(run >= s.rearm_hops)
@@ -159,6 +162,25 @@ def class_firings(times_s: np.ndarray, probs: np.ndarray, j: int, kind: str, s: 
             break
         i = rearmed[b]
     return np.array(out)
+
+
+def _rearmed_from(low: np.ndarray, start: int, hops: int) -> int | None:
+    """The first hop at which ``hops`` low hops in a row, counted from ``start`` (included),
+    are complete; None if never. Scanned in growing chunks: re-arming is usually soon."""
+    n, size = len(low), 64
+    carry, at = 0, start
+    while at < n:
+        seg = low[at:at + size]
+        idx = np.arange(len(seg))
+        last_high = np.maximum.accumulate(np.where(seg, -1, idx))
+        run = np.where(last_high >= 0, idx - last_high, carry + idx + 1)
+        hit = np.flatnonzero(run >= hops)
+        if len(hit):
+            return at + int(hit[0])
+        carry = int(run[-1])
+        at += len(seg)
+        size *= 4
+    return None
 
 
 def candidates(current: GateSettings, kind: str, thresholds=THRESHOLDS, debounce=DEBOUNCE,
