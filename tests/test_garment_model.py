@@ -254,7 +254,7 @@ def test_capture_from_the_served_jacket_names_the_channels_as_simulate_does(tmp_
         out = tmp_path / "served.take"
         cap = subprocess.run(drape_cmd("capture", "--port", path, "--out", str(out), "--yes", "--no-keys",
                                        "--gestures", "bow", "--reps", "1", "--countdown-s", "0.5", "--window-s", "1",
-                                       "--rest-s", "0.5", "--lead-s", "0.5"),
+                                       "--rest-s", "0.5", "--lead-s", "0.5", "--ordinary-s", "0"),
                              capture_output=True, text=True, timeout=60, stdin=subprocess.DEVNULL)
     finally:
         proc.terminate()
