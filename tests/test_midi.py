@@ -122,35 +122,83 @@ def test_no_alsa_sequencer_gives_a_clear_error():
     assert "snd-seq" in text and "jackd" in text and "synth" in text
 
 
+class JackPeer:
+    """A private JACK server for one test, and the python-rtmidi clients the test opens on it.
+
+    python-rtmidi closes a JACK client only in ``delete()``: a client object that is merely
+    dropped stays connected (threads and callback included) until the process ends. So every
+    client the test makes goes through ``listener`` and is deleted before the server stops;
+    no library thread is left attached to a server that goes away underneath it."""
+
+    def __init__(self, name: str, proc: subprocess.Popen):
+        self.name, self.proc = name, proc
+        self.backend = mido.Backend("mido.backends.rtmidi/UNIX_JACK", load=True)
+        self.clients = []
+
+    def listener(self, client_name: str):
+        import rtmidi
+        inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, client_name)
+        self.clients.append(inp)
+        return inp
+
+    def ports(self) -> list[str]:
+        """Output ports on the server now, listed by a client that is deleted at once."""
+        import rtmidi
+        probe = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "drape-probe")
+        try:
+            return probe.get_ports()
+        finally:
+            probe.delete()
+
+    def close_clients(self) -> None:
+        for inp in self.clients:
+            inp.cancel_callback()  # no callback may run while the client goes
+            inp.close_port()
+            inp.delete()           # jack_client_close: the client's threads stop here
+        self.clients.clear()
+
+
+_jack_servers = iter(range(1, 1_000_000))
+
+
 @pytest.fixture
-def jack_server():
+def jack_server(monkeypatch):
     pytest.importorskip("rtmidi", reason="python-rtmidi (extra 'midi') is not installed")
     if shutil.which("jackd") is None:
         pytest.skip("jackd is not installed (Debian package jackd2); cannot run a JACK server")
-    env = dict(os.environ, JACK_NO_START_SERVER="1")
+    # A server name of our own: a second test run on the same machine (or a user's own JACK
+    # server) neither answers our clients nor is stopped by our teardown. libjack reads
+    # JACK_DEFAULT_SERVER at every client open.
+    name = f"drape-test-{os.getpid()}-{next(_jack_servers)}"
+    monkeypatch.setenv("JACK_DEFAULT_SERVER", name)
+    monkeypatch.setenv("JACK_NO_START_SERVER", "1")
     # A long period (2048 frames, ~43 ms) leaves slack: with --no-realtime on a busy machine a short
     # period gives the dummy driver xruns, and after an xrun a listener can read a stale buffer again.
-    proc = subprocess.Popen(["jackd", "--no-realtime", "-d", "dummy", "-r", "48000", "-p", "2048"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, start_new_session=True)
-    os.environ["JACK_NO_START_SERVER"] = "1"
-    backend = mido.Backend("mido.backends.rtmidi/UNIX_JACK", load=True)
+    proc = subprocess.Popen(["jackd", "-n", name, "--no-realtime", "-d", "dummy", "-r", "48000", "-p", "2048"],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
+    peer = JackPeer(name, proc)
     deadline = time.monotonic() + 10
     while True:
         try:
-            backend.get_output_names()  # fails until the server answers
+            peer.backend.get_output_names()  # fails until the server answers
             break
         except OSError:
             if time.monotonic() > deadline or proc.poll() is not None:
                 proc.kill()
+                proc.wait()
                 pytest.fail("jackd did not start within 10 s")
             time.sleep(0.1)
-    yield backend
-    proc.send_signal(signal.SIGTERM)
     try:
-        proc.wait(5)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        proc.wait()
+        yield peer
+    finally:
+        # clients first, then the server: nothing of libjack outlives the server it talks to
+        peer.close_clients()
+        proc.send_signal(signal.SIGTERM)
+        try:
+            proc.wait(5)
+        except subprocess.TimeoutExpired:
+            proc.kill()
+            proc.wait()
 
 
 def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server):
@@ -158,8 +206,7 @@ def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server
                                   midi_api="mido.backends.rtmidi/UNIX_JACK"))
     got = []
     try:
-        import rtmidi  # the receiving client: python-rtmidi directly, on the JACK API
-        inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "drape-listener")
+        inp = jack_server.listener("drape-listener")  # the receiving client: python-rtmidi, JACK API
         ports = [i for i, n in enumerate(inp.get_ports()) if n.endswith("drape-test")]
         assert ports, inp.get_ports()
         inp.set_callback(lambda event, _data: got.append(event[0]))
@@ -179,17 +226,19 @@ def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server
     assert got == [[0x90, 60, 100], [0xB1, 7, 64], [0x92, 72, 90],
                    [0x80, 60, 0], [0x82, 72, 0], [0xB0, 123, 0], [0xB1, 123, 0], [0xB2, 123, 0]]
     assert out.stats.sent == 3 and out.stats.dropped == 0
+    # closed means gone from the server: drape's client left nothing behind on it
+    assert not [n for n in jack_server.ports() if n.endswith("drape-test")]
 
 
 def test_named_port_of_another_jack_client(jack_server):
-    import rtmidi  # the receiving client makes its own input port; we open it by name
-    inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "listener")
+    inp = jack_server.listener("listener")  # the receiving client makes its own input port; we open it by name
     inp.open_virtual_port("cues-in")
     got = []
     inp.set_callback(lambda event, _data: got.append(event[0]))
+    out = None
     try:
-        names = [n for n in jack_server.get_output_names() if n.endswith("cues-in")]
-        assert names, jack_server.get_output_names()
+        names = [n for n in jack_server.backend.get_output_names() if n.endswith("cues-in")]
+        assert names, jack_server.backend.get_output_names()
         out = open_output(Destination("synth", "midi", port_name=names[0], midi_api="mido.backends.rtmidi/UNIX_JACK"))
         time.sleep(0.2)
         out.send(MidiProgram(4, 12))
@@ -203,7 +252,8 @@ def test_named_port_of_another_jack_client(jack_server):
         while len(got) < 5 and time.monotonic() < end:
             time.sleep(0.02)
     finally:
-        inp.close_port()
+        if out is not None:
+            out.close()  # before the server stops (the fixture's teardown)
     # MIDI 1.0: program change C3 0C, note on 93 30 40, then the release: note off 83 30 00, CC 123 on
     # channel 4 (B3 7B 00); then close: CC 123 once more.
     assert got == [[0xC3, 12], [0x93, 48, 64], [0x83, 48, 0], [0xB3, 123, 0], [0xB3, 123, 0]]
