@@ -210,3 +210,19 @@ def test_f21_to_f24_use_the_x11_keysyms(xvfb):
         c = codes[f"f{n}"]
         vk = c.value.vk if hasattr(c, "value") else c.vk
         assert vk == XK.string_to_keysym(f"F{n}")
+
+
+def test_a_process_ending_with_a_key_held_lets_it_go(xvfb):
+    # The script holds shift and ends without closing its output: the key must still go up.
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    proc = subprocess.Popen([sys.executable, "-X", "faulthandler", str(HELPERS / "busy_exit.py"), "keys"], env=env,
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "busy"
+        assert len(_keys_down(xvfb)) == 1          # shift is down: the check can fail
+        out, err = proc.communicate("exit\n", timeout=30)
+    finally:
+        proc.kill()
+    assert "Fatal Python error" not in err and "could not acquire lock" not in err, err[-3000:]
+    assert proc.returncode == 0, err[-3000:]
+    assert _keys_down(xvfb) == []

@@ -5,7 +5,9 @@ import os
 import shutil
 import signal
 import subprocess
+import sys
 import time
+from pathlib import Path
 
 import mido
 import pytest
@@ -130,10 +132,43 @@ class JackPeer:
     client the test makes goes through ``listener`` and is deleted before the server stops;
     no library thread is left attached to a server that goes away underneath it."""
 
-    def __init__(self, name: str, proc: subprocess.Popen):
-        self.name, self.proc = name, proc
+    def __init__(self, name: str):
+        self.name = name
+        self.proc = None
         self.backend = mido.Backend("mido.backends.rtmidi/UNIX_JACK", load=True)
         self.clients = []
+
+    def start(self) -> None:
+        # A long period (2048 frames, ~43 ms) leaves slack: with --no-realtime on a busy machine a short
+        # period gives the dummy driver xruns, and after an xrun a listener can read a stale buffer again.
+        self.proc = subprocess.Popen(["jackd", "-n", self.name, "--no-realtime", "-d", "dummy", "-r", "48000",
+                                      "-p", "2048"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                                     start_new_session=True)
+        deadline = time.monotonic() + 10
+        while True:
+            try:
+                self.backend.get_output_names()  # fails until the server answers
+                return
+            except OSError:
+                if time.monotonic() > deadline or self.proc.poll() is not None:
+                    self.stop()
+                    pytest.fail("jackd did not start within 10 s")
+                time.sleep(0.1)
+
+    def stop(self) -> None:
+        """Clients first, then the server: nothing of libjack outlives the server it talks to."""
+        self.close_clients()
+        self.proc.send_signal(signal.SIGTERM)
+        try:
+            self.proc.wait(5)
+        except subprocess.TimeoutExpired:
+            self.proc.kill()
+            self.proc.wait()
+
+    def restart(self) -> None:
+        """Stop the server and start another of the same name (as a user restarting JACK)."""
+        self.stop()
+        self.start()
 
     def listener(self, client_name: str):
         import rtmidi
@@ -168,37 +203,16 @@ def jack_server(monkeypatch):
         pytest.skip("jackd is not installed (Debian package jackd2); cannot run a JACK server")
     # A server name of our own: a second test run on the same machine (or a user's own JACK
     # server) neither answers our clients nor is stopped by our teardown. libjack reads
-    # JACK_DEFAULT_SERVER at every client open.
+    # JACK_DEFAULT_SERVER at every client open; child processes inherit it.
     name = f"drape-test-{os.getpid()}-{next(_jack_servers)}"
     monkeypatch.setenv("JACK_DEFAULT_SERVER", name)
     monkeypatch.setenv("JACK_NO_START_SERVER", "1")
-    # A long period (2048 frames, ~43 ms) leaves slack: with --no-realtime on a busy machine a short
-    # period gives the dummy driver xruns, and after an xrun a listener can read a stale buffer again.
-    proc = subprocess.Popen(["jackd", "-n", name, "--no-realtime", "-d", "dummy", "-r", "48000", "-p", "2048"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, start_new_session=True)
-    peer = JackPeer(name, proc)
-    deadline = time.monotonic() + 10
-    while True:
-        try:
-            peer.backend.get_output_names()  # fails until the server answers
-            break
-        except OSError:
-            if time.monotonic() > deadline or proc.poll() is not None:
-                proc.kill()
-                proc.wait()
-                pytest.fail("jackd did not start within 10 s")
-            time.sleep(0.1)
+    peer = JackPeer(name)
+    peer.start()
     try:
         yield peer
     finally:
-        # clients first, then the server: nothing of libjack outlives the server it talks to
-        peer.close_clients()
-        proc.send_signal(signal.SIGTERM)
-        try:
-            proc.wait(5)
-        except subprocess.TimeoutExpired:
-            proc.kill()
-            proc.wait()
+        peer.stop()
 
 
 def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server):
@@ -262,3 +276,73 @@ def test_named_port_of_another_jack_client(jack_server):
 def test_unknown_port_name_lists_the_ports(jack_server):
     with pytest.raises(OutputUnavailable, match="no port named 'nowhere'"):
         open_output(Destination("synth", "midi", port_name="nowhere", midi_api="mido.backends.rtmidi/UNIX_JACK"))
+
+
+# -- a process that ends with its MIDI port busy -----------------------------------------
+
+BUSY_EXIT = Path(__file__).parent / "helpers" / "busy_exit.py"
+REPO = Path(__file__).parent.parent
+
+
+def _busy_process(*outputs):
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    proc = subprocess.Popen([sys.executable, "-X", "faulthandler", str(BUSY_EXIT), *outputs], env=env,
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert proc.stdout.readline().strip() == "busy", proc.stderr.read() if proc.poll() is not None else ""
+    return proc
+
+
+def _ask(proc, command, answer=None):
+    proc.stdin.write(command + "\n")
+    proc.stdin.flush()
+    if answer is not None:
+        assert proc.stdout.readline().strip() == answer
+
+
+def _ended_cleanly(proc):
+    try:
+        out, err = proc.communicate(timeout=30)
+    finally:
+        proc.kill()
+    assert "Fatal Python error" not in err and "could not acquire lock" not in err, err[-3000:]
+    assert proc.returncode == 0, err[-3000:]
+    return out, err
+
+
+def test_a_process_ending_with_its_midi_port_busy_releases_every_note(jack_server):
+    # The script never calls close: its outputs are closed on the way out of the interpreter.
+    proc = _busy_process("midi")
+    try:
+        got = []
+        inp = jack_server.listener("exit-listener")
+        ports = [i for i, n in enumerate(inp.get_ports()) if n.endswith("busy-out")]
+        assert ports, inp.get_ports()
+        inp.set_callback(lambda event, _data: got.append(event[0]))
+        inp.open_port(ports[0], "in")
+        time.sleep(0.3)  # JACK makes the connection on its next cycle
+        _ask(proc, "exit")
+        _ended_cleanly(proc)
+    finally:
+        proc.kill()
+    end = time.monotonic() + 5
+    while [0xB0, 123, 0] not in got and time.monotonic() < end:
+        time.sleep(0.02)
+    # MIDI 1.0: note-on 9n kk vv, note-off 8n kk 00, All Notes Off = controller 123 (B0 7B 00)
+    on = {m[1] for m in got if m[0] == 0x90}
+    off = {m[1] for m in got if m[0] == 0x80}
+    assert got and got[-1] == [0xB0, 123, 0], got[-5:]
+    assert on <= off  # every note heard sounding was ended
+
+
+def test_closing_after_the_jack_server_was_replaced_exits_cleanly(jack_server):
+    # A user restarts JACK under a running drape; a new JACK client opens in the process
+    # (libjack then frees the old server's clients); drape's old port must not be touched.
+    proc = _busy_process("midi")
+    try:
+        jack_server.restart()
+        _ask(proc, "reopen-midi", "reopened")
+        _ask(proc, "close", "closed")
+        _ask(proc, "exit")
+        _ended_cleanly(proc)
+    finally:
+        proc.kill()

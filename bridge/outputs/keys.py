@@ -192,9 +192,16 @@ class PynputKeyboard(Keyboard):
         self._controller.release(self._code(key))
 
     def close(self) -> None:
-        # dropping the controller closes its display connection now, not at some later collection
-        self._controller = None
-        self._x_display = None
+        # Close the X connection now, while the server is surely there, not whenever the
+        # controller happens to be collected (perhaps after the X server has gone).
+        controller, self._controller, self._x_display = self._controller, None, None
+        display = getattr(controller, "_display", None) if sys.platform.startswith("linux") else None
+        if display is not None:
+            del controller._display  # pynput's finaliser would close it a second time
+            try:
+                display.close()
+            except Exception:  # the X server went first: nothing left to let go of
+                pass
 
 
 # -- Linux uinput through python-evdev (not tested on our machines: no /dev/uinput) ------
