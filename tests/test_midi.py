@@ -6,6 +6,7 @@ import shutil
 import signal
 import subprocess
 import sys
+import tempfile
 import time
 from pathlib import Path
 
@@ -197,7 +198,28 @@ _jack_servers = iter(range(1, 1_000_000))
 
 
 @pytest.fixture
-def jack_server(monkeypatch):
+def one_jack_test_at_a_time():
+    """Test runs on one machine take turns at JACK: with two servers of one user starting and
+    stopping at once, opening a client failed now and then (seen here with two runs side by side)."""
+    fcntl = pytest.importorskip("fcntl", reason="no file locks on this system")
+    with open(os.path.join(tempfile.gettempdir(), f"drape-jack-tests-{os.getuid()}.lock"), "w") as lock:
+        deadline = time.monotonic() + 300
+        while True:
+            try:
+                fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except BlockingIOError:
+                if time.monotonic() > deadline:
+                    pytest.fail("another test run held the JACK tests' lock for 300 s")
+                time.sleep(0.1)
+        try:
+            yield
+        finally:
+            fcntl.flock(lock, fcntl.LOCK_UN)
+
+
+@pytest.fixture
+def jack_server(monkeypatch, one_jack_test_at_a_time):
     pytest.importorskip("rtmidi", reason="python-rtmidi (extra 'midi') is not installed")
     if shutil.which("jackd") is None:
         pytest.skip("jackd is not installed (Debian package jackd2); cannot run a JACK server")
