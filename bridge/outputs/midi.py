@@ -153,8 +153,8 @@ class MidiPortOutput(Output):
     def _write(self, message) -> None:
         import mido
         if self.server_gone():
-            raise ConnectionError(f"the JACK server of MIDI port {self.port_name!r} stopped; restart drape "
-                                  "(or reload the mapping) once JACK runs again")
+            raise ConnectionError(f"the JACK server of MIDI port {self.port_name!r} stopped; "
+                                  "restart drape once JACK runs again")
         self.port.send(mido.Message.from_bytes(midi_bytes(message)))
         self.notes.note(message)
 
