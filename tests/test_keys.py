@@ -3,6 +3,7 @@ events received by a window under Xvfb (the X server as the independent peer).""
 
 import importlib.util
 import os
+import select
 import shutil
 import signal
 import subprocess
@@ -121,22 +122,38 @@ def xvfb(monkeypatch):
     pytest.importorskip("Xlib", reason="python-xlib is not installed")
     if importlib.util.find_spec("pynput") is None:  # importing it needs the display below
         pytest.skip("pynput (extra 'keys') is not installed")
-    n = next(n for n in range(91, 200) if not os.path.exists(f"/tmp/.X{n}-lock"))
-    proc = subprocess.Popen(["Xvfb", f":{n}", "-screen", "0", "1024x768x24", "-nolisten", "tcp"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    end = time.monotonic() + 10
-    while not os.path.exists(f"/tmp/.X11-unix/X{n}"):
-        if time.monotonic() > end or proc.poll() is not None:
+    # Xvfb picks a free display itself (its lock files make that safe against another run
+    # doing the same) and writes the number once it accepts connections: no polling for a
+    # socket file that exists a moment before connections are accepted.
+    r, w = os.pipe()
+    proc = subprocess.Popen(["Xvfb", "-displayfd", str(w), "-screen", "0", "1024x768x24", "-nolisten", "tcp"],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, pass_fds=(w,))
+    os.close(w)
+    d = None
+    try:
+        got = b""
+        end = time.monotonic() + 10
+        while not got.endswith(b"\n"):
+            ready, _, _ = select.select([r], [], [], max(0.0, end - time.monotonic()))
+            chunk = os.read(r, 16) if ready else b""
+            if not chunk:
+                pytest.fail("Xvfb did not start within 10 s")
+            got += chunk
+        name = f":{int(got)}"
+        monkeypatch.setenv("DISPLAY", name)
+        from Xlib import display
+        d = display.Display(name)
+        yield d
+    finally:
+        os.close(r)
+        if d is not None:
+            d.close()  # our connection goes before the server does
+        proc.terminate()
+        try:
+            proc.wait(5)
+        except subprocess.TimeoutExpired:
             proc.kill()
-            pytest.fail("Xvfb did not start within 10 s")
-        time.sleep(0.05)
-    monkeypatch.setenv("DISPLAY", f":{n}")
-    from Xlib import display
-    d = display.Display(f":{n}")
-    yield d
-    d.close()
-    proc.terminate()
-    proc.wait(5)
+            proc.wait()
 
 
 def _keys_down(d):
@@ -210,3 +227,19 @@ def test_f21_to_f24_use_the_x11_keysyms(xvfb):
         c = codes[f"f{n}"]
         vk = c.value.vk if hasattr(c, "value") else c.vk
         assert vk == XK.string_to_keysym(f"F{n}")
+
+
+def test_a_process_ending_with_a_key_held_lets_it_go(xvfb):
+    # The script holds shift and ends without closing its output: the key must still go up.
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    proc = subprocess.Popen([sys.executable, "-X", "faulthandler", str(HELPERS / "busy_exit.py"), "keys"], env=env,
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        assert proc.stdout.readline().strip() == "busy"
+        assert len(_keys_down(xvfb)) == 1          # shift is down: the check can fail
+        out, err = proc.communicate("exit\n", timeout=30)
+    finally:
+        proc.kill()
+    assert "Fatal Python error" not in err and "could not acquire lock" not in err, err[-3000:]
+    assert proc.returncode == 0, err[-3000:]
+    assert _keys_down(xvfb) == []

@@ -5,7 +5,10 @@ import os
 import shutil
 import signal
 import subprocess
+import sys
+import tempfile
 import time
+from pathlib import Path
 
 import mido
 import pytest
@@ -122,35 +125,116 @@ def test_no_alsa_sequencer_gives_a_clear_error():
     assert "snd-seq" in text and "jackd" in text and "synth" in text
 
 
+class JackPeer:
+    """A private JACK server for one test, and the python-rtmidi clients the test opens on it.
+
+    python-rtmidi closes a JACK client only in ``delete()``: a client object that is merely
+    dropped stays connected (threads and callback included) until the process ends. So every
+    client the test makes goes through ``listener`` and is deleted before the server stops;
+    no library thread is left attached to a server that goes away underneath it."""
+
+    def __init__(self, name: str):
+        self.name = name
+        self.proc = None
+        self.backend = mido.Backend("mido.backends.rtmidi/UNIX_JACK", load=True)
+        self.clients = []
+
+    def start(self) -> None:
+        # A long period (2048 frames, ~43 ms) leaves slack: with --no-realtime on a busy machine a short
+        # period gives the dummy driver xruns, and after an xrun a listener can read a stale buffer again.
+        self.proc = subprocess.Popen(["jackd", "-n", self.name, "--no-realtime", "-d", "dummy", "-r", "48000",
+                                      "-p", "2048"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                                     start_new_session=True)
+        deadline = time.monotonic() + 10
+        while True:
+            try:
+                self.backend.get_output_names()  # fails until the server answers
+                return
+            except OSError:
+                if time.monotonic() > deadline or self.proc.poll() is not None:
+                    self.stop()
+                    pytest.fail("jackd did not start within 10 s")
+                time.sleep(0.1)
+
+    def stop(self) -> None:
+        """Clients first, then the server: nothing of libjack outlives the server it talks to."""
+        self.close_clients()
+        self.proc.send_signal(signal.SIGTERM)
+        try:
+            self.proc.wait(5)
+        except subprocess.TimeoutExpired:
+            self.proc.kill()
+            self.proc.wait()
+
+    def restart(self) -> None:
+        """Stop the server and start another of the same name (as a user restarting JACK)."""
+        self.stop()
+        self.start()
+
+    def listener(self, client_name: str):
+        import rtmidi
+        inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, client_name)
+        self.clients.append(inp)
+        return inp
+
+    def ports(self) -> list[str]:
+        """Output ports on the server now, listed by a client that is deleted at once."""
+        import rtmidi
+        probe = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "drape-probe")
+        try:
+            return probe.get_ports()
+        finally:
+            probe.delete()
+
+    def close_clients(self) -> None:
+        for inp in self.clients:
+            inp.cancel_callback()  # no callback may run while the client goes
+            inp.close_port()
+            inp.delete()           # jack_client_close: the client's threads stop here
+        self.clients.clear()
+
+
+_jack_servers = iter(range(1, 1_000_000))
+
+
 @pytest.fixture
-def jack_server():
+def one_jack_test_at_a_time():
+    """Test runs on one machine take turns at JACK: with two servers of one user starting and
+    stopping at once, opening a client failed now and then (seen here with two runs side by side)."""
+    fcntl = pytest.importorskip("fcntl", reason="no file locks on this system")
+    with open(os.path.join(tempfile.gettempdir(), f"drape-jack-tests-{os.getuid()}.lock"), "w") as lock:
+        deadline = time.monotonic() + 300
+        while True:
+            try:
+                fcntl.flock(lock, fcntl.LOCK_EX | fcntl.LOCK_NB)
+                break
+            except BlockingIOError:
+                if time.monotonic() > deadline:
+                    pytest.fail("another test run held the JACK tests' lock for 300 s")
+                time.sleep(0.1)
+        try:
+            yield
+        finally:
+            fcntl.flock(lock, fcntl.LOCK_UN)
+
+
+@pytest.fixture
+def jack_server(monkeypatch, one_jack_test_at_a_time):
     pytest.importorskip("rtmidi", reason="python-rtmidi (extra 'midi') is not installed")
     if shutil.which("jackd") is None:
         pytest.skip("jackd is not installed (Debian package jackd2); cannot run a JACK server")
-    env = dict(os.environ, JACK_NO_START_SERVER="1")
-    # A long period (2048 frames, ~43 ms) leaves slack: with --no-realtime on a busy machine a short
-    # period gives the dummy driver xruns, and after an xrun a listener can read a stale buffer again.
-    proc = subprocess.Popen(["jackd", "--no-realtime", "-d", "dummy", "-r", "48000", "-p", "2048"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, env=env, start_new_session=True)
-    os.environ["JACK_NO_START_SERVER"] = "1"
-    backend = mido.Backend("mido.backends.rtmidi/UNIX_JACK", load=True)
-    deadline = time.monotonic() + 10
-    while True:
-        try:
-            backend.get_output_names()  # fails until the server answers
-            break
-        except OSError:
-            if time.monotonic() > deadline or proc.poll() is not None:
-                proc.kill()
-                pytest.fail("jackd did not start within 10 s")
-            time.sleep(0.1)
-    yield backend
-    proc.send_signal(signal.SIGTERM)
+    # A server name of our own: a second test run on the same machine (or a user's own JACK
+    # server) neither answers our clients nor is stopped by our teardown. libjack reads
+    # JACK_DEFAULT_SERVER at every client open; child processes inherit it.
+    name = f"drape-test-{os.getpid()}-{next(_jack_servers)}"
+    monkeypatch.setenv("JACK_DEFAULT_SERVER", name)
+    monkeypatch.setenv("JACK_NO_START_SERVER", "1")
+    peer = JackPeer(name)
+    peer.start()
     try:
-        proc.wait(5)
-    except subprocess.TimeoutExpired:
-        proc.kill()
-        proc.wait()
+        yield peer
+    finally:
+        peer.stop()
 
 
 def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server):
@@ -158,8 +242,7 @@ def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server
                                   midi_api="mido.backends.rtmidi/UNIX_JACK"))
     got = []
     try:
-        import rtmidi  # the receiving client: python-rtmidi directly, on the JACK API
-        inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "drape-listener")
+        inp = jack_server.listener("drape-listener")  # the receiving client: python-rtmidi, JACK API
         ports = [i for i, n in enumerate(inp.get_ports()) if n.endswith("drape-test")]
         assert ports, inp.get_ports()
         inp.set_callback(lambda event, _data: got.append(event[0]))
@@ -179,17 +262,19 @@ def test_virtual_port_reaches_another_jack_client_and_close_releases(jack_server
     assert got == [[0x90, 60, 100], [0xB1, 7, 64], [0x92, 72, 90],
                    [0x80, 60, 0], [0x82, 72, 0], [0xB0, 123, 0], [0xB1, 123, 0], [0xB2, 123, 0]]
     assert out.stats.sent == 3 and out.stats.dropped == 0
+    # closed means gone from the server: drape's client left nothing behind on it
+    assert not [n for n in jack_server.ports() if n.endswith("drape-test")]
 
 
 def test_named_port_of_another_jack_client(jack_server):
-    import rtmidi  # the receiving client makes its own input port; we open it by name
-    inp = rtmidi.MidiIn(rtmidi.API_UNIX_JACK, "listener")
+    inp = jack_server.listener("listener")  # the receiving client makes its own input port; we open it by name
     inp.open_virtual_port("cues-in")
     got = []
     inp.set_callback(lambda event, _data: got.append(event[0]))
+    out = None
     try:
-        names = [n for n in jack_server.get_output_names() if n.endswith("cues-in")]
-        assert names, jack_server.get_output_names()
+        names = [n for n in jack_server.backend.get_output_names() if n.endswith("cues-in")]
+        assert names, jack_server.backend.get_output_names()
         out = open_output(Destination("synth", "midi", port_name=names[0], midi_api="mido.backends.rtmidi/UNIX_JACK"))
         time.sleep(0.2)
         out.send(MidiProgram(4, 12))
@@ -203,7 +288,8 @@ def test_named_port_of_another_jack_client(jack_server):
         while len(got) < 5 and time.monotonic() < end:
             time.sleep(0.02)
     finally:
-        inp.close_port()
+        if out is not None:
+            out.close()  # before the server stops (the fixture's teardown)
     # MIDI 1.0: program change C3 0C, note on 93 30 40, then the release: note off 83 30 00, CC 123 on
     # channel 4 (B3 7B 00); then close: CC 123 once more.
     assert got == [[0xC3, 12], [0x93, 48, 64], [0x83, 48, 0], [0xB3, 123, 0], [0xB3, 123, 0]]
@@ -212,3 +298,73 @@ def test_named_port_of_another_jack_client(jack_server):
 def test_unknown_port_name_lists_the_ports(jack_server):
     with pytest.raises(OutputUnavailable, match="no port named 'nowhere'"):
         open_output(Destination("synth", "midi", port_name="nowhere", midi_api="mido.backends.rtmidi/UNIX_JACK"))
+
+
+# -- a process that ends with its MIDI port busy -----------------------------------------
+
+BUSY_EXIT = Path(__file__).parent / "helpers" / "busy_exit.py"
+REPO = Path(__file__).parent.parent
+
+
+def _busy_process(*outputs):
+    env = dict(os.environ, PYTHONPATH=str(REPO))
+    proc = subprocess.Popen([sys.executable, "-X", "faulthandler", str(BUSY_EXIT), *outputs], env=env,
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    assert proc.stdout.readline().strip() == "busy", proc.stderr.read() if proc.poll() is not None else ""
+    return proc
+
+
+def _ask(proc, command, answer=None):
+    proc.stdin.write(command + "\n")
+    proc.stdin.flush()
+    if answer is not None:
+        assert proc.stdout.readline().strip() == answer
+
+
+def _ended_cleanly(proc):
+    try:
+        out, err = proc.communicate(timeout=30)
+    finally:
+        proc.kill()
+    assert "Fatal Python error" not in err and "could not acquire lock" not in err, err[-3000:]
+    assert proc.returncode == 0, err[-3000:]
+    return out, err
+
+
+def test_a_process_ending_with_its_midi_port_busy_releases_every_note(jack_server):
+    # The script never calls close: its outputs are closed on the way out of the interpreter.
+    proc = _busy_process("midi")
+    try:
+        got = []
+        inp = jack_server.listener("exit-listener")
+        ports = [i for i, n in enumerate(inp.get_ports()) if n.endswith("busy-out")]
+        assert ports, inp.get_ports()
+        inp.set_callback(lambda event, _data: got.append(event[0]))
+        inp.open_port(ports[0], "in")
+        time.sleep(0.3)  # JACK makes the connection on its next cycle
+        _ask(proc, "exit")
+        _ended_cleanly(proc)
+    finally:
+        proc.kill()
+    end = time.monotonic() + 5
+    while [0xB0, 123, 0] not in got and time.monotonic() < end:
+        time.sleep(0.02)
+    # MIDI 1.0: note-on 9n kk vv, note-off 8n kk 00, All Notes Off = controller 123 (B0 7B 00)
+    on = {m[1] for m in got if m[0] == 0x90}
+    off = {m[1] for m in got if m[0] == 0x80}
+    assert got and got[-1] == [0xB0, 123, 0], got[-5:]
+    assert on <= off  # every note heard sounding was ended
+
+
+def test_closing_after_the_jack_server_was_replaced_exits_cleanly(jack_server):
+    # A user restarts JACK under a running drape; a new JACK client opens in the process
+    # (libjack then frees the old server's clients); drape's old port must not be touched.
+    proc = _busy_process("midi")
+    try:
+        jack_server.restart()
+        _ask(proc, "reopen-midi", "reopened")
+        _ask(proc, "close", "closed")
+        _ask(proc, "exit")
+        _ended_cleanly(proc)
+    finally:
+        proc.kill()

@@ -192,19 +192,15 @@ class PynputKeyboard(Keyboard):
         self._controller.release(self._code(key))
 
     def close(self) -> None:
-        # Close the display connection now, not at some later collection; a server that went
-        # away makes closing fail, which would otherwise surface as "Exception ignored in
-        # __del__" at exit: the failure was already counted and reported by the output.
+        # Close the X connection now, while the server is surely there, not whenever the
+        # controller happens to be collected (perhaps after the X server has gone).
         controller, self._controller, self._x_display = self._controller, None, None
-        display = getattr(controller, "_display", None) if controller is not None else None
+        display = getattr(controller, "_display", None) if sys.platform.startswith("linux") else None
         if display is not None:
+            del controller._display  # pynput's finaliser would close it a second time
             try:
                 display.close()
-            except Exception:
-                pass
-            try:
-                del controller._display  # its __del__ closes only what it still has
-            except AttributeError:
+            except Exception:  # the X server went first: nothing left to let go of
                 pass
 
 

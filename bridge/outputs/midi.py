@@ -72,11 +72,36 @@ NO_MIDI_SYSTEM = (
 )
 
 
+def jack_server_socket(server_name: str = "") -> Path:
+    """Where a JACK 2 server on Linux listens: ``/dev/shm/jack_<server>_<uid>_0``.
+
+    The server name is ``server_name``, else JACK_DEFAULT_SERVER, else "default" (as libjack
+    picks it). A server that stops removes the socket; one that starts makes a new one."""
+    name = server_name or os.environ.get("JACK_DEFAULT_SERVER", "") or "default"
+    uid = os.getuid() if hasattr(os, "getuid") else 0
+    return Path("/dev/shm") / f"jack_{name}_{uid}_0"
+
+
+def _identity(path: Path) -> tuple | None:
+    try:
+        st = path.stat()
+    except OSError:
+        return None
+    return (st.st_dev, st.st_ino)
+
+
 class MidiPortOutput(Output):
     """Sends to a MIDI port by name, or creates a virtual port others can connect to.
 
     ``api`` is a mido backend name such as "mido.backends.rtmidi/UNIX_JACK"; empty means
     MIDO_BACKEND from the environment, else mido's rtmidi default for the platform.
+
+    On JACK the port belongs to the server it was opened on. When that server stops,
+    libjack frees the client the next time anything in the process opens a JACK client,
+    and touching the old port after that crashes the process (python-rtmidi still holds
+    the freed client). So the output notes which server socket it was opened on and, once
+    that server is gone or replaced, drops messages and lets go of nothing on close: the
+    notes ended with the server.
     """
 
     def __init__(self, name: str, port_name: str = "", virtual: bool = False, api: str = "",
@@ -114,9 +139,22 @@ class MidiPortOutput(Output):
         self.port_name = self.port.name
         self.notes = SoundingNotes()
         self._closed = False
+        self._jack_socket = None
+        if getattr(self.port, "api", "") == "UNIX_JACK":
+            sock = jack_server_socket()
+            self._jack_server = _identity(sock)
+            if self._jack_server is not None:  # elsewhere (JACK 1, other systems) nothing to watch
+                self._jack_socket = sock
+
+    def server_gone(self) -> bool:
+        """True when the JACK server this port was opened on has stopped (or was replaced)."""
+        return self._jack_socket is not None and _identity(self._jack_socket) != self._jack_server
 
     def _write(self, message) -> None:
         import mido
+        if self.server_gone():
+            raise ConnectionError(f"the JACK server of MIDI port {self.port_name!r} stopped; "
+                                  "restart drape once JACK runs again")
         self.port.send(mido.Message.from_bytes(midi_bytes(message)))
         self.notes.note(message)
 
@@ -142,11 +180,17 @@ class MidiPortOutput(Output):
         the port at once could lose the very note-offs that close is for."""
         if self._closed:
             return
+        self._closed = True
+        if self.server_gone():
+            # the client may already be freed by libjack: leave it (and its notes, gone with
+            # the server) alone rather than crash the process on the way out
+            self.stats.last_error = f"JACK server stopped under port {self.port_name!r}; nothing to release"
+            self.port.closed = True  # nor may mido's port close it when collected
+            return
         try:
             self.release()
             time.sleep(self.settle_s)
         finally:
-            self._closed = True
             self.port.close()
 
 

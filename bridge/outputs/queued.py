@@ -7,16 +7,39 @@ messages, never a late decision.
 
 A ``Release`` jumps the queue: what is still waiting is discarded (counted as dropped)
 and the output releases everything it holds before anything sent later.
+
+Every worker is stopped before the interpreter goes: an output still open when the process
+exits (an exception past the caller's ``close``, a script that never called it) is closed
+by an exit hook, so it releases what it holds and its worker is joined while the interpreter
+is whole, rather than frozen mid-call in a library (MIDI port, X connection) at shutdown.
 """
 
 from __future__ import annotations
 
+import atexit
 import threading
 import time
 from collections import deque
 
 from ..mapping.messages import Release
 from .base import Output
+
+
+# Outputs whose worker still runs (the worker holds its output anyway; it leaves this set as
+# it ends, so the set keeps nothing alive longer).
+_running: set = set()
+_running_lock = threading.Lock()
+
+
+@atexit.register
+def _close_at_exit() -> None:
+    """Close every output still open when the interpreter exits (runs before finalisation,
+    while the daemon workers can still finish). Short waits: exit must not hang on a dead
+    destination."""
+    with _running_lock:
+        still = list(_running)
+    for out in still:
+        out.close(drain_s=0.2, join_s=2.0)
 
 
 class QueuedOutput(Output):
@@ -35,7 +58,10 @@ class QueuedOutput(Output):
         self._accepting = True
         self._stopping = False
         self._busy = False
+        # A daemon thread, so a forgotten close never blocks exit; _close_at_exit stops it first.
         self._thread = threading.Thread(target=self._work, name=f"output-{inner.name}", daemon=True)
+        with _running_lock:
+            _running.add(self)
         self._thread.start()
 
     # -- the pipeline's side -------------------------------------------------------------
@@ -69,17 +95,16 @@ class QueuedOutput(Output):
         """Let the queue drain for up to ``drain_s`` seconds, then release everything held,
         close the output and stop the worker (waiting at most ``join_s`` for it)."""
         with self._cond:
-            if not self._accepting and self._stopping:
-                return
-            self._accepting = False
-            deadline = self._clock() + drain_s
-            while (self._items or self._release or self._busy) and self._thread.is_alive():
-                left = deadline - self._clock()
-                if left <= 0:
-                    break
-                self._cond.wait(min(left, 0.05))
-            self._stopping = True
-            self._cond.notify()
+            if not self._stopping:  # a second close only waits for the worker again
+                self._accepting = False
+                deadline = self._clock() + drain_s
+                while (self._items or self._release or self._busy) and self._thread.is_alive():
+                    left = deadline - self._clock()
+                    if left <= 0:
+                        break
+                    self._cond.wait(min(left, 0.05))
+                self._stopping = True
+                self._cond.notify()
         self._thread.join(join_s)
         if self._thread.is_alive():
             self.stats.last_error = f"worker still busy after {drain_s + join_s:.1f} s; left running as a daemon thread"
@@ -146,3 +171,5 @@ class QueuedOutput(Output):
             with self._cond:
                 self._busy = False
                 self._cond.notify_all()
+            with _running_lock:
+                _running.discard(self)
