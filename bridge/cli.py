@@ -153,24 +153,6 @@ def _close_outputs(outputs) -> None:
         print(f"drape: output {name}: sent {s.sent}, dropped {s.dropped}{err}", file=sys.stderr, flush=True)
 
 
-def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int = 2, null_s: float = 180.0):
-    """A model for one simulated wearer, trained the way a user would on a new wearer:
-    each gesture ``repetitions`` times per session, then ``null_s`` of ordinary movement."""
-    import numpy as np
-    from .garment import GESTURES, Jacket, training_script
-    from .recognition import fit_linear
-    from .sources import Recording
-
-    takes = []
-    for session in range(sessions):
-        jacket = Jacket(seed=seed, wearer=wearer, session=session)
-        rng = np.random.default_rng([seed, wearer, session, 11])
-        script = training_script(rng, repetitions)
-        script += [(activity, null_s / 3) for activity in ("standing", "walking", "fidgeting")]
-        takes.append(Recording.from_take(jacket.perform(script), GESTURES))
-    return fit_linear(takes, dict(GESTURES))
-
-
 def cmd_demo(a) -> int:
     import numpy as np
     from .evaluation.narration import Narrator
@@ -201,6 +183,7 @@ def cmd_demo(a) -> int:
     else:
         print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
         t0 = time.monotonic()
+        from .evaluation.simulated import train_simulated
         model = train_simulated(a.seed, a.wearer)
         print(f"trained in {time.monotonic() - t0:.1f} s: {len(model.classes) - 1} gestures, "
               f"cross-validated window accuracy {model.summary['cross_validated_window_accuracy']:.2f}", flush=True)
@@ -252,22 +235,6 @@ def cmd_demo(a) -> int:
           f"{_plural(t['performed'], 'gesture')} performed, {t['recognised']} recognised, {t['missed']} missed, "
           f"{_plural(t['false_triggers'], 'false trigger')}{kinds}{under_way}")
     return 0
-
-
-def open_garment_source(cfg, model, on_change=None):
-    """The daemon's source for a config: a serial port that is reopened when it comes back,
-    or OSC over UDP. Raises SourceGone (OSC port busy) or ValueError (bad OSC layout)."""
-    from .sources.oscinput import OscUdpSource
-    from .sources.reconnect import ReconnectingSource
-    from .sources.serialport import SerialSource
-
-    if cfg.input == "osc":
-        return OscUdpSource(cfg.listen, cfg.address, cfg.arguments, model.rate_hz, model.channel_names, cfg.resample,
-                            senders=getattr(cfg, "senders", ()), token=getattr(cfg, "token", ""))
-    return ReconnectingSource(
-        lambda: SerialSource(cfg.port, model.n_channels, model.rate_hz, cfg.baud, model.channel_names,
-                             cfg.protocol, cfg.timestamp, cfg.resample),
-        model.rate_hz, model.channel_names, on_change=on_change)
 
 
 def _uses_service(path) -> bool:
@@ -351,6 +318,7 @@ def cmd_start(a) -> int:
         print(f"drape: {cfg.port}: {message}", file=sys.stderr, flush=True)
 
     try:
+        from .service.garment_source import open_garment_source
         source = open_garment_source(cfg, model)
     except (SourceGone, ValueError) as exc:
         return _err(str(exc))

@@ -9,7 +9,7 @@ ROOT = Path(__file__).resolve().parent.parent
 @pytest.fixture(scope="session")
 def demo_model():
     """The model `drape demo` trains: simulated wearer 0, seed 1, two training sessions."""
-    from bridge.cli import train_simulated
+    from bridge.evaluation.simulated import train_simulated
 
     return train_simulated(seed=1, wearer=0)
 
@@ -27,7 +27,7 @@ def drape_cmd(*args):
 @pytest.fixture(scope="session")
 def second_model_file(tmp_path_factory):
     """A different, smaller model: simulated wearer 1 (seed 4), one session of training."""
-    from bridge.cli import train_simulated
+    from bridge.evaluation.simulated import train_simulated
 
     return train_simulated(seed=4, wearer=1, repetitions=6, sessions=1, null_s=90.0).save(
         tmp_path_factory.mktemp("model2") / "chorus.npz")

@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from hypothesis import HealthCheck, given, settings, strategies as st
 
-from bridge.cli import train_simulated
+from bridge.evaluation.simulated import train_simulated
 from bridge.garment import GESTURES, Jacket, training_script
 from bridge.service import Pipeline, Settling, replay_events
 from bridge.service.pipeline import CALIBRATING, SETTLING

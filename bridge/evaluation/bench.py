@@ -479,7 +479,7 @@ def bench_live(seconds: float = 30.0, print_fn=print) -> dict:
     from pythonosc.dispatcher import Dispatcher
     from pythonosc.osc_server import ThreadingOSCUDPServer
 
-    from ..cli import train_simulated
+    from .simulated import train_simulated
     from ..examples_data import example_text
     from ..sources import format_line
     from ..sources.simulated import SimulatedSource

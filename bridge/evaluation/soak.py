@@ -206,7 +206,7 @@ def soak(hours: float, model=None, mapping_path=None, seed: int = 5, block_s=(0.
     from ..sources import RecordingWriter, read_recording
 
     if model is None:
-        from ..cli import train_simulated
+        from .simulated import train_simulated
         report("training a small model on the simulated wearer ...")
         model = train_simulated(seed=4, wearer=1, repetitions=6, sessions=1, null_s=90.0)
     duration_s = hours * 3600.0

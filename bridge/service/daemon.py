@@ -185,7 +185,7 @@ def open_source(cfg, model):
     if cfg.simulated:
         from ..sources.simulated import SimulatedSource
         return SimulatedSource(seed=cfg.seed + 1, wearer=cfg.wearer, session=2, realtime=True)
-    from ..cli import open_garment_source  # the one place that knows serial and OSC sources
+    from .garment_source import open_garment_source
     return open_garment_source(cfg, model)
 
 
