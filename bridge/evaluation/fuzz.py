@@ -14,7 +14,7 @@ length, one to four at a time. Mapping and model files are also mutated structur
 of the wrong type or range, huge numbers, deep nesting, huge declared array shapes, object
 and pickled arrays), since byte noise rarely gets past TOML, zip and CRC checks.
 
-``python -m bridge bench --fuzz N`` runs N inputs per target (see DEVELOPERS.md).
+``python -m bridge bench --fuzz N`` runs N inputs per target (see docs/robustness.md).
 """
 
 from __future__ import annotations

@@ -27,8 +27,8 @@ transform updates with only the hop's new positions (``RollingValidMiniRocket``)
 replay computes for a whole block at once. Models fitted on recordings use "valid". The
 cost is fewer pooled positions at large dilations (at the largest, 8 of a 200-sample
 window). Measured (seed 0; tests/test_external_accuracy.py): GunPoint 1.0 valid vs 0.9933
-alternate, BasicMotions 1.0 both; on the simulated troupe (leave-session-out) window
-accuracy 0.767 vs 0.796 and event recall 0.896 vs 0.917 (DEVELOPERS.md).
+alternate, BasicMotions 1.0 both; on the simulated troupe a little lower window accuracy
+(docs/internals.md).
 
 Convolution outputs are computed by one order of additions everywhere (``_conv``), so the
 batch and the rolling transforms compare identical numbers with the biases.
