@@ -13,12 +13,13 @@ rules the garment's own gestures trigger).
 from __future__ import annotations
 
 import hmac
-import ipaddress
 import socket
 from collections import Counter
 
 from pythonosc.osc_message import OscMessage, ParseError
 from pythonosc.osc_message_builder import OscMessageBuilder
+
+from ..sources.addresses import is_loopback  # noqa: F401  (also this module's name for it)
 
 LOOPBACK = ("127.0.0.1", "::1", "localhost")
 MIN_TOKEN = 16       # characters: a short token can be guessed from the network
@@ -36,20 +37,6 @@ def printable(text, limit: int = 200) -> str:
     s = str(text)
     out = "".join(c if c.isprintable() else c.encode("unicode_escape").decode("ascii") for c in s[:limit])
     return out + ("..." if len(s) > limit else "")
-
-
-def is_loopback(host: str) -> bool:
-    """True when ``host`` names this machine only. A name is resolved, and every address it
-    resolves to must be loopback (a hosts file can map "localhost" elsewhere)."""
-    try:
-        return ipaddress.ip_address(host).is_loopback
-    except ValueError:
-        pass
-    try:
-        infos = socket.getaddrinfo(host, None, proto=socket.IPPROTO_UDP)
-    except (socket.gaierror, UnicodeError):
-        return False
-    return bool(infos) and all(ipaddress.ip_address(i[4][0].split("%")[0]).is_loopback for i in infos)
 
 
 def check_token(token: str, where: str) -> None:

@@ -72,7 +72,7 @@ class OscUdpSource(Source):
 
     def __init__(self, listen: str, address: str, arguments, rate_hz: float, channel_names=None,
                  resample: bool = True, wait_s: float = 0.02, clock=time.monotonic, senders=(), token: str = ""):
-        from ..service.control import is_loopback
+        from .addresses import is_loopback
         host, port = parse_listen(listen)
         if not is_loopback(host) and not senders and not token:
             raise ValueError(f"OSC input on {listen} would take samples (and so fire cues) from anyone on the "
