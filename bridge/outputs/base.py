@@ -1,4 +1,4 @@
-"""The output base class, the error for a missing system, and picking a backend by name.
+"""The output base class and the error for a missing system (backends by name: ``registry``).
 
 An output is one destination. Subclasses override ``_send(message)`` and ``close()``;
 outputs that change over time (fades, keep-alive, reconnects) also override ``tick``.
