@@ -112,7 +112,8 @@ def named_keys(relative):
 
 @pytest.mark.parametrize("module, known", [
     *[(m, "mapping") for m in ("bridge/mapping/loader.py", "bridge/outputs/midi.py", "bridge/outputs/keys.py",
-                               "bridge/outputs/sacn.py", "bridge/outputs/osc.py", "bridge/cli.py")],
+                               "bridge/outputs/sacn.py", "bridge/outputs/osc.py", "bridge/cli/live.py",
+                               "bridge/cli/data.py", "bridge/cli/models.py", "bridge/cli/tools.py")],
     *[(m, "config") for m in ("bridge/service/config.py", "bridge/sources/oscinput.py",
                               "bridge/sources/protocols.py", "bridge/service/runner.py")],
 ])

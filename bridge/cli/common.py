@@ -1,0 +1,46 @@
+"""What every verb shares: errors and notices, event lines, signals, outputs, progress, take reading."""
+
+from __future__ import annotations
+
+import signal
+import sys
+
+
+def _err(msg: str) -> int:
+    print(f"drape: {msg}", file=sys.stderr)
+    return 2
+
+
+def _stop_on_signals(flag, reload: bool = False):
+    """Every signal that ends the process only sets the flag: the loop then lets go of
+    every key and note and puts lights to their safe look before it exits. SIGHUP (a
+    closed terminal, a dropped SSH session) reloads the mapping with ``reload``, and
+    stops cleanly otherwise; SIGUSR1 panics."""
+    def handler(signum, _frame):
+        flag.set(signal.Signals(signum).name)
+    ending = ["SIGINT", "SIGTERM", "SIGQUIT"] + ([] if reload else ["SIGHUP"])
+    for name in ending:
+        if hasattr(signal, name):
+            signal.signal(getattr(signal, name), handler)
+    if reload and hasattr(signal, "SIGHUP"):
+        signal.signal(signal.SIGHUP, lambda *_: flag.request_reload())
+    if hasattr(signal, "SIGUSR1"):  # panic: releases every output (see also `drape send panic`)
+        signal.signal(signal.SIGUSR1, lambda *_: flag.request_panic())
+
+
+def _report(text: str) -> None:
+    try:
+        print(f"drape: {text}", file=sys.stderr, flush=True)
+    except (OSError, ValueError):  # stderr gone too (a closed terminal): keep running
+        pass
+
+
+def _plural(n: int, word: str) -> str:
+    """'1 take', '3 takes'."""
+    return f"{n} {word}{'' if n == 1 else 's'}"
+
+
+def replay_events(rec, model, mapping=None, block_s: float = 0.1, settle=None):
+    """Events the live chain decides over a whole take (see ``bridge.service.replay_events``)."""
+    from ..service import replay_events as replay
+    return replay(rec, model, mapping, block_s, settle)

@@ -1,0 +1,238 @@
+"""The model verbs: fit, evaluate, tune."""
+
+from __future__ import annotations
+
+import sys
+from pathlib import Path
+
+from .common import _err, _plural, _report
+
+
+def _progress(desc: str):
+    """A progress callback (done, total) drawing a bar on stderr when it is a terminal, and its closer."""
+    from ..progress import progress_bar
+    bar = progress_bar(desc)
+    return bar, bar.close
+
+
+def _read_takes(paths):
+    from ..sources import read_recording
+    recs = [read_recording(p) for p in paths]
+    kinds = {}
+    for r in recs:
+        kinds.update(r.kinds)
+    return recs, kinds
+
+
+def _read_ts_cases(path):
+    from ..sources.ts_format import TsFormatError, read_ts
+    try:
+        return read_ts(path)
+    except FileNotFoundError:
+        raise TsFormatError(f"{path}: no such .ts file") from None
+
+
+def _training_settings(a):
+    """TrainingSettings from the shared options of fit and evaluate."""
+    from ..recognition import TrainingSettings
+    band = {} if a.band_hz is None else {"low_hz": a.band_hz[0], "high_hz": a.band_hz[1]}
+    return TrainingSettings(window_s=a.window_s, hop_s=a.hop_s, **band)
+
+
+def cmd_fit(a) -> int:
+    from ..recognition import fit_cases, fit_recordings
+    from ..sources import RecordingError
+    from ..sources.ts_format import TsFormatError, stack_cases
+
+    if bool(a.recordings) == bool(a.ts):
+        return _err("give take files or --ts TRAIN.ts (one of the two)")
+    options = {}
+    edges = getattr(a, "edges", None)
+    if edges:
+        if a.classifier != "minirocket":
+            return _err("--edges applies to --classifier minirocket only")
+        options["edges"] = edges
+    if a.band is not None or a.no_rejection:
+        if a.classifier != "dtw":
+            return _err("--band and --no-rejection are dtw settings; add --classifier dtw")
+        if a.band is not None:
+            if not 0.0 <= a.band <= 1.0:
+                return _err(f"--band must be a fraction from 0 to 1, got {a.band:g}")
+            options["band"] = a.band
+        if a.no_rejection:
+            options["reject"] = False
+    step, close = _progress(f"fitting {a.classifier}")
+    try:
+        if a.ts:
+            X_list, y, meta = _read_ts_cases(a.ts)
+            X = stack_cases(X_list)
+            classes = sorted(set(y.tolist()))
+            if step:
+                step(0, 1)
+            model = fit_cases(a.classifier, X, y, classes, **options)
+            source = f"{len(y)} cases of {a.ts}"
+        else:
+            recs, kinds = _read_takes(a.recordings)
+            if a.ordinary:
+                if a.classifier == "linear":
+                    raise ValueError("--ordinary applies to --classifier minirocket or dtw")
+                options["ordinary"] = _read_takes(a.ordinary)[0]
+            model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
+            source = _plural(len(recs), "take")
+    except (RecordingError, TsFormatError, ValueError) as exc:
+        close()
+        return _err(str(exc))
+    close()
+    model.save(a.output)
+    s = model.summary
+    key = next((k for k in ("cross_validated_window_accuracy", "held_out_accuracy", "leave_one_out_accuracy") if k in s), None)
+    estimate = f"{key.replace('_', ' ')} {s[key]:.3f}" if key else "no held-out estimate (one take)"
+    cal = f", calibration error {s['calibration_error']:.3f}" if "calibration_error" in s else ""
+    print(f"{a.output}: {a.classifier}, {len(model.classes) - 1} classes from {source}; {estimate}{cal}")
+    return 0
+
+
+def _json_ready(result: dict) -> dict:
+    return {k: v for k, v in result.items() if k not in ("takes", "confidence", "correct")}
+
+
+def _print_result(result: dict) -> None:
+    cal = f", calibration error {result['calibration_error']:.3f}" if "calibration_error" in result else ""
+    print(f"accuracy {result['accuracy']:.3f}, macro F1 {result['macro_f1']:.3f}{cal} over {result['windows']} windows")
+    for c, v in result["per_class"].items():
+        print(f"  {c:<16} precision {v['precision']:.3f}  recall {v['recall']:.3f}  F1 {v['f1']:.3f}  ({v['support']})")
+    for f in result.get("folds", []):
+        rec = "n/a" if f.get("recall") is None else f"{f['recall']:.3f}"
+        print(f"  held out {f['held_out']!s:<10} accuracy {f['accuracy']:.3f}  macro F1 {f['macro_f1']:.3f}  "
+              f"recall {rec}  false firings {f.get('false')} ({f.get('double')} double, {f.get('wrong_name')} wrong name, "
+              f"{f.get('ordinary')} in ordinary movement)")
+    e = result.get("events")
+    if e:
+        from ..evaluation.matching import format_counts
+        for line in format_counts(e):
+            print(line)
+        w = e["ward"]
+        print(f"  event categories (Ward et al. 2011, detections never merged): {w['true_correct']} correct, "
+              f"{w['true_deleted']} deleted, {w['true_fragmented'] + w['true_frag_merged']} fragmented, "
+              f"{w['true_merged'] + w['true_frag_merged']} merged; {w['detected_inserted']} inserted of "
+              f"{w['detections']} detections")
+
+
+def cmd_evaluate(a) -> int:
+    from ..evaluation.heldout import cross_validate, evaluate_cases, evaluate_takes
+    from ..recognition import ModelError, load_model
+    from ..sources import RecordingError
+    from ..sources.ts_format import TsFormatError
+
+    step, close = _progress("evaluating")
+    try:
+        if a.model:
+            model = load_model(a.model)
+            if a.ts:
+                X_list, y, _ = _read_ts_cases(a.ts)
+                result = evaluate_cases(model, X_list, y)
+                title = f"{a.model} on {a.ts}"
+            elif a.recordings:
+                recs, _ = _read_takes(a.recordings)
+                for r in recs:
+                    model.check_source(len(r.channel_names), r.rate_hz)
+                result = evaluate_takes(model, recs, progress=step)
+                title = f"{a.model} on {_plural(len(recs), 'take')}"
+            else:
+                close()
+                return _err("with --model, give take files or --ts TEST.ts to score it on")
+        else:
+            if not a.recordings or not a.scheme:
+                close()
+                return _err("give take files and --scheme leave-session-out or leave-wearer-out (or --model M with held-out data)")
+            recs, kinds = _read_takes(a.recordings)
+            result = cross_validate(recs, kinds, a.scheme, a.classifier, _training_settings(a), progress=step)
+            title = f"{a.classifier}, {a.scheme}, {_plural(len(recs), 'take')}"
+    except (ModelError, RecordingError, TsFormatError, ValueError) as exc:
+        close()
+        return _err(str(exc))
+    close()
+    if a.report:
+        from ..evaluation.report import write_report
+        try:
+            page = write_report(result, a.report, title, "drape " + " ".join(sys.argv[1:]))
+        except ImportError as exc:
+            return _err(str(exc))
+        print(f"report: {page}", file=sys.stderr)
+    try:
+        if a.json:
+            import json
+            print(json.dumps(_json_ready(result), indent=1, default=str))
+        else:
+            print(title)
+            _print_result(result)
+        sys.stdout.flush()
+    except BrokenPipeError:  # the reader stopped early (`| head`): what it read is what it wanted
+        _stdout_to_devnull()
+    return 0
+
+
+def _stdout_to_devnull() -> None:
+    """After a closed pipe: point stdout at /dev/null so Python's flush at exit does not fail again."""
+    import os
+    devnull = os.open(os.devnull, os.O_WRONLY)
+    os.dup2(devnull, sys.stdout.fileno())
+    os.close(devnull)
+
+
+def cmd_tune(a) -> int:
+    from ..evaluation.matching import format_counts
+    from ..evaluation.tuning import tune_model
+    from ..recognition import ModelError, load_model
+    from ..sources import RecordingError, read_recording
+
+    try:
+        model = load_model(a.model)
+        recs = [read_recording(p) for p in a.recordings]
+        for r in recs:
+            model.check_source(len(r.channel_names), r.rate_hz)
+    except (ModelError, RecordingError) as exc:
+        return _err(str(exc))
+    hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
+    print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, "
+          f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
+    step, close = _progress("replaying")
+    try:
+        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step)
+    finally:
+        close()
+    print("before, the settings stored in the model, on these takes:")
+    for line in format_counts(result.before):
+        print("  " + line)
+    if result.held_out is None:
+        print("held out: none (one take with no gap between labelled gestures to cut it at); "
+              "give two or more takes for an honest figure")
+    else:
+        print(f"held out (settings chosen on the other {result.pieces - 1} of {result.pieces} pieces, "
+              f"scored on the one left out; this is the figure to expect):")
+        for line in format_counts(result.held_out):
+            print("  " + line)
+    for g, st in result.settings.items():
+        rearm = (f", re-arms below {st['rearm_below']:.2f} for {st['rearm_hops']} hops"
+                 if model.kinds.get(g) == "gesture" else "")
+        print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops{rearm}")
+    problems = []
+    if not result.met:
+        problems.append(f"even the strictest settings fire {result.in_sample['false']} false on these takes, "
+                        f"over the budget of {result.budget} ({a.max_false_per_hour:g} per hour × {hours:.2f} h)")
+    if result.held_out is not None and not result.held_out_met:
+        problems.append(f"held out, the chosen settings fired {result.held_out['false']} false in "
+                        f"{result.held_out['take_hours']:.2f} h, over the budget of {a.max_false_per_hour:g} per hour")
+    out = Path(a.output or a.model)
+    if problems and not a.store_anyway:
+        for p in problems:
+            _report("budget missed: " + p)
+        _report(f"nothing stored in {out} (--store-anyway stores the settings all the same); "
+                "more ordinary movement in training, or a stricter budget, may help")
+        return 3
+    for p in problems:
+        _report("budget missed, stored anyway: " + p)
+    model.decision = {**model.decision, **result.settings}
+    model.save(out)
+    print(f"{out}: decision settings stored")
+    return 0

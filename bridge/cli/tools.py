@@ -1,0 +1,95 @@
+"""The tool verbs: bench (speed, live, soak, fuzz, spotting)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+from .common import _err
+
+
+def cmd_bench(a) -> int:
+    from ..evaluation.bench import bench_continuous, run_all
+    if a.continuous_only:
+        c = bench_continuous()
+        print(" ".join(f"{k} {v}" for k, v in c.items()))
+        return 0
+    if a.live:
+        from ..evaluation.bench import bench_live
+        bench_live(a.live_s)
+        return 0
+    if a.soak is not None:
+        return _bench_soak(a)
+    if a.fuzz is not None:
+        return _bench_fuzz(a)
+    if a.spotting:
+        return _bench_spotting(a)
+    run_all(channels=tuple(a.channels), hops=a.hops, replay_s=a.replay_s, fit_minutes=a.fit_minutes,
+            classifiers=tuple(a.classifier or ("linear", "minirocket", "dtw")), compare=a.compare,
+            batch_windows=a.batch_windows)
+    return 0
+
+
+def _bench_spotting(a) -> int:
+    """`drape bench --spotting`: the spotting protocol on a simulated troupe; prints its table."""
+    import json
+    from ..evaluation.spotting import Protocol, format_table, run_protocol
+    if a.spotting_wearers < 2 or a.spotting_score_min <= 0:
+        return _err("--spotting-wearers must be at least 2 and --spotting-score-min positive")
+    p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min,
+                 prior_wearers=a.spotting_prior)
+    cache = Path(a.spotting_cache or f"drape-spotting-{a.spotting_seed}-{a.spotting_wearers}-{a.spotting_score_min:g}")
+    from ..recognition.classifiers import DEFAULT_CLASSIFIER
+    classifier = (a.classifier or [DEFAULT_CLASSIFIER])[0]
+    print(f"spotting protocol, {classifier}: {p.wearers} simulated wearers, full vocabulary; fit on 2 sessions "
+          f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), tune on a third "
+          f"({p.tune_reps} + {p.tune_null_s / 60:g} min), score a fourth ({p.score_reps} + {p.score_null_s / 60:g} min); "
+          f"takes cached in {cache}"
+          + (f"; every fit adds 10 min of ordinary movement of each of {p.prior_wearers} other simulated people"
+             if p.prior_wearers else ""), flush=True)
+    try:
+        result = run_protocol(p, classifier, cache, progress=lambda m: print("  " + m, flush=True))
+    except ValueError as exc:
+        return _err(str(exc))
+    print("\n".join(format_table(result)))
+    if a.spotting_json:
+        Path(a.spotting_json).write_text(json.dumps(result, indent=1, default=str), encoding="utf-8")
+        print(f"{a.spotting_json}: written")
+    return 0
+
+
+def _bench_soak(a) -> int:
+    """`drape bench --soak HOURS`: simulated hours through the live loop, then a replay check."""
+    from ..evaluation.soak import soak
+    from ..recognition import ModelError, load_model
+    if a.soak <= 0:
+        return _err("--soak takes a positive number of simulated hours, e.g. 2")
+    try:
+        model = load_model(a.soak_model) if a.soak_model else None
+    except ModelError as exc:
+        return _err(str(exc))
+    print(f"soak: {a.soak:g} simulated hours through the live loop (blocks of 10-50 ms, OSC to loopback, take captured)",
+          flush=True)
+    if a.soak_out:  # made here, so a bad folder is named before the hours of stream, not after
+        try:
+            Path(a.soak_out).mkdir(parents=True, exist_ok=True)
+        except OSError as exc:
+            return _err(f"--soak-out {a.soak_out}: cannot make this folder ({exc.strerror or exc})")
+    r = soak(a.soak, model=model, out_dir=a.soak_out, heap=a.soak_heap, report=lambda t: print(t, flush=True))
+    for line in r.lines():
+        print(line)
+    c = r.comparison
+    return 0 if c["only_live"] == c["only_replay"] == c["doubled_live"] == 0 and r.dropped == 0 else 1
+
+
+def _bench_fuzz(a) -> int:
+    """`drape bench --fuzz N`: N mutated inputs into each parser; crashes counted by type."""
+    from ..evaluation.fuzz import TARGETS, fuzz
+    crashes = 0
+    for target in a.fuzz_target or TARGETS:
+        r = fuzz(target, a.fuzz, seed=a.fuzz_seed, crash_dir=a.fuzz_crashes, report=lambda t: print(t, flush=True),
+                 time_limit_s=a.fuzz_limit_s)
+        print(r.line(), flush=True)
+        crashes += sum(r.crashes.values()) + sum(r.violations.values())
+    if crashes and a.fuzz_crashes:
+        print(f"first input of each crash kind saved in {a.fuzz_crashes}")
+    return 1 if crashes else 0
