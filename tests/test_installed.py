@@ -54,7 +54,8 @@ def test_installed_package_is_the_one_run(installed, tmp_path):
     out = subprocess.run([str(installed / "python"), "-c",
                           "import bridge, importlib.metadata as m; print(bridge.__file__); "
                           "print(m.distribution('drape-bridge').requires)"],
-                         cwd=tmp_path, capture_output=True, text=True, timeout=60)
+                         cwd=tmp_path, capture_output=True, text=True, timeout=60,
+                         env={k: v for k, v in os.environ.items() if k != "PYTHONPATH"})
     where, requires = out.stdout.splitlines()
     assert Path(where).is_relative_to(installed.parent), where
     assert "tqdm" in requires  # progress bars are a core feature now
