@@ -181,3 +181,20 @@ def test_finite_but_enormous_weights_are_refused(tmp_path, linear_members):
     path.write_bytes(zip_members(members))
     with pytest.raises(ModelError, match="beyond"):
         load_model(path)
+
+
+@pytest.mark.parametrize("scale", [10 ** 400, 2 ** 64, -1, 0, float("inf")])
+def test_a_dtw_null_scale_no_float_holds_is_refused_as_a_model_error(tmp_path, scale):
+    # found by the property fuzzer: an integer too large for a float (or for numpy's int64)
+    # made the loader raise TypeError or OverflowError instead of ModelError
+    members = dict(next(m for m in model_seed_members()
+                        if b'"dtw"' in np.lib.format.read_array(io.BytesIO(m["meta_json.npy"])).tobytes()))
+    meta = json.loads(np.lib.format.read_array(io.BytesIO(members["meta_json.npy"])).tobytes())
+    members["meta_json.npy"] = _npy(np.frombuffer(json.dumps({**meta, "null_scale": scale}).encode(), dtype=np.uint8))
+    path = tmp_path / "scale.npz"
+    path.write_bytes(zip_members(members))
+    if scale == 2 ** 64:      # a large but ordinary number: loads
+        assert load_model(path).null_scale == float(2 ** 64)
+    else:
+        with pytest.raises(ModelError, match="null_scale"):
+            load_model(path)

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import json
+import math
 import tokenize
 import zipfile
 import zlib
@@ -485,8 +486,12 @@ def _load_dtw(ar: _Archive, meta: dict, common: dict, path) -> DtwModel:
         _require(bool((np.isfinite(thresholds) & (thresholds > 0)).all()), path, "thresholds must be positive numbers")
         extra["null_templates"] = ar.read("null_templates", (n_null, n_in, length), "f").astype(float)
         scale = meta.get("null_scale")
-        _require(isinstance(scale, (int, float)) and not isinstance(scale, bool) and np.isfinite(scale) and scale > 0,
-                 path, "metadata null_scale must be a positive number")
+        try:  # a JSON integer may be too large for a float (OverflowError), or for np.isfinite
+            scale_ok = isinstance(scale, (int, float)) and not isinstance(scale, bool) and math.isfinite(float(scale)) \
+                and scale > 0
+        except OverflowError:
+            scale_ok = False
+        _require(scale_ok, path, "metadata null_scale must be a positive number")
         _require(isinstance(meta.get("reject"), bool), path, "metadata reject must be true or false")
         extra.update(null_scale=float(scale), reject=meta["reject"])
     else:
