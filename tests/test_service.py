@@ -161,7 +161,7 @@ length_s = 5.0
                  ("push_forward", 67), ("bow", 69)) for layer in ("act1", "act2"))
 
 
-def state_of(rx, name, t0, pred, timeout=8.0):
+def state_of(rx, name, t0, pred, timeout=30.0):  # generous: a loaded machine is slow, a pass is quick
     return rx.wait(lambda a, args: a == f"/drape/g/{name}/state" and pred(args), timeout, t0)[1]
 
 
