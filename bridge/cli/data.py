@@ -249,7 +249,7 @@ def cmd_simulate(a) -> int:
     if a.serve:
         return _serve(a, layout, gestures, nulls)
     if troupe:
-        from ..garment.troupe import write_troupe
+        from ..sources.troupe import write_troupe
 
         def show(f):
             print(f"  {f['file']}: {f['seconds']:.0f} s, {f['gestures']} labelled", flush=True)
@@ -275,7 +275,7 @@ def cmd_simulate(a) -> int:
 def _serve(a, layout, gestures, nulls) -> int:
     import numpy as np
     from ..garment import Jacket
-    from ..garment.device import PseudoGarment
+    from ..sources.pseudodevice import PseudoGarment
     from ..service import StopFlag
 
     jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session, rate_hz=a.rate_hz, layout=layout)

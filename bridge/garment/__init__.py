@@ -13,8 +13,7 @@ frequencies, seeded and reproducible.  Modules, from the body outward:
 ``layout``      cable layouts read from TOML files
 ``jacket``      ``Jacket`` (owns the stream state), takes and scripts
 ``delivery``    dropped and late samples on the way to the computer
-``device``      the jacket as a pseudo-terminal serial port, in real time
-``troupe``      data sets of several wearers and sessions as take files
+``troupe``      several wearers and sessions (written as take files by ``sources.troupe``)
 
 Figures with the default constants (seed 0, several wearers and sessions):
 resting channels near 174, 236, 318 and 430 kHz (inductor tolerance moves

@@ -20,8 +20,9 @@ import time
 
 import numpy as np
 
-from .delivery import DROP_PROBABILITY, LATE_PROBABILITY, deliver
-from .jacket import Jacket, random_script
+from ..garment.delivery import DROP_PROBABILITY, LATE_PROBABILITY, deliver
+from ..garment.jacket import Jacket, random_script
+from .textline import format_line
 
 
 class PseudoGarment:
@@ -36,8 +37,6 @@ class PseudoGarment:
                  with_time: bool = True):
         if not hasattr(os, "openpty"):
             raise OSError("pseudo-terminals are not available on this system")
-        from ..sources.textline import format_line  # the protocol's own formatter (lazy: sources import garment)
-
         self._format = format_line
         self.jacket, self.rng = jacket, rng
         self.gestures, self.null_activities = list(gestures), tuple(null_activities)
