@@ -2,7 +2,8 @@
 
 from .classifiers import CLASSIFIERS, fit_cases, fit_recordings, make_recogniser, predict_proba
 from .features import FEATURES_PER_CHANNEL, window_features
-from .model import NULL, DtwModel, MiniRocketModel, Model, ModelError, load_model
+from .model import NULL, DtwModel, MiniRocketModel, Model, ModelError
+from .model_files import load_model
 from .recogniser import Recogniser
 from .training import TrainingSettings, fit_linear
 from .windows import WindowSpec, Windower, all_windows
