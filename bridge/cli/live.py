@@ -42,6 +42,17 @@ def _print_event(e, timing=None) -> None:
     _line(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}")
 
 
+def _stop_flag(pid_file):
+    """The stop flag a single live loop runs on: every ending signal sets it and SIGHUP
+    reloads the mapping (handlers set before anything is held), and the pid file written.
+    OSError when the pid file cannot be written."""
+    from ..service import StopFlag
+    stop = StopFlag()
+    _stop_on_signals(stop, reload=True)
+    _write_pid_file(pid_file)
+    return stop
+
+
 def _write_pid_file(path) -> None:
     """Write this process's id to ``path`` (for `kill -USR1 "$(cat PATH)"`, which can hit no
     other process), and remove it at exit if it still holds our id."""
@@ -114,7 +125,7 @@ def cmd_demo(a) -> int:
     from ..mapping import MappingError, MappingWatcher
     from ..mapping.rules import describe_destination
     from ..recognition import ModelError
-    from ..service import Pipeline, StopFlag, run
+    from ..service import Pipeline, run
     from ..sources.simulated import SimulatedSource
 
     mapping_path = Path(a.mapping) if a.mapping else _default_mapping()
@@ -149,10 +160,8 @@ def cmd_demo(a) -> int:
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
     mapping = watcher.mapping
-    stop = StopFlag()
-    _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
     try:
-        _write_pid_file(a.pid_file)
+        stop = _stop_flag(a.pid_file)  # before anything is held: every ending lets go
     except OSError as exc:
         return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping)
@@ -251,7 +260,7 @@ def cmd_start(a) -> int:
         return cmd_serve(a)
     from ..mapping import MappingError, MappingWatcher
     from ..recognition import ModelError, load_model
-    from ..service import Pipeline, StopFlag, run
+    from ..service import Pipeline, run
     from ..service.config import ConfigError, load_config
     from ..sources.base import SourceGone
     from ..sources.protocols import describe_counters
@@ -279,10 +288,8 @@ def cmd_start(a) -> int:
     where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
     from ..service.runner import keys_only_for_local_input
     opener = keys_only_for_local_input(_open_one, cfg.input == "osc")  # no keys from network samples
-    stop = StopFlag()
-    _stop_on_signals(stop, reload=True)  # before anything is held: every ending lets go
     try:
-        _write_pid_file(a.pid_file)
+        stop = _stop_flag(a.pid_file)  # before anything is held: every ending lets go
     except OSError as exc:
         return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping, opener) if mapping else {}
