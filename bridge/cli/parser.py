@@ -77,7 +77,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="minirocket (default: convolution features, trained against false cues), "
                         "linear (tiny) or dtw (few-shot templates)")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
-    f.add_argument("--window-s", type=float, default=2.0, help="window length, s")
+    f.add_argument("--window-s", type=float, default=None,
+                   help="window length, s (default: 1.25 × the longest labelled gesture, at least 2 s)")
     f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
     f.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
                    help="band-pass edges, Hz (default 1 to 10 Hz, the upper edge lowered to 0.4 × the rate "
@@ -102,7 +103,7 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--ts", metavar="TEST.ts", help="cases to score --model on (resampled to its window)")
     e.add_argument("--json", action="store_true", help="print a machine-readable summary")
     e.add_argument("--report", metavar="DIR", help="write an HTML report with pictures into DIR (needs matplotlib)")
-    e.add_argument("--window-s", type=float, default=2.0, help="window length, s")
+    e.add_argument("--window-s", type=float, default=None, help="window length, s (as drape fit)")
     e.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
     e.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
                    help="band-pass edges, Hz (as drape fit)")

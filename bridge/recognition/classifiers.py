@@ -352,7 +352,7 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
     ``training.label_windows``; ambiguous ones are left out. progress(done, total) is
     called after each recording.
     """
-    from .training import TrainingSettings, condition_recording, label_windows
+    from .training import TrainingSettings, condition_recording, label_windows, window_length_s
     from .windows import all_windows
     settings = settings or TrainingSettings()
     recordings = list(recordings)
@@ -368,7 +368,7 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
         raise ValueError(f"labels without a kind (gesture or posture): {', '.join(unknown)}")
     classes = (NULL, *labels)
     conditioning = settings.band(rate)
-    spec = WindowSpec(rate, settings.window_s, settings.hop_s)
+    spec = WindowSpec(rate, window_length_s(recordings, kinds, settings), settings.hop_s)
     ws, ys, gs, es = [], [], [], []
     for i, r in enumerate(recordings):
         if tuple(r.channel_names) != channels or abs(r.rate_hz - rate) > 1e-6 * rate:

@@ -17,7 +17,7 @@ IGNORE = -1
 
 @dataclass(frozen=True)
 class TrainingSettings:
-    window_s: float = 2.0
+    window_s: float | None = None  # None: long enough for the longest gesture (``window_length_s``)
     hop_s: float = 0.1
     low_hz: float = 1.0
     high_hz: float | None = None   # None: 10 Hz, or 0.4 × the sample rate where that is lower
@@ -34,6 +34,27 @@ class TrainingSettings:
         the Nyquist frequency (``band_edges``)."""
         low, high = band_edges(rate_hz, self.low_hz, self.high_hz)
         return BandPass(rate_hz, low, high, self.order, self.baseline_tau_s)
+
+
+MIN_WINDOW_S = 2.0   # shortest automatic window, s
+WINDOW_ROOM = 1.25   # automatic window / longest labelled gesture
+
+
+def window_length_s(recordings, kinds: dict[str, str], settings: "TrainingSettings") -> float:
+    """The classifier's window length, s: ``settings.window_s`` when given, else
+    max(MIN_WINDOW_S, WINDOW_ROOM × the longest labelled gesture), rounded up to the hop.
+
+    A gesture trains only the windows that hold all of it, and fires only when several
+    hops in a row agree; a window barely longer than a slow wearer's gestures holds each
+    of them at one hop or none, so they are learnt from few windows and missed live.
+    The room of 25 % gives every gesture several hops that hold it.
+    """
+    if settings.window_s is not None:
+        return float(settings.window_s)
+    longest = max((iv.end_s - iv.start_s for r in recordings for iv in r.intervals
+                   if kinds.get(iv.label) == "gesture"), default=0.0)
+    hops = np.ceil(round(max(MIN_WINDOW_S, WINDOW_ROOM * longest) / settings.hop_s, 6))
+    return round(float(hops * settings.hop_s), 6)
 
 
 def band_edges(rate_hz: float, low_hz: float = 1.0, high_hz: float | None = None) -> tuple[float, float]:
@@ -159,7 +180,7 @@ def fit_linear(recordings, kinds: dict[str, str], settings: TrainingSettings = T
         raise ValueError("the recordings hold no labelled gestures")
     classes = (NULL, *labels)
     conditioning = settings.band(rate)
-    spec = WindowSpec(rate, settings.window_s, settings.hop_s)
+    spec = WindowSpec(rate, window_length_s(recordings, kinds, settings), settings.hop_s)
     xs, ys, groups = [], [], []
     for i, r in enumerate(recordings):
         f, ends = recording_features(r, (conditioning, spec))
