@@ -445,7 +445,6 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     mine_folds = int(opts.pop("mine_folds", 3))
     ordinary = list(opts.pop("ordinary", None) or ())
     ordinary_cases = int(opts.pop("ordinary_cases", per_null or 1500))
-    least = int(opts.pop("least_cases", 0))
     recordings = list(recordings)
     for r in ordinary:
         if r.intervals:
@@ -461,17 +460,6 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         keep = np.flatnonzero(own)[_thin(y[own], per_class, per_null)]
         if ordinary:   # ordinary movement of others: null windows of their own quota
             keep = np.sort(np.concatenate([keep, np.flatnonzero(~own)[_thin(y[~own], ordinary_cases)]]))
-        w, y, g, e = w[keep], y[keep], g[keep], e[keep]
-    if least:
-        # Classes with few windows (short takes, long gestures) repeated up to ``least``
-        # cases, so that the null class's thousands do not outvote them in the ridge.
-        # Repeats keep their recording and end, so grouped folds still hold them out together.
-        rep = [np.arange(len(y))]
-        for k in range(1, len(classes)):
-            idx = np.flatnonzero(y == k)
-            if 0 < len(idx) < least:
-                rep.append(np.resize(idx, least - len(idx)))
-        keep = np.sort(np.concatenate(rep))
         w, y, g, e = w[keep], y[keep], g[keep], e[keep]
     labels = list(classes[1:])
     channels = tuple(recordings[0].channel_names)
