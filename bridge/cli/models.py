@@ -90,7 +90,7 @@ def cmd_fit(a) -> int:
     cal = f", calibration error {s['calibration_error']:.3f}" if "calibration_error" in s else ""
     print(f"{a.output}: {a.classifier}, {len(model.classes) - 1} classes from {source}; {estimate}{cal}")
     if not a.ts:
-        how = "as given" if a.window_s is not None else "room for the longest gesture"
+        how = "as given" if a.window_s is not None else "room for the labelled gestures"
         print(f"window {model.windows.window_s:g} s ({how}), hop {model.windows.hop_s:g} s")
     return 0
 

@@ -78,7 +78,7 @@ def build_parser() -> argparse.ArgumentParser:
                         "linear (tiny) or dtw (few-shot templates)")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
     f.add_argument("--window-s", type=float, default=None,
-                   help="window length, s (default: 1.25 × the longest labelled gesture, at least 2 s)")
+                   help="window length, s (default: room for the labelled gestures, at least 2 s)")
     f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
     f.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
                    help="band-pass edges, Hz (default 1 to 10 Hz, the upper edge lowered to 0.4 × the rate "
