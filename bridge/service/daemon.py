@@ -63,6 +63,35 @@ class Latency:
         return (self.sent_s - self.arrived_s) * 1e3
 
 
+class DeliveryTimes:
+    """Every delivery's times, kept for ``drape start --timings`` (and ``drape bench --live``).
+
+    One row per delivery (a block's control events, or its decisions): garment index,
+    arrival of its last sample and hand-over to the outputs (host monotonic, s), and how many
+    control and other events it carried. At most ``limit`` rows are kept (about 3 hours of 4
+    garments with a continuous control each); later ones are only counted in ``beyond``.
+    """
+
+    COLUMNS = ("garment", "arrived_s", "sent_s", "controls", "others")
+
+    def __init__(self, limit: int = 5_000_000):
+        self.limit = limit
+        self.rows: list[tuple] = []
+        self.beyond = 0
+
+    def record(self, index: int, events, lat: Latency) -> None:
+        if len(self.rows) >= self.limit:
+            self.beyond += 1
+            return
+        controls = sum(1 for e in events if e.kind == "control")
+        self.rows.append((index, lat.arrived_s, lat.sent_s, controls, len(events) - controls))
+
+    def save(self, path) -> None:
+        """As a .npz: one array per column, plus ``beyond`` (rows not kept)."""
+        a = np.array(self.rows, dtype=float).reshape(-1, len(self.COLUMNS))
+        np.savez(path, beyond=np.array(self.beyond), **{c: a[:, i] for i, c in enumerate(self.COLUMNS)})
+
+
 class Reader(threading.Thread):
     """Reads one source into the shared queue until stopped, the source ends or fails."""
 
@@ -90,6 +119,7 @@ class Reader(threading.Thread):
 class Garment:
     name: str
     cfg: object
+    index: int = 0
     model: object = None
     pipeline: Pipeline | None = None
     source: object = None
@@ -197,12 +227,13 @@ class Service:
     """
 
     def __init__(self, config, open_fn, stop: StopFlag | None = None, clock=time.monotonic,
-                 on_event=None):
+                 on_event=None, timings: DeliveryTimes | None = None):
         self.config = config
         self.open_fn = open_fn
         self.stop = stop or StopFlag()
         self.clock = clock
         self.on_event = on_event
+        self.timings = timings
         self.q: queue.Queue = queue.Queue(maxsize=256 * max(1, len(config.garments)))
         self.garments: list[Garment] = []
         self.status = st.StatusStream(config.status_to)
@@ -226,7 +257,7 @@ class Service:
         from ..mapping import MappingError, MappingWatcher
         from ..recognition import ModelError, load_model
         for i, cfg in enumerate(self.config.garments):
-            g = Garment(cfg.name, cfg)
+            g = Garment(cfg.name, cfg, i)
             self.garments.append(g)
             try:
                 if cfg.simulated and not Path(cfg.model).is_file():
@@ -377,6 +408,8 @@ class Service:
         self.send(g, dispatches)
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
+        if self.timings is not None:
+            self.timings.record(g.index, events, lat)
         out = []
         for e, disarmed in zip(events, unsent):
             if e.kind == "control":
