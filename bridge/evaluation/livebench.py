@@ -123,8 +123,11 @@ def _percentiles(ms: np.ndarray) -> dict:
             "jitter_ms": round(p99 - med, 3), "max_ms": round(float(ms.max()), 3)}
 
 
-def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4) -> dict:
-    """Run the live bench (see the module docstring); returns its figures as a dict."""
+def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4, daemon=None) -> dict:
+    """Run the live bench (see the module docstring); returns its figures as a dict.
+
+    daemon: the command that runs ``drape`` (default: this Python, ``-m bridge``), e.g. a
+    wrapper that profiles it (benchmarks/live_profile.py)."""
     from ..examples_data import example_text
     from ..sources import format_line
     from .simulated import train_simulated
@@ -152,7 +155,7 @@ def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4) -> dict
                           f'mapping = "{name}.toml"\nprotocol = "text"\n')
         (tmp / "live.toml").write_text("\n".join(config), encoding="utf-8")
         timings_path = tmp / "timings.npz"
-        proc = subprocess.Popen([sys.executable, "-m", "bridge", "start", "--config", str(tmp / "live.toml"),
+        proc = subprocess.Popen([*(daemon or [sys.executable, "-m", "bridge"]), "start", "--config", str(tmp / "live.toml"),
                                  "--timings", str(timings_path)],
                                 stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True)
         log: list[str] = []
