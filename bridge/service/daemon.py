@@ -6,7 +6,8 @@ and the simulated jacket sleeps to keep time, so polling N sources from one thre
 up to N waits of latency; with readers the loop wakes as soon as any garment's block arrives,
 and every stage's state is still touched by this one thread only. A reader whose queue is
 full drops the block and counts it (the loop has fallen behind; old samples are worth less
-than a live stream).
+than a live stream). Each wake the loop takes every block waiting, and a garment's blocks
+taken together go through its pipeline as one (events do not depend on the blocking).
 
 Each garment is a ``Garment``: its pipeline, outputs, mapping watcher, watchdog and its
 calibration state ("calibrating" at start and on rebaseline: a hold-still capture sets each
@@ -33,6 +34,7 @@ from pathlib import Path
 
 import numpy as np
 
+from ..sources.base import Block
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
 from .control import printable
@@ -90,6 +92,63 @@ class DeliveryTimes:
         """As a .npz: one array per column, plus ``beyond`` (rows not kept)."""
         a = np.array(self.rows, dtype=float).reshape(-1, len(self.COLUMNS))
         np.savez(path, beyond=np.array(self.beyond), **{c: a[:, i] for i, c in enumerate(self.COLUMNS)})
+
+
+class Handoff:
+    """The readers' one bounded queue to the loop, on the C ``queue.SimpleQueue``: a put and
+    a get cost a fraction of ``queue.Queue``'s lock and condition work, paid per block.
+
+    ``put_nowait`` raises ``queue.Full`` when ``maxsize`` blocks wait (the size check and the
+    put are two steps, so with several readers the bound may be passed by one block per
+    reader); ``put`` never refuses (a reader's last word); ``get`` raises ``queue.Empty``
+    after ``timeout_s``; ``take_all`` returns every item waiting, oldest first.
+    """
+
+    def __init__(self, maxsize: int):
+        self.maxsize = maxsize
+        self._q = queue.SimpleQueue()
+
+    def put_nowait(self, item) -> None:
+        if self._q.qsize() >= self.maxsize:
+            raise queue.Full
+        self._q.put(item)
+
+    def put(self, item) -> None:
+        self._q.put(item)
+
+    def get(self, timeout_s: float | None = None):
+        return self._q.get(timeout=timeout_s)
+
+    def qsize(self) -> int:
+        return self._q.qsize()
+
+    def take_all(self) -> list:
+        get = self._q.get_nowait
+        return [get() for _ in range(self._q.qsize())]  # only this thread takes: they are all there
+
+
+def join_blocks(items: list) -> list:
+    """A wake's (garment index, block) items with each garment's blocks joined into one,
+    in the order each garment first appears; a garment's end (block None) stays after its
+    blocks. Empty blocks count only as a read; the joined block's arrival is its first
+    sample's block's (so a latency counts from the earliest arrival)."""
+    order: dict[int, list] = {}
+    for index, block in items:
+        order.setdefault(index, []).append(block)
+    out = []
+    for index, blocks in order.items():
+        end = any(b is None for b in blocks)
+        data = [b for b in blocks if b is not None and len(b)]
+        if len(data) > 1:
+            out.append((index, Block(np.concatenate([b.t_s for b in data]),
+                                     np.concatenate([b.freq_hz for b in data]), data[0].arrived_s)))
+        elif data:
+            out.append((index, data[0]))
+        elif not end:
+            out.append((index, next(b for b in blocks if b is not None)))  # an empty read: the watchdog counts it
+        if end:
+            out.append((index, None))
+    return out
 
 
 class Reader(threading.Thread):
@@ -234,7 +293,7 @@ class Service:
         self.clock = clock
         self.on_event = on_event
         self.timings = timings
-        self.q: queue.Queue = queue.Queue(maxsize=256 * max(1, len(config.garments)))
+        self.q = Handoff(maxsize=256 * max(1, len(config.garments)))
         self.garments: list[Garment] = []
         self.status = st.StatusStream(config.status_to)
         self.control = None
@@ -337,19 +396,19 @@ class Service:
         next_levels = next_state = next_alive = self.clock()
         levels_every = 1.0 / self.config.levels_hz
         try:
+            next_house = self.clock()
             while not self.stop.stopped:
                 try:
-                    item = self.q.get(timeout=0.02)
+                    items = [self.q.get(timeout_s=0.02)]
                 except queue.Empty:
-                    item = None
-                while item is not None:
+                    items = []
+                items += self.q.take_all()
+                for item in join_blocks(items) if len(items) > 1 else items:
                     self.take(*item)
-                    try:
-                        item = self.q.get_nowait()
-                    except queue.Empty:
-                        item = None
                 now = self.clock()
-                self.housekeeping(now)
+                if now >= next_house:  # control messages, reloads, output failures: 100 times a second is soon enough
+                    next_house = now + 0.01
+                    self.housekeeping(now)
                 if now >= next_levels:
                     next_levels = now + levels_every
                     self.send_levels()
