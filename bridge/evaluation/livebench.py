@@ -202,7 +202,8 @@ def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4, daemon=
                 os.close(s)
         if not timings_path.is_file():
             raise RuntimeError("the daemon wrote no timings:\n" + "".join(log[-20:]))
-        t = dict(np.load(timings_path))
+        with np.load(timings_path, allow_pickle=False) as z:
+            t = {k: z[k] for k in z.files}
     load_after = load_average()
 
     control = t["controls"] > 0
