@@ -71,15 +71,21 @@ def main() -> None:
     print(f"streaming (the loop's serve, the readers' run, the outputs' queues): {busy:.2f} s")
     for label, file_end, fn in SHARES:
         ct = sum(v[3] for (file, _, name), v in stats.stats.items() if name == fn and file.endswith(file_end))
-        print(f"{label:>34}: {ct:7.2f} s cumulative, {100 * ct / busy:5.1f} % of streaming")
+        print(f"{label:>42}: {ct:7.2f} s cumulative, {100 * ct / busy:5.1f} % of streaming")
 
 
 SHARES = [("Service.take (a block, all stages)", "daemon.py", "take"),
           ("Conditioner.process", "conditioning.py", "process"),
           ("plausible_rows", "conditioning.py", "plausible_rows"),
           ("SerialSource.read", "serialport.py", "read"),
-          ("queue hand-off: put", "queue.py", "put"), ("queue hand-off: put_nowait", "queue.py", "put_nowait"),
-          ("queue hand-off: get", "queue.py", "get"), ("queue hand-off: get_nowait", "queue.py", "get_nowait"),
+          ("queue hand-off: put (queue.Queue)", "queue.py", "put"),
+          ("queue hand-off: put_nowait (queue.Queue)", "queue.py", "put_nowait"),
+          ("queue hand-off: get (queue.Queue)", "queue.py", "get"),
+          ("queue hand-off: get_nowait (queue.Queue)", "queue.py", "get_nowait"),
+          ("queue hand-off: put_nowait (Handoff)", "daemon.py", "put_nowait"),
+          ("queue hand-off: get (Handoff)", "daemon.py", "get"),
+          ("queue hand-off: take_all (Handoff)", "daemon.py", "take_all"),
+          ("queue hand-off: join_blocks", "daemon.py", "join_blocks"),
           ("Service.housekeeping", "daemon.py", "housekeeping"),
           ("Service.deliver", "daemon.py", "deliver"),
           ("outputs' queue threads", "queued.py", "_work")]

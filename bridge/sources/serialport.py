@@ -27,7 +27,8 @@ from .textline import ProtocolUndecided
 from .timebase import DeviceClock, Resampler
 
 MISMATCH_SAMPLES = 50  # samples of another channel count, and none good, before giving up
-CHUNK_BYTES = 65536    # asked of one read; a pseudo-terminal hands over at most about 4 KB at a time
+CHUNK_BYTES = 65536    # asked of one read of a device's descriptor
+TTY_HANDOVER_BYTES = 4095  # Linux terminals (USB serial, pty) hand over at most this much per read
 BLOCK_BYTES = 1 << 20  # at most this much per block, so a flood of input still yields blocks to the loop
 _POSIX_PORT = serial.Serial if os.name == "posix" else None  # a device or pty: its descriptor is read directly
 
@@ -147,7 +148,7 @@ class SerialSource(Source):
                 taken += len(data)
                 samples += self.decoder.feed(data)
                 if samples:  # then only what is already here, without waiting
-                    data = self._take(0.0) if taken < BLOCK_BYTES else b""
+                    data = self._take(0.0, len(data)) if taken < BLOCK_BYTES else b""
                     continue
                 left_s = timeout_s - (self.clock() - start)
                 data = self._take(left_s) if left_s > 0 else b""
@@ -171,13 +172,18 @@ class SerialSource(Source):
         self.count += len(t)
         return Block(t, f, now)
 
-    def _take(self, wait_s: float) -> bytes:
+    def _take(self, wait_s: float, last: int | None = None) -> bytes:
         """The bytes waiting, after waiting up to ``wait_s`` for the first (0: only those
         already here). A device or pseudo-terminal is read through its descriptor: one
         ``select`` and one ``read`` for all that is there; other ports (pyserial URLs) through
-        pyserial, whose wait is the port's timeout."""
+        pyserial, whose wait is the port's timeout. ``last``: the size of the read just
+        before, when only more of the same is asked: a descriptor read that came short of a
+        terminal's hand-over size took all there was, so it is not asked again (a syscall
+        saved per block; bytes that came meanwhile are the next read's, without a wait)."""
         port = self.serial
         if type(port) is _POSIX_PORT and port.fd is not None:
+            if last is not None and last < TTY_HANDOVER_BYTES:
+                return b""
             if not select.select([port.fd], [], [], max(wait_s, 0.0))[0]:
                 return b""
             try:
