@@ -251,7 +251,9 @@ def cmd_serve(a) -> int:
         log.info("status stream to %s", ", ".join(cfg.status_to))
     log.info("running %d garment(s); SIGTERM or Ctrl-C stops, SIGHUP reloads mappings, SIGUSR1 panics",
              len(service.garments))
-    service.serve()
+    import gc
+    gc.freeze()  # what start loaded (models, modules) is left out of later collections: a full one
+    service.serve()  # then scans only what the loop made, not a pause of tens of ms in the stream
     log.info("stopped%s", f" ({stop.reason})" if stop.reason else "")
     if timings is not None:
         try:

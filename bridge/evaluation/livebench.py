@@ -55,13 +55,14 @@ def load_average() -> str:
         return "?"
 
 
-def _cpu_s(pid: int) -> float:
-    """utime + stime of a process, s (Linux; NaN elsewhere)."""
+def _cpu_s(pid: int) -> tuple[float, float]:
+    """(user, system) CPU time of a process, s (Linux; NaN elsewhere)."""
     try:
         fields = Path(f"/proc/{pid}/stat").read_text().rsplit(")", 1)[1].split()
-        return (int(fields[11]) + int(fields[12])) / os.sysconf("SC_CLK_TCK")
+        tick = os.sysconf("SC_CLK_TCK")
+        return int(fields[11]) / tick, int(fields[12]) / tick
     except (OSError, IndexError, ValueError):
-        return float("nan")
+        return float("nan"), float("nan")
 
 
 def _memory_peak_mb(pid: int) -> float:
@@ -209,6 +210,8 @@ def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4, daemon=
     control = t["controls"] > 0
     per_event = np.repeat((t["sent_s"] - t["arrived_s"])[control] * 1e3, t["controls"][control].astype(int))
     cues = ((t["sent_s"] - t["arrived_s"]) * 1e3)[t["others"] > 0]
+    loop_cpu = t["loop_cpu_s"][control] * 1e3 if "loop_cpu_s" in t else np.empty(0)
+    loop_cpu = loop_cpu[np.isfinite(loop_cpu)]
     received = []
     for g, at in listener.got:
         if g < 0:
@@ -217,12 +220,16 @@ def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4, daemon=
         if i >= 0:
             received.append((at - writes[g, i]) * 1e3)
     e2e = np.array(received)
+    user_s, system_s = cpu1[0] - cpu0[0], cpu1[1] - cpu0[1]
+    cpu1, cpu0 = sum(cpu1), sum(cpu0)
     cpu_percent = 100.0 * (cpu1 - cpu0) / (wall1 - wall0)
     r = {"seconds": seconds, "garments": garments, "samples_written": int(garments * n),
          "datagrams": len(listener.got), "control_events": int(per_event.size),
          "arrival_to_send": _percentiles(per_event), "cue_arrival_to_send": _percentiles(cues),
+         "loop_cpu_to_send": _percentiles(loop_cpu),
          "written_to_received": _percentiles(e2e),
          "cpu_percent_of_core": round(cpu_percent, 1), "cpu_s": round(cpu1 - cpu0, 2),
+         "cpu_user_s": round(user_s, 2), "cpu_system_s": round(system_s, 2),
          "cpu_us_per_sample": round(1e6 * (cpu1 - cpu0) / max(1, garments * n), 1),
          "memory_peak_mb": round(hwm, 1), "timings_not_kept": int(t["beyond"]),
          "load_before": load_before, "load_after": load_after}
@@ -244,6 +251,10 @@ def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4, daemon=
     say(f"  continuous-control jitter, p99 − median: {a['jitter_ms']} ms "
         f"(target ≤ {LIVE_JITTER_TARGET_MS:g} ms on an idle core: {mark(a['jitter_ms'], LIVE_JITTER_TARGET_MS)}); "
         f"{a['n']} events")
+    lc = r["loop_cpu_to_send"]
+    say(f"  the loop's own CPU time from taking a block to handing its control message over: median "
+        f"{lc['median_ms']} ms, p99 {lc['p99_ms']} ms; {lc['n']} deliveries (the rest of arrival → send is waiting: "
+        f"for the loop to wake, to be scheduled, for the GIL)")
     say(f"  arrival → send, cues (gestures, postures): median {c['median_ms']} ms, p99 {c['p99_ms']} ms; "
         f"{c['n']} deliveries")
     say(f"  line written → datagram received: median {w['median_ms']} ms, p99 {w['p99_ms']} ms, "
@@ -251,7 +262,8 @@ def bench_live(seconds: float = 30.0, print_fn=print, garments: int = 4, daemon=
     say(f"  daemon CPU while streaming: {r['cpu_percent_of_core']} % of one core "
         f"(target < {LIVE_CPU_TARGET_PERCENT:g} % for 4 garments"
         + (f": {'met' if cpu_percent < LIVE_CPU_TARGET_PERCENT else 'NOT met'})" if garments == 4 else ", not 4 here)")
-        + f", {r['cpu_us_per_sample']} µs per sample; memory peak {r['memory_peak_mb']} MB "
+        + f", {r['cpu_us_per_sample']} µs per sample (user {r['cpu_user_s']} s, system {r['cpu_system_s']} s "
+        f"of {wall1 - wall0:.0f} s); memory peak {r['memory_peak_mb']} MB "
         f"(target ≤ {LIVE_MEMORY_TARGET_MB:g} MB for 4 garments)")
     if r["timings_not_kept"]:
         say(f"  ({r['timings_not_kept']} deliveries beyond the daemon's timing record are not in the figures)")

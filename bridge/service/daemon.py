@@ -74,19 +74,21 @@ class DeliveryTimes:
     garments with a continuous control each); later ones are only counted in ``beyond``.
     """
 
-    COLUMNS = ("garment", "arrived_s", "sent_s", "controls", "others")
+    COLUMNS = ("garment", "arrived_s", "sent_s", "controls", "others", "loop_cpu_s")
 
     def __init__(self, limit: int = 5_000_000):
         self.limit = limit
         self.rows: list[tuple] = []
         self.beyond = 0
 
-    def record(self, index: int, events, lat: Latency) -> None:
+    def record(self, index: int, events, lat: Latency, loop_cpu_s: float = float("nan")) -> None:
+        """``loop_cpu_s``: the loop thread's CPU time from taking the block to this hand-over,
+        s (NaN for deliveries outside a block): its own work, without waits to be scheduled."""
         if len(self.rows) >= self.limit:
             self.beyond += 1
             return
         controls = sum(1 for e in events if e.kind == "control")
-        self.rows.append((index, lat.arrived_s, lat.sent_s, controls, len(events) - controls))
+        self.rows.append((index, lat.arrived_s, lat.sent_s, controls, len(events) - controls, loop_cpu_s))
 
     def save(self, path) -> None:
         """As a .npz: one array per column, plus ``beyond`` (rows not kept)."""
@@ -293,6 +295,7 @@ class Service:
         self.clock = clock
         self.on_event = on_event
         self.timings = timings
+        self._cpu_at_take: float | None = None  # loop thread CPU time when the block in hand was taken
         self.q = Handoff(maxsize=256 * max(1, len(config.garments)))
         self.garments: list[Garment] = []
         self.status = st.StatusStream(config.status_to)
@@ -437,8 +440,11 @@ class Service:
         self.watch(g, step)
         g.recent.append((now, n))
         g.last_freq = block.freq_hz[-1]
+        if self.timings is not None:
+            self._cpu_at_take = time.thread_time()
         events = g.pipeline.feed(block.freq_hz, early=lambda ev: self.deliver(g, ev, block.arrived_s))
         self.deliver(g, events, block.arrived_s)
+        self._cpu_at_take = None
         self.sync_hold(g)
         if g.state in (CALIBRATING, SETTLING):
             self.send(g, g.pipeline.dispatches([]))  # stream time went on: note-offs come due
@@ -468,7 +474,8 @@ class Service:
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
         if self.timings is not None:
-            self.timings.record(g.index, events, lat)
+            cpu = time.thread_time() - self._cpu_at_take if self._cpu_at_take is not None else float("nan")
+            self.timings.record(g.index, events, lat, cpu)
         out = []
         for e, disarmed in zip(events, unsent):
             if e.kind == "control":
