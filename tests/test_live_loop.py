@@ -151,3 +151,20 @@ def test_a_reader_past_the_handoff_bound_drops_blocks_and_counts_their_samples()
     assert len(kept) == 3 and r.dropped == 17 * 10  # the oldest three wait, the rest are counted
     assert [b.freq_hz[0, 0] for _, b in kept] == [1000.0, 1001.0, 1002.0]
     assert q.take_all() == []
+
+
+def test_delivery_times_are_written_as_plain_arrays_and_read_back(tmp_path):
+    from bridge.decisions import Event
+    from bridge.service.daemon import DeliveryTimes, Latency
+
+    times = DeliveryTimes(limit=2)
+    control = Event(0.01, "reach", "control", 1.0, 0.0, "lead", 0.5)
+    cue = Event(0.02, "bow", "gesture", 0.9, 0.0, "lead", 0.0)
+    times.record(1, [control, control], Latency(10.0, 10.0001, 10.0002), 5e-5)
+    times.record(0, [cue], Latency(11.0, 11.001, 11.002))
+    times.record(0, [cue], Latency(12.0, 12.0, 12.0))  # past the limit: counted, not kept
+    times.save(tmp_path / "t.npz")
+    with np.load(tmp_path / "t.npz", allow_pickle=False) as z:
+        assert z["garment"].tolist() == [1.0, 0.0] and z["controls"].tolist() == [2.0, 0.0]
+        assert z["others"].tolist() == [0.0, 1.0] and z["sent_s"].tolist() == [10.0002, 11.002]
+        assert z["loop_cpu_s"][0] == 5e-5 and np.isnan(z["loop_cpu_s"][1]) and int(z["beyond"]) == 1

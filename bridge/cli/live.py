@@ -260,7 +260,7 @@ def cmd_serve(a) -> int:
             timings.save(a.timings)
         except OSError as exc:
             return _err(f"--timings {a.timings}: {exc}")
-        log.info("timings of %d deliveries written to %s", len(timings.rows), a.timings)
+        log.info("timings of %d deliveries written to %s", len(timings), a.timings)
     return 0
 
 
