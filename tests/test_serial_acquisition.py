@@ -4,6 +4,7 @@ pyserial opens the slave side of os.openpty() by name (it sets raw mode on open)
 gives named pty pairs that can be taken away and brought back, like a USB garment.
 """
 
+import errno
 import os
 import shutil
 import subprocess
@@ -13,7 +14,6 @@ from types import SimpleNamespace
 
 import numpy as np
 import pytest
-import serial
 
 from bridge.service import StopFlag, run
 from bridge.sources.frames import encode_frame
@@ -170,10 +170,17 @@ def test_unplug_reported_retried_and_resumed(pty, monkeypatch):
     _, f = read_until(src, 10)
     assert f.shape == (10, 2) and src.connected
 
-    def unplugged(*a, **k):
-        raise serial.SerialException("read failed: [Errno 5] Input/output error")
+    # the source reads a device's descriptor itself: the first port's reads now fail as a
+    # vanished USB device's do on Linux (EIO); the port opened again reads as usual
+    real_read, dead_fd = os.read, opened[0].serial.fd
 
-    monkeypatch.setattr(opened[0].serial, "read", unplugged)
+    def unplugged(fd, n):
+        if fd == dead_fd and len(opened) == 1:
+            raise OSError(errno.EIO, "Input/output error")
+        return real_read(fd, n)
+
+    monkeypatch.setattr(os, "read", unplugged)
+    os.write(master, b"1000.0,2000.0\n")  # something to read, so the read is tried
     assert len(src.read()) == 0 and not src.connected and "Errno 5" in src.last_error
     deadline = time.monotonic() + 5
     while not src.connected and time.monotonic() < deadline:
@@ -297,3 +304,26 @@ def test_ports_are_found_by_usb_identity():
         resolve_port("usb:1234:5678", ports)
     with pytest.raises(ValueError, match="hex ids"):
         resolve_port("usb:zz:1", ports)
+
+
+@pytest.mark.parametrize("protocol", ["text", "frames"])
+def test_a_burst_that_has_arrived_is_read_as_one_block(pty, protocol):
+    # 300 samples written at once (more than a pseudo-terminal hands over in one read, about
+    # 4 KB) are all there before the read: one read returns every one of them, in order.
+    master, name = pty
+    src = SerialSource(name, n_channels=2, rate_hz=100.0, protocol=protocol, resample=False)
+    try:
+        values = [(1000.0 + i, 2000.0 - i) for i in range(300)]
+        if protocol == "text":
+            burst = b"".join(f"{a:.1f},{b:.1f}\n".encode() for a, b in values)
+        else:
+            burst = b"".join(encode_frame(i, 0.01 * i, list(v)) for i, v in enumerate(values))
+        assert len(burst) > 4096
+        os.write(master, burst)
+        time.sleep(0.2)  # all of it is in the port's buffer before the read
+        block = src.read()
+        assert len(block) == 300
+        assert np.array_equal(block.freq_hz, np.array(values))
+        assert len(src.read()) == 0  # nothing left behind for the next read
+    finally:
+        src.close()

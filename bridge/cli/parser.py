@@ -49,6 +49,9 @@ def build_parser() -> argparse.ArgumentParser:
     s.add_argument("--pid-file", metavar="FILE", help="write the process id here (for kill -USR1 \"$(cat FILE)\")")
     s.add_argument("--log-level", default="info", choices=("debug", "info", "warning", "error"),
                    help="with [[garment]] configs: how much to log to stderr")
+    s.add_argument("--timings", metavar="FILE.npz",
+                   help="with [[garment]] configs: keep each delivery's sample arrival and send times, written "
+                        "to FILE.npz when the daemon stops (what `drape bench --live` reads)")
     s.set_defaults(func=cmd_start)
     w = sub.add_parser("watch", help=VERBS["watch"], description=VERBS["watch"] +
                        ". Add this address to the daemon's [status] to = [...] list.")
@@ -121,8 +124,10 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--batch-windows", type=int, default=1000,
                    help="windows of the batch minirocket transform figure (0 to skip)")
     b.add_argument("--live", action="store_true",
-                   help="end to end instead: the simulated jacket through a pty into `drape start`, out to loopback OSC")
-    b.add_argument("--live-s", type=float, default=30.0, help="--live: seconds of stream")
+                   help="end to end instead: simulated garments through ptys into `drape start`, out to loopback OSC "
+                        "(arrival → send overhead, jitter, daemon CPU and memory)")
+    b.add_argument("--live-s", type=float, default=30.0, help="--live: seconds of stream (the target is for 600)")
+    b.add_argument("--live-garments", type=int, default=4, help="--live: garments in the one daemon (default 4)")
     b.add_argument("--soak", type=float, metavar="HOURS",
                    help="soak instead: HOURS of simulated performance through the live loop, memory and replay check")
     b.add_argument("--soak-model", metavar="MODEL", help="--soak: a model of simulated wearer 1 (default: train one)")

@@ -14,8 +14,10 @@ def cmd_bench(a) -> int:
         print(" ".join(f"{k} {v}" for k, v in c.items()))
         return 0
     if a.live:
-        from ..evaluation.bench import bench_live
-        bench_live(a.live_s)
+        from ..evaluation.livebench import bench_live
+        if a.live_s <= 0 or a.live_garments < 1:
+            return _err("--live-s must be positive and --live-garments at least 1")
+        bench_live(a.live_s, garments=a.live_garments)
         return 0
     if a.soak is not None:
         return _bench_soak(a)

@@ -6,7 +6,8 @@ and the simulated jacket sleeps to keep time, so polling N sources from one thre
 up to N waits of latency; with readers the loop wakes as soon as any garment's block arrives,
 and every stage's state is still touched by this one thread only. A reader whose queue is
 full drops the block and counts it (the loop has fallen behind; old samples are worth less
-than a live stream).
+than a live stream). Each wake the loop takes every block waiting, and a garment's blocks
+taken together go through its pipeline as one (events do not depend on the blocking).
 
 Each garment is a ``Garment``: its pipeline, outputs, mapping watcher, watchdog and its
 calibration state ("calibrating" at start and on rebaseline: a hold-still capture sets each
@@ -28,11 +29,13 @@ import os
 import queue
 import threading
 import time
+from array import array
 from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
 
+from ..sources.base import Block
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
 from .control import printable
@@ -63,6 +66,99 @@ class Latency:
         return (self.sent_s - self.arrived_s) * 1e3
 
 
+class DeliveryTimes:
+    """Every delivery's times, kept for ``drape start --timings`` (and ``drape bench --live``).
+
+    One row per delivery (a block's control events, or its decisions): garment index,
+    arrival of its last sample and hand-over to the outputs (host monotonic, s), how many
+    control and other events it carried, and the loop's own CPU time in between. Rows are
+    kept as flat doubles (48 bytes each, so a 10-minute run of 4 garments adds about 12 MB
+    to the daemon), at most ``limit`` of them (about 3 hours of 4 garments with a continuous
+    control each); later ones are only counted in ``beyond``.
+    """
+
+    COLUMNS = ("garment", "arrived_s", "sent_s", "controls", "others", "loop_cpu_s")
+
+    def __init__(self, limit: int = 5_000_000):
+        self.limit = limit
+        self.values = array("d")
+        self.beyond = 0
+
+    def __len__(self) -> int:
+        return len(self.values) // len(self.COLUMNS)
+
+    def record(self, index: int, events, lat: Latency, loop_cpu_s: float = float("nan")) -> None:
+        """``loop_cpu_s``: the loop thread's CPU time from taking the block to this hand-over,
+        s (NaN for deliveries outside a block): its own work, without waits to be scheduled."""
+        if len(self) >= self.limit:
+            self.beyond += 1
+            return
+        controls = sum(1 for e in events if e.kind == "control")
+        self.values.extend((index, lat.arrived_s, lat.sent_s, controls, len(events) - controls, loop_cpu_s))
+
+    def save(self, path) -> None:
+        """As a .npz: one array per column, plus ``beyond`` (rows not kept)."""
+        a = np.frombuffer(self.values, dtype=float).reshape(-1, len(self.COLUMNS))
+        np.savez(path, beyond=np.array(self.beyond), **{c: a[:, i] for i, c in enumerate(self.COLUMNS)})
+
+
+class Handoff:
+    """The readers' one bounded queue to the loop, on the C ``queue.SimpleQueue``: a put and
+    a get cost a fraction of ``queue.Queue``'s lock and condition work, paid per block.
+
+    ``put_nowait`` raises ``queue.Full`` when ``maxsize`` blocks wait (the size check and the
+    put are two steps, so with several readers the bound may be passed by one block per
+    reader); ``put`` never refuses (a reader's last word); ``get`` raises ``queue.Empty``
+    after ``timeout_s``; ``take_all`` returns every item waiting, oldest first.
+    """
+
+    def __init__(self, maxsize: int):
+        self.maxsize = maxsize
+        self._q = queue.SimpleQueue()
+
+    def put_nowait(self, item) -> None:
+        if self._q.qsize() >= self.maxsize:
+            raise queue.Full
+        self._q.put(item)
+
+    def put(self, item) -> None:
+        self._q.put(item)
+
+    def get(self, timeout_s: float | None = None):
+        return self._q.get(timeout=timeout_s)
+
+    def qsize(self) -> int:
+        return self._q.qsize()
+
+    def take_all(self) -> list:
+        get = self._q.get_nowait
+        return [get() for _ in range(self._q.qsize())]  # only this thread takes: they are all there
+
+
+def join_blocks(items: list) -> list:
+    """A wake's (garment index, block) items with each garment's blocks joined into one,
+    in the order each garment first appears; a garment's end (block None) stays after its
+    blocks. Empty blocks count only as a read; the joined block's arrival is its first
+    sample's block's (so a latency counts from the earliest arrival)."""
+    order: dict[int, list] = {}
+    for index, block in items:
+        order.setdefault(index, []).append(block)
+    out = []
+    for index, blocks in order.items():
+        end = any(b is None for b in blocks)
+        data = [b for b in blocks if b is not None and len(b)]
+        if len(data) > 1:
+            out.append((index, Block(np.concatenate([b.t_s for b in data]),
+                                     np.concatenate([b.freq_hz for b in data]), data[0].arrived_s)))
+        elif data:
+            out.append((index, data[0]))
+        elif not end:
+            out.append((index, next(b for b in blocks if b is not None)))  # an empty read: the watchdog counts it
+        if end:
+            out.append((index, None))
+    return out
+
+
 class Reader(threading.Thread):
     """Reads one source into the shared queue until stopped, the source ends or fails."""
 
@@ -90,6 +186,7 @@ class Reader(threading.Thread):
 class Garment:
     name: str
     cfg: object
+    index: int = 0
     model: object = None
     pipeline: Pipeline | None = None
     source: object = None
@@ -197,13 +294,15 @@ class Service:
     """
 
     def __init__(self, config, open_fn, stop: StopFlag | None = None, clock=time.monotonic,
-                 on_event=None):
+                 on_event=None, timings: DeliveryTimes | None = None):
         self.config = config
         self.open_fn = open_fn
         self.stop = stop or StopFlag()
         self.clock = clock
         self.on_event = on_event
-        self.q: queue.Queue = queue.Queue(maxsize=256 * max(1, len(config.garments)))
+        self.timings = timings
+        self._cpu_at_take: float | None = None  # loop thread CPU time when the block in hand was taken
+        self.q = Handoff(maxsize=256 * max(1, len(config.garments)))
         self.garments: list[Garment] = []
         self.status = st.StatusStream(config.status_to)
         self.control = None
@@ -226,7 +325,7 @@ class Service:
         from ..mapping import MappingError, MappingWatcher
         from ..recognition import ModelError, load_model
         for i, cfg in enumerate(self.config.garments):
-            g = Garment(cfg.name, cfg)
+            g = Garment(cfg.name, cfg, i)
             self.garments.append(g)
             try:
                 if cfg.simulated and not Path(cfg.model).is_file():
@@ -306,19 +405,19 @@ class Service:
         next_levels = next_state = next_alive = self.clock()
         levels_every = 1.0 / self.config.levels_hz
         try:
+            next_house = self.clock()
             while not self.stop.stopped:
                 try:
-                    item = self.q.get(timeout=0.02)
+                    items = [self.q.get(timeout_s=0.02)]
                 except queue.Empty:
-                    item = None
-                while item is not None:
+                    items = []
+                items += self.q.take_all()
+                for item in join_blocks(items) if len(items) > 1 else items:
                     self.take(*item)
-                    try:
-                        item = self.q.get_nowait()
-                    except queue.Empty:
-                        item = None
                 now = self.clock()
-                self.housekeeping(now)
+                if now >= next_house:  # control messages, reloads, output failures: 100 times a second is soon enough
+                    next_house = now + 0.01
+                    self.housekeeping(now)
                 if now >= next_levels:
                     next_levels = now + levels_every
                     self.send_levels()
@@ -347,8 +446,11 @@ class Service:
         self.watch(g, step)
         g.recent.append((now, n))
         g.last_freq = block.freq_hz[-1]
+        if self.timings is not None:
+            self._cpu_at_take = time.thread_time()
         events = g.pipeline.feed(block.freq_hz, early=lambda ev: self.deliver(g, ev, block.arrived_s))
         self.deliver(g, events, block.arrived_s)
+        self._cpu_at_take = None
         self.sync_hold(g)
         if g.state in (CALIBRATING, SETTLING):
             self.send(g, g.pipeline.dispatches([]))  # stream time went on: note-offs come due
@@ -377,6 +479,9 @@ class Service:
         self.send(g, dispatches)
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
+        if self.timings is not None:
+            cpu = time.thread_time() - self._cpu_at_take if self._cpu_at_take is not None else float("nan")
+            self.timings.record(g.index, events, lat, cpu)
         out = []
         for e, disarmed in zip(events, unsent):
             if e.kind == "control":

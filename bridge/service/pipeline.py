@@ -135,14 +135,15 @@ class Pipeline:
             ok = plausible_rows(rest, self.conditioner.state.centre_hz)
             rows = np.flatnonzero(ok)
             if self.shift is None or rows.size == 0:
-                events += self._feed(rest, early)
+                events += self._feed(rest, early, ok)
                 break
             moved = self.shift.step(rest[rows], stop=True)
             if not moved:
-                events += self._feed(rest, early)
+                events += self._feed(rest, early, ok)
                 break
             cut = int(rows[self.shift.fired_at]) + 1  # up to and including the sample it fired at
-            events += self._feed(rest[:cut], early)
+            known = self.conditioner.state.centre_hz is not None  # else the rows' median stood in for rest
+            events += self._feed(rest[:cut], early, ok[:cut] if known else None)
             i += cut
             if self.gate.held:  # a posture holds a step too: not a shift, and its end is none either
                 self.shift.dismiss()
@@ -202,9 +203,11 @@ class Pipeline:
         h.end_sample, h.done = self.samples, True
         self.holding, self._held_rows, self._held_n = None, [], 0
 
-    def _feed(self, f: np.ndarray, early) -> list[Event]:
-        """The normal path over rows of one block (after any capture): what ``feed`` does."""
-        ok = plausible_rows(f, self.conditioner.state.centre_hz)  # NaN, inf, <= 0, or a glitch far from rest
+    def _feed(self, f: np.ndarray, early, ok: np.ndarray | None = None) -> list[Event]:
+        """The normal path over rows of one block (after any capture): what ``feed`` does.
+        ``ok``: ``plausible_rows`` of these rows when the caller has it already."""
+        if ok is None:
+            ok = plausible_rows(f, self.conditioner.state.centre_hz)  # NaN, inf, <= 0, or a glitch far from rest
         if not ok.all():
             self.skipped += int((~ok).sum())
             f = f[ok]

@@ -38,6 +38,11 @@ def plausible_rows(freq_hz: np.ndarray, centre_hz: np.ndarray | None = None,
     cent, temperature drift by less, so anything beyond that is a glitch, not a person.
     """
     f = np.asarray(freq_hz, dtype=float)
+    if centre_hz is not None:
+        ref = np.asarray(centre_hz, dtype=float)
+        if ((ref > 0) & (ref < np.inf)).all():  # then the ratio test alone also refuses NaN, inf and <= 0
+            ratio = f / ref
+            return ((ratio >= 1.0 / factor) & (ratio <= factor)).all(axis=1)
     ok = np.isfinite(f).all(axis=1) & (f > 0).all(axis=1)
     ref = centre_hz
     if ref is None:
@@ -72,11 +77,33 @@ def bandpass_init(sos: np.ndarray, n_channels: int, first: np.ndarray | None = N
     return sps.sosfilt_zi(sos)[:, :, None] * np.asarray(first, dtype=float)[None, None, :]
 
 
+FEW_ROWS = 8  # blocks up to this many samples: a loop over samples costs less than scipy's per-call set-up
+
+
 def bandpass_block(sos: np.ndarray, x: np.ndarray, zi: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-    """Filter one block (n, channels) along time; returns (y, zf) to pass into the next call."""
-    if x.shape[0] == 0:
+    """Filter one block (n, channels) along time; returns (y, zf) to pass into the next call.
+
+    A live block holds one or a few samples; for those (up to ``FEW_ROWS``) the recursion
+    of ``scipy.signal.sosfilt`` (transposed direct form II) is written out sample by sample,
+    the same operations in the same order, so output and state are bit for bit sosfilt's
+    and a stream gives the same numbers however it is blocked."""
+    n = x.shape[0]
+    if n == 0:
         return x.astype(float, copy=True), zi
-    return sps.sosfilt(sos, x, axis=0, zi=zi)
+    if n > FEW_ROWS or x.dtype != np.float64 or zi.dtype != np.float64:
+        return sps.sosfilt(sos, x, axis=0, zi=zi)
+    z = [[row[0].copy(), row[1].copy()] for row in zi]
+    y = np.empty_like(x)
+    coeffs = sos.tolist()
+    for i in range(n):
+        v = x[i]
+        for zs, (b0, b1, b2, _, a1, a2) in zip(z, coeffs):
+            out = b0 * v + zs[0]
+            zs[0] = b1 * v - a1 * out + zs[1]
+            zs[1] = b2 * v - a2 * out
+            v = out
+        y[i] = v
+    return y, np.array(z)
 
 
 def baseline_init(first_level: np.ndarray) -> np.ndarray:
@@ -99,6 +126,12 @@ def track_baseline(
         out = np.broadcast_to(baseline, x.shape).copy()
         return out, baseline
     a = float(np.exp(-1.0 / (tau_s * rate_hz)))
+    if n <= FEW_ROWS and x.dtype == np.float64:  # lfilter's recursion written out, as in bandpass_block
+        b0, y, z = 1.0 - a, np.empty_like(x), a * baseline
+        for i in range(n):
+            y[i] = yi = b0 * x[i] + z
+            z = 0.0 * x[i] - (-a) * yi
+        return y, y[-1].copy()
     y, zf = sps.lfilter([1.0 - a], [1.0, -a], x, axis=0, zi=(a * baseline)[None, :])
     return y, y[-1].copy()
 

@@ -13,6 +13,7 @@ pyserial URLs (``loop://``, ``socket://host:port``) are passed through.
 from __future__ import annotations
 
 import os
+import select
 import time
 from dataclasses import dataclass
 
@@ -26,6 +27,10 @@ from .textline import ProtocolUndecided
 from .timebase import DeviceClock, Resampler
 
 MISMATCH_SAMPLES = 50  # samples of another channel count, and none good, before giving up
+CHUNK_BYTES = 65536    # asked of one read of a device's descriptor
+TTY_HANDOVER_BYTES = 4095  # Linux terminals (USB serial, pty) hand over at most this much per read
+BLOCK_BYTES = 1 << 20  # at most this much per block, so a flood of input still yields blocks to the loop
+_POSIX_PORT = serial.Serial if os.name == "posix" else None  # a device or pty: its descriptor is read directly
 
 
 class ChannelMismatch(ProtocolUndecided):
@@ -129,18 +134,24 @@ class SerialSource(Source):
 
     def read(self) -> Block:
         """Everything that has arrived, as one block: waits up to the port's timeout for
-        the first byte, then takes all bytes waiting; while a line or frame is still under
-        way (bytes but no whole sample yet) it reads on, up to the timeout, so that blocks
-        hold whole samples instead of one empty block per fragment."""
+        the first byte, then takes every byte waiting (and what arrives while those are
+        decoded) into one block of all the whole samples in them; while a line or frame is
+        still under way (bytes but no whole sample yet) it waits on, up to the timeout, so
+        that blocks hold whole samples instead of one empty block per fragment."""
         start = self.clock()
+        timeout_s = self.serial.timeout or 0.0
         samples: list = []
+        taken = 0
         try:
-            data = self.serial.read(max(1, self.serial.in_waiting))
+            data = self._take(timeout_s)
             while data:
+                taken += len(data)
                 samples += self.decoder.feed(data)
-                if samples or self.clock() - start >= (self.serial.timeout or 0.0):
-                    break
-                data = self.serial.read(max(1, self.serial.in_waiting))
+                if samples:  # then only what is already here, without waiting
+                    data = self._take(0.0, len(data)) if taken < BLOCK_BYTES else b""
+                    continue
+                left_s = timeout_s - (self.clock() - start)
+                data = self._take(left_s) if left_s > 0 else b""
         except (serial.SerialException, OSError, TypeError) as exc:
             # pyserial raises TypeError from in_waiting on a port closed under it
             raise SourceGone(f"serial port {self.port} failed: {exc}") from None
@@ -160,6 +171,33 @@ class SerialSource(Source):
             t = (self.count + np.arange(len(samples))) / self.rate_hz
         self.count += len(t)
         return Block(t, f, now)
+
+    def _take(self, wait_s: float, last: int | None = None) -> bytes:
+        """The bytes waiting, after waiting up to ``wait_s`` for the first (0: only those
+        already here). A device or pseudo-terminal is read through its descriptor: one
+        ``select`` and one ``read`` for all that is there; other ports (pyserial URLs) through
+        pyserial, whose wait is the port's timeout. ``last``: the size of the read just
+        before, when only more of the same is asked: a descriptor read that came short of a
+        terminal's hand-over size took all there was, so it is not asked again (a syscall
+        saved per block; bytes that came meanwhile are the next read's, without a wait)."""
+        port = self.serial
+        if type(port) is _POSIX_PORT and port.fd is not None:
+            if last is not None and last < TTY_HANDOVER_BYTES:
+                return b""
+            if not select.select([port.fd], [], [], max(wait_s, 0.0))[0]:
+                return b""
+            try:
+                data = os.read(port.fd, CHUNK_BYTES)
+            except BlockingIOError:
+                return b""
+            if not data:  # ready but empty: on Linux, a device that went away
+                raise serial.SerialException("device reports readiness to read but returned no data "
+                                             "(device disconnected or multiple access on port?)")
+            return data
+        waiting = port.in_waiting
+        if waiting:
+            return port.read(waiting)
+        return port.read(1) if wait_s > 0 else b""
 
     def _check_channels(self) -> None:
         """A garment whose samples never have the stated channel count is refused, saying so,
