@@ -256,8 +256,14 @@ def test_the_service_mirrors_the_pipelines_captures_and_decides_what_the_replay_
     replayed = replay_events(Recording.from_take(TAKE, GESTURES), model, settle=service.settling())
     tail = g.pipeline.stop()
     assert seen + [(e.t_s, e.gesture, e.kind) for e in tail] == [(e.t_s, e.gesture, e.kind) for e in replayed]
+    sent = []
+    real_send, service.status.send = service.status.send, sent.extend
     service.command("rebaseline", "", "", None)
     assert g.state == CALIBRATING and g.pipeline.holding == CALIBRATING
+    # The new state goes out with the command, not at the next half-second tick (a short
+    # hold-still can be over by then, and a view would never show it).
+    assert any(b"/drape/g/lead/state" in m and b"calibrating" in m for m in sent)
+    service.status.send = real_send
     service.status.close()
 
 

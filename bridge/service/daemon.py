@@ -537,6 +537,10 @@ class Service:
         ok, text = self.carry_out(cmd, detail, target, peer)
         if not ok:
             log.warning("control: %s refused: %s", cmd, text)
+        if ok and cmd != "status":
+            # The state a command set goes out at once, not at the next half-second tick: a
+            # rebaseline's short hold-still can end before that tick, and a view would never see it.
+            self.status.send(self.state_messages(self.clock()))
         if peer is not None and self.control is not None and cmd != "status":
             self.control.acknowledge(peer, ok, cmd, text)
 
