@@ -244,6 +244,11 @@ def cmd_simulate(a) -> int:
     except LayoutError as exc:
         return _err(str(exc))
     troupe = a.wearers is not None or a.sessions is not None
+    if a.ordinary_people is not None:
+        if a.serve or troupe or a.repetitions:
+            return _err("--ordinary-people writes takes of ordinary movement only: "
+                        "leave out --serve, --wearers, --sessions and --repetitions")
+        return _ordinary_people(a, layout)
     vocabulary = a.vocabulary or ("full" if troupe else "demo")
     gestures, nulls = _simulated_vocabulary(vocabulary)
     if a.serve:
@@ -269,6 +274,37 @@ def cmd_simulate(a) -> int:
     write_recording(a.out, Recording.from_take(take, gestures, layout=layout.name if layout else "built-in"))
     print(f"{a.out}: {take.t_s.size / take.rate_hz:.1f} s, {len(take.intervals)} labelled gestures, "
           f"{len(take.channel_names)} channels at {take.rate_hz:g} Hz")
+    return 0
+
+
+ORDINARY_SEED_OFFSET = 1000   # other people: not the wearers a troupe of the same --seed simulates
+
+
+def _ordinary_people(a, layout) -> int:
+    from pathlib import Path
+
+    from ..garment import FULL_NULL_ACTIVITIES
+    from ..garment.troupe import ordinary_take
+    from ..sources import Recording, write_recording
+    if a.ordinary_people < 1 or not a.ordinary_s > 0:
+        return _err("--ordinary-people must be at least 1 and --ordinary-s positive")
+    folder = Path(a.out)
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        return _err(f"cannot make the folder {folder}: {exc.strerror or exc}")
+    paths = []
+    for k in range(a.ordinary_people):
+        take = ordinary_take(a.seed + ORDINARY_SEED_OFFSET, k, a.ordinary_s, FULL_NULL_ACTIVITIES, layout, a.rate_hz)
+        path = folder / f"ordinary-person{k}.take"
+        rec = Recording.from_take(take, {}, layout=layout.name if layout else "built-in")
+        rec.wearer, rec.session = f"ordinary-person{k}", "ordinary"   # nobody a troupe names wearerN
+        write_recording(path, rec)
+        paths.append(path)
+        print(f"  {path}: {take.t_s.size / take.rate_hz:.0f} s of ordinary movement, "
+              f"{len(take.channel_names)} channels at {take.rate_hz:g} Hz", flush=True)
+    print(f"{folder}: {a.ordinary_people} simulated people's ordinary movement "
+          f"({', '.join(FULL_NULL_ACTIVITIES)}); add it to a fit: drape fit TAKE --ordinary {folder}/*.take")
     return 0
 
 

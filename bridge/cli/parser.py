@@ -176,6 +176,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="act as a garment on a pseudo-terminal in real time; prints its path first")
     m.add_argument("--for", dest="for_s", type=float, default=None, metavar="SECONDS", help="--serve: stop after this long")
     m.add_argument("--no-drops", action="store_true", help="--serve: never drop or delay a sample")
+    m.add_argument("--ordinary-people", type=int, metavar="N",
+                   help="write N takes (into the folder --out), each one simulated person's ordinary movement "
+                        "of all 8 kinds and no cue: for drape fit --ordinary")
+    m.add_argument("--ordinary-s", type=float, default=600.0, help="--ordinary-people: seconds of each (default 600)")
     m.set_defaults(func=cmd_simulate)
     c = sub.add_parser("check", help=VERBS["check"], description=VERBS["check"])
     c.add_argument("file", metavar="MAPPING")

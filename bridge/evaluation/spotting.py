@@ -44,26 +44,11 @@ class Protocol:
 ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
 
 
-def ordinary_script(rng: np.random.Generator, seconds: float, kinds) -> list[tuple[str, float]]:
-    """Ordinary movement for ``seconds``: every kind of null activity in turn, shuffled,
-    10 to 40 s each."""
-    out, total = [], 0.0
-    while total < seconds:
-        order = list(kinds)
-        rng.shuffle(order)
-        for k in order:
-            d = float(min(rng.uniform(10.0, 40.0), seconds - total))
-            if d <= 0:
-                break
-            out.append((k, d))
-            total += d
-    return out
-
-
 def session_take(p: Protocol, wearer: int, role: str):
     """The Recording of one wearer's session in its role: repetitions, then ordinary movement."""
     from ..garment import FULL_GESTURES, FULL_NULL_ACTIVITIES, GESTURES, NULL_ACTIVITIES, Jacket
     from ..garment.jacket import training_script
+    from ..garment.troupe import ordinary_script
     from ..sources import Recording
     gestures, nulls = ((FULL_GESTURES, FULL_NULL_ACTIVITIES) if p.vocabulary == "full"
                        else (GESTURES, NULL_ACTIVITIES))
@@ -80,12 +65,11 @@ def session_take(p: Protocol, wearer: int, role: str):
 def prior_take(p: Protocol, k: int):
     """Ordinary movement of the k-th prior person: a wearer of another seed, so nobody the
     protocol scores."""
-    from ..garment import FULL_NULL_ACTIVITIES, NULL_ACTIVITIES, Jacket
+    from ..garment import FULL_NULL_ACTIVITIES, NULL_ACTIVITIES
+    from ..garment.troupe import ordinary_take
     from ..sources import Recording
     nulls = FULL_NULL_ACTIVITIES if p.vocabulary == "full" else NULL_ACTIVITIES
-    rng = np.random.default_rng([p.seed + 1000, k, 31])
-    take = Jacket(seed=p.seed + 1000, wearer=k, session=0).perform(ordinary_script(rng, p.prior_s, nulls))
-    return Recording.from_take(take, {})
+    return Recording.from_take(ordinary_take(p.seed + 1000, k, p.prior_s, nulls), {})
 
 
 def protocol_takes(p: Protocol, cache: str | Path, progress=None) -> dict:

@@ -1,0 +1,53 @@
+"""`drape simulate --ordinary-people`: other simulated people's ordinary movement, for a
+fit's null class (`drape fit --ordinary`). The spotting figures in docs/benchmarks.md
+show what it does; these check the takes themselves (simulated data, our own scenario)."""
+
+from pathlib import Path
+
+import numpy as np
+
+from bridge.cli import main
+from bridge.garment import FULL_NULL_ACTIVITIES
+from bridge.garment.troupe import ordinary_script
+from bridge.sources import read_recording
+
+ROOT = Path(__file__).resolve().parent.parent
+
+
+def test_people_takes_hold_only_ordinary_movement_of_every_kind(tmp_path, capsys):
+    assert main(["simulate", "--ordinary-people", "2", "--ordinary-s", "25", "--out", str(tmp_path / "people")]) == 0
+    out = capsys.readouterr().out
+    takes = sorted((tmp_path / "people").glob("*.take"))
+    assert [p.name for p in takes] == ["ordinary-person0.take", "ordinary-person1.take"]
+    assert "drape fit TAKE --ordinary" in out
+    recs = [read_recording(p) for p in takes]
+    for r in recs:
+        assert r.intervals == ()                       # no cue at all: all of it is null
+        assert abs(r.freq_hz.shape[0] / r.rate_hz - 25) < 0.1
+        assert r.channel_names == ("left_sleeve", "right_sleeve", "left_front", "right_front")
+        assert r.wearer.startswith("ordinary-person")
+    # Two different people, not one rendered twice.
+    n = min(r.freq_hz.shape[0] for r in recs)
+    assert not np.allclose(recs[0].freq_hz[:n], recs[1].freq_hz[:n])
+
+
+def test_people_follow_a_layout_file(tmp_path):
+    layout = ROOT / "examples" / "layouts" / "sleeves_only.toml"
+    assert main(["simulate", "--ordinary-people", "1", "--ordinary-s", "12", "--layout", str(layout),
+                 "--out", str(tmp_path)]) == 0
+    r = read_recording(tmp_path / "ordinary-person0.take")
+    assert r.channel_names == ("left_cuff", "right_cuff")
+
+
+def test_people_refuse_options_that_would_add_cues(tmp_path, capsys):
+    assert main(["simulate", "--ordinary-people", "1", "--repetitions", "2", "--out", str(tmp_path)]) == 2
+    assert "ordinary movement only" in capsys.readouterr().err
+    assert main(["simulate", "--ordinary-people", "0", "--out", str(tmp_path)]) == 2
+    assert not list(tmp_path.glob("*.take"))
+
+
+def test_the_script_cycles_through_every_kind_before_repeating_one():
+    script = ordinary_script(np.random.default_rng(0), 8 * 40.0, FULL_NULL_ACTIVITIES)
+    assert sum(d for _, d in script) == 8 * 40.0
+    assert all(10.0 <= d <= 40.0 for _, d in script[:-1])
+    assert sorted(k for k, _ in script[:8]) == sorted(FULL_NULL_ACTIVITIES)
