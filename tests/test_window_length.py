@@ -52,7 +52,7 @@ def test_slow_gestures_get_several_training_windows_each():
     counts = {}
     for name, settings in (("fixed 2 s", TrainingSettings(window_s=2.0, hop_s=0.1)),
                            ("automatic", TrainingSettings(hop_s=0.1))):
-        _, y, _, classes, _, spec = recording_windows([rec], KINDS, settings)
+        _, y, _, classes, _, _ = recording_windows([rec], KINDS, settings)
         counts[name] = int((y == classes.index("sweep")).sum())
     # A 2 s window holds a 2 s gesture at one hop at most; 2.5 s holds it at about
     # 0.5 s / 0.1 s = 5 hops per repetition.

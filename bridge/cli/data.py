@@ -293,14 +293,12 @@ def _ordinary_people(a, layout) -> int:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         return _err(f"cannot make the folder {folder}: {exc.strerror or exc}")
-    paths = []
     for k in range(a.ordinary_people):
         take = ordinary_take(a.seed + ORDINARY_SEED_OFFSET, k, a.ordinary_s, FULL_NULL_ACTIVITIES, layout, a.rate_hz)
         path = folder / f"ordinary-person{k}.take"
         rec = Recording.from_take(take, {}, layout=layout.name if layout else "built-in")
         rec.wearer, rec.session = f"ordinary-person{k}", "ordinary"   # nobody a troupe names wearerN
         write_recording(path, rec)
-        paths.append(path)
         print(f"  {path}: {take.t_s.size / take.rate_hz:.0f} s of ordinary movement, "
               f"{len(take.channel_names)} channels at {take.rate_hz:g} Hz", flush=True)
     print(f"{folder}: {a.ordinary_people} simulated people's ordinary movement "

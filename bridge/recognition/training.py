@@ -41,7 +41,7 @@ WINDOW_ROOM = 1.25   # automatic window / the 90th percentile of labelled gestur
 WINDOW_SPARE_HOPS = 2  # and at least the longest gesture plus this many hops
 
 
-def window_length_s(recordings, kinds: dict[str, str], settings: "TrainingSettings") -> float:
+def window_length_s(recordings, kinds: dict[str, str], settings: TrainingSettings) -> float:
     """The classifier's window length, s: ``settings.window_s`` when given, else the
     largest of MIN_WINDOW_S, WINDOW_ROOM × the 90th percentile of the labelled gestures'
     lengths and the longest gesture plus WINDOW_SPARE_HOPS hops, rounded up to the hop.
