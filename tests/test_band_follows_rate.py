@@ -23,9 +23,14 @@ def test_a_10_hz_source_trains_and_the_band_is_stored(tmp_path, capsys):
     assert main(["simulate", "--rate-hz", "10", "--repetitions", "2", "--null-s", "30", "--seed", "3",
                  "--out", str(take)]) == 0
     model = tmp_path / "slow.npz"
+    capsys.readouterr()
     assert main(["fit", str(take), "-o", str(model)]) == 0
     m = load_model(model)
     assert (m.conditioning.rate_hz, m.conditioning.low_hz, m.conditioning.high_hz) == (10.0, 1.0, 4.0)
+    out = capsys.readouterr().out
+    # The fit says which window it chose, and that no ordinary movement of others was given.
+    assert f"window {m.windows.window_s:g} s (room for the labelled gestures)" in out
+    assert "no --ordinary takes" in out and "--ordinary-people" in out
     assert main(["fit", str(take), "-o", str(model), "--band-hz", "0.5", "3"]) == 0
     m = load_model(model)
     assert (m.conditioning.low_hz, m.conditioning.high_hz) == (0.5, 3.0)

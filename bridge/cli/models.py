@@ -92,6 +92,10 @@ def cmd_fit(a) -> int:
     if not a.ts:
         how = "as given" if a.window_s is not None else "room for the labelled gestures"
         print(f"window {model.windows.window_s:g} s ({how}), hop {model.windows.hop_s:g} s")
+        if not a.ordinary and a.classifier != "linear":
+            print("no --ordinary takes: on the simulated troupe, models fitted without other people's ordinary movement "
+                  "fired 20 to 100 times as often during it (docs/benchmarks.md, Spotting); "
+                  "drape simulate --ordinary-people 6 --out others writes simulated ones")
     return 0
 
 
