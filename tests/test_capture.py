@@ -174,3 +174,40 @@ def test_capture_from_a_port_detects_the_layout_and_records(tmp_path, capsys):
     assert rec.channel_names == take.channel_names and len(rec.intervals) == 2
     assert sorted(iv.label for iv in rec.intervals) == ["bow", "raise_right"]
     np.testing.assert_allclose(rec.freq_hz[:100], take.freq_hz[:100], atol=0.06)
+
+
+class Burst:
+    """A source that hands over a whole recorded stretch in one block, then ends (a sender
+    faster than real time, or the backlog after a stall)."""
+
+    def __init__(self, rate_hz, names, freq_hz):
+        from bridge.sources.base import Block
+        self.rate_hz, self.channel_names = rate_hz, tuple(names)
+        self.block = Block(np.arange(len(freq_hz)) / rate_hz, freq_hz, 0.0)
+        self.ended = False
+
+    def read(self):
+        from bridge.sources.base import empty_block
+        if self.ended:
+            return empty_block(len(self.channel_names), 0.0)
+        self.ended = True
+        return self.block
+
+
+def test_a_long_block_steps_through_every_prompt_and_keeps_one_time_grid(tmp_path):
+    from bridge.garment import Jacket, random_script
+    take = Jacket(seed=5).perform(random_script(np.random.default_rng(5), 40.0))
+    half = int(3 * take.rate_hz)   # 3 s read first, the other 37 s in one block
+    src = Burst(take.rate_hz, take.channel_names, take.freq_hz[half:])
+    first = Burst(take.rate_hz, take.channel_names, take.freq_hz[:half]).read()   # read to learn the channels
+    rng = np.random.default_rng(0)
+    plan = capture_plan(rng, ["raise_right", "bow"], 1)
+    with RecordingWriter(tmp_path / "b.take", src.rate_hz, src.channel_names, "w", "s", "", GESTURES) as w:
+        sess = CaptureSession(list(plan), GESTURES, FAST, w, rng)
+        n = run_capture(src, sess, w, first=first)
+    rec = read_recording(tmp_path / "b.take")
+    # Every prompt of the plan was given and labelled, though all 40 s came in two blocks.
+    assert sorted(iv.label for iv in rec.intervals) == sorted(plan)
+    # The first block is the stream's start: one grid, no time written twice.
+    assert n == len(take.t_s) == rec.freq_hz.shape[0]
+    np.testing.assert_allclose(np.diff(rec.t_s), 1.0 / take.rate_hz, atol=1e-6)

@@ -84,3 +84,30 @@ def test_range_counts_down_before_each_capture_and_the_countdown_is_not_captured
     assert lines[reach - 3].startswith("next: reach as close") and "starting in 3 s" in lines[reach - 3]
     assert [l.strip() for l in lines[reach - 2:reach]] == ["2 ...", "1 ..."]
     assert lines[0].startswith("next: stand relaxed")
+
+
+def test_the_range_captures_split_one_long_block_at_the_right_samples():
+    """A source may hand over many seconds at once; each stretch (countdown, relaxed,
+    countdown, closest) must still take exactly its own samples."""
+    from bridge.decisions import capture_range
+    from bridge.signal import BandPass, Conditioner
+    from bridge.sources.base import Block, empty_block
+
+    rate, f0 = 100.0, 2e5
+    dc = np.concatenate([np.zeros(300), np.linspace(0, 0.04, 100), np.full(200, 0.04)])  # ΔC/C0 on channel b
+    freq = np.column_stack([np.full(600, f0), f0 / np.sqrt(1 + dc)])                     # C/C0 = (f0/f)^2
+
+    class OneBlock:
+        rate_hz, ended = rate, False
+
+        def read(self):
+            if self.ended:
+                return empty_block(2, 0.0)
+            self.ended = True
+            return Block(np.arange(600) / rate, freq, 0.0)
+
+    r = capture_range(OneBlock(), Conditioner(BandPass(rate)), ("a", "b"), seconds=2.0, prompt=lambda t: None,
+                      countdown_s=1.0, leave_out_flat=True)
+    # Relaxed: samples 100-299 (level 0); closest: samples 400-599 (level 0.04); a is flat.
+    assert r.channel_names == ("b",)
+    assert r.relaxed[0] == pytest.approx(0.0, abs=1e-9) and r.closest[0] == pytest.approx(0.04, rel=1e-6)

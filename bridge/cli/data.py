@@ -120,9 +120,7 @@ def cmd_capture(a) -> int:
           f"{source.rate_hz:g} Hz); keys: r redo last, s skip, q finish", flush=True)
     code = 0
     try:
-        if first is not None:
-            writer.samples(np.arange(len(first)) / source.rate_hz, first.freq_hz)
-        run_capture(source, sess, writer, stop, text, status, keys)
+        run_capture(source, sess, writer, stop, text, status, keys, first=first)
     except (SourceGone, ProtocolUndecided) as exc:
         text(f"drape: {exc}; the take so far is saved")
         code = 1

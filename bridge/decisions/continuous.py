@@ -156,34 +156,41 @@ def capture_range(source, conditioner, channel_names, seconds: float = 5.0, prom
     conditioned but not kept. ``leave_out_flat``: see ``range_from_levels``. Used by the
     range calibration verb.
     """
-    parts = []
+    parts, pending = [], None
     for what in ("stand relaxed, arms down", "reach as close to the antennas as you will on stage, and hold"):
         if countdown_s > 0:
             prompt(f"next: {what}; starting in {countdown_s:g} s")
-            _levels(source, conditioner, countdown_s, prompt)
+            _, pending = _levels(source, conditioner, countdown_s, prompt, pending)
         prompt(f"{what} for {seconds:g} s ...")
-        got = _levels(source, conditioner, seconds)
+        got, pending = _levels(source, conditioner, seconds, pending=pending)
         if not got:
             raise RangeError("the source gave no samples")
         parts.append(np.concatenate(got))
     return range_from_levels(channel_names, parts[0], parts[1], leave_out_flat=leave_out_flat)
 
 
-def _levels(source, conditioner, seconds: float, tick=None) -> list:
-    """``seconds`` of the source's stream as conditioned levels; ``tick`` gets each whole second left."""
+def _levels(source, conditioner, seconds: float, tick=None, pending=None) -> tuple[list, np.ndarray | None]:
+    """``seconds`` of the source's stream as conditioned levels; ``tick`` gets each whole second left.
+
+    A block can hold more than is still needed (a source hands over all that has arrived):
+    the rest is returned, (levels, frequencies left over), for the next stretch to start
+    with, so no sample counts for the wrong stretch. ``pending``: such a rest, taken first.
+    """
     got, n, need = [], 0, int(round(seconds * source.rate_hz))
     said = math.ceil(seconds)
-    while n < need and not source.ended:
-        block = source.read()
-        if len(block):
-            level, _ = conditioner.process(block.freq_hz, hold_baseline=True)
+    while n < need and (pending is not None or not source.ended):
+        freq, pending = (pending, None) if pending is not None else (source.read().freq_hz, None)
+        if len(freq):
+            if len(freq) > need - n:
+                freq, pending = freq[:need - n], freq[need - n:]
+            level, _ = conditioner.process(freq, hold_baseline=True)
             got.append(level)
             n += len(level)
             left = math.ceil((need - n) / source.rate_hz)
             if tick and 0 < left < said:
                 said = left
                 tick(f"  {left} ...")
-    return got
+    return got, pending
 
 
 def load_range(path: str | Path) -> LevelRange:

@@ -204,8 +204,12 @@ def movement_span(freq_hz: np.ndarray, rate_hz: float, go_index: int, baseline_s
     return go_index + max(0, active[0] - pad), go_index + min(z.size - 1, active[-1] + pad)
 
 
-def run_capture(source, session: CaptureSession, writer, stop=None, on_text=None, on_status=None, keys=None):
+def run_capture(source, session: CaptureSession, writer, stop=None, on_text=None, on_status=None, keys=None,
+                first=None):
     """Read ``source`` into ``writer`` until the session is done or ``stop`` is set.
+
+    ``first``: a block already read from the source (to learn its channels), taken as the
+    start of the stream.
 
     Samples are written with stream time t = index / rate (a uniform grid), the time the
     labels use. keys(): returns keys pressed since the last call (may be empty). on_text(line)
@@ -227,20 +231,28 @@ def run_capture(source, session: CaptureSession, writer, stop=None, on_text=None
         return None if span is None else ((first + span[0]) / rate, (first + span[1] + 1) / rate)
 
     session.locate = locate
-    while session.phase != DONE and not (stop is not None and stop.stopped) and not source.ended:
-        block = source.read()
-        if len(block):
-            writer.samples((n + np.arange(len(block))) / rate, block.freq_hz)
-            n += len(block)
-            recent = np.concatenate([recent, block.freq_hz])[-keep:]
-        now = n / rate
-        for k in (keys() if keys else []):
-            for line in session.key(k, now):
+    # The session moves on every 50 ms of stream, however the samples come: a source hands
+    # over all that has arrived as one block, and after a stall (or from a fast sender) one
+    # block can hold many seconds, which the prompts must still step through in order.
+    step = max(1, int(round(0.05 * rate)))
+    while session.phase != DONE and not (stop is not None and stop.stopped) and (first is not None or not source.ended):
+        block, first = (first, None) if first is not None else (source.read(), None)
+        pressed = keys() if keys else []
+        for a in range(0, max(len(block), 1), step):
+            part = block.freq_hz[a:a + step]
+            if len(part):
+                writer.samples((n + np.arange(len(part))) / rate, part)
+                n += len(part)
+                recent = np.concatenate([recent, part])[-keep:]
+            now = n / rate
+            for k in pressed:
+                for line in session.key(k, now):
+                    on_text and on_text(line)
+            pressed = []
+            for line in session.advance(now):
                 on_text and on_text(line)
-        for line in session.advance(now):
-            on_text and on_text(line)
-        tick = int(now * 10)
-        if on_status and tick != last_status:
-            last_status = tick
-            on_status(session.status_line(now))
+            tick = int(now * 10)
+            if on_status and tick != last_status:
+                last_status = tick
+                on_status(session.status_line(now))
     return n
