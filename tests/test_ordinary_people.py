@@ -20,6 +20,10 @@ def test_people_takes_hold_only_ordinary_movement_of_every_kind(tmp_path, capsys
     takes = sorted((tmp_path / "people").glob("*.take"))
     assert [p.name for p in takes] == ["ordinary-person0.take", "ordinary-person1.take"]
     assert "drape fit TAKE --ordinary" in out
+    # What it says to run puts every take after --ordinary, none among the takes to learn cues from.
+    from bridge.cli.parser import build_parser
+    a = build_parser().parse_args(["fit", "me.take", "--ordinary", *map(str, takes), "-o", "m.npz"])
+    assert a.recordings == ["me.take"] and a.ordinary == [str(p) for p in takes]
     recs = [read_recording(p) for p in takes]
     for r in recs:
         assert r.intervals == ()                       # no cue at all: all of it is null

@@ -86,9 +86,9 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
                    help="band-pass edges, Hz (default 1 to 10 Hz, the upper edge lowered to 0.4 × the rate "
                         "for slow sources); stored in the model")
-    f.add_argument("--ordinary", metavar="TAKE", action="append", default=[],
+    f.add_argument("--ordinary", metavar="TAKE", nargs="+", action="extend", default=[],
                    help="a take of ordinary movement only (no labels), from this wearer or others, added to "
-                        "the null class (repeatable); minirocket and dtw")
+                        "the null class (one or more, repeatable); minirocket and dtw")
     f.add_argument("--band", type=float, metavar="FRACTION",
                    help="dtw: warping band as a fraction of the window (0 = no warping, 1 = unconstrained; default 0.1)")
     f.add_argument("--no-rejection", action="store_true",
