@@ -28,12 +28,16 @@ def test_a_10_hz_source_trains_and_the_band_is_stored(tmp_path, capsys):
     m = load_model(model)
     assert (m.conditioning.rate_hz, m.conditioning.low_hz, m.conditioning.high_hz) == (10.0, 1.0, 4.0)
     out = capsys.readouterr().out
-    # The fit says which window it chose, and that no ordinary movement of others was given.
+    # The fit says which window it chose, and that it added the built-in jacket's simulated
+    # people (rendered at the take's 10 Hz) since no ordinary movement of others was given.
     assert f"window {m.windows.window_s:g} s (room for the labelled gestures)" in out
-    assert "no --ordinary takes" in out and "--ordinary-people" in out
-    assert main(["fit", str(take), "-o", str(model), "--band-hz", "0.5", "3"]) == 0
+    assert "adding the ordinary movement of 6 simulated people" in out and m.summary["ordinary_takes"] == 6
+    assert main(["fit", str(take), "-o", str(model), "--band-hz", "0.5", "3", "--no-simulated-others"]) == 0
     m = load_model(model)
     assert (m.conditioning.low_hz, m.conditioning.high_hz) == (0.5, 3.0)
+    assert "ordinary_takes" not in m.summary
+    out = capsys.readouterr().out
+    assert "no --ordinary takes" in out and "--ordinary-people" in out
     capsys.readouterr()
     assert main(["fit", str(take), "-o", str(model), "--band-hz", "1", "7"]) != 0
     assert "does not fit a 10 Hz source" in capsys.readouterr().err

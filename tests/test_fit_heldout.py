@@ -81,3 +81,46 @@ def test_temperature_and_figures_come_from_refits_without_each_take():
     np.testing.assert_allclose(closed, held, atol=1e-8)
     assert model.temperature == pytest.approx(fit_temperature(held, y, bounds=(-9.0, 5.0)), rel=1e-6)
     assert model.summary["cross_validated_window_accuracy"] == pytest.approx((held.argmax(1) == y).mean(), abs=1e-4)
+
+
+def test_one_take_of_cues_beside_ordinary_takes_is_held_out_by_stretches():
+    """One take holds every cue, two others only ordinary movement: folds by recording
+    would hold the cue take out whole and fit a fold that never saw a cue (its scores,
+    and the temperature fitted on them, then say nothing of the cues). Each recording is
+    cut into stretches instead, and every fold's fit keeps windows of every class."""
+    cues = _noise_take(1)
+    quiet = [Recording(r.rate_hz, r.channel_names, r.t_s, r.freq_hz, ()) for r in (_noise_take(5), _noise_take(6))]
+    settings = TrainingSettings(window_s=2.0, hop_s=0.1)
+    w, y, g, _, _, spec, e = recording_windows([cues, *quiet], KINDS, settings, with_ends=True)
+    assert window_splits(g, e, spec.length)[1] == "recording"            # without labels: as before
+    splits, by = window_splits(g, e, spec.length, labels=y)
+    assert by == "stretches of each recording"
+    assert np.array_equal(sum(h.astype(int) for h, _ in splits), np.ones(len(y), int))
+    for held, dropped in splits:
+        assert set(np.unique(y[~dropped])) == {0, 1, 2}                  # every class left to fit on
+        assert set(np.unique(g[held])) == {0, 1, 2}                      # a stretch of every recording
+        for take in range(3):
+            mine = g == take
+            if (held & mine).any() and (~dropped & mine).any():
+                gap = np.abs(e[~dropped & mine][:, None] - e[held & mine][None, :]).min()
+                assert gap >= spec.length                                # no shared sample within a take
+    model = fit_recordings("minirocket", [cues], KINDS, settings, n_features=840, ordinary=quiet)
+    assert model.summary["held_out_by"] == "stretches of each recording"
+
+
+def test_windows_are_cut_only_where_selected_and_equal_the_full_cut():
+    """Selecting windows before cutting them (an hour of ordinary takes would otherwise
+    take about a gigabyte) gives the very windows of the full cut."""
+    from bridge.recognition.training import condition_recording, label_windows
+    from bridge.recognition.windows import all_windows
+    take = _noise_take(2, seconds=60.0)
+    settings = TrainingSettings(window_s=2.0, hop_s=0.1)
+    w, y, g, classes, conditioning, spec, e = recording_windows([take], KINDS, settings, with_ends=True)
+    streams = condition_recording(take, conditioning)
+    full, ends = all_windows(spec, streams[0], streams[1])
+    labels = label_windows(ends, spec.length, take.rate_hz, take.intervals, classes, KINDS)
+    assert np.array_equal(w, full[labels >= 0]) and np.array_equal(e, ends[labels >= 0])
+    ws, ys, _, _, _, _, es = recording_windows([take], KINDS, settings, with_ends=True,
+                                               select=lambda y, g: np.flatnonzero(y == 1)[::3])
+    pick = np.flatnonzero(y == 1)[::3]
+    assert np.array_equal(ws, w[pick]) and np.array_equal(es, e[pick]) and set(ys) == {1}

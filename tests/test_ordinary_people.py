@@ -55,3 +55,29 @@ def test_the_script_cycles_through_every_kind_before_repeating_one():
     assert sum(d for _, d in script) == 8 * 40.0
     assert all(10.0 <= d <= 40.0 for _, d in script[:-1])
     assert sorted(k for k, _ in script[:8]) == sorted(FULL_NULL_ACTIVITIES)
+
+
+def test_the_fit_adds_the_built_in_people_only_to_the_built_in_jackets_takes(tmp_path):
+    """`drape fit` (minirocket) adds simulated people's ordinary movement by default, but
+    only to takes of the built-in jacket: for a real garment, or a simulated layout file,
+    they would be another garment's movement."""
+    from bridge.evaluation.simulated import OTHERS_SEED, built_in_jacket_takes, built_in_others
+    from bridge.garment.troupe import ordinary_take
+    assert main(["simulate", "--duration-s", "5", "--out", str(tmp_path / "a.take")]) == 0
+    own = read_recording(tmp_path / "a.take")
+    assert built_in_jacket_takes([own])
+    assert not built_in_jacket_takes([])
+    own.layout = "blazer v2"                                     # a real garment's take
+    assert not built_in_jacket_takes([own])
+    layout = ROOT / "examples" / "layouts" / "sleeves_only.toml"
+    assert main(["simulate", "--duration-s", "5", "--layout", str(layout), "--out", str(tmp_path / "b.take")]) == 0
+    assert not built_in_jacket_takes([read_recording(tmp_path / "b.take")])
+    # The same people as `drape simulate --ordinary-people N --seed 1` (seed + 1000), at the takes' rate.
+    assert main(["simulate", "--ordinary-people", "2", "--ordinary-s", "20", "--seed", str(OTHERS_SEED - 1000),
+                 "--rate-hz", "50", "--out", str(tmp_path / "p")]) == 0
+    mine = built_in_others(50.0, people=2, seconds=20.0)
+    for k, r in enumerate(mine):
+        assert r.intervals == () and r.rate_hz == 50.0
+        np.testing.assert_allclose(r.freq_hz, read_recording(tmp_path / "p" / f"ordinary-person{k}.take").freq_hz,
+                                   rtol=1e-9)
+    assert np.array_equal(mine[0].freq_hz, ordinary_take(OTHERS_SEED, 0, 20.0, FULL_NULL_ACTIVITIES, None, 50.0).freq_hz)

@@ -77,6 +77,13 @@ def cmd_fit(a) -> int:
                 if a.classifier == "linear":
                     raise ValueError("--ordinary applies to --classifier minirocket or dtw")
                 options["ordinary"] = _read_takes(a.ordinary)[0]
+            elif a.classifier == "minirocket" and not a.no_simulated_others:
+                from ..evaluation.simulated import OTHERS_PEOPLE, OTHERS_S, built_in_jacket_takes, built_in_others
+                if built_in_jacket_takes(recs):
+                    options["ordinary"] = built_in_others(recs[0].rate_hz)
+                    print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of "
+                          f"{OTHERS_PEOPLE} simulated people ({OTHERS_S / 60:g} min each) to the null class "
+                          f"(--no-simulated-others leaves it out)", flush=True)
             model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
             source = _plural(len(recs), "take")
     except (RecordingError, TsFormatError, ValueError) as exc:
@@ -92,7 +99,7 @@ def cmd_fit(a) -> int:
     if not a.ts:
         how = "as given" if a.window_s is not None else "room for the labelled gestures"
         print(f"window {model.windows.window_s:g} s ({how}), hop {model.windows.hop_s:g} s")
-        if not a.ordinary and a.classifier != "linear":
+        if not a.ordinary and a.classifier != "linear" and not model.summary.get("ordinary_takes"):
             print("no --ordinary takes: on the simulated troupe, models fitted without other people's ordinary movement "
                   "fired 20 to 100 times as often during it (docs/benchmarks.md, Spotting); "
                   "drape simulate --ordinary-people 6 --out others writes simulated ones")

@@ -89,6 +89,9 @@ def build_parser() -> argparse.ArgumentParser:
     f.add_argument("--ordinary", metavar="TAKE", nargs="+", action="extend", default=[],
                    help="a take of ordinary movement only (no labels), from this wearer or others, added to "
                         "the null class (one or more, repeatable); minirocket and dtw")
+    f.add_argument("--no-simulated-others", action="store_true",
+                   help="minirocket on takes of the built-in simulated jacket: do not add the ordinary movement "
+                        "of 6 simulated people when no --ordinary takes are given (it is added by default)")
     f.add_argument("--band", type=float, metavar="FRACTION",
                    help="dtw: warping band as a fraction of the window (0 = no warping, 1 = unconstrained; default 0.1)")
     f.add_argument("--no-rejection", action="store_true",
@@ -139,8 +142,10 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--spotting-score-min", type=float, default=60.0,
                    help="--spotting: minutes of ordinary movement in each scored session (default 60)")
     b.add_argument("--spotting-seed", type=int, default=1)
-    b.add_argument("--spotting-prior", type=int, default=0, metavar="N",
-                   help="--spotting: add ordinary movement of N other simulated people to every fit (default 0)")
+    b.add_argument("--spotting-prior", type=int, default=6, metavar="N",
+                   help="--spotting: add ordinary movement of N other simulated people to every minirocket fit "
+                        "(default 6: at the default seed, the very people drape fit adds to the built-in "
+                        "jacket's takes; 0 for none)")
     b.add_argument("--spotting-cache", metavar="DIR", help="--spotting: folder for the rendered takes (kept for reruns)")
     b.add_argument("--spotting-json", metavar="FILE", help="--spotting: also write the full result as JSON")
     b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")

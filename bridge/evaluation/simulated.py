@@ -21,3 +21,44 @@ def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int 
         script += [(activity, null_s / 3) for activity in ("standing", "walking", "fidgeting")]
         takes.append(Recording.from_take(jacket.perform(script), GESTURES))
     return fit_linear(takes, dict(GESTURES))
+
+
+# The built-in jacket's stand-ins for other people: what `drape fit` adds to the null class
+# of a minirocket model fitted on the built-in jacket's takes when no --ordinary takes are
+# given. The same people as `drape simulate --ordinary-people 6 --seed 1` and as the
+# spotting protocol's prior at its seed 1 (docs/benchmarks.md, Spotting): 6 people of
+# another seed than any troupe the defaults simulate, 10 minutes each, all 8 kinds.
+OTHERS_SEED = 1001
+OTHERS_PEOPLE = 6
+OTHERS_S = 600.0
+# Layout names the simulator writes into takes of the built-in jacket: `drape simulate`,
+# `drape capture --simulated`, and takes made in code (Recording.from_take).
+BUILT_IN_LAYOUTS = ("built-in", "simulated jacket", "default")
+
+
+def built_in_jacket_takes(recordings) -> bool:
+    """True when every take is of the built-in simulated jacket: a layout name the simulator
+    writes, its channels and one rate. Takes of a real garment, or of a simulated layout
+    file, are not: the built-in people's movement would be another garment's."""
+    from ..garment.layout import default_layout
+    recordings = list(recordings)
+    if not recordings:
+        return False
+    channels = default_layout(4).channel_names
+    rate = recordings[0].rate_hz
+    return all(r.layout in BUILT_IN_LAYOUTS and tuple(r.channel_names) == tuple(channels)
+               and abs(r.rate_hz - rate) <= 1e-6 * rate for r in recordings)
+
+
+def built_in_others(rate_hz: float, people: int = OTHERS_PEOPLE, seconds: float = OTHERS_S) -> list[Recording]:
+    """The built-in jacket's ordinary movement of ``people`` simulated people (OTHERS_SEED),
+    ``seconds`` each at ``rate_hz``, as unlabelled takes for a fit's null class."""
+    from ..garment import FULL_NULL_ACTIVITIES
+    from ..garment.troupe import ordinary_take
+    out = []
+    for k in range(people):
+        rec = Recording.from_take(ordinary_take(OTHERS_SEED, k, seconds, FULL_NULL_ACTIVITIES, None, rate_hz), {},
+                                  layout="built-in")
+        rec.wearer, rec.session = f"ordinary-person{k}", "ordinary"
+        out.append(rec)
+    return out

@@ -343,17 +343,19 @@ def _thin(y: np.ndarray, per_class: int, per_null: int | None = None) -> np.ndar
     return np.sort(np.concatenate(keep))
 
 
-def recording_windows(recordings, kinds: dict[str, str], settings=None, progress=None, with_ends: bool = False):
+def recording_windows(recordings, kinds: dict[str, str], settings=None, progress=None, with_ends: bool = False,
+                      select=None):
     """Labelled windows of recordings, the way every classifier is trained on them.
 
     Returns (windows (m, 2, length, channels), labels (m,) class indices, recording index
     (m,), classes, conditioning, spec), and with ``with_ends`` also each window's end
     (m,), in samples from its recording's start. Windows are labelled by
     ``training.label_windows``; ambiguous ones are left out. progress(done, total) is
-    called after each recording.
+    called after each recording. ``select(labels, recording index)``, when given, returns
+    the indices of the windows to keep; only those are cut out (an hour of takes holds
+    36,000 windows: about 1 GB at 4 channels and 2.5 s, where a fit keeps a few thousand).
     """
     from .training import TrainingSettings, condition_recording, label_windows, window_length_s
-    from .windows import all_windows
     settings = settings or TrainingSettings()
     recordings = list(recordings)
     if not recordings:
@@ -369,53 +371,74 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
     classes = (NULL, *labels)
     conditioning = settings.band(rate)
     spec = WindowSpec(rate, window_length_s(recordings, kinds, settings), settings.hop_s)
-    ws, ys, gs, es = [], [], [], []
+    conditioned, ys, gs, es = [], [], [], []
     for i, r in enumerate(recordings):
         if tuple(r.channel_names) != channels or abs(r.rate_hz - rate) > 1e-6 * rate:
             raise ValueError("all recordings must share channels and rate; "
                              f"got {tuple(r.channel_names)} at {r.rate_hz} Hz and {channels} at {rate} Hz")
         streams = condition_recording(r, conditioning)
-        w, ends = all_windows(spec, streams[0], streams[1])
+        n = streams.shape[1]
+        ends = np.arange(spec.length, n + 1, spec.hop) if n >= spec.length else np.empty(0, dtype=int)
         y = label_windows(ends, spec.length, rate, r.intervals, classes, kinds)
         keep = y >= 0
-        ws.append(w[keep]); ys.append(y[keep]); gs.append(np.full(int(keep.sum()), i))
-        es.append(np.asarray(ends)[keep])
+        conditioned.append(streams)
+        ys.append(y[keep]); gs.append(np.full(int(keep.sum()), i)); es.append(ends[keep])
         if progress:
             progress(i + 1, len(recordings))
-    out = np.concatenate(ws), np.concatenate(ys), np.concatenate(gs), classes, conditioning, spec
-    return (*out, np.concatenate(es)) if with_ends else out
+    y, g, e = np.concatenate(ys), np.concatenate(gs), np.concatenate(es).astype(np.int64)
+    if select is not None:
+        pick = np.sort(np.asarray(select(y, g), dtype=np.int64))
+        y, g, e = y[pick], g[pick], e[pick]
+    w = np.empty((len(y), 2, spec.length, len(channels)))
+    offsets = np.arange(spec.length) - spec.length
+    for i, streams in enumerate(conditioned):   # the windows of all_windows, cut one recording at a time
+        at = np.flatnonzero(g == i)
+        if len(at):
+            w[at] = streams[:, e[at][:, None] + offsets[None, :]].transpose(1, 0, 2, 3)
+    out = w, y, g, classes, conditioning, spec
+    return (*out, e) if with_ends else out
 
 
-def window_splits(groups: np.ndarray, ends: np.ndarray, length: int, n_folds: int = 5):
+def window_splits(groups: np.ndarray, ends: np.ndarray, length: int, n_folds: int = 5, labels=None):
     """Grouped folds for windows of recordings, so that no window overlaps both sides.
 
     groups: recording index per window; ends: end sample per window (within its
-    recording); length: window length in samples. Several recordings: whole recordings
-    per fold (recording i in fold i mod k, k = min(n_folds, recordings)). One recording:
-    k contiguous stretches of its windows in time, each fold also dropping from its fit
-    the windows that share samples with a held one (ends less than ``length`` apart).
-    Returns (list of (held, dropped) masks, how they are grouped), or (None, reason) when
-    no fold would leave windows to fit on.
+    recording); length: window length in samples; labels: class per window (optional).
+    Several recordings, each class in two or more: whole recordings per fold (recording i
+    in fold i mod k, k = min(n_folds, recordings)). One recording, or a class that only
+    one recording holds (one take of the wearer's cues beside takes of ordinary movement):
+    k contiguous stretches of each recording's windows in time, fold f taking stretch f of
+    every recording and also dropping from its fit the windows that share samples with a
+    held one (same recording, ends less than ``length`` apart); otherwise a fold without
+    that recording would learn nothing of the class. Returns (list of (held, dropped)
+    masks, how they are grouped), or (None, reason) when no fold would leave windows to fit on.
     """
     groups = np.asarray(groups)
     ends = np.asarray(ends, dtype=np.int64)
     takes = np.unique(groups)
-    if len(takes) > 1:
+    alone = False
+    if labels is not None and len(takes) > 1:
+        labels = np.asarray(labels)
+        alone = any(len(np.unique(groups[labels == c])) < 2 for c in np.unique(labels) if c != 0)
+    if len(takes) > 1 and not alone:
         k = min(n_folds, len(takes))
         fold = np.searchsorted(takes, groups) % k
         return [(fold == f, fold == f) for f in range(k)], "recording"
-    order = np.argsort(ends, kind="stable")
     for k in range(min(n_folds, len(ends) // 2), 1, -1):
-        splits = []
-        for block in np.array_split(order, k):
-            held = np.zeros(len(ends), bool)
-            held[block] = True
-            lo, hi = ends[block].min(), ends[block].max()
-            dropped = held | ((ends > lo - length) & (ends < hi + length))
-            splits.append((held, dropped))
-        if all((~d).any() for _, d in splits):
-            return splits, "stretches of one recording"
-    return None, "one recording too short for folds"
+        splits = [(np.zeros(len(ends), bool), np.zeros(len(ends), bool)) for _ in range(k)]
+        for t in takes:
+            mine = np.flatnonzero(groups == t)
+            order = mine[np.argsort(ends[mine], kind="stable")]
+            for (held, dropped), block in zip(splits, np.array_split(order, k)):
+                if not len(block):
+                    continue
+                held[block] = True
+                lo, hi = ends[block].min(), ends[block].max()
+                dropped[mine[(ends[mine] > lo - length) & (ends[mine] < hi + length)]] = True
+                dropped |= held
+        if all((~d).any() for _, d in splits) and all(h.any() for h, _ in splits):
+            return splits, "stretches of one recording" if len(takes) == 1 else "stretches of each recording"
+    return None, "one recording too short for folds" if len(takes) == 1 else "recordings too short for folds"
 
 
 def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, progress=None, **options):
@@ -450,24 +473,27 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         if r.intervals:
             raise ValueError("ordinary-movement takes must hold no labelled gestures; "
                              f"one holds {len(r.intervals)} (of {', '.join(sorted({iv.label for iv in r.intervals}))})")
+    def thin(y, g):
+        own = g < len(recordings)
+        if not per_class:
+            return np.arange(len(y))
+        keep = np.flatnonzero(own)[_thin(y[own], per_class, per_null)]
+        if ordinary:   # ordinary movement of others: null windows of their own quota
+            keep = np.concatenate([keep, np.flatnonzero(~own)[_thin(y[~own], ordinary_cases)]])
+        return keep
+
     w, y, g, classes, conditioning, spec, e = recording_windows(recordings + ordinary, kinds, settings, progress,
-                                                                with_ends=True)
+                                                                with_ends=True, select=thin)
     missing = [c for k, c in enumerate(classes) if not (y == k).any()]
     if missing:
         raise ValueError(f"no usable windows for: {', '.join(missing)} (recordings too short or gestures longer than the window)")
-    own = g < len(recordings)
-    if per_class:
-        keep = np.flatnonzero(own)[_thin(y[own], per_class, per_null)]
-        if ordinary:   # ordinary movement of others: null windows of their own quota
-            keep = np.sort(np.concatenate([keep, np.flatnonzero(~own)[_thin(y[~own], ordinary_cases)]]))
-        w, y, g, e = w[keep], y[keep], g[keep], e[keep]
     labels = list(classes[1:])
     channels = tuple(recordings[0].channel_names)
 
     def fit(sel):
         extra = {}
         if name == "minirocket":  # held-out figures and temperature from grouped folds, in closed form
-            extra["splits"], extra["held_out_by"] = window_splits(g[sel], e[sel], spec.length)
+            extra["splits"], extra["held_out_by"] = window_splits(g[sel], e[sel], spec.length, labels=y[sel])
         return fit_cases(name, windows_to_cases(w[sel], stream), np.array(classes)[y[sel]], labels,
                          kinds={c: kinds[c] for c in labels}, channel_names=channels, conditioning=conditioning,
                          windows=spec, stream=stream, **opts, **extra)
@@ -500,7 +526,7 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     if ordinary:
         model.summary["ordinary_takes"] = len(ordinary)
     if name == "minirocket":
-        splits, why = window_splits(g, e, spec.length)
+        splits, why = window_splits(g, e, spec.length, labels=y)
         if splits is None:
             model.summary["held_out_note"] = why + ": the leave-one-out figures overlap"
     groups = np.unique(g)
