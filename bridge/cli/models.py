@@ -78,7 +78,12 @@ def cmd_fit(a) -> int:
                     raise ValueError("--ordinary applies to --classifier minirocket or dtw")
                 options["ordinary"] = _read_takes(a.ordinary)[0]
             elif a.classifier == "minirocket" and not a.no_simulated_others:
-                from ..evaluation.simulated import OTHERS_PEOPLE, OTHERS_S, built_in_jacket_takes, built_in_others
+                from ..evaluation.simulated import (
+                    OTHERS_PEOPLE,
+                    OTHERS_S,
+                    built_in_jacket_takes,
+                    built_in_others,
+                )
                 if built_in_jacket_takes(recs):
                     options["ordinary"] = built_in_others(recs[0].rate_hz)
                     print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of "

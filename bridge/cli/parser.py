@@ -10,7 +10,6 @@ from .live import cmd_demo, cmd_ports, cmd_send, cmd_start, cmd_watch
 from .models import cmd_evaluate, cmd_fit, cmd_tune
 from .tools import cmd_bench
 
-
 VERBS = {
     "demo": "run the whole live chain on the built-in simulated jacket, sending OSC",
     "start": "run the live chain from a garment on a serial port, as a foreground daemon",

@@ -34,6 +34,7 @@ def cmd_bench(a) -> int:
 def _bench_spotting(a) -> int:
     """`drape bench --spotting`: the spotting protocol on a simulated troupe; prints its table."""
     import json
+
     from ..evaluation.spotting import Protocol, format_table, run_protocol
     if a.spotting_wearers < 2 or a.spotting_score_min <= 0:
         return _err("--spotting-wearers must be at least 2 and --spotting-score-min positive")
