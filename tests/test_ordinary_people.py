@@ -81,3 +81,20 @@ def test_the_fit_adds_the_built_in_people_only_to_the_built_in_jackets_takes(tmp
         np.testing.assert_allclose(r.freq_hz, read_recording(tmp_path / "p" / f"ordinary-person{k}.take").freq_hz,
                                    rtol=1e-9)
     assert np.array_equal(mine[0].freq_hz, ordinary_take(OTHERS_SEED, 0, 20.0, FULL_NULL_ACTIVITIES, None, 50.0).freq_hz)
+
+
+def test_fit_and_the_held_out_schemes_add_the_same_people(tmp_path, capsys):
+    """`drape evaluate --scheme` estimates what `drape fit` will make, so its folds get the
+    people too; --no-simulated-others and the other classifiers get none."""
+    from bridge.cli.models import _simulated_others
+    from bridge.cli.parser import build_parser
+    assert main(["simulate", "--duration-s", "5", "--rate-hz", "10", "--out", str(tmp_path / "a.take")]) == 0
+    recs = [read_recording(tmp_path / "a.take")]
+    parse = build_parser().parse_args
+    for verb in (["fit", "a.take", "-o", "m.npz"], ["evaluate", "a.take", "--scheme", "leave-wearer-out"]):
+        capsys.readouterr()
+        got = _simulated_others(parse(verb), recs)
+        assert len(got["ordinary"]) == 6 and got["ordinary"][0].rate_hz == 10.0
+        assert "adding the ordinary movement of 6 simulated people" in capsys.readouterr().out
+        assert _simulated_others(parse([*verb, "--no-simulated-others"]), recs) == {}
+        assert _simulated_others(parse([*verb, "--classifier", "linear"]), recs) == {}

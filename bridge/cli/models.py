@@ -24,6 +24,18 @@ def _read_takes(paths):
     return recs, kinds
 
 
+def _simulated_others(a, recs) -> dict:
+    """{"ordinary": the built-in people} for a minirocket fit on the built-in jacket's takes
+    (saying so), unless --no-simulated-others; else {}."""
+    from ..evaluation.simulated import OTHERS_PEOPLE, OTHERS_S, built_in_jacket_takes, built_in_others
+    if a.classifier != "minirocket" or a.no_simulated_others or not built_in_jacket_takes(recs):
+        return {}
+    print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of {OTHERS_PEOPLE} "
+          f"simulated people ({OTHERS_S / 60:g} min each) to the null class (--no-simulated-others leaves it out)",
+          flush=True)
+    return {"ordinary": built_in_others(recs[0].rate_hz)}
+
+
 def _read_ts_cases(path):
     from ..sources.ts_format import TsFormatError, read_ts
     try:
@@ -77,18 +89,8 @@ def cmd_fit(a) -> int:
                 if a.classifier == "linear":
                     raise ValueError("--ordinary applies to --classifier minirocket or dtw")
                 options["ordinary"] = _read_takes(a.ordinary)[0]
-            elif a.classifier == "minirocket" and not a.no_simulated_others:
-                from ..evaluation.simulated import (
-                    OTHERS_PEOPLE,
-                    OTHERS_S,
-                    built_in_jacket_takes,
-                    built_in_others,
-                )
-                if built_in_jacket_takes(recs):
-                    options["ordinary"] = built_in_others(recs[0].rate_hz)
-                    print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of "
-                          f"{OTHERS_PEOPLE} simulated people ({OTHERS_S / 60:g} min each) to the null class "
-                          f"(--no-simulated-others leaves it out)", flush=True)
+            else:
+                options.update(_simulated_others(a, recs))
             model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
             source = _plural(len(recs), "take")
     except (RecordingError, TsFormatError, ValueError) as exc:
@@ -165,7 +167,8 @@ def cmd_evaluate(a) -> int:
                 close()
                 return _err("give take files and --scheme leave-session-out or leave-wearer-out (or --model M with held-out data)")
             recs, kinds = _read_takes(a.recordings)
-            result = cross_validate(recs, kinds, a.scheme, a.classifier, _training_settings(a), progress=step)
+            result = cross_validate(recs, kinds, a.scheme, a.classifier, _training_settings(a), progress=step,
+                                    **_simulated_others(a, recs))
             title = f"{a.classifier}, {a.scheme}, {_plural(len(recs), 'take')}"
     except (ModelError, RecordingError, TsFormatError, ValueError) as exc:
         close()

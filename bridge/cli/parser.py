@@ -104,6 +104,9 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--scheme", choices=("leave-session-out", "leave-wearer-out"),
                    help="hold out each session (new recordings of known wearers) or each wearer (unseen wearers)")
     e.add_argument("--classifier", choices=tuple(CLASSIFIERS), default=DEFAULT_CLASSIFIER)
+    e.add_argument("--no-simulated-others", action="store_true",
+                   help="--scheme with minirocket on the built-in simulated jacket's takes: fit each fold "
+                        "without the 6 simulated people drape fit adds")
     e.add_argument("--model", help="score this model on held-out takes or --ts cases instead")
     e.add_argument("--ts", metavar="TEST.ts", help="cases to score --model on (resampled to its window)")
     e.add_argument("--json", action="store_true", help="print a machine-readable summary")
