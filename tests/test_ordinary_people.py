@@ -61,7 +61,11 @@ def test_the_fit_adds_the_built_in_people_only_to_the_built_in_jackets_takes(tmp
     """`drape fit` (minirocket) adds simulated people's ordinary movement by default, but
     only to takes of the built-in jacket: for a real garment, or a simulated layout file,
     they would be another garment's movement."""
-    from bridge.evaluation.simulated import OTHERS_SEED, built_in_jacket_takes, built_in_others
+    from bridge.evaluation.simulated import (
+        OTHERS_SEED,
+        built_in_jacket_takes,
+        built_in_others,
+    )
     from bridge.garment.troupe import ordinary_take
     assert main(["simulate", "--duration-s", "5", "--out", str(tmp_path / "a.take")]) == 0
     own = read_recording(tmp_path / "a.take")

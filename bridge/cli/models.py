@@ -27,7 +27,12 @@ def _read_takes(paths):
 def _simulated_others(a, recs) -> dict:
     """{"ordinary": the built-in people} for a minirocket fit on the built-in jacket's takes
     (saying so), unless --no-simulated-others; else {}."""
-    from ..evaluation.simulated import OTHERS_PEOPLE, OTHERS_S, built_in_jacket_takes, built_in_others
+    from ..evaluation.simulated import (
+        OTHERS_PEOPLE,
+        OTHERS_S,
+        built_in_jacket_takes,
+        built_in_others,
+    )
     if a.classifier != "minirocket" or a.no_simulated_others or not built_in_jacket_takes(recs):
         return {}
     print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of {OTHERS_PEOPLE} "
