@@ -356,6 +356,7 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
     36,000 windows: about 1 GB at 4 channels and 2.5 s, where a fit keeps a few thousand).
     """
     from .training import TrainingSettings, condition_recording, label_windows, window_length_s
+    from .windows import window_ends
     settings = settings or TrainingSettings()
     recordings = list(recordings)
     if not recordings:
@@ -377,15 +378,14 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
             raise ValueError("all recordings must share channels and rate; "
                              f"got {tuple(r.channel_names)} at {r.rate_hz} Hz and {channels} at {rate} Hz")
         streams = condition_recording(r, conditioning)
-        n = streams.shape[1]
-        ends = np.arange(spec.length, n + 1, spec.hop) if n >= spec.length else np.empty(0, dtype=int)
+        ends = window_ends(spec, streams.shape[1])
         y = label_windows(ends, spec.length, rate, r.intervals, classes, kinds)
         keep = y >= 0
         conditioned.append(streams)
         ys.append(y[keep]); gs.append(np.full(int(keep.sum()), i)); es.append(ends[keep])
         if progress:
             progress(i + 1, len(recordings))
-    y, g, e = np.concatenate(ys), np.concatenate(gs), np.concatenate(es).astype(np.int64)
+    y, g, e = np.concatenate(ys), np.concatenate(gs), np.concatenate(es)
     if select is not None:
         pick = np.sort(np.asarray(select(y, g), dtype=np.int64))
         y, g, e = y[pick], g[pick], e[pick]

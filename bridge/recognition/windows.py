@@ -102,16 +102,22 @@ class Windower:
         return self.seen + hop - ((self.seen - L) % hop)
 
 
+def window_ends(spec: WindowSpec, n_samples: int) -> np.ndarray:
+    """End index (exclusive) of every window a Windower emits over ``n_samples`` samples."""
+    if n_samples < spec.length:
+        return np.empty(0, dtype=np.int64)
+    return np.arange(spec.length, n_samples + 1, spec.hop, dtype=np.int64)
+
+
 def all_windows(spec: WindowSpec, *streams: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
     """Every window a Windower would emit over whole streams, at once (offline training).
 
     Returns (windows (m, streams, length, channels), end indices (m,)).
     """
-    L, hop = spec.length, spec.hop
-    n = streams[0].shape[0]
-    if n < L:
-        return np.empty((0, len(streams), L, streams[0].shape[1])), np.empty(0, dtype=int)
-    ends = np.arange(L, n + 1, hop)
+    L = spec.length
+    ends = window_ends(spec, streams[0].shape[0])
+    if not len(ends):
+        return np.empty((0, len(streams), L, streams[0].shape[1])), ends
     stacked = np.stack(streams)  # (streams, n, channels)
     view = np.lib.stride_tricks.sliding_window_view(stacked, L, axis=1)  # (streams, n-L+1, ch, L)
     w = view[:, ends - L]  # (streams, m, ch, L)
