@@ -142,8 +142,12 @@ class JackPeer:
     def start(self) -> None:
         # A long period (2048 frames, ~43 ms) leaves slack: with --no-realtime on a busy machine a short
         # period gives the dummy driver xruns, and after an xrun a listener can read a stale buffer again.
+        # jackd's own report is kept: "JackEngine::XRun: client = … was not finished" marks a
+        # cycle a client missed, and events of that cycle can be lost (checked here with a
+        # listener whose callback sleeps 0.3 s: 1 of 5 notes arrived).
+        self.log = tempfile.NamedTemporaryFile("w+", prefix="drape-jackd-", suffix=".log")
         self.proc = subprocess.Popen(["jackd", "-n", self.name, "--no-realtime", "-d", "dummy", "-r", "48000",
-                                      "-p", "2048"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL,
+                                      "-p", "2048"], stdout=self.log, stderr=subprocess.STDOUT,
                                      start_new_session=True)
         deadline = time.monotonic() + 10
         while True:
@@ -165,6 +169,13 @@ class JackPeer:
         except subprocess.TimeoutExpired:
             self.proc.kill()
             self.proc.wait()
+        self.log.close()
+
+    def xruns(self) -> list[str]:
+        """The cycles clients missed so far, as jackd reported them."""
+        self.log.flush()
+        with open(self.log.name, encoding="utf-8", errors="replace") as f:
+            return [line.strip() for line in f if "XRun" in line]
 
     def restart(self) -> None:
         """Stop the server and start another of the same name (as a user restarting JACK)."""
@@ -333,10 +344,31 @@ def _ended_cleanly(proc):
 
 def test_a_process_ending_with_its_midi_port_busy_releases_every_note(jack_server):
     # The script never calls close: its outputs are closed on the way out of the interpreter.
+    # A cycle that a JACK client missed (an xrun, in jackd's log) can lose events whoever sent
+    # them; once seen in 20 full runs on a loaded machine: five stale copies of one note-off
+    # arrived, and the rest of the release never did. Such an attempt says nothing about
+    # drape and is made again; a loss without an xrun fails at once.
+    spoiled = []
+    for attempt in range(3):
+        before = len(jack_server.xruns())
+        got = _exit_while_busy(jack_server, f"exit-listener{attempt}")
+        # MIDI 1.0: note-on 9n kk vv, note-off 8n kk 00, All Notes Off = controller 123 (B0 7B 00)
+        on = {m[1] for m in got if m[0] == 0x90}
+        off = {m[1] for m in got if m[0] == 0x80}
+        if got and got[-1] == [0xB0, 123, 0] and on <= off:   # every note heard sounding was ended
+            return
+        xruns = jack_server.xruns()[before:]
+        assert xruns, f"release lost without an xrun: last {got[-5:]}, {len(got)} messages, sounding {on - off}"
+        spoiled.append(xruns[0])
+    pytest.fail(f"the JACK server's clients missed cycles in 3 attempts (machine too busy to tell): {spoiled}")
+
+
+def _exit_while_busy(jack_server, listener: str) -> list:
+    """What a listener hears of a busy process that ends (see busy_exit.py)."""
     proc = _busy_process("midi")
     try:
         got = []
-        inp = jack_server.listener("exit-listener")
+        inp = jack_server.listener(listener)
         ports = [i for i, n in enumerate(inp.get_ports()) if n.endswith("busy-out")]
         assert ports, inp.get_ports()
         inp.set_callback(lambda event, _data: got.append(event[0]))
@@ -349,11 +381,8 @@ def test_a_process_ending_with_its_midi_port_busy_releases_every_note(jack_serve
     end = time.monotonic() + 5
     while [0xB0, 123, 0] not in got and time.monotonic() < end:
         time.sleep(0.02)
-    # MIDI 1.0: note-on 9n kk vv, note-off 8n kk 00, All Notes Off = controller 123 (B0 7B 00)
-    on = {m[1] for m in got if m[0] == 0x90}
-    off = {m[1] for m in got if m[0] == 0x80}
-    assert got and got[-1] == [0xB0, 123, 0], got[-5:]
-    assert on <= off  # every note heard sounding was ended
+    time.sleep(0.1)  # anything after it (stale copies) arrives too
+    return list(got)
 
 
 def test_closing_after_the_jack_server_was_replaced_exits_cleanly(jack_server):
