@@ -148,6 +148,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="--spotting: add ordinary movement of N other simulated people to every minirocket fit "
                         "(default 6: at the default seed, the very people drape fit adds to the built-in "
                         "jacket's takes; 0 for none)")
+    b.add_argument("--spotting-development", action="store_true",
+                   help="--spotting: instead of tune and score, count each wearer's default fit on a development "
+                        "session (3 repetitions + 30 min) that the protocol never scores: where changes are chosen")
     b.add_argument("--spotting-cache", metavar="DIR", help="--spotting: folder for the rendered takes (kept for reruns)")
     b.add_argument("--spotting-json", metavar="FILE", help="--spotting: also write the full result as JSON")
     b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")

@@ -35,7 +35,7 @@ def _bench_spotting(a) -> int:
     """`drape bench --spotting`: the spotting protocol on a simulated troupe; prints its table."""
     import json
 
-    from ..evaluation.spotting import Protocol, format_table, run_protocol
+    from ..evaluation.spotting import Protocol, format_development, format_table, run_development, run_protocol
     if a.spotting_wearers < 2 or a.spotting_score_min <= 0:
         return _err("--spotting-wearers must be at least 2 and --spotting-score-min positive")
     from ..recognition.classifiers import DEFAULT_CLASSIFIER
@@ -50,11 +50,15 @@ def _bench_spotting(a) -> int:
           f"takes cached in {cache}"
           + (f"; every fit adds 10 min of ordinary movement of each of {p.prior_wearers} other simulated people"
              if p.prior_wearers else ""), flush=True)
+    run, table = (run_development, format_development) if a.spotting_development else (run_protocol, format_table)
+    if a.spotting_development:
+        print(f"development sessions instead of tune and score: {p.dev_reps} repetitions + "
+              f"{p.dev_null_s / 60:g} min each, the default gate", flush=True)
     try:
-        result = run_protocol(p, classifier, cache, progress=lambda m: print("  " + m, flush=True))
+        result = run(p, classifier, cache, progress=lambda m: print("  " + m, flush=True))
     except ValueError as exc:
         return _err(str(exc))
-    print("\n".join(format_table(result)))
+    print("\n".join(table(result)))
     if a.spotting_json:
         Path(a.spotting_json).write_text(json.dumps(result, indent=1, default=str), encoding="utf-8")
         print(f"{a.spotting_json}: written")

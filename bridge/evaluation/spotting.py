@@ -13,6 +13,11 @@ Per simulated wearer of a troupe (full vocabulary):
 Leave-wearer-out: a model fitted on the other wearers' fit sessions and tuned on their
 tune sessions, scored on the held-out wearer's fourth session. Takes are rendered once
 into a cache folder and read back on later runs.
+
+Development sessions (``run_development``): a sixth session of each wearer (``dev_reps``
+repetitions and ``dev_null_s`` of ordinary movement), never scored by the protocol, on
+which the default fit is counted at its stored gate. Changes are chosen there, so that the
+protocol's figures stay held out.
 """
 
 from __future__ import annotations
@@ -39,9 +44,13 @@ class Protocol:
     vocabulary: str = "full"
     prior_wearers: int = 0        # other simulated people whose ordinary movement is added to every fit
     prior_s: float = 600.0        # ordinary movement of each, s
+    dev_reps: int = 3             # development session: repetitions ...
+    dev_null_s: float = 1800.0    # ... and ordinary movement, s
 
 
 ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
+DEV_SESSION = 5                                         # the development session's number
+APART = ("prior_", "dev_")   # settings of takes that are named apart: a cache holds the others
 
 
 def session_take(p: Protocol, wearer: int, role: str):
@@ -53,8 +62,9 @@ def session_take(p: Protocol, wearer: int, role: str):
     gestures, nulls = ((FULL_GESTURES, FULL_NULL_ACTIVITIES) if p.vocabulary == "full"
                        else (GESTURES, NULL_ACTIVITIES))
     reps, null_s = {"fit0": (p.fit_reps, p.fit_null_s), "fit1": (p.fit_reps, p.fit_null_s),
-                    "tune": (p.tune_reps, p.tune_null_s), "score": (p.score_reps, p.score_null_s)}[role]
-    session = ROLES[role]
+                    "tune": (p.tune_reps, p.tune_null_s), "score": (p.score_reps, p.score_null_s),
+                    "dev": (p.dev_reps, p.dev_null_s)}[role]
+    session = DEV_SESSION if role == "dev" else ROLES[role]
     rng = np.random.default_rng([p.seed, wearer, session, 29])
     script = training_script(rng, reps, list(gestures), null_activities=tuple(nulls)) + \
         ordinary_script(rng, null_s, nulls)
@@ -72,25 +82,28 @@ def prior_take(p: Protocol, k: int):
     return Recording.from_take(ordinary_take(p.seed + 1000, k, p.prior_s, nulls), {})
 
 
-def protocol_takes(p: Protocol, cache: str | Path, progress=None) -> dict:
-    """{(wearer, role): Recording}, rendered into ``cache`` once (a folder named by the protocol)."""
+def protocol_takes(p: Protocol, cache: str | Path, progress=None, roles=tuple(ROLES)) -> dict:
+    """{(wearer, role): Recording} of ``roles``, rendered into ``cache`` once (a folder
+    named by the protocol). Development takes are named by their settings, so a cache
+    holds them beside the protocol's."""
     from ..sources import read_recording, write_recording
     folder = Path(cache)
     folder.mkdir(parents=True, exist_ok=True)
     stamp = folder / "protocol.json"
-    sessions = {k: v for k, v in asdict(p).items() if not k.startswith("prior_")}   # prior takes are named apart
-    if stamp.exists() and {k: v for k, v in json.loads(stamp.read_text()).items() if not k.startswith("prior_")} != sessions:
+    sessions = {k: v for k, v in asdict(p).items() if not k.startswith(APART)}
+    if stamp.exists() and {k: v for k, v in json.loads(stamp.read_text()).items() if not k.startswith(APART)} != sessions:
         raise ValueError(f"{folder} holds takes of another protocol; give an empty folder")
     stamp.write_text(json.dumps(asdict(p), indent=1))
     out = {}
     for w in range(p.wearers):
-        for role in ROLES:
-            path = folder / f"wearer{w}-{role}.take"
+        for role in roles:
+            name = f"dev{p.dev_reps}x{p.dev_null_s:g}s" if role == "dev" else role
+            path = folder / f"wearer{w}-{name}.take"
             if not path.exists():
                 write_recording(path, session_take(p, w, role))
             out[(w, role)] = read_recording(path)
             if progress:
-                progress(f"take wearer{w}-{role}: {out[(w, role)].freq_hz.shape[0] / out[(w, role)].rate_hz / 60:.1f} min")
+                progress(f"take {path.stem}: {out[(w, role)].freq_hz.shape[0] / out[(w, role)].rate_hz / 60:.1f} min")
     for k in range(p.prior_wearers):
         path = folder / f"prior{k}.take"
         if not path.exists():
@@ -151,6 +164,37 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
             progress(f"unseen wearer{held}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
                      f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false")
     return out
+
+
+def run_development(p: Protocol, classifier: str, cache: str | Path, progress=print, use_prior: bool = True,
+                    **options) -> dict:
+    """Each wearer's default fit (its two fit sessions) counted at its stored gate on its
+    development session: {"per_wearer": [counts...], "pooled": ``pool``}. For choosing
+    changes without looking at the protocol's tune and score sessions."""
+    takes = protocol_takes(p, cache, progress, roles=("fit0", "fit1", "dev"))
+    if p.prior_wearers and use_prior:
+        options = {**options, "ordinary": [takes[(k, "prior")] for k in range(p.prior_wearers)]}
+    rows = []
+    for w in range(p.wearers):
+        model = fit_model(classifier, [takes[(w, "fit0")], takes[(w, "fit1")]], **options)
+        rows.append(score(model, takes[(w, "dev")]))
+        if progress:
+            c = rows[-1]
+            progress(f"wearer{w}: {c['hit']}/{c['performed']} hits, {c['false']} false ({c['double']} double, "
+                     f"{c['wrong_name']} wrong name, {c['ordinary']} ordinary)")
+    return {"protocol": asdict(p), "classifier": classifier, "per_wearer": rows, "pooled": pool(rows)}
+
+
+def format_development(result: dict) -> list[str]:
+    """The development sessions' counts in Markdown, per wearer and pooled (default gate)."""
+    lines = ["| who | recall | double | wrong name | in ordinary movement | all false /h of take |",
+             "|---|---|---|---|---|---|"]
+    for w, c in enumerate(result["per_wearer"] + [None]):
+        p = pool([c]) if c is not None else result["pooled"]
+        rec = "n/a" if p["recall"] is None else f"{p['recall']:.3f} ({p['hit']}/{p['performed']})"
+        lines.append(f"| {'pooled' if c is None else f'wearer{w}'} | {rec} | {p['double']} | {p['wrong_name']} | "
+                     f"{p['ordinary']} | {format_rate(p['rates']['false_per_take_hour'])} |")
+    return lines
 
 
 def format_table(result: dict) -> list[str]:

@@ -1,0 +1,46 @@
+"""Development sessions of the spotting protocol: a session of each wearer that the protocol
+never fits, tunes or scores, counted with the one matcher."""
+
+import json
+from dataclasses import asdict
+
+import pytest
+
+from bridge.evaluation.spotting import DEV_SESSION, ROLES, Protocol, protocol_takes, run_development
+from bridge.garment import FULL_GESTURES
+
+TINY = Protocol(wearers=2, fit_reps=2, fit_null_s=20.0, tune_reps=1, tune_null_s=10.0, score_reps=1,
+                score_null_s=10.0, dev_reps=1, dev_null_s=30.0)
+
+
+def test_development_sessions_are_apart_from_every_protocol_session(tmp_path):
+    takes = protocol_takes(TINY, tmp_path, roles=("fit0", "fit1", "dev"))
+    assert DEV_SESSION not in ROLES.values()
+    for w in range(TINY.wearers):
+        dev = takes[(w, "dev")]
+        assert dev.session == f"session{DEV_SESSION}"
+        assert {takes[(w, r)].session for r in ("fit0", "fit1")} == {"session0", "session1"}
+        assert sorted(iv.label for iv in dev.intervals) == sorted(FULL_GESTURES)   # one of each
+        # only what was asked for is rendered; the dev take is named by its settings
+    names = sorted(p.name for p in tmp_path.glob("*.take"))
+    assert names == sorted(f"wearer{w}-{r}.take" for w in range(2) for r in ("fit0", "fit1", "dev1x30s"))
+
+
+def test_a_cache_of_the_protocol_takes_development_sessions_of_any_length(tmp_path):
+    stamp = {k: v for k, v in asdict(TINY).items() if not k.startswith("dev_")}   # written before they existed
+    (tmp_path / "protocol.json").write_text(json.dumps(stamp))
+    protocol_takes(Protocol(**{**asdict(TINY), "dev_null_s": 20.0}), tmp_path, roles=("dev",))
+    with pytest.raises(ValueError, match="another protocol"):
+        protocol_takes(Protocol(**{**asdict(TINY), "fit_reps": 3}), tmp_path, roles=("dev",))
+
+
+def test_development_counts_every_cue_of_each_wearer(tmp_path):
+    result = run_development(TINY, "linear", tmp_path, progress=None)
+    assert len(result["per_wearer"]) == TINY.wearers
+    for c in result["per_wearer"]:
+        assert c["performed"] == len(FULL_GESTURES) * TINY.dev_reps
+        assert c["hit"] + c["missed"] == c["performed"]
+        assert c["false"] == c["double"] + c["wrong_name"] + c["ordinary"]
+    pooled = result["pooled"]
+    assert pooled["performed"] == TINY.wearers * len(FULL_GESTURES)
+    assert pooled["hit"] == sum(c["hit"] for c in result["per_wearer"])
