@@ -14,7 +14,7 @@ Leave-wearer-out: a model fitted on the other wearers' fit sessions and tuned on
 tune sessions, scored on the held-out wearer's fourth session. Takes are rendered once
 into a cache folder and read back on later runs.
 
-Development sessions (``run_development``): a sixth session of each wearer (``dev_reps``
+Development sessions (``run_development``): session DEV_SESSION of each wearer (``dev_reps``
 repetitions and ``dev_null_s`` of ordinary movement), never scored by the protocol, on
 which the default fit is counted at its stored gate. Changes are chosen there, so that the
 protocol's figures stay held out.
