@@ -2,6 +2,7 @@
 
 import numpy as np
 import pytest
+from dataclasses import replace
 
 from bridge.decisions import Gate, GateSettings
 
@@ -139,3 +140,54 @@ def test_a_posture_that_flickers_out_and_back_fires_once():
     g = Gate(CLASSES, KINDS, {c: s for c in KINDS})
     ev = run(g, [("hold", 0.9)] * 5 + [("null", 0.9)] * 4 + [("hold", 0.9)] * 5)
     assert [e.kind for e in ev] == ["entered", "left", "entered"]
+
+
+def _vec(wave: float, hold: float) -> np.ndarray:
+    return np.array([1.0 - wave - hold, wave, hold])
+
+
+def _fire(settings, seq, hop_s=0.1):
+    g = Gate(CLASSES, KINDS, {c: settings for c in KINDS})
+    out = []
+    for i, v in enumerate(seq):
+        out += g.step(round(i * hop_s, 6), v)
+    return [(e.t_s, e.gesture, e.kind) for e in out]
+
+
+def test_no_gesture_fires_while_a_posture_is_held_or_just_left():
+    # Moving out of a posture reads as a gesture: wave's evidence while "hold" is still
+    # held (its probability above the exit level) must not fire.
+    s = GateSettings(threshold=0.4, agree_k=2, agree_n=2, exit_threshold=0.3, rearm_below=0.3, rearm_hops=2,
+                     after_posture_s=1.0)
+    held, leaving = [_vec(0.05, 0.9)] * 5, [_vec(0.55, 0.35)] * 4
+    ev = _fire(s, held + leaving + [_vec(0.05, 0.05)] * 30)
+    assert ev == [(0.1, "hold", "entered"), (1.0, "hold", "left")]
+    # the same evidence just after the posture is left (within 1 s) is not fired either ...
+    ev = _fire(s, held + [_vec(0.0, 0.0)] * 3 + [_vec(0.9, 0.0)] * 5 + [_vec(0.0, 0.0)] * 20)
+    assert ev == [(0.1, "hold", "entered"), (0.6, "hold", "left")]
+    # ... and a wave that starts after the quiet time fires, once
+    ev = _fire(s, held + [_vec(0.0, 0.0)] * 12 + [_vec(0.9, 0.0)] * 5 + [_vec(0.0, 0.0)] * 5)
+    assert ev == [(0.1, "hold", "entered"), (0.6, "hold", "left"), (1.8, "wave", "gesture")]
+    # a negative quiet time lets gestures fire during postures, as before the rule
+    ev = _fire(replace(s, after_posture_s=-1.0), held + leaving + [_vec(0.05, 0.05)] * 30)
+    assert (0.6, "wave", "gesture") in ev
+
+
+def test_blocked_gesture_must_re_arm_before_it_fires():
+    # Evidence that began inside the quiet time does not fire the moment the quiet time
+    # ends: it fell on the posture's way out, so it must fall away first.
+    s = GateSettings(threshold=0.4, agree_k=2, agree_n=2, exit_threshold=0.3, rearm_below=0.3, rearm_hops=2,
+                     after_posture_s=0.5)
+    ev = _fire(s, [_vec(0.05, 0.9)] * 5 + [_vec(0.0, 0.0)] * 3 + [_vec(0.9, 0.0)] * 20)
+    assert [e for e in ev if e[1] == "wave"] == []
+
+
+def test_another_posture_is_not_entered_while_one_is_held():
+    classes, kinds = ("null", "cross", "hips"), {"cross": "posture", "hips": "posture"}
+    s = GateSettings(threshold=0.5, agree_k=2, agree_n=2, exit_threshold=0.3, after_posture_s=0.5)
+    g = Gate(classes, kinds, {c: s for c in kinds})
+    seq = [np.array([0.05, 0.9, 0.05])] * 5 + [np.array([0.0, 0.4, 0.6])] * 5 + [np.array([0.8, 0.1, 0.1])] * 5
+    ev = []
+    for i, v in enumerate(seq):
+        ev += g.step(round(i * 0.1, 6), v)
+    assert [(e.gesture, e.kind) for e in ev] == [("cross", "entered"), ("cross", "left")]

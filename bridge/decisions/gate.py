@@ -6,9 +6,12 @@ until it has re-armed: its probability below ``rearm_below`` for ``rearm_hops`` 
 row. The evidence of a gesture stays in the classifier's window for up to a window's
 length after the movement, so a fixed quiet time shorter than that fires it twice; the
 re-arm rule waits for the evidence itself to fall away, however long the window. A
-posture that was left re-arms by the same rule before it can be entered again. A posture is "entered" on the same k-of-n rule
-and "left" when k of the last n hops fall below its lower exit threshold (hysteresis); while
-it stays held a "held" event repeats every ``held_every_s`` seconds (0: never).
+posture that was left re-arms by the same rule before it can be entered again. A posture
+is "entered" on the same k-of-n rule and "left" when k of the last n hops fall below its
+lower exit threshold (hysteresis); while it stays held a "held" event repeats every
+``held_every_s`` seconds (0: never). While a posture is held, and for ``after_posture_s``
+after it is left, no gesture fires and no other posture is entered: the movement out of
+a posture otherwise reads as a gesture or as the start of another posture.
 """
 
 from __future__ import annotations
@@ -41,17 +44,21 @@ class Event:
 class GateSettings:
     """Decision settings for one class."""
 
-    # 0.4 with 4 of 5 rather than 0.5 with 3 of 4: with the fit's 4000 null windows, on
-    # development sessions the protocol never scores, it recalled 7 more of 270 cues with
-    # one fewer false firing (docs/benchmarks.md, "Spotting").
+    # 0.4 with 3 of 4, postures 0.5 with 6 of 8, and the quiet time around postures: chosen
+    # on the development and tune sessions the protocol never scores (docs/benchmarks.md,
+    # "Spotting").
     threshold: float = 0.4       # probability needed for a hop to count, 0..1
-    agree_k: int = 4             # hops that must agree ...
-    agree_n: int = 5             # ... out of the last n
+    agree_k: int = 3             # hops that must agree ...
+    agree_n: int = 4             # ... out of the last n
     refractory_s: float = 1.5    # quiet time for every gesture after a gesture fires, s
     rearm_below: float = 0.3     # a fired gesture re-arms once its probability is below this ...
     rearm_hops: int = 3          # ... for this many hops in a row
     exit_threshold: float = 0.35  # posture: below this a hop counts towards "left"
     held_every_s: float = 0.0    # posture: repeat a "held" event this often while held, s (0: never)
+    # Moving out of a posture looks like the start of a gesture (or of another posture)
+    # to the classifier: while a posture is held, and for this long after one is left,
+    # this class does not fire; its evidence then must fall away (re-arm) as after a firing.
+    after_posture_s: float = 1.0  # s; negative: fire whatever the postures do
 
     def __post_init__(self):
         if not 0 < self.threshold <= 1 or not 0 <= self.exit_threshold <= self.threshold:
@@ -64,17 +71,19 @@ class GateSettings:
             raise ValueError("need 0 <= rearm_below <= threshold and rearm_hops >= 1")
         if self.held_every_s < 0:
             raise ValueError("held_every_s must be >= 0")
+        if not np.isfinite(self.after_posture_s):
+            raise ValueError("after_posture_s must be finite")
 
     def to_dict(self) -> dict:
         return {"threshold": self.threshold, "agree_k": self.agree_k, "agree_n": self.agree_n,
                 "refractory_s": self.refractory_s, "rearm_below": self.rearm_below, "rearm_hops": self.rearm_hops,
                 "exit_threshold": self.exit_threshold,
-                "held_every_s": self.held_every_s}
+                "held_every_s": self.held_every_s, "after_posture_s": self.after_posture_s}
 
 
 # A held posture must agree longer before it counts: brief passes through a posture-like
 # shape at the edges of other movements are common and must not fire "entered".
-POSTURE_DEFAULT = GateSettings(threshold=0.5, agree_k=8, agree_n=10)
+POSTURE_DEFAULT = GateSettings(threshold=0.5, agree_k=6, agree_n=8)
 
 
 def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None = None,
@@ -107,6 +116,7 @@ class Gate:
         self.held: dict[str, tuple[float, float]] = {}  # posture -> (entered at, confidence)
         self.held_next_s: dict[str, float] = {}        # posture -> when its next "held" event is due
         self.latched: dict[str, int] = {}              # fired gesture -> low hops in a row so far
+        self.last_left: tuple[str, float] = ("", -np.inf)  # the posture last left, and when (s)
 
     def step(self, t_s: float, prob: np.ndarray) -> list[Event]:
         """Take one hop's probabilities (classes,) at stream time t_s; return the events decided."""
@@ -130,6 +140,7 @@ class Gate:
                 if name in self.held:
                     if n_low[j] >= s.agree_k:
                         entered_at, conf = self.held.pop(name)
+                        self.last_left = (name, t_s)
                         self.held_next_s.pop(name, None)
                         events.append(Event(t_s, name, LEFT, conf, t_s - entered_at, self.garment))
                         # re-entered only once it has fallen away (this hop counts): a posture
@@ -143,15 +154,30 @@ class Gate:
                         self.held_next_s[name] += s.held_every_s
                         events.append(Event(t_s, name, HELD, conf, t_s - entered_at, self.garment))
                 elif agreed and name not in self.latched:
+                    if self._after_posture(name, t_s):
+                        self.latched[name] = 0
+                        continue
                     conf = float(np.mean(cols[voting[:, j], j]))
                     self.held[name] = (t_s, conf)
                     self.held_next_s[name] = t_s + s.held_every_s
                     events.append(Event(t_s, name, ENTERED, conf, 0.0, self.garment))
             elif agreed and t_s >= self.quiet_until_s and name not in self.latched:
+                if self._after_posture(name, t_s):
+                    self.latched[name] = 0
+                    continue
                 events.append(Event(t_s, name, GESTURE, float(np.mean(cols[voting[:, j], j])), 0.0, self.garment))
                 self.quiet_until_s = t_s + s.refractory_s
                 self.latched[name] = 0
         return events
+
+    def _after_posture(self, name: str, t_s: float) -> bool:
+        """Whether ``name`` must stay silent at t_s: a posture other than it is held, or
+        was left less than its ``after_posture_s`` ago (its own re-entry waits for re-arming)."""
+        wait_s = self.settings[name].after_posture_s
+        if wait_s < 0:
+            return False
+        left, left_s = self.last_left
+        return any(p != name for p in self.held) or (left != name and t_s < left_s + wait_s - 1e-9)
 
     def _rearm(self, probs: np.ndarray) -> None:
         """Count the low hops of each latched gesture over hops (m, classes), oldest first;

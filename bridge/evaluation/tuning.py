@@ -116,7 +116,7 @@ def _rolling_count(x: np.ndarray, n: int) -> np.ndarray:
 def class_firings(times_s: np.ndarray, probs: np.ndarray, j: int, kind: str, s: GateSettings,
                   top: np.ndarray | None = None) -> np.ndarray:
     """Firing times of class j alone under settings s: what ``Gate`` decides for it when no
-    other gesture's refractory time intervenes. Work is one pass over the hops plus one
+    other gesture's refractory time and no posture intervenes (they only take firings away). Work is one pass over the hops plus one
     step per firing. ``top``: probs.argmax(axis=1), when already at hand."""
     if not len(times_s):
         return np.empty(0)
