@@ -24,21 +24,29 @@ def _read_takes(paths):
     return recs, kinds
 
 
+def _times(n: int) -> str:
+    return {1: "once", 2: "twice"}.get(n, f"{n} times")
+
+
 def _simulated_others(a, recs) -> dict:
-    """{"ordinary": the built-in people} for a minirocket fit on the built-in jacket's takes
-    (saying so), unless --no-simulated-others; else {}."""
+    """{"ordinary": the built-in people, "others": their cue takes} for a minirocket fit on
+    the built-in jacket's takes (saying so), unless --no-simulated-others; else {}."""
     from ..evaluation.simulated import (
         OTHERS_PEOPLE,
+        OTHERS_REPS,
         OTHERS_S,
         built_in_jacket_takes,
         built_in_others,
+        built_in_others_cues,
     )
     if a.classifier != "minirocket" or a.no_simulated_others or not built_in_jacket_takes(recs):
         return {}
+    cues = built_in_others_cues(recs[0].rate_hz, {iv.label for r in recs for iv in r.intervals})
     print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of {OTHERS_PEOPLE} "
-          f"simulated people ({OTHERS_S / 60:g} min each) to the null class (--no-simulated-others leaves it out)",
-          flush=True)
-    return {"ordinary": built_in_others(recs[0].rate_hz)}
+          f"simulated people ({OTHERS_S / 60:g} min each) to the null class"
+          + (f", and each of them performing every gesture {_times(OTHERS_REPS)}," if cues else "")
+          + " (--no-simulated-others leaves them out)", flush=True)
+    return {"ordinary": built_in_others(recs[0].rate_hz), **({"others": cues} if cues else {})}
 
 
 def _read_ts_cases(path):

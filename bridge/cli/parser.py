@@ -90,7 +90,8 @@ def build_parser() -> argparse.ArgumentParser:
                         "the null class (one or more, repeatable); minirocket and dtw")
     f.add_argument("--no-simulated-others", action="store_true",
                    help="minirocket on takes of the built-in simulated jacket: do not add the ordinary movement "
-                        "of 6 simulated people when no --ordinary takes are given (it is added by default)")
+                        "of 6 simulated people, and their performances of the same gestures, when no --ordinary "
+                        "takes are given (both are added by default)")
     f.add_argument("--band", type=float, metavar="FRACTION",
                    help="dtw: warping band as a fraction of the window (0 = no warping, 1 = unconstrained; default 0.1)")
     f.add_argument("--no-rejection", action="store_true",
@@ -148,6 +149,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="--spotting: add ordinary movement of N other simulated people to every minirocket fit "
                         "(default 6: at the default seed, the very people drape fit adds to the built-in "
                         "jacket's takes; 0 for none)")
+    b.add_argument("--spotting-prior-reps", type=int, default=2, metavar="R",
+                   help="--spotting: those people also perform every gesture R times, added to every fit as "
+                        "drape fit adds them (default 1; 0 for ordinary movement only)")
     b.add_argument("--spotting-development", action="store_true",
                    help="--spotting: instead of tune and score, count each wearer's default fit on a development "
                         "session (3 repetitions + 30 min) that the protocol never scores: where changes are chosen")

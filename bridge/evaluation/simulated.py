@@ -31,6 +31,39 @@ def train_simulated(seed: int, wearer: int, repetitions: int = 8, sessions: int 
 OTHERS_SEED = 1001
 OTHERS_PEOPLE = 6
 OTHERS_S = 600.0
+OTHERS_REPS = 1   # each of the wearer's gestures, performed by each of those people
+
+
+def others_cue_take(seed: int, person: int, repetitions: int, labels, rate_hz: float | None = None) -> Recording:
+    """Simulated person ``person`` (of ``seed``) performing each of ``labels`` (names of the
+    full vocabulary) ``repetitions`` times between short stretches of ordinary movement, in
+    their session 1: labelled cue takes of someone other than the wearer."""
+    from ..garment import FULL_GESTURES, FULL_NULL_ACTIVITIES
+    labels = [g for g in FULL_GESTURES if g in set(labels)]
+    if not labels:
+        raise ValueError("none of the labels is a gesture the simulated people know")
+    rng = np.random.default_rng([seed, person, 1, 41])
+    script = training_script(rng, repetitions, labels, null_activities=tuple(FULL_NULL_ACTIVITIES))
+    extra = {} if rate_hz is None else {"rate_hz": rate_hz}
+    take = Jacket(seed=seed, wearer=person, session=1, **extra).perform(script)
+    return Recording.from_take(take, {g: FULL_GESTURES[g] for g in labels}, layout="built-in")
+
+
+def built_in_others_cues(rate_hz: float, labels, people: int = OTHERS_PEOPLE,
+                         repetitions: int = OTHERS_REPS) -> list[Recording]:
+    """The built-in people's cue takes (OTHERS_SEED): each performs those of ``labels`` the
+    simulator knows ``repetitions`` times. Empty when it knows none of them."""
+    from ..garment import FULL_GESTURES
+    if not set(labels) & set(FULL_GESTURES):
+        return []
+    out = []
+    for k in range(people):
+        rec = others_cue_take(OTHERS_SEED, k, repetitions, labels, rate_hz)
+        rec.wearer, rec.session = f"cue-person{k}", "cues"
+        out.append(rec)
+    return out
+
+
 # Layout names the simulator writes into takes of the built-in jacket: `drape simulate`,
 # `drape capture --simulated`, and takes made in code (Recording.from_take).
 BUILT_IN_LAYOUTS = ("built-in", "simulated jacket", "default")

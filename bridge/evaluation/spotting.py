@@ -44,6 +44,7 @@ class Protocol:
     vocabulary: str = "full"
     prior_wearers: int = 0        # other simulated people whose ordinary movement is added to every fit
     prior_s: float = 600.0        # ordinary movement of each, s
+    prior_reps: int = 1           # ... and their performances of each gesture, added as cases (0: none)
     dev_reps: int = 3             # development session: repetitions ...
     dev_null_s: float = 1800.0    # ... and ordinary movement, s
 
@@ -82,6 +83,13 @@ def prior_take(p: Protocol, k: int):
     return Recording.from_take(ordinary_take(p.seed + 1000, k, p.prior_s, nulls), {})
 
 
+def prior_cue_take(p: Protocol, k: int):
+    """The k-th prior person performing every gesture ``prior_reps`` times."""
+    from ..garment import FULL_GESTURES, GESTURES
+    from .simulated import others_cue_take
+    return others_cue_take(p.seed + 1000, k, p.prior_reps, FULL_GESTURES if p.vocabulary == "full" else GESTURES)
+
+
 def protocol_takes(p: Protocol, cache: str | Path, progress=None, roles=tuple(ROLES)) -> dict:
     """{(wearer, role): Recording} of ``roles``, rendered into ``cache`` once (a folder
     named by the protocol). Development takes are named by their settings, so a cache
@@ -109,6 +117,21 @@ def protocol_takes(p: Protocol, cache: str | Path, progress=None, roles=tuple(RO
         if not path.exists():
             write_recording(path, prior_take(p, k))
         out[(k, "prior")] = read_recording(path)
+        if p.prior_reps:
+            path = folder / f"prior{k}-cues{p.prior_reps}.take"
+            if not path.exists():
+                write_recording(path, prior_cue_take(p, k))
+            out[(k, "prior_cues")] = read_recording(path)
+    return out
+
+
+def prior_options(p: Protocol, takes: dict) -> dict:
+    """Fit options that add the prior people: their ordinary movement and their cues."""
+    if not p.prior_wearers:
+        return {}
+    out = {"ordinary": [takes[(k, "prior")] for k in range(p.prior_wearers)]}
+    if p.prior_reps:
+        out["others"] = [takes[(k, "prior_cues")] for k in range(p.prior_wearers)]
     return out
 
 
@@ -135,8 +158,8 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
     """Rows per wearer (known-wearer) and for the held-out wearer: untuned and tuned counts."""
     from .tuning import tune_model
     takes = protocol_takes(p, cache, progress)
-    if p.prior_wearers and use_prior:
-        options = {**options, "ordinary": [takes[(k, "prior")] for k in range(p.prior_wearers)]}
+    if use_prior:
+        options = {**options, **prior_options(p, takes)}
     rows = {"default": [], "tuned": [], "wearers": []}
     for w in range(p.wearers):
         model = fit_model(classifier, [takes[(w, "fit0")], takes[(w, "fit1")]], **options)
@@ -150,7 +173,7 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
                      f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false "
                      f"({tt['double']} double, {tt['wrong_name']} wrong name, {tt['ordinary']} ordinary)")
     out = {"protocol": asdict(p), "classifier": classifier,
-           "options": {k: (f"{len(v)} takes" if k == "ordinary" else str(v)) for k, v in options.items()},
+           "options": {k: (f"{len(v)} takes" if k in ("ordinary", "others") else str(v)) for k, v in options.items()},
            "per_wearer": rows, "known_default": pool(rows["default"]), "known_tuned": pool(rows["tuned"])}
     if leave_wearer_out and p.wearers > 1:
         held = p.wearers - 1
@@ -172,8 +195,8 @@ def run_development(p: Protocol, classifier: str, cache: str | Path, progress=pr
     development session: {"per_wearer": [counts...], "pooled": ``pool``}. For choosing
     changes without looking at the protocol's tune and score sessions."""
     takes = protocol_takes(p, cache, progress, roles=("fit0", "fit1", "dev"))
-    if p.prior_wearers and use_prior:
-        options = {**options, "ordinary": [takes[(k, "prior")] for k in range(p.prior_wearers)]}
+    if use_prior:
+        options = {**options, **prior_options(p, takes)}
     rows = []
     for w in range(p.wearers):
         model = fit_model(classifier, [takes[(w, "fit0")], takes[(w, "fit1")]], **options)

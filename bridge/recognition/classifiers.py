@@ -470,7 +470,20 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     mine_folds = int(opts.pop("mine_folds", 3))
     ordinary = list(opts.pop("ordinary", None) or ())
     ordinary_cases = int(opts.pop("ordinary_cases", per_null or 1500))
+    cue_takes = list(opts.pop("others", None) or ())   # other people's cues
     recordings = list(recordings)
+    if cue_takes:
+        # Other people's cues: the same gestures as others perform them, so the model is
+        # not the wearer's two sessions alone. The window stays the one the wearer's own
+        # gestures call for; others' cases join theirs (quota, folds and mining alike).
+        from dataclasses import replace as _replace
+        from .training import window_length_s
+        own = {iv.label for r in recordings for iv in r.intervals}
+        extra = sorted({iv.label for r in cue_takes for iv in r.intervals} - own)
+        if extra:
+            raise ValueError(f"other people's takes hold labels the wearer's do not: {', '.join(extra)}")
+        settings = _replace(settings, window_s=window_length_s(recordings, kinds, settings))
+        recordings = recordings + cue_takes
     for r in ordinary:
         if r.intervals:
             raise ValueError("ordinary-movement takes must hold no labelled gestures; "
@@ -524,7 +537,9 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
             e = np.concatenate([e, *(x[2] for x in found)])
             model = fit(np.ones(len(y), bool))
         model.summary["hard_negatives"] = int(n_found)
-    model.summary["recordings"] = len(set(g[g < len(recordings)].tolist()))
+    model.summary["recordings"] = len(set(g[g < len(recordings) - len(cue_takes)].tolist()))
+    if cue_takes:
+        model.summary["others_takes"] = len(cue_takes)
     if ordinary:
         model.summary["ordinary_takes"] = len(ordinary)
     if name == "minirocket":
