@@ -149,7 +149,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="--spotting: add ordinary movement of N other simulated people to every minirocket fit "
                         "(default 6: at the default seed, the very people drape fit adds to the built-in "
                         "jacket's takes; 0 for none)")
-    b.add_argument("--spotting-prior-reps", type=int, default=2, metavar="R",
+    b.add_argument("--spotting-prior-reps", type=int, default=1, metavar="R",
                    help="--spotting: those people also perform every gesture R times, added to every fit as "
                         "drape fit adds them (default 1; 0 for ordinary movement only)")
     b.add_argument("--spotting-development", action="store_true",

@@ -50,7 +50,7 @@ def _bench_spotting(a) -> int:
           f"({p.tune_reps} + {p.tune_null_s / 60:g} min), score a fourth ({p.score_reps} + {p.score_null_s / 60:g} min); "
           f"takes cached in {cache}"
           + (f"; every fit adds 10 min of ordinary movement of each of {p.prior_wearers} other simulated people"
-             + (f", and {p.prior_reps} performance(s) of each gesture by each" if p.prior_reps else "")
+             + (f", and {p.prior_reps} performance(s) of each gesture by each of them" if p.prior_reps else "")
              if p.prior_wearers else ""), flush=True)
     run, table = (run_development, format_development) if a.spotting_development else (run_protocol, format_table)
     if a.spotting_development:
