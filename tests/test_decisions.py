@@ -191,3 +191,15 @@ def test_another_posture_is_not_entered_while_one_is_held():
     for i, v in enumerate(seq):
         ev += g.step(round(i * 0.1, 6), v)
     assert [(e.gesture, e.kind) for e in ev] == [("cross", "entered"), ("cross", "left")]
+
+
+def test_a_posture_left_for_a_moment_is_not_entered_again_until_two_seconds_out():
+    from bridge.decisions.gate import posture_default
+    assert posture_default(0.1).rearm_hops == 20 and posture_default(0.5).rearm_hops == 4
+    # "left" takes 8 low hops, then the re-arm counts 20 (at 0.1 s) or 4 (at 0.5 s) from there
+    for hop_s, gap_hops, again in ((0.1, 25, False), (0.1, 30, True), (0.5, 9, False), (0.5, 12, True)):
+        g = Gate(CLASSES, KINDS, hop_s=hop_s)
+        n = g.settings["hold"].agree_n
+        seq = ["hold"] * n + ["null"] * gap_hops + ["hold"] * n
+        ev = [e.kind for e in run(g, seq, hop_s) if e.gesture == "hold"]
+        assert ev == (["entered", "left", "entered"] if again else ["entered", "left"]), (hop_s, gap_hops)

@@ -83,19 +83,27 @@ class GateSettings:
 
 # A held posture must agree longer before it counts: brief passes through a posture-like
 # shape at the edges of other movements are common and must not fire "entered". A posture
-# left for a moment mid-hold must not be entered again: it re-arms after 20 low hops.
-POSTURE_DEFAULT = GateSettings(threshold=0.5, agree_k=8, agree_n=10, rearm_hops=20)
+# left for a moment mid-hold must not be entered again: it re-arms only after
+# POSTURE_REARM_S of low hops (20 at the usual 0.1 s hop).
+POSTURE_DEFAULT = GateSettings(threshold=0.5, agree_k=8, agree_n=10)
+POSTURE_REARM_S = 2.0
+
+
+def posture_default(hop_s: float = 0.1) -> GateSettings:
+    """POSTURE_DEFAULT for a model whose hops are ``hop_s`` seconds apart."""
+    return replace(POSTURE_DEFAULT, rearm_hops=max(POSTURE_DEFAULT.rearm_hops, int(round(POSTURE_REARM_S / hop_s))))
 
 
 def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None = None,
-                      default: GateSettings = GateSettings()) -> dict[str, GateSettings]:
+                      default: GateSettings = GateSettings(), hop_s: float = 0.1) -> dict[str, GateSettings]:
     """Per-class settings from a model's stored decision table; missing entries take the
-    default for the class's kind (POSTURE_DEFAULT for postures)."""
+    default for the class's kind (``posture_default(hop_s)`` for postures; hop_s in s)."""
     stored = stored or {}
     kinds = kinds or {}
     out = {}
+    posture = posture_default(hop_s)
     for c in classes:
-        base = POSTURE_DEFAULT if kinds.get(c) == "posture" else default
+        base = posture if kinds.get(c) == "posture" else default
         d = stored.get(c, {})
         out[c] = replace(base, **{k: type(getattr(base, k))(v) for k, v in d.items() if hasattr(base, k)})
     return out
@@ -106,10 +114,11 @@ class Gate:
     re-arm, postures held."""
 
     def __init__(self, classes, kinds: dict[str, str], settings: dict[str, GateSettings] | None = None,
-                 garment: str = ""):
+                 garment: str = "", hop_s: float = 0.1):
         self.classes = tuple(classes)
         self.kinds = dict(kinds)
-        self.settings = gate_settings_for(self.classes[1:], None, self.kinds) if settings is None else dict(settings)
+        self.settings = (gate_settings_for(self.classes[1:], None, self.kinds, hop_s=hop_s) if settings is None
+                         else dict(settings))
         self.garment = garment
         n_max = max(s.agree_n for s in self.settings.values())
         self.recent: deque[np.ndarray] = deque(maxlen=n_max)

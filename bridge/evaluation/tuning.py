@@ -70,9 +70,14 @@ def hop_probabilities(model, recording, block_s: float = 0.1) -> tuple[np.ndarra
     return np.array([t for t, _ in pipe.hops]), np.array([p for _, p in pipe.hops])
 
 
+def _hop_s(model) -> float:
+    windows = getattr(model, "windows", None)
+    return windows.hop_s if windows is not None else 0.1
+
+
 def gate_events(model, times_s, probs, settings: dict):
     """The real decision layer's events over stored hops (``Gate.step`` hop by hop)."""
-    g = Gate(model.classes, model.kinds, settings)
+    g = Gate(model.classes, model.kinds, settings, hop_s=_hop_s(model))
     out = []
     for t, p in zip(times_s, probs):
         out += g.step(float(t), p)
@@ -284,7 +289,7 @@ def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None
         takes.append(Piece(t, p, tuple(sorted(r.intervals, key=lambda iv: iv.start_s)), r.freq_hz.shape[0] / r.rate_hz))
         if progress:
             progress(i + 1, len(recordings))
-    current = gate_settings_for(model.classes[1:], model.decision, model.kinds)
+    current = gate_settings_for(model.classes[1:], model.decision, model.kinds, hop_s=_hop_s(model))
     pieces = split_pieces(takes)
     table = search_table(model, pieces, current, **grid)
     everyone = np.ones(len(pieces), dtype=bool)

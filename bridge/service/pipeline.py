@@ -75,7 +75,8 @@ class Pipeline:
         self.garment = garment
         self.conditioner = Conditioner(model.conditioning)
         self.recogniser = make_recogniser(model)
-        self.base_settings = gate_settings_for(model.classes[1:], model.decision, model.kinds)
+        self.base_settings = gate_settings_for(model.classes[1:], model.decision, model.kinds,
+                                               hop_s=model.windows.hop_s)
         self.gate = Gate(model.classes, model.kinds, dict(self.base_settings), garment)
         self.controls = Controls((), garment)
         self.safety = Safety(SafetySettings(), garment)
