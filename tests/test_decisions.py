@@ -1,8 +1,9 @@
 """Decision semantics on scripted probability sequences."""
 
+from dataclasses import replace
+
 import numpy as np
 import pytest
-from dataclasses import replace
 
 from bridge.decisions import Gate, GateSettings
 

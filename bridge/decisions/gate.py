@@ -91,7 +91,7 @@ POSTURE_REARM_S = 2.0
 
 def posture_default(hop_s: float = 0.1) -> GateSettings:
     """POSTURE_DEFAULT for a model whose hops are ``hop_s`` seconds apart."""
-    return replace(POSTURE_DEFAULT, rearm_hops=max(POSTURE_DEFAULT.rearm_hops, int(round(POSTURE_REARM_S / hop_s))))
+    return replace(POSTURE_DEFAULT, rearm_hops=max(POSTURE_DEFAULT.rearm_hops, round(POSTURE_REARM_S / hop_s)))
 
 
 def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None = None,

@@ -18,19 +18,28 @@ by ``linear`` and ``minirocket``, and by ``dtw`` only through its rejection thre
 
 from __future__ import annotations
 
+from dataclasses import replace
+
 import numpy as np
 
 from ..signal import BandPass
-from .dtw import (StreamCosts, class_distances_pruned, distance_matrix, envelope, fit_templates, per_class_min,
-                  scores_from_distances, spread)
+from .dtw import (
+    StreamCosts,
+    class_distances_pruned,
+    distance_matrix,
+    envelope,
+    fit_templates,
+    per_class_min,
+    scores_from_distances,
+    spread,
+)
 from .features import window_features
 from .linear import expected_calibration_error, fit_temperature, probabilities
 from .minirocket import fit_minirocket, minirocket_transform, rolling_transform
 from .model import NULL, STREAMS, DtwModel, MiniRocketModel, Model
 from .recogniser import Recogniser
 from .ridge import fit_ridge_heldout
-from .windows import WindowSpec, Windower
-
+from .windows import Windower, WindowSpec
 
 # --- shared helpers -----------------------------------------------------------------------
 
@@ -357,7 +366,12 @@ def recording_windows(recordings, kinds: dict[str, str], settings=None, progress
     the indices of the windows to keep; only those are cut out (an hour of takes holds
     36,000 windows: about 1 GB at 4 channels and 2.5 s, where a fit keeps a few thousand).
     """
-    from .training import TrainingSettings, condition_recording, label_windows, window_length_s
+    from .training import (
+        TrainingSettings,
+        condition_recording,
+        label_windows,
+        window_length_s,
+    )
     from .windows import window_ends
     settings = settings or TrainingSettings()
     recordings = list(recordings)
@@ -452,9 +466,11 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     held-out window accuracy estimated by recording (2 to 5 folds) when there are several.
     ``minirocket`` estimates it without refitting, from folds of ``window_splits`` (by
     recording, or by stretches of a single one), and fits its temperature on those
-    held-out scores.
+    held-out scores. Options ``ordinary`` (unlabelled takes of ordinary movement, null
+    windows of their own quota) and ``others`` (other people's labelled takes of the same
+    gestures, joined to the wearer's; the window stays the wearer's) add other people.
     """
-    from .training import TrainingSettings, fit_linear
+    from .training import TrainingSettings, fit_linear, window_length_s
     settings = settings or TrainingSettings()
     if name == "linear":
         return fit_linear(recordings, kinds, settings, progress=progress)
@@ -476,13 +492,11 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         # Other people's cues: the same gestures as others perform them, so the model is
         # not the wearer's two sessions alone. The window stays the one the wearer's own
         # gestures call for; others' cases join theirs (quota, folds and mining alike).
-        from dataclasses import replace as _replace
-        from .training import window_length_s
-        own = {iv.label for r in recordings for iv in r.intervals}
-        extra = sorted({iv.label for r in cue_takes for iv in r.intervals} - own)
+        own_labels = {iv.label for r in recordings for iv in r.intervals}
+        extra = sorted({iv.label for r in cue_takes for iv in r.intervals} - own_labels)
         if extra:
             raise ValueError(f"other people's takes hold labels the wearer's do not: {', '.join(extra)}")
-        settings = _replace(settings, window_s=window_length_s(recordings, kinds, settings))
+        settings = replace(settings, window_s=window_length_s(recordings, kinds, settings))
         recordings = recordings + cue_takes
     for r in ordinary:
         if r.intervals:
