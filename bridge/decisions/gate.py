@@ -44,12 +44,13 @@ class Event:
 class GateSettings:
     """Decision settings for one class."""
 
-    # 0.6 with 3 of 4 (postures: 0.5 with 8 of 10, re-entered only after 2 s out), and the
-    # quiet time around postures: chosen for fits with other people's cues, on the
-    # development and tune sessions the protocol never scores (docs/benchmarks.md, "Spotting").
-    threshold: float = 0.6       # probability needed for a hop to count, 0..1
-    agree_k: int = 3             # hops that must agree ...
-    agree_n: int = 4             # ... out of the last n
+    # 0.65 with 4 of 5 (re-armed after 0.6 s low; postures: 0.5 with 8 of 10, re-entered
+    # only after 2 s out), and the quiet time around postures: chosen for fits with other
+    # people's cues, on the development and tune sessions the protocol never scores
+    # (docs/benchmarks.md, "Spotting").
+    threshold: float = 0.65      # probability needed for a hop to count, 0..1
+    agree_k: int = 4             # hops that must agree ...
+    agree_n: int = 5             # ... out of the last n
     refractory_s: float = 1.5    # quiet time for every gesture after a gesture fires, s
     rearm_below: float = 0.3     # a fired gesture re-arms once its probability is below this ...
     rearm_hops: int = 3          # ... for this many hops in a row
@@ -89,19 +90,33 @@ POSTURE_DEFAULT = GateSettings(threshold=0.5, agree_k=8, agree_n=10)
 POSTURE_REARM_S = 2.0
 
 
+# The start of another movement can look like a gesture for a few hops, and a gesture's
+# evidence can dip for a hop or two before it is gone: a fired gesture re-arms only after
+# GESTURE_REARM_S of low hops (6 at the usual 0.1 s hop; never fewer than 3).
+GESTURE_REARM_S = 0.6
+
+
+def gesture_default(hop_s: float = 0.1) -> GateSettings:
+    """The gesture default for a model whose hops are ``hop_s`` seconds apart."""
+    base = GateSettings()
+    return replace(base, rearm_hops=max(base.rearm_hops, round(GESTURE_REARM_S / hop_s)))
+
+
 def posture_default(hop_s: float = 0.1) -> GateSettings:
     """POSTURE_DEFAULT for a model whose hops are ``hop_s`` seconds apart."""
     return replace(POSTURE_DEFAULT, rearm_hops=max(POSTURE_DEFAULT.rearm_hops, round(POSTURE_REARM_S / hop_s)))
 
 
 def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None = None,
-                      default: GateSettings = GateSettings(), hop_s: float = 0.1) -> dict[str, GateSettings]:
+                      default: GateSettings | None = None, hop_s: float = 0.1) -> dict[str, GateSettings]:
     """Per-class settings from a model's stored decision table; missing entries take the
-    default for the class's kind (``posture_default(hop_s)`` for postures; hop_s in s)."""
+    default for the class's kind (``posture_default(hop_s)`` for postures, ``default`` or
+    else ``gesture_default(hop_s)`` for gestures; hop_s in s)."""
     stored = stored or {}
     kinds = kinds or {}
     out = {}
     posture = posture_default(hop_s)
+    default = gesture_default(hop_s) if default is None else default
     for c in classes:
         base = posture if kinds.get(c) == "posture" else default
         d = stored.get(c, {})
