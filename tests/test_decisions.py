@@ -204,3 +204,23 @@ def test_a_posture_left_for_a_moment_is_not_entered_again_until_two_seconds_out(
         seq = ["hold"] * n + ["null"] * gap_hops + ["hold"] * n
         ev = [e.kind for e in run(g, seq, hop_s) if e.gesture == "hold"]
         assert ev == (["entered", "left", "entered"] if again else ["entered", "left"]), (hop_s, gap_hops)
+
+
+def test_default_gesture_needs_four_of_five_hops_above_065():
+    g = Gate(CLASSES, KINDS)
+    # the start of another movement that looks like the gesture for three hops: silent
+    assert run(g, ["null"] * 5 + ["wave"] * 3 + ["null"] * 10) == []
+    assert run(Gate(CLASSES, KINDS), ["null"] * 5 + [("wave", 0.62)] * 20) == []
+    ev = run(Gate(CLASSES, KINDS), ["null"] * 5 + ["wave"] * 4 + ["null"] * 10)
+    assert [(e.gesture, e.kind) for e in ev] == [("wave", "gesture")]
+
+
+def test_a_gesture_whose_evidence_dips_is_not_fired_again_until_it_has_been_low_for_0_6_s():
+    from bridge.decisions.gate import gesture_default
+    assert gesture_default(0.1).rearm_hops == 6 and gesture_default(0.5).rearm_hops == 3
+    # the evidence outlasts the refractory time (1.5 s), dips for gap hops and comes back
+    for hop_s, gap_hops, again in ((0.1, 5, False), (0.1, 6, True), (0.5, 2, False), (0.5, 3, True)):
+        g = Gate(CLASSES, KINDS, hop_s=hop_s)
+        seq = ["wave"] * round(2.0 / hop_s) + ["null"] * gap_hops + ["wave"] * 5 + ["null"] * 10
+        fired = [e for e in run(g, seq, hop_s) if e.gesture == "wave"]
+        assert len(fired) == (2 if again else 1), (hop_s, gap_hops)
