@@ -39,7 +39,11 @@ def test_event_recall_on_a_new_session(demo_model, test_take):
     recall = hits / len(test_take.intervals)
     print(f"recall {recall:.3f} ({hits}/{len(test_take.intervals)}), false triggers {len(false)}")
     assert len(test_take.intervals) >= 30
-    assert recall >= 0.9
+    # The demo model is linear; the default gate (0.65 on 4 of 5 hops) was chosen for
+    # minirocket and trades its recall for silence: 43/51 and no false trigger here, against
+    # 47/51 and 1 at the gate before (0.6 on 3 of 4). Measured when the gate changed.
+    assert recall >= 0.8
+    assert len(false) <= 2
 
 
 def test_false_triggers_in_ten_minutes_of_null_activity(demo_model):
