@@ -96,15 +96,19 @@ POSTURE_REARM_S = 2.0
 GESTURE_REARM_S = 0.6
 
 
+def _rearm_after(base: GateSettings, rearm_s: float, hop_s: float) -> GateSettings:
+    """``base`` re-armed after ``rearm_s`` of low hops ``hop_s`` apart (never fewer hops than base's)."""
+    return replace(base, rearm_hops=max(base.rearm_hops, round(rearm_s / hop_s)))
+
+
 def gesture_default(hop_s: float = 0.1) -> GateSettings:
     """The gesture default for a model whose hops are ``hop_s`` seconds apart."""
-    base = GateSettings()
-    return replace(base, rearm_hops=max(base.rearm_hops, round(GESTURE_REARM_S / hop_s)))
+    return _rearm_after(GateSettings(), GESTURE_REARM_S, hop_s)
 
 
 def posture_default(hop_s: float = 0.1) -> GateSettings:
     """POSTURE_DEFAULT for a model whose hops are ``hop_s`` seconds apart."""
-    return replace(POSTURE_DEFAULT, rearm_hops=max(POSTURE_DEFAULT.rearm_hops, round(POSTURE_REARM_S / hop_s)))
+    return _rearm_after(POSTURE_DEFAULT, POSTURE_REARM_S, hop_s)
 
 
 def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None = None,
