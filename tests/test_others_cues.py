@@ -57,13 +57,14 @@ def test_the_window_is_the_wearers_and_their_cases_stay_counted_apart():
 def test_drape_fit_adds_the_people_performing_the_wearers_gestures(tmp_path, capsys):
     from bridge.cli.models import _simulated_others
     from bridge.cli.parser import build_parser
+    from bridge.evaluation.simulated import OTHERS_CUE_PEOPLE
     assert main(["simulate", "--repetitions", "1", "--null-s", "5", "--rate-hz", "20",
                  "--out", str(tmp_path / "a.take")]) == 0
     recs = [read_recording(tmp_path / "a.take")]
     capsys.readouterr()
     got = _simulated_others(build_parser().parse_args(["fit", "a.take", "-o", "m.npz"]), recs)
-    assert len(got["others"]) == 6 and got["others"][0].rate_hz == 20.0
+    assert len(got["others"]) == OTHERS_CUE_PEOPLE == 60 and got["others"][0].rate_hz == 20.0
     assert {iv.label for r in got["others"] for iv in r.intervals} == set(GESTURES)
-    assert "performing every gesture once" in capsys.readouterr().out
+    assert "60 performing every gesture once" in capsys.readouterr().out
     assert _simulated_others(build_parser().parse_args(["fit", "a.take", "-o", "m.npz", "--no-simulated-others"]),
                              recs) == {}

@@ -44,3 +44,19 @@ def test_development_counts_every_cue_of_each_wearer(tmp_path):
     pooled = result["pooled"]
     assert pooled["performed"] == TINY.wearers * len(FULL_GESTURES)
     assert pooled["hit"] == sum(c["hit"] for c in result["per_wearer"])
+
+
+def test_the_prior_people_are_as_many_as_asked_and_named_by_their_length(tmp_path):
+    """Ordinary movement of some simulated people, cues of others (as many as asked); a
+    cached prior take is reused only at the same length."""
+    from bridge.evaluation.spotting import prior_options
+    p = Protocol(**{**asdict(TINY), "prior_wearers": 2, "prior_s": 12.0, "prior_cue_people": 3})
+    takes = protocol_takes(p, tmp_path, roles=())
+    opts = prior_options(p, takes)
+    assert len(opts["ordinary"]) == 2 and len(opts["others"]) == 3
+    assert all(r.freq_hz.shape[0] == round(12.0 * r.rate_hz) and not r.intervals for r in opts["ordinary"])
+    assert all(sorted(iv.label for iv in r.intervals) == sorted(FULL_GESTURES) for r in opts["others"])
+    longer = protocol_takes(Protocol(**{**asdict(p), "prior_s": 15.0}), tmp_path, roles=())
+    assert longer[(0, "prior")].freq_hz.shape[0] == round(15.0 * longer[(0, "prior")].rate_hz)
+    assert prior_options(Protocol(**{**asdict(p), "prior_cue_people": 0}), takes).keys() == {"ordinary"}
+    assert prior_options(Protocol(**{**asdict(p), "prior_reps": 0, "prior_wearers": 0}), takes) == {}

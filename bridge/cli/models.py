@@ -32,6 +32,7 @@ def _simulated_others(a, recs) -> dict:
     """{"ordinary": the built-in people, "others": their cue takes} for a minirocket fit on
     the built-in jacket's takes (saying so), unless --no-simulated-others; else {}."""
     from ..evaluation.simulated import (
+        OTHERS_CUE_PEOPLE,
         OTHERS_PEOPLE,
         OTHERS_REPS,
         OTHERS_S,
@@ -44,7 +45,7 @@ def _simulated_others(a, recs) -> dict:
     cues = built_in_others_cues(recs[0].rate_hz, {iv.label for r in recs for iv in r.intervals})
     print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of {OTHERS_PEOPLE} "
           f"simulated people ({OTHERS_S / 60:g} min each) to the null class"
-          + (f", and each of them performing every gesture {_times(OTHERS_REPS)}" if cues else "")
+          + (f", and {OTHERS_CUE_PEOPLE} performing every gesture {_times(OTHERS_REPS)}" if cues else "")
           + " (--no-simulated-others leaves them out)", flush=True)
     return {"ordinary": built_in_others(recs[0].rate_hz), **({"others": cues} if cues else {})}
 

@@ -43,8 +43,9 @@ class Protocol:
     score_null_s: float = 3600.0
     vocabulary: str = "full"
     prior_wearers: int = 0        # other simulated people whose ordinary movement is added to every fit
-    prior_s: float = 600.0        # ordinary movement of each, s
-    prior_reps: int = 1           # ... and their performances of each gesture, added as cases (0: none)
+    prior_s: float = 120.0        # ordinary movement of each, s
+    prior_cue_people: int = 0     # other simulated people whose performances of each gesture ...
+    prior_reps: int = 1           # ... ``prior_reps`` times each are added as cases (0: none)
     dev_reps: int = 3             # development session: repetitions ...
     dev_null_s: float = 1800.0    # ... and ordinary movement, s
 
@@ -113,25 +114,25 @@ def protocol_takes(p: Protocol, cache: str | Path, progress=None, roles=tuple(RO
             if progress:
                 progress(f"take {path.stem}: {out[(w, role)].freq_hz.shape[0] / out[(w, role)].rate_hz / 60:.1f} min")
     for k in range(p.prior_wearers):
-        path = folder / f"prior{k}.take"
+        path = folder / f"prior{k}-{p.prior_s:g}s.take"
         if not path.exists():
             write_recording(path, prior_take(p, k))
         out[(k, "prior")] = read_recording(path)
-        if p.prior_reps:
-            path = folder / f"prior{k}-cues{p.prior_reps}.take"
-            if not path.exists():
-                write_recording(path, prior_cue_take(p, k))
-            out[(k, "prior_cues")] = read_recording(path)
+    for k in range(p.prior_cue_people if p.prior_reps else 0):
+        path = folder / f"prior{k}-cues{p.prior_reps}.take"
+        if not path.exists():
+            write_recording(path, prior_cue_take(p, k))
+        out[(k, "prior_cues")] = read_recording(path)
     return out
 
 
 def prior_options(p: Protocol, takes: dict) -> dict:
     """Fit options that add the prior people: their ordinary movement and their cues."""
-    if not p.prior_wearers:
-        return {}
-    out = {"ordinary": [takes[(k, "prior")] for k in range(p.prior_wearers)]}
-    if p.prior_reps:
-        out["others"] = [takes[(k, "prior_cues")] for k in range(p.prior_wearers)]
+    out = {}
+    if p.prior_wearers:
+        out["ordinary"] = [takes[(k, "prior")] for k in range(p.prior_wearers)]
+    if p.prior_reps and p.prior_cue_people:
+        out["others"] = [takes[(k, "prior_cues")] for k in range(p.prior_cue_people)]
     return out
 
 
