@@ -63,8 +63,8 @@ def test_drape_fit_adds_the_people_performing_the_wearers_gestures(tmp_path, cap
     recs = [read_recording(tmp_path / "a.take")]
     capsys.readouterr()
     got = _simulated_others(build_parser().parse_args(["fit", "a.take", "-o", "m.npz"]), recs)
-    assert len(got["others"]) == OTHERS_CUE_PEOPLE == 60 and got["others"][0].rate_hz == 20.0
+    assert len(got["others"]) == OTHERS_CUE_PEOPLE == 6 and got["others"][0].rate_hz == 20.0
     assert {iv.label for r in got["others"] for iv in r.intervals} == set(GESTURES)
-    assert "60 performing every gesture once" in capsys.readouterr().out
+    assert "6 performing every gesture once" in capsys.readouterr().out
     assert _simulated_others(build_parser().parse_args(["fit", "a.take", "-o", "m.npz", "--no-simulated-others"]),
                              recs) == {}

@@ -145,13 +145,13 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--spotting-score-min", type=float, default=60.0,
                    help="--spotting: minutes of ordinary movement in each scored session (default 60)")
     b.add_argument("--spotting-seed", type=int, default=1)
-    b.add_argument("--spotting-prior", type=int, default=30, metavar="N",
-                   help="--spotting: add 2 minutes of ordinary movement of each of N other simulated people to "
-                        "every minirocket fit (default 30: at the default seed, the very people drape fit adds to "
+    b.add_argument("--spotting-prior", type=int, default=6, metavar="N",
+                   help="--spotting: add 10 minutes of ordinary movement of each of N other simulated people to "
+                        "every minirocket fit (default 6: at the default seed, the very people drape fit adds to "
                         "the built-in jacket's takes; 0 for none)")
-    b.add_argument("--spotting-prior-cues", type=int, default=60, metavar="N",
+    b.add_argument("--spotting-prior-cues", type=int, default=6, metavar="N",
                    help="--spotting: N other simulated people perform every gesture, added to every minirocket fit "
-                        "as drape fit adds them (default 60; 0 for none)")
+                        "as drape fit adds them (default 6, the same people; 0 for none)")
     b.add_argument("--spotting-prior-reps", type=int, default=1, metavar="R",
                    help="--spotting: how often each of those people performs every gesture (default 1; 0 for none)")
     b.add_argument("--spotting-development", action="store_true",

@@ -43,7 +43,7 @@ class Protocol:
     score_null_s: float = 3600.0
     vocabulary: str = "full"
     prior_wearers: int = 0        # other simulated people whose ordinary movement is added to every fit
-    prior_s: float = 120.0        # ordinary movement of each, s
+    prior_s: float = 600.0        # ordinary movement of each, s
     prior_cue_people: int = 0     # other simulated people whose performances of each gesture ...
     prior_reps: int = 1           # ... ``prior_reps`` times each are added as cases (0: none)
     dev_reps: int = 3             # development session: repetitions ...

@@ -328,14 +328,14 @@ def make_recogniser(model):
 # minirocket: fewer convolution features, convolutions without padding ("valid" edges: a
 # stream's window edges are arbitrary, and the live transform then costs only the hop's
 # new positions). At most ``cases_per_class`` windows per class, evenly spread, so fits
-# stay in minutes (600: room for the wearer's windows beside 60 simulated people's); more of null (``null_cases``, and as many of other people's ordinary
+# stay in seconds; more of null (``null_cases``, and as many of other people's ordinary
 # movement), the class live use sees most (4000 rather than 1500 halved the false firings
 # on development sessions at the same recall), and one
 # round of out-of-fold hard-negative mining (``mine_rounds``: the ordinary movement a
 # model fitted without a take mistakes for a gesture joins the null class). For dtw the
 # null windows give the null templates and thresholds. Figures: docs/benchmarks.md.
 RECORDING_DEFAULTS = {
-    "minirocket": {"stream": "level", "n_features": 2_000, "cases_per_class": 600, "null_cases": 4000,
+    "minirocket": {"stream": "level", "n_features": 2_000, "cases_per_class": 300, "null_cases": 4000,
                    "edges": "valid", "mine_rounds": 1},
     "dtw": {"stream": "level", "cases_per_class": 60, "null_cases": 300, "templates_per_class": 5, "band": 0.1},
 }
