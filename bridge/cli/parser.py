@@ -154,6 +154,12 @@ def build_parser() -> argparse.ArgumentParser:
                         "as drape fit adds them (default 6, the same people; 0 for none)")
     b.add_argument("--spotting-prior-reps", type=int, default=1, metavar="R",
                    help="--spotting: how often each of those people performs every gesture (default 1; 0 for none)")
+    b.add_argument("--spotting-checkin", type=int, default=0, metavar="R",
+                   help="--spotting: each wearer, dressed for the scored session, first records a check-in take "
+                        "(every gesture R times + --spotting-checkin-s of ordinary movement) that every fit of "
+                        "that wearer adds; the leave-wearer-out model adds the new wearer's (default 0: none)")
+    b.add_argument("--spotting-checkin-s", type=float, default=60.0, metavar="S",
+                   help="--spotting-checkin: seconds of ordinary movement in the check-in take (default 60)")
     b.add_argument("--spotting-development", action="store_true",
                    help="--spotting: instead of tune and score, count each wearer's default fit on a development "
                         "session (3 repetitions + 30 min) that the protocol never scores: where changes are chosen")

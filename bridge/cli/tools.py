@@ -37,15 +37,20 @@ def _bench_spotting(a) -> int:
 
     from ..evaluation.spotting import Protocol, format_development, format_table, run_development, run_protocol
     if (a.spotting_wearers < 2 or a.spotting_score_min <= 0 or a.spotting_prior_reps < 0
-            or a.spotting_prior < 0 or a.spotting_prior_cues < 0):
+            or a.spotting_prior < 0 or a.spotting_prior_cues < 0 or a.spotting_checkin < 0
+            or not a.spotting_checkin_s >= 0):
         return _err("--spotting-wearers must be at least 2, --spotting-score-min positive, and "
-                    "--spotting-prior, --spotting-prior-cues and --spotting-prior-reps 0 or more")
+                    "--spotting-prior, --spotting-prior-cues, --spotting-prior-reps, --spotting-checkin and "
+                    "--spotting-checkin-s 0 or more")
+    if a.spotting_checkin and a.spotting_development:
+        return _err("--spotting-checkin is for the protocol's scored sessions; the development sessions have none")
     from ..recognition.classifiers import DEFAULT_CLASSIFIER
     classifier = (a.classifier or [DEFAULT_CLASSIFIER])[0]
     # linear takes no ordinary-movement takes (drape fit refuses --ordinary for it)
     p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min,
                  prior_wearers=0 if classifier == "linear" else a.spotting_prior,
-                 prior_cue_people=0 if classifier == "linear" else a.spotting_prior_cues, prior_reps=a.spotting_prior_reps)
+                 prior_cue_people=0 if classifier == "linear" else a.spotting_prior_cues, prior_reps=a.spotting_prior_reps,
+                 checkin_reps=a.spotting_checkin, checkin_null_s=a.spotting_checkin_s)
     cache = Path(a.spotting_cache or f"drape-spotting-{a.spotting_seed}-{a.spotting_wearers}-{a.spotting_score_min:g}")
     print(f"spotting protocol, {classifier}: {p.wearers} simulated wearers, full vocabulary; fit on 2 sessions "
           f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), tune on a third "
@@ -54,7 +59,9 @@ def _bench_spotting(a) -> int:
           + (f"; every fit adds {p.prior_s / 60:g} min of ordinary movement of each of {p.prior_wearers} other "
              "simulated people" if p.prior_wearers else "")
           + (f"; every fit adds {p.prior_reps} performance(s) of each gesture by each of {p.prior_cue_people} other "
-             "simulated people" if p.prior_reps and p.prior_cue_people else ""), flush=True)
+             "simulated people" if p.prior_reps and p.prior_cue_people else "")
+          + (f"; every fit of a wearer adds their check-in take, dressed for the scored session "
+             f"({p.checkin_reps} repetitions + {p.checkin_null_s / 60:g} min)" if p.checkin_reps else ""), flush=True)
     run, table = (run_development, format_development) if a.spotting_development else (run_protocol, format_table)
     if a.spotting_development:
         print(f"development sessions instead of tune and score: {p.dev_reps} repetitions + "

@@ -14,6 +14,13 @@ Leave-wearer-out: a model fitted on the other wearers' fit sessions and tuned on
 tune sessions, scored on the held-out wearer's fourth session. Takes are rendered once
 into a cache folder and read back on later runs.
 
+Check-in variant (``checkin_reps`` > 0): before the scored session's performance the wearer,
+dressed for it, records a short check-in take of its own (``checkin_reps`` repetitions and
+``checkin_null_s`` of ordinary movement; the cables sit as in the scored session, the motion
+and noise are drawn apart), and every fit of that wearer adds it. The leave-wearer-out
+model then adds the held-out wearer's check-in take too: a new wearer enrolled with a few
+minutes. The scored performance itself is never fitted on.
+
 Development sessions (``run_development``): session DEV_SESSION of each wearer (``dev_reps``
 repetitions and ``dev_null_s`` of ordinary movement), never scored by the protocol, on
 which the default fit is counted at its stored gate. Changes are chosen there, so that the
@@ -48,11 +55,14 @@ class Protocol:
     prior_reps: int = 1           # ... ``prior_reps`` times each are added as cases (0: none)
     dev_reps: int = 3             # development session: repetitions ...
     dev_null_s: float = 1800.0    # ... and ordinary movement, s
+    checkin_reps: int = 0         # check-in take in the scored session's dressing: repetitions (0: none) ...
+    checkin_null_s: float = 60.0  # ... and ordinary movement, s
 
 
 ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
 DEV_SESSION = 5                                         # the development session's number
-APART = ("prior_", "dev_")   # settings of takes that are named apart: a cache holds the others
+CHECKIN_TAKE = 1                                        # the check-in's performance key (Jacket ``take``)
+APART = ("prior_", "dev_", "checkin_")   # settings of takes that are named apart: a cache holds the others
 
 
 def session_take(p: Protocol, wearer: int, role: str):
@@ -65,12 +75,13 @@ def session_take(p: Protocol, wearer: int, role: str):
                        else (GESTURES, NULL_ACTIVITIES))
     reps, null_s = {"fit0": (p.fit_reps, p.fit_null_s), "fit1": (p.fit_reps, p.fit_null_s),
                     "tune": (p.tune_reps, p.tune_null_s), "score": (p.score_reps, p.score_null_s),
-                    "dev": (p.dev_reps, p.dev_null_s)}[role]
-    session = DEV_SESSION if role == "dev" else ROLES[role]
-    rng = np.random.default_rng([p.seed, wearer, session, 29])
+                    "dev": (p.dev_reps, p.dev_null_s), "checkin": (p.checkin_reps, p.checkin_null_s)}[role]
+    session = {**ROLES, "dev": DEV_SESSION, "checkin": ROLES["score"]}[role]
+    perf = CHECKIN_TAKE if role == "checkin" else None
+    rng = np.random.default_rng([p.seed, wearer, session, 29] + ([] if perf is None else [perf]))
     script = training_script(rng, reps, list(gestures), null_activities=tuple(nulls)) + \
         ordinary_script(rng, null_s, nulls)
-    take = Jacket(seed=p.seed, wearer=wearer, session=session).perform(script)
+    take = Jacket(seed=p.seed, wearer=wearer, session=session, take=perf).perform(script)
     return Recording.from_take(take, dict(gestures))
 
 
@@ -106,7 +117,8 @@ def protocol_takes(p: Protocol, cache: str | Path, progress=None, roles=tuple(RO
     out = {}
     for w in range(p.wearers):
         for role in roles:
-            name = f"dev{p.dev_reps}x{p.dev_null_s:g}s" if role == "dev" else role
+            name = {"dev": f"dev{p.dev_reps}x{p.dev_null_s:g}s",
+                    "checkin": f"checkin{p.checkin_reps}x{p.checkin_null_s:g}s"}.get(role, role)
             path = folder / f"wearer{w}-{name}.take"
             if not path.exists():
                 write_recording(path, session_take(p, w, role))
@@ -158,12 +170,16 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
                  progress=print, use_prior: bool = True, **options) -> dict:
     """Rows per wearer (known-wearer) and for the held-out wearer: untuned and tuned counts."""
     from .tuning import tune_model
-    takes = protocol_takes(p, cache, progress)
+    roles = tuple(ROLES) + (("checkin",) if p.checkin_reps else ())
+    takes = protocol_takes(p, cache, progress, roles=roles)
+
+    def own(w):  # a wearer's own takes in a fit: fit sessions, and the check-in take if any
+        return [takes[(w, "fit0")], takes[(w, "fit1")]] + ([takes[(w, "checkin")]] if p.checkin_reps else [])
     if use_prior:
         options = {**options, **prior_options(p, takes)}
     rows = {"default": [], "tuned": [], "wearers": []}
     for w in range(p.wearers):
-        model = fit_model(classifier, [takes[(w, "fit0")], takes[(w, "fit1")]], **options)
+        model = fit_model(classifier, own(w), **options)
         rows["default"].append(score(model, takes[(w, "score")]))
         t = tune_model(model, [takes[(w, "tune")]])
         rows["tuned"].append(score(model, takes[(w, "score")], t.settings))
@@ -179,13 +195,14 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
     if leave_wearer_out and p.wearers > 1:
         held = p.wearers - 1
         others = [w for w in range(p.wearers) if w != held]
-        model = fit_model(classifier, [takes[(w, r)] for w in others for r in ("fit0", "fit1")], **options)
+        enrol = [takes[(held, "checkin")]] if p.checkin_reps else []   # a new wearer's few minutes
+        model = fit_model(classifier, [takes[(w, r)] for w in others for r in ("fit0", "fit1")] + enrol, **options)
         d = score(model, takes[(held, "score")])
         t = tune_model(model, [takes[(w, "tune")] for w in others])
         tt = score(model, takes[(held, "score")], t.settings)
         out["unseen_default"], out["unseen_tuned"] = pool([d]), pool([tt])
         if progress:
-            progress(f"unseen wearer{held}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
+            progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
                      f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false")
     return out
 
@@ -239,6 +256,7 @@ def format_table(result: dict) -> list[str]:
     row("pooled, known wearers", "default gate", result["known_default"])
     row("pooled, known wearers", "tuned", result["known_tuned"])
     if "unseen_tuned" in result:
-        row("unseen wearer", "default gate", result["unseen_default"])
-        row("unseen wearer", "tuned", result["unseen_tuned"])
+        who = "new wearer, check-in take only" if result["protocol"].get("checkin_reps") else "unseen wearer"
+        row(who, "default gate", result["unseen_default"])
+        row(who, "tuned", result["unseen_tuned"])
     return lines

@@ -9,7 +9,8 @@ Randomness is split into independent streams drawn from the integers
   * ``seed`` picks the jacket's electronics and everything else;
   * ``wearer`` picks a person (body size, movement style) for that seed;
   * ``session`` picks how the jacket sits on that person this time, and the
-    particular performance (sway, timing, noise).
+    particular performance (sway, timing, noise);
+  * ``take`` (optional) picks a further performance in that same dressing.
 """
 
 from __future__ import annotations
@@ -133,9 +134,14 @@ class Jacket:
     """A simulated wearer in a simulated jacket with its counter; owns all its state."""
 
     def __init__(self, seed: int = 0, wearer: int = 0, session: int = 0, n_antennas: int = 4,
-                 rate_hz: float = DEFAULT_RATE_HZ, layout: GarmentLayout | None = None):
+                 rate_hz: float = DEFAULT_RATE_HZ, layout: GarmentLayout | None = None, take: int | None = None):
         """``layout`` (see ``layout.load_layout``) places the cables; without it, the
-        first ``n_antennas`` cables of the built-in jacket."""
+        first ``n_antennas`` cables of the built-in jacket.
+
+        ``session`` is one dressing: how each cable sits. ``take`` numbers further
+        performances in that same dressing (a check-in take before a show): the cables
+        sit as in ``take=None``, while the motion, room temperature and counter noise are
+        drawn apart. ``take=None`` is the session's own performance."""
         if layout is None:
             layout = default_layout(n_antennas)
         n_antennas = len(layout.cables)
@@ -154,9 +160,11 @@ class Jacket:
         self.repertoire = Repertoire(self.wearer, self.dims, self.fits, self.rate_hz, self.cables)
         # One generator per purpose, each drawn in stream order, so rendering a
         # script in pieces gives exactly the same stream as in one call.
-        self._rng = _rng(seed, _MOTION, wearer, session)
-        self._temperature_rng = _rng(seed, _TEMPERATURE, wearer, session)
-        self._jitter_rng = _rng(seed, _JITTER, wearer, session)
+        perf = (wearer, session) if take is None else (wearer, session, take)
+        self.take_id = None if take is None else int(take)
+        self._rng = _rng(seed, _MOTION, *perf)
+        self._temperature_rng = _rng(seed, _TEMPERATURE, *perf)
+        self._jitter_rng = _rng(seed, _JITTER, *perf)
         # Body motion is slow (< 10 Hz), so the geometry runs on every ``step``-th gate
         # and the coupling in between is interpolated (see _coupling_at).
         self.physics_step = max(1, int(round(self.rate_hz / PHYSICS_MAX_HZ)))
@@ -345,7 +353,9 @@ class Jacket:
         else:
             freq_all = np.empty((0, len(self.channel_names)))
         return Take(self.rate_hz, self.channel_names, t_all, freq_all, tuple(intervals),
-                    f"wearer{self.wearer_id}", f"session{self.session_id}", self.centre_hz)
+                    f"wearer{self.wearer_id}",
+                    f"session{self.session_id}" + ("" if self.take_id is None else f"-take{self.take_id}"),
+                    self.centre_hz)
 
 
 def _script_parts(gestures, null_activities) -> tuple[list[str], list[str]]:
