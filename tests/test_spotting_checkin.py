@@ -1,0 +1,93 @@
+"""The spotting protocol's check-in variant: a short take recorded in the scored session's
+dressing, before its performance, that every fit of that wearer adds. It must sit as the
+scored session sits, be a performance of its own, and never let the scored take into a fit."""
+
+from dataclasses import asdict
+
+import numpy as np
+import pytest
+
+from bridge.cli import main
+from bridge.evaluation import spotting
+from bridge.evaluation.spotting import ROLES, Protocol, protocol_takes
+from bridge.garment import FULL_GESTURES, Jacket
+
+TINY = Protocol(wearers=2, fit_reps=1, fit_null_s=10.0, tune_reps=1, tune_null_s=5.0, score_reps=1,
+                score_null_s=10.0, checkin_reps=1, checkin_null_s=8.0)
+
+
+def test_a_further_take_keeps_the_dressing_and_draws_its_own_performance():
+    scored, checkin, other_day = Jacket(4, 1, 3), Jacket(4, 1, 3, take=1), Jacket(4, 1, 2)
+    assert checkin.fits == scored.fits            # the cables sit as in the scored session
+    assert other_day.fits != scored.fits          # another dressing sits otherwise
+    script = [("raise_left", 2.0), ("standing", 3.0)]
+    a, b = scored.perform(script), checkin.perform(script)
+    assert a.freq_hz.shape == b.freq_hz.shape and not np.array_equal(a.freq_hz, b.freq_hz)
+    assert (a.session, b.session) == ("session3", "session3-take1")
+    # without a take key, the session's own performance is unchanged: the same as before the key existed
+    again = Jacket(4, 1, 3).perform(script)
+    assert np.array_equal(again.freq_hz, a.freq_hz)
+
+
+def test_checkin_takes_are_named_apart_and_hold_every_gesture(tmp_path):
+    takes = protocol_takes(TINY, tmp_path, roles=("score", "checkin"))
+    for w in range(TINY.wearers):
+        ci, sc = takes[(w, "checkin")], takes[(w, "score")]
+        assert ci.session == f"session{ROLES['score']}-take1" and sc.session == f"session{ROLES['score']}"
+        assert sorted(iv.label for iv in ci.intervals) == sorted(FULL_GESTURES)
+        after_s = ci.freq_hz.shape[0] / ci.rate_hz - ci.intervals[-1].end_s
+        assert 8.0 <= after_s < 16.0   # the last gesture's rest, then 8 s of ordinary movement
+    names = sorted(p.name for p in tmp_path.glob("*.take"))
+    assert names == sorted(f"wearer{w}-{r}.take" for w in range(2) for r in ("score", "checkin1x8s"))
+    # a cache of the protocol without a check-in serves the variant (the check-in is named by its settings)
+    plain = Protocol(**{**asdict(TINY), "checkin_reps": 0})
+    protocol_takes(plain, tmp_path, roles=("score",))
+
+
+def _recorded_fits(monkeypatch, p, tmp_path):
+    """run_protocol with the fit, score and tune replaced: the takes each fit was given."""
+    fits = []
+
+    def fit(classifier, recs, **options):
+        fits.append([(r.wearer, r.session) for r in recs])
+        return object()
+
+    counts = {"performed": 1, "hit": 1, "missed": 0, "double": 0, "wrong_name": 0, "ordinary": 0, "false": 0,
+              "latency_s": [0.1], "take_s": 60.0, "ordinary_s": 30.0}
+    monkeypatch.setattr(spotting, "fit_model", fit)
+    monkeypatch.setattr(spotting, "score", lambda model, rec, settings=None: dict(counts))
+
+    class Tuned:
+        settings = {}
+    monkeypatch.setattr("bridge.evaluation.tuning.tune_model", lambda model, recs: Tuned())
+    result = spotting.run_protocol(p, "minirocket", tmp_path, progress=None, use_prior=False)
+    return fits, result
+
+
+def test_every_fit_adds_the_wearers_own_checkin_and_never_the_scored_take(monkeypatch, tmp_path):
+    fits, result = _recorded_fits(monkeypatch, TINY, tmp_path)
+    scored = f"session{ROLES['score']}"
+    assert fits[0] == [("wearer0", "session0"), ("wearer0", "session1"), ("wearer0", scored + "-take1")]
+    assert fits[1] == [("wearer1", "session0"), ("wearer1", "session1"), ("wearer1", scored + "-take1")]
+    # leave-wearer-out: the others' fit sessions and the new wearer's check-in take only
+    assert fits[2] == [("wearer0", "session0"), ("wearer0", "session1"), ("wearer1", scored + "-take1")]
+    assert all((w, scored) not in f for f in fits for w in ("wearer0", "wearer1"))
+    assert spotting.format_table(result)[-1].startswith("| new wearer, check-in take only | tuned |")
+
+
+def test_without_a_checkin_the_fits_are_the_two_fit_sessions(monkeypatch, tmp_path):
+    fits, result = _recorded_fits(monkeypatch, Protocol(**{**asdict(TINY), "checkin_reps": 0}), tmp_path)
+    assert fits[0] == [("wearer0", "session0"), ("wearer0", "session1")]
+    assert fits[2] == [("wearer0", "session0"), ("wearer0", "session1")]
+    assert spotting.format_table(result)[-1].startswith("| unseen wearer | tuned |")
+
+
+@pytest.mark.parametrize("args, message", [
+    (["--spotting-checkin", "-1"], "0 or more"),
+    (["--spotting-checkin-s", "-5"], "0 or more"),
+    (["--spotting-checkin", "3", "--spotting-development"], "development sessions have none"),
+])
+def test_bad_checkin_options_are_refused_before_any_take_is_rendered(args, message, tmp_path, capsys):
+    rc = main(["bench", "--spotting", "--spotting-cache", str(tmp_path / "c"), *args])
+    assert rc != 0 and message in capsys.readouterr().err
+    assert not (tmp_path / "c").exists()
