@@ -211,3 +211,33 @@ def test_a_long_block_steps_through_every_prompt_and_keeps_one_time_grid(tmp_pat
     # The first block is the stream's start: one grid, no time written twice.
     assert n == len(take.t_s) == rec.freq_hz.shape[0]
     np.testing.assert_allclose(np.diff(rec.t_s), 1.0 / take.rate_hz, atol=1e-6)
+
+
+def test_a_check_in_take_is_short_named_apart_and_sits_as_the_dressing_does(tmp_path, capsys, monkeypatch):
+    """`drape capture --check-in`: each gesture 3 times and 60 s of ordinary movement unless told
+    otherwise, saved beside the training takes under its own name; simulated, the jacket sits as
+    in --sim-session (the same cable placement) while the performance is a new one."""
+    from bridge.sources.simulated import PromptedSimulatedSource
+    made = []
+    real = PromptedSimulatedSource.__init__
+
+    def spy(self, *args, **kw):
+        real(self, *args, **kw)
+        made.append(self.jacket)
+    monkeypatch.setattr(PromptedSimulatedSource, "__init__", spy)
+    monkeypatch.chdir(tmp_path)
+    code = main(["capture", "--simulated", "--yes", "--fast", "--no-keys", "--check-in", "--gestures",
+                 "raise_right,tap_left_sleeve", "--wearer", "dancer", "--session", "show", "--sim-session", "3",
+                 "--countdown-s", "1", "--rest-s", "1"])
+    printed = capsys.readouterr().out
+    assert code == 0 and "6 labelled" in printed and "drape fit" in printed
+    rec = read_recording(tmp_path / "dancer-show-checkin.take")
+    assert len(rec.intervals) == 6                                     # 2 gestures x 3
+    assert 60.0 <= rec.t_s[-1] - max(iv.end_s for iv in rec.intervals) < 66.0
+    from bridge.garment import Jacket
+    assert made[0].fits == Jacket(0, 0, 3).fits and made[0].take_id == 1
+    # a plain capture keeps its defaults and its name
+    code = main(["capture", "--simulated", "--yes", "--fast", "--no-keys", "--gestures", "raise_right",
+                 "--wearer", "dancer", "--session", "day1", "--countdown-s", "1", "--rest-s", "1", "--ordinary-s", "5"])
+    assert code == 0 and "5 labelled" in capsys.readouterr().out
+    assert made[1].take_id is None and (tmp_path / "dancer-day1.take").exists()

@@ -64,6 +64,10 @@ def cmd_capture(a) -> int:
         unknown = [g for g in gestures if g not in GESTURES]
         if unknown:
             return _err(f"the simulated wearer knows {', '.join(GESTURES)}; not {', '.join(unknown)}")
+    if a.reps is None:
+        a.reps = 3 if a.check_in else 5
+    if a.ordinary_s is None:
+        a.ordinary_s = 60.0 if a.check_in else 180.0
     if a.reps < 1 or not gestures:
         return _err("capture needs at least one gesture and --reps of 1 or more")
     interactive = sys.stdin is not None and sys.stdin.isatty() and not a.yes
@@ -71,14 +75,16 @@ def cmd_capture(a) -> int:
     if interactive:
         wearer = input(f"wearer [{wearer}]: ").strip() or wearer
         session = input(f"session [{session}]: ").strip() or session
-    out = Path(a.out or f"{wearer}-{session}.take")
+    out = Path(a.out or f"{wearer}-{session}{'-checkin' if a.check_in else ''}.take")
     if out.exists() and not a.overwrite:
         return _err(f"{out} exists; choose another --out or pass --overwrite")
 
     stop = StopFlag()
     if a.simulated:
         from ..sources.simulated import PromptedSimulatedSource
-        source = PromptedSimulatedSource(seed=a.seed, wearer=a.sim_wearer, session=a.sim_session, realtime=not a.fast)
+        # a check-in is a further performance in the --sim-session dressing: the cables sit as in it
+        source = PromptedSimulatedSource(seed=a.seed, wearer=a.sim_wearer, session=a.sim_session, realtime=not a.fast,
+                                         take=1 if a.check_in else None)
         layout = "simulated jacket"
     else:
         from ..sources.serialport import SerialSource
@@ -133,6 +139,9 @@ def cmd_capture(a) -> int:
         source.close()
     why = f" ({stop.reason})" if stop.reason else " (finished early)" if sess.finished_early else ""
     text(f"saved {out}{why}: {len(sess.done)} labelled, {len(sess.skipped)} skipped, {sess.redone} redone")
+    if a.check_in and sess.done:
+        text(f"fit it with your training takes, e.g. drape fit TRAINING.take ... {out} -o today.npz, "
+             "and run the show on today.npz")
     return code
 
 

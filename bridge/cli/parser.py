@@ -241,15 +241,19 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--yes", action="store_true", help="ask nothing: take wearer and session from the options")
     g.add_argument("--gestures", help="comma-separated names to prompt (default: the built-in vocabulary)")
     g.add_argument("--postures", help="which of the names are postures (held); built-in names know their kind")
-    g.add_argument("--reps", type=int, default=5, help="repetitions of each gesture")
+    g.add_argument("--check-in", action="store_true",
+                   help="a short take after dressing, before a show: each gesture 3 times and 60 s of ordinary "
+                        "movement (unless --reps or --ordinary-s say otherwise), saved as WEARER-SESSION-checkin.take; "
+                        "fit it together with your training takes, so the model knows how the garment sits today")
+    g.add_argument("--reps", type=int, help="repetitions of each gesture (default 5; 3 with --check-in)")
     g.add_argument("--countdown-s", type=float, default=3.0)
     g.add_argument("--window-s", type=float, default=3.0, help="time given to perform a gesture, s")
     g.add_argument("--hold-s", type=float, default=5.0, help="time a posture is held, s")
     g.add_argument("--rest-s", type=float, default=2.0, help="shortest rest between prompts, s (up to twice this)")
     g.add_argument("--lead-s", type=float, default=4.0, help="null activity recorded before the first prompt, s")
-    g.add_argument("--ordinary-s", type=float, default=180.0,
-                   help="ordinary movement recorded after the last prompt, s (default 180: the model learns "
-                        "from it to stay silent when no gesture is meant)")
+    g.add_argument("--ordinary-s", type=float,
+                   help="ordinary movement recorded after the last prompt, s (default 180, 60 with --check-in: the "
+                        "model learns from it to stay silent when no gesture is meant)")
     g.add_argument("--seed", type=int, default=0, help="seeds the prompt order (and the simulated jacket)")
     g.add_argument("--fast", action="store_true", help="simulated: run as fast as possible")
     g.add_argument("--sim-wearer", type=int, default=0)

@@ -76,17 +76,18 @@ class PromptedSimulatedSource(Source):
     delay (drawn from ``reaction_s``) the wearer performs it (a posture is held until shortly
     before ``within_s`` runs out); the rest of the time the wearer stands or fidgets (null
     activity). The stream is rendered in small pieces so a prompt takes effect at once.
-    ``truth`` collects the performed intervals (stream time, s).
+    ``truth`` collects the performed intervals (stream time, s). ``take`` (see ``Jacket``)
+    makes it a further performance in the ``session`` dressing, as a check-in take is.
     """
 
     def __init__(self, seed: int = 0, wearer: int = 0, session: int = 0, realtime: bool = True,
                  block_s: float = 0.1, reaction_s=(0.3, 0.8), null_chunk_s: float | None = None,
-                 clock=time.monotonic, sleep=time.sleep):
+                 clock=time.monotonic, sleep=time.sleep, take: int | None = None):
         from ..garment import GESTURES as kinds
 
-        self.jacket = Jacket(seed=seed, wearer=wearer, session=session)
+        self.jacket = Jacket(seed=seed, wearer=wearer, session=session, take=take)
         self.kinds = kinds
-        self.rng = np.random.default_rng([seed, wearer, session, 17])
+        self.rng = np.random.default_rng([seed, wearer, session, 17] + ([] if take is None else [int(take)]))
         self.rate_hz = self.jacket.rate_hz
         self.channel_names = tuple(self.jacket.channel_names)
         self.realtime = realtime
