@@ -11,7 +11,7 @@ import pytest
 
 from bridge.decisions import Event
 from bridge.evaluation.events import Span, score_take, summarise
-from bridge.evaluation.matching import count_take, match_events, ordinary_seconds, poisson_interval, pool, rate
+from bridge.evaluation.matching import by_name, count_take, match_events, ordinary_seconds, poisson_interval, pool, rate
 
 KINDS = {"bow": "gesture", "sweep": "gesture", "arms_crossed": "posture"}
 
@@ -43,6 +43,9 @@ def test_each_kind_of_firing_by_hand():
     assert [e.t_s for e in m.ordinary] == [12.0, 19.9]
     assert [e.t_s for e in m.false] == [4.45, 7.0, 12.0, 19.9]
     assert m.latencies_s == pytest.approx([2.4, 1.0])  # gesture: from its end; posture: from its start
+    # by name: misses go to the name performed, false firings to the name fired
+    assert by_name(m) == {"bow": {"performed": 2, "missed": 1, "double": 1, "wrong_name": 1, "ordinary": 1},
+                          "hold": {"performed": 1, "missed": 0, "double": 0, "wrong_name": 0, "ordinary": 1}}
 
 
 def test_every_firing_is_counted_exactly_once():
@@ -54,6 +57,11 @@ def test_every_firing_is_counted_exactly_once():
     c = count_take(evs, ivs, end)
     assert c["hit"] + c["double"] + c["wrong_name"] + c["ordinary"] == 300
     assert c["hit"] + c["missed"] == c["performed"] == 20
+    # the per-name counts add up to the totals, over one take and pooled over two
+    for p in (c, pool([c, c])):
+        for k in ("performed", "missed", "double", "wrong_name", "ordinary"):
+            assert sum(n[k] for n in p["by_name"].values()) == p[k]
+    assert pool([c, c])["by_name"]["arms_crossed"]["ordinary"] == 2 * c["by_name"]["arms_crossed"]["ordinary"] > 0
 
 
 def test_the_same_events_twice_score_the_same_in_evaluate_and_tune():

@@ -6,6 +6,7 @@ from dataclasses import asdict
 
 import pytest
 
+from bridge.evaluation.matching import format_by_name
 from bridge.evaluation.spotting import DEV_SESSION, ROLES, Protocol, protocol_takes, run_development
 from bridge.garment import FULL_GESTURES
 
@@ -44,6 +45,12 @@ def test_development_counts_every_cue_of_each_wearer(tmp_path):
     pooled = result["pooled"]
     assert pooled["performed"] == TINY.wearers * len(FULL_GESTURES)
     assert pooled["hit"] == sum(c["hit"] for c in result["per_wearer"])
+    # by name: every gesture performed once by each wearer; the table names each one
+    assert {n: c["performed"] for n, c in pooled["by_name"].items() if c["performed"]} == \
+        dict.fromkeys(FULL_GESTURES, TINY.wearers)
+    assert sum(c["missed"] for c in pooled["by_name"].values()) == pooled["missed"]
+    table = format_by_name(pooled)
+    assert len(table) == 2 + len(pooled["by_name"]) and all(f"| {n} |" in "\n".join(table) for n in FULL_GESTURES)
 
 
 def test_the_prior_people_are_as_many_as_asked_and_named_by_their_length(tmp_path):

@@ -35,6 +35,7 @@ def _bench_spotting(a) -> int:
     """`drape bench --spotting`: the spotting protocol on a simulated troupe; prints its table."""
     import json
 
+    from ..evaluation.matching import format_by_name
     from ..evaluation.spotting import Protocol, format_development, format_table, run_development, run_protocol
     if (a.spotting_wearers < 2 or a.spotting_score_min <= 0 or a.spotting_prior_reps < 0
             or a.spotting_prior < 0 or a.spotting_prior_cues < 0 or a.spotting_checkin < 0
@@ -71,6 +72,9 @@ def _bench_spotting(a) -> int:
     except ValueError as exc:
         return _err(str(exc))
     print("\n".join(table(result)))
+    named = result["pooled"] if a.spotting_development else result["known_default"]
+    print("\nby name, known wearers at the default gate (which cues to change):")
+    print("\n".join(format_by_name(named)))
     if a.spotting_json:
         Path(a.spotting_json).write_text(json.dumps(result, indent=1, default=str), encoding="utf-8")
         print(f"{a.spotting_json}: written")

@@ -138,10 +138,31 @@ def count_take(events, intervals, duration_s: float, slack_s: float = SLACK_S) -
     return {"performed": len(m.hits) + len(m.missed), "hit": len(m.hits), "missed": len(m.missed),
             "double": len(m.doubles), "wrong_name": len(m.wrong_name), "ordinary": len(m.ordinary),
             "false": len(m.doubles) + len(m.wrong_name) + len(m.ordinary), "latency_s": m.latencies_s,
-            "take_s": float(duration_s), "ordinary_s": ordinary_seconds(intervals, duration_s, slack_s)}
+            "take_s": float(duration_s), "ordinary_s": ordinary_seconds(intervals, duration_s, slack_s),
+            "by_name": by_name(m)}
+
+
+def by_name(m: Match) -> dict:
+    """{name: {performed, missed, double, wrong_name, ordinary}}: the misses of each name
+    performed and the false firings of each name fired, so a reader sees which cue to
+    change. Every firing and every interval is in exactly one entry's counts."""
+    out: dict[str, dict[str, int]] = {}
+
+    def add(name, key):
+        out.setdefault(name, dict.fromkeys(NAME_COUNTS, 0))[key] += 1
+    for iv, _ in m.hits:
+        add(iv.label, "performed")
+    for iv in m.missed:
+        add(iv.label, "performed")
+        add(iv.label, "missed")
+    for key, fired in (("double", m.doubles), ("wrong_name", m.wrong_name), ("ordinary", m.ordinary)):
+        for e in fired:
+            add(e.gesture, key)
+    return dict(sorted(out.items()))
 
 
 COUNTS = ("performed", "hit", "missed", "double", "wrong_name", "ordinary", "false")
+NAME_COUNTS = ("performed", "missed", "double", "wrong_name", "ordinary")
 
 
 def pool(takes: list[dict], target_per_hour: float = 1.0) -> dict:
@@ -149,6 +170,12 @@ def pool(takes: list[dict], target_per_hour: float = 1.0) -> dict:
     false firing its rate with interval: ``double``, ``wrong_name`` and ``false`` per hour
     of take, ``ordinary`` per hour of ordinary movement (each rate names its hours)."""
     out = {k: int(sum(t[k] for t in takes)) for k in COUNTS}
+    names: dict[str, dict[str, int]] = {}
+    for t in takes:
+        for name, c in t.get("by_name", {}).items():
+            acc = names.setdefault(name, dict.fromkeys(NAME_COUNTS, 0))
+            for k in NAME_COUNTS:
+                acc[k] += c[k]
     take_h = sum(t["take_s"] for t in takes) / 3600.0
     ordinary_h = sum(t["ordinary_s"] for t in takes) / 3600.0
     lat = np.array([x for t in takes for x in t["latency_s"]], dtype=float)
@@ -161,8 +188,19 @@ def pool(takes: list[dict], target_per_hour: float = 1.0) -> dict:
                "ordinary_per_ordinary_hour": rate(out["ordinary"], ordinary_h, target_per_hour)},
         latency_s={"median": round(float(np.median(lat)), 3) if lat.size else None,
                    "p95": round(float(np.percentile(lat, 95)), 3) if lat.size else None, "count": int(lat.size)},
+        by_name=dict(sorted(names.items())),
     )
     return out
+
+
+def format_by_name(p: dict) -> list[str]:
+    """A Markdown table of ``pool``'s ``by_name``: per name, misses of it and its false firings."""
+    lines = ["| name | performed | missed | fired twice | fired during another cue | fired in ordinary movement |",
+             "|---|---|---|---|---|---|"]
+    for name, c in p.get("by_name", {}).items():
+        lines.append(f"| {name} | {c['performed']} | {c['missed']} | {c['double']} | {c['wrong_name']} | "
+                     f"{c['ordinary']} |")
+    return lines
 
 
 def format_rate(r: dict) -> str:
