@@ -11,7 +11,7 @@ import pytest
 
 from bridge.decisions import Event
 from bridge.evaluation.events import Span, score_take, summarise
-from bridge.evaluation.matching import by_name, count_take, match_events, ordinary_seconds, poisson_interval, pool, rate
+from bridge.evaluation.matching import by_name, count_take, match_events, names_to_check, ordinary_seconds, poisson_interval, pool, rate
 
 KINDS = {"bow": "gesture", "sweep": "gesture", "arms_crossed": "posture"}
 
@@ -43,7 +43,8 @@ def test_each_kind_of_firing_by_hand():
     assert [e.t_s for e in m.ordinary] == [12.0, 19.9]
     assert [e.t_s for e in m.false] == [4.45, 7.0, 12.0, 19.9]
     assert m.latencies_s == pytest.approx([2.4, 1.0])  # gesture: from its end; posture: from its start
-    # by name: misses go to the name performed, false firings to the name fired
+    # by name: misses go to the name performed, false firings to the name fired; the most false first
+    assert names_to_check(pool([count_take(evs, ivs, 30.0)])) == ["bow 1 of 2 missed, 3 false", "hold 1 false"]
     assert by_name(m) == {"bow": {"performed": 2, "missed": 1, "double": 1, "wrong_name": 1, "ordinary": 1},
                           "hold": {"performed": 1, "missed": 0, "double": 0, "wrong_name": 0, "ordinary": 1}}
 

@@ -203,6 +203,19 @@ def format_by_name(p: dict) -> list[str]:
     return lines
 
 
+def names_to_check(p: dict) -> list[str]:
+    """'hands_on_hips 2 of 6 missed, 3 false' for each name with a miss or a false firing,
+    the most false first: the cues to rehearse, re-record or move to a harmless action."""
+    rows = []
+    for name, c in p.get("by_name", {}).items():
+        false = c["double"] + c["wrong_name"] + c["ordinary"]
+        if c["missed"] or false:
+            parts = ([f"{c['missed']} of {c['performed']} missed"] if c["missed"] else []) + \
+                ([f"{false} false"] if false else [])
+            rows.append((-false, -c["missed"], name, f"{name} {', '.join(parts)}"))
+    return [r[-1] for r in sorted(rows)]
+
+
 def format_rate(r: dict) -> str:
     """'2 = 0.50 per hour (0.06–1.81) over 4.00 h'."""
     if r["per_hour"] is None:
@@ -225,6 +238,9 @@ def format_counts(p: dict) -> list[str]:
     if lat["count"]:
         lines.append(f"  latency from gesture end (posture start) to its cue: median {lat['median']:+.2f} s, "
                      f"p95 {lat['p95']:+.2f} s")
+    worst = names_to_check(p)
+    if worst:
+        lines.append("  by name: " + "; ".join(worst))
     short = r["false_per_take_hour"].get("too_short")
     if short:
         lines.append(f"  note: {short}")

@@ -141,6 +141,21 @@ def _linear_scores(model: Model, X: np.ndarray) -> np.ndarray:
     return model.scores(window_features(case_windows(X)))
 
 
+def class_figures(prob: np.ndarray, y: np.ndarray, full: tuple[str, ...]) -> dict:
+    """Per class of held-out windows (prob (n, classes), labels y (n,) indexing ``full``, 0 the
+    null class): ``recall``, the share of its windows taken for it, and ``from_null``, the
+    share of null windows taken for it. A class the garment hardly sees has a low recall
+    or takes many null windows."""
+    guess = prob.argmax(axis=1)
+    null = y == 0
+    out = {}
+    for j, name in enumerate(full[1:], start=1):
+        own = y == j
+        out[name] = {"recall": round(float((guess[own] == j).mean()), 4) if own.any() else None,
+                     "from_null": round(float((guess[null] == j).mean()), 5) if null.any() else None}
+    return out
+
+
 # --- minirocket ---------------------------------------------------------------------------
 
 def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_features: int = 10_000,
@@ -171,7 +186,7 @@ def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_
         summary["leave_one_out_accuracy"] = accuracy
     else:
         summary.update(cross_validated_window_accuracy=accuracy, held_out_by=held_out_by or "groups",
-                       folds=len(splits))
+                       folds=len(splits), held_out_by_class=class_figures(prob, y, full))
     summary["calibration_error"] = round(expected_calibration_error(prob, y), 4)
     return MiniRocketModel(**_common(X, full, options), stream=options.get("stream", "level"), params=params,
                            feature_mean=mean, feature_scale=scale, weights=w, bias=b, temperature=temperature,
