@@ -32,6 +32,10 @@ def test_a_10_hz_source_trains_and_the_band_is_stored(tmp_path, capsys):
     # people (rendered at the take's 10 Hz) since no ordinary movement of others was given.
     assert f"window {m.windows.window_s:g} s (room for the labelled gestures)" in out
     assert "adding the ordinary movement of 6 simulated people" in out and m.summary["ordinary_takes"] == 6
+    # the three classes with the lowest held-out window recall, as stored in the model
+    figs = sorted((v["recall"], c) for c, v in m.summary["held_out_by_class"].items())
+    assert set(m.summary["held_out_by_class"]) == set(m.classes[1:])
+    assert "held-out window recall, lowest first: " + ", ".join(f"{c} {r:.2f}" for r, c in figs[:3]) in out
     assert main(["fit", str(take), "-o", str(model), "--band-hz", "0.5", "3", "--no-simulated-others"]) == 0
     m = load_model(model)
     assert (m.conditioning.low_hz, m.conditioning.high_hz) == (0.5, 3.0)

@@ -9,7 +9,7 @@ calibration temperature must come from the same grouped scores.
 import numpy as np
 import pytest
 
-from bridge.recognition.classifiers import fit_recordings, recording_windows, window_splits, windows_to_cases
+from bridge.recognition.classifiers import class_figures, fit_recordings, recording_windows, window_splits, windows_to_cases
 from bridge.recognition.linear import fit_temperature
 from bridge.recognition.minirocket import minirocket_transform
 from bridge.recognition.ridge import fit_ridge_heldout
@@ -81,6 +81,22 @@ def test_temperature_and_figures_come_from_refits_without_each_take():
     np.testing.assert_allclose(closed, held, atol=1e-8)
     assert model.temperature == pytest.approx(fit_temperature(held, y, bounds=(-9.0, 5.0)), rel=1e-6)
     assert model.summary["cross_validated_window_accuracy"] == pytest.approx((held.argmax(1) == y).mean(), abs=1e-4)
+    # per class, from the same held-out scores (argmax is unchanged by the temperature)
+    for j, name in ((1, "a"), (2, "b")):
+        c = model.summary["held_out_by_class"][name]
+        assert c["recall"] == pytest.approx((held[y == j].argmax(1) == j).mean(), abs=1e-4)
+        assert c["from_null"] == pytest.approx((held[y == 0].argmax(1) == j).mean(), abs=1e-5)
+
+
+def test_class_figures_by_hand():
+    prob = np.array([[0.9, 0.1, 0.0], [0.2, 0.7, 0.1], [0.1, 0.1, 0.8],   # null, null taken for a, a taken for b
+                     [0.1, 0.8, 0.1], [0.6, 0.2, 0.2],                    # a right, a missed (taken for null)
+                     [0.0, 0.1, 0.9]])                                    # b right
+    y = np.array([0, 0, 1, 1, 1, 2])
+    figs = class_figures(prob, y, ("null", "a", "b"))
+    assert figs == {"a": {"recall": pytest.approx(1 / 3, abs=1e-4), "from_null": 0.5},
+                    "b": {"recall": 1.0, "from_null": 0.0}}
+    assert class_figures(prob[:2], y[:2], ("null", "a", "b"))["b"]["recall"] is None   # no window of b
 
 
 def test_one_take_of_cues_beside_ordinary_takes_is_held_out_by_stretches():

@@ -117,6 +117,10 @@ def cmd_fit(a) -> int:
     estimate = f"{key.replace('_', ' ')} {s[key]:.3f}" if key else "no held-out estimate (one take)"
     cal = f", calibration error {s['calibration_error']:.3f}" if "calibration_error" in s else ""
     print(f"{a.output}: {a.classifier}, {len(model.classes) - 1} classes from {source}; {estimate}{cal}")
+    weakest = sorted((v["recall"], c) for c, v in s.get("held_out_by_class", {}).items() if v["recall"] is not None)[:3]
+    if weakest:
+        print("held-out window recall, lowest first: " + ", ".join(f"{c} {r:.2f}" for r, c in weakest)
+              + " (the garment sees these least: rehearse or record more of them, or give them harmless actions)")
     if not a.ts:
         how = "as given" if a.window_s is not None else "room for the labelled gestures"
         print(f"window {model.windows.window_s:g} s ({how}), hop {model.windows.hop_s:g} s")
