@@ -140,3 +140,43 @@ def test_windows_are_cut_only_where_selected_and_equal_the_full_cut():
                                                select=lambda y, g: np.flatnonzero(y == 1)[::3])
     pick = np.flatnonzero(y == 1)[::3]
     assert np.array_equal(ws, w[pick]) and np.array_equal(es, e[pick]) and set(ys) == {1}
+
+
+@pytest.mark.parametrize("d", [40, 300])   # features fewer than cases, and more
+def test_dropped_stretches_and_every_penalty_match_explicit_refits(d):
+    """Held-out scores of folds that drop more than they hold (a stretch and its
+    neighbours), for every penalty of the grid, from the closed form against explicit
+    ridge refits without each dropped set (Hoerl & Kennard, Technometrics 12(1), 1970:
+    w = (ZᵀZ + λI)⁻¹ Zᵀ(T − mean T) on centred features, the bias unpenalised). The
+    penalty chosen is the grid point of least held-out squared error."""
+    rng = np.random.default_rng(7)
+    m, k = 120, 3
+    z = rng.normal(size=(m, d))
+    y = rng.integers(0, k, size=m)
+    z[:, :3] += 1.5 * np.eye(k)[y]                       # some signal, so a penalty wins
+    target = -np.ones((m, k))
+    target[np.arange(m), y] = 1.0
+    splits = []
+    for f in range(4):                                    # four stretches; each drops 5 neighbours more
+        held = np.zeros(m, bool)
+        held[30 * f:30 * f + 30] = True
+        dropped = held.copy()
+        dropped[max(0, 30 * f - 5):30 * f + 35] = True
+        splits.append((held, dropped))
+    alphas = [1e-3, 0.1, 1.0, 30.0]
+    errs = []
+    for alpha in alphas:
+        lam = alpha * m
+        want = np.empty_like(target)
+        for held, dropped in splits:
+            fit = ~dropped
+            mu = z[fit].mean(axis=0)
+            zc = z[fit] - mu
+            t_mean = target[fit].mean(axis=0)
+            coef = np.linalg.solve(zc.T @ zc + lam * np.eye(d), zc.T @ (target[fit] - t_mean))
+            want[held] = (z[held] - mu) @ coef + t_mean
+        _, _, _, got = fit_ridge_heldout(z, y, k, splits, alphas=[alpha])
+        np.testing.assert_allclose(got, want, atol=1e-7)
+        errs.append(((target - want) ** 2).mean())
+    _, _, chosen, _ = fit_ridge_heldout(z, y, k, splits, alphas=alphas)
+    assert chosen == alphas[int(np.argmin(errs))]

@@ -542,8 +542,9 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
                          kinds={c: kinds[c] for c in labels}, channel_names=channels, conditioning=conditioning,
                          windows=spec, stream=stream, **opts, **extra)
 
-    model = fit(np.ones(len(y), bool))
-    if mine_rounds and len(recordings) > 1:
+    mining = bool(mine_rounds) and len(recordings) > 1
+    model = None if mining else fit(np.ones(len(y), bool))   # with mining, the one fit comes after it
+    if mining:
         # Out-of-fold mining: a model fitted without a recording finds the ordinary
         # movement in it that looks like a gesture (in-sample, the model knows its own
         # null windows' neighbours and finds almost none). At most ``mine_folds`` fits:
@@ -564,7 +565,7 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
             y = np.concatenate([y, np.zeros(n_found, dtype=y.dtype)])
             g = np.concatenate([g, *(x[1] for x in found)])
             e = np.concatenate([e, *(x[2] for x in found)])
-            model = fit(np.ones(len(y), bool))
+        model = fit(np.ones(len(y), bool))
         model.summary["hard_negatives"] = int(n_found)
     model.summary["recordings"] = len(set(g[g < len(recordings) - len(cue_takes)].tolist()))
     if cue_takes:
