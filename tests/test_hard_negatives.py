@@ -42,3 +42,19 @@ def test_a_fit_with_mining_reports_what_it_added(takes):
 def test_ordinary_takes_must_hold_no_labels(takes):
     with pytest.raises(ValueError, match="no labelled gestures"):
         fit_recordings("minirocket", takes[:1], dict(GESTURES), ordinary=takes[1:])
+
+
+def test_mining_fits_once_per_fold_and_once_after(takes, monkeypatch):
+    """With mining, the model is fitted once per mining fold and once on everything found:
+    no full fit is made first and thrown away (it cost a fifth of a check-in fit). The model
+    is the one a fit of the final windows gives."""
+    from bridge.recognition import classifiers
+    calls = []
+    real = classifiers.fit_cases
+    monkeypatch.setattr(classifiers, "fit_cases", lambda *a, **k: calls.append(len(a[1])) or real(*a, **k))
+    model = fit_recordings("minirocket", takes, dict(GESTURES), estimate=False, mine_rounds=1, mine_level=0.1)
+    assert len(calls) == 2 + 1                                   # two recordings: two folds, then the fit
+    assert calls[-1] == model.summary["cases"] == max(calls)     # the last fit holds every window and the mined ones
+    calls.clear()
+    fit_recordings("minirocket", takes, dict(GESTURES), estimate=False, mine_rounds=0)
+    assert len(calls) == 1
