@@ -142,7 +142,7 @@ def test_windows_are_cut_only_where_selected_and_equal_the_full_cut():
     assert np.array_equal(ws, w[pick]) and np.array_equal(es, e[pick]) and set(ys) == {1}
 
 
-@pytest.mark.parametrize("d", [40, 300])   # features fewer than cases, and more
+@pytest.mark.parametrize("d", [10, 40, 300])   # rank below a fold's dropped cases, near it, above it
 def test_dropped_stretches_and_every_penalty_match_explicit_refits(d):
     """Held-out scores of folds that drop more than they hold (a stretch and its
     neighbours), for every penalty of the grid, from the closed form against explicit

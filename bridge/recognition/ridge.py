@@ -85,20 +85,40 @@ def fit_ridge_heldout(z: np.ndarray, y: np.ndarray, n_classes: int, splits=None,
             h = 1.0 / m + (u * u) @ f
             helds.append(target - (target - fit) / np.maximum(1.0 - h, 1e-12)[:, None])
     else:
-        # Splits outside, penalties inside: the dropped rows are gathered once a split,
-        # and b·bᵀ (b = u_D·√shrink) is a symmetric rank-r update (BLAS syrk, half a
-        # general product); I − h_DD is symmetric positive definite for any penalty > 0.
+        # Splits outside, penalties inside: what a split needs is computed once for all
+        # penalties. I − h_DD = I − b·bᵀ with b = [u_D·√shrink, 1/√m] (n_D × (r+1)), which
+        # is symmetric positive definite for any penalty > 0. When r + 1 < n_D, Woodbury
+        # turns its n_D × n_D solve into one of size r + 1: (I − bbᵀ)⁻¹ = I + b(I − bᵀb)⁻¹bᵀ,
+        # with bᵀb built from u_Dᵀu_D (once a split). Otherwise b·bᵀ is a symmetric product
+        # (BLAS syrk) and the solve a Cholesky.
         helds = [np.empty_like(target) for _ in alphas]
+        root_m = np.sqrt(m)
         for hold, drop in splits:
             ud = u[drop]
             inside = hold[drop]
+            n_d = len(ud)
+            small = len(s2) + 1 < n_d
+            if small:
+                gram, colsum = ud.T @ ud, ud.sum(axis=0)
             for f, fit, held in zip(shrinks, fitted, helds):
-                b = ud * np.sqrt(f)
-                i_minus_h = b @ b.T
-                i_minus_h *= -1.0
-                i_minus_h -= 1.0 / m
-                i_minus_h[np.diag_indices_from(i_minus_h)] += 1.0
-                e = _solve_spd(i_minus_h, target[drop] - fit[drop])
+                rhs = target[drop] - fit[drop]
+                sf = np.sqrt(f)
+                if small:
+                    k = np.empty((len(sf) + 1, len(sf) + 1))
+                    k[:-1, :-1] = -(sf[:, None] * gram * sf[None, :])
+                    k[:-1, :-1][np.diag_indices(len(sf))] += 1.0
+                    k[:-1, -1] = k[-1, :-1] = -sf * colsum / root_m
+                    k[-1, -1] = 1.0 - n_d / m
+                    bt_rhs = np.vstack([sf[:, None] * (ud.T @ rhs), rhs.sum(axis=0, keepdims=True) / root_m])
+                    c = _solve_spd(k, bt_rhs)
+                    e = rhs + ud @ (sf[:, None] * c[:-1]) + c[-1:] / root_m
+                else:
+                    b = ud * sf
+                    i_minus_h = b @ b.T
+                    i_minus_h *= -1.0
+                    i_minus_h -= 1.0 / m
+                    i_minus_h[np.diag_indices_from(i_minus_h)] += 1.0
+                    e = _solve_spd(i_minus_h, rhs)
                 held[hold] = (target[drop] - e)[inside]
     best = None
     for alpha, held in zip(alphas, helds):
