@@ -55,12 +55,18 @@ def _recorded_fits(monkeypatch, p, tmp_path):
     counts = {"performed": 1, "hit": 1, "missed": 0, "double": 0, "wrong_name": 0, "ordinary": 0, "false": 0,
               "latency_s": [0.1], "take_s": 60.0, "ordinary_s": 30.0}
     monkeypatch.setattr(spotting, "fit_model", fit)
-    monkeypatch.setattr(spotting, "score", lambda model, rec, settings=None: dict(counts))
+    kept = []
+
+    def score(model, rec, settings=None, keep=None):
+        kept.append(keep and keep.name)
+        return dict(counts)
+    monkeypatch.setattr(spotting, "score", score)
 
     class Tuned:
         settings = {}
     monkeypatch.setattr("bridge.evaluation.tuning.tune_model", lambda model, recs: Tuned())
     result = spotting.run_protocol(p, "minirocket", tmp_path, progress=None, use_prior=False)
+    result["kept"] = kept
     return fits, result
 
 
@@ -73,6 +79,9 @@ def test_every_fit_adds_the_wearers_own_checkin_and_never_the_scored_take(monkey
     assert fits[2] == [("wearer0", "session0"), ("wearer0", "session1"), ("wearer1", scored + "-take1")]
     assert all((w, scored) not in f for f in fits for w in ("wearer0", "wearer1"))
     assert spotting.format_table(result)[-1].startswith("| new wearer, check-in take only | tuned |")
+    # each default-gate scoring keeps its hops in the cache; the tuned rescoring does not
+    assert result["kept"] == ["hops-checkin-wearer0.npz", None, "hops-checkin-wearer1.npz", None,
+                              "hops-checkin-unseen1.npz", None]
 
 
 def test_without_a_checkin_the_fits_are_the_two_fit_sessions(monkeypatch, tmp_path):
@@ -91,3 +100,23 @@ def test_bad_checkin_options_are_refused_before_any_take_is_rendered(args, messa
     rc = main(["bench", "--spotting", "--spotting-cache", str(tmp_path / "c"), *args])
     assert rc != 0 and message in capsys.readouterr().err
     assert not (tmp_path / "c").exists()
+
+
+def test_score_keeps_the_hops_it_counted(demo_model, tmp_path):
+    from bridge.decisions.gate import gate_settings_for
+    from bridge.evaluation.matching import count_take
+    from bridge.evaluation.tuning import _hop_s, gate_events
+    from bridge.garment.jacket import random_script
+    from bridge.sources import Recording
+    take = Jacket(seed=1, wearer=0, session=4).perform(random_script(np.random.default_rng(3), 60.0))
+    rec = Recording.from_take(take, dict(demo_model.kinds))
+    counts = spotting.score(demo_model, rec, keep=tmp_path / "hops.npz")
+    assert counts["performed"] > 3 and counts["hit"] > 0
+    with np.load(tmp_path / "hops.npz", allow_pickle=False) as z:
+        t, probs, classes = z["t_s"], z["probabilities"], tuple(z["classes"])
+    assert classes == demo_model.classes and probs.shape == (len(t), len(classes)) and len(t) > 500
+    # the stored hops, through the gate again, give the counts score returned
+    gate = gate_settings_for(classes[1:], demo_model.decision, demo_model.kinds, hop_s=_hop_s(demo_model))
+    again = count_take(gate_events(demo_model, t, probs, gate), rec.intervals, 60.0)
+    assert {k: again[k] for k in ("hit", "double", "wrong_name", "ordinary")} == \
+        {k: counts[k] for k in ("hit", "double", "wrong_name", "ordinary")}

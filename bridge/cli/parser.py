@@ -163,7 +163,7 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--spotting-development", action="store_true",
                    help="--spotting: instead of tune and score, count each wearer's default fit on a development "
                         "session (3 repetitions + 30 min) that the protocol never scores: where changes are chosen")
-    b.add_argument("--spotting-cache", metavar="DIR", help="--spotting: folder for the rendered takes (kept for reruns)")
+    b.add_argument("--spotting-cache", metavar="DIR", help="--spotting: folder for the rendered takes (kept for reruns) and each scored session's hop probabilities")
     b.add_argument("--spotting-json", metavar="FILE", help="--spotting: also write the full result as JSON")
     b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")
     b.add_argument("--fuzz-target", action="append", choices=("text", "frames", "osc", "control", "mapping", "model"),

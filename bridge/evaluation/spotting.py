@@ -12,7 +12,8 @@ Per simulated wearer of a troupe (full vocabulary):
 
 Leave-wearer-out: a model fitted on the other wearers' fit sessions and tuned on their
 tune sessions, scored on the held-out wearer's fourth session. Takes are rendered once
-into a cache folder and read back on later runs.
+into a cache folder and read back on later runs; each scored session's hop probabilities
+at the default gate are written there too (``hops-*.npz``).
 
 Check-in variant (``checkin_reps`` > 0): before the scored session's performance the wearer,
 dressed for it, records a short check-in take of its own (``checkin_reps`` repetitions and
@@ -148,13 +149,18 @@ def prior_options(p: Protocol, takes: dict) -> dict:
     return out
 
 
-def score(model, rec, settings=None) -> dict:
+def score(model, rec, settings=None, keep: str | Path | None = None) -> dict:
     """``matching.count_take`` of a model (with ``settings`` as its decision table, if given)
-    replayed over a take."""
-    from ..service import replay_events
+    replayed over a take. ``keep``: also write each hop's time (s) and class probabilities
+    there (.npz: ``t_s``, ``probabilities``, ``classes``), to count other gate settings later
+    without refitting."""
+    from ..service.replay import replay_take
     if settings is not None:
         model.decision = {**model.decision, **settings}
-    events = replay_events(rec, model, None, 5.0)
+    events, hops, _ = replay_take(rec, model, None, 5.0)
+    if keep is not None:
+        np.savez(keep, t_s=np.array([t for t, _ in hops]), probabilities=np.array([q for _, q in hops]),
+                 classes=np.array(model.classes))
     return count_take(events, rec.intervals, rec.freq_hz.shape[0] / rec.rate_hz)
 
 
@@ -178,9 +184,10 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
     if use_prior:
         options = {**options, **prior_options(p, takes)}
     rows = {"default": [], "tuned": [], "wearers": []}
+    workflow = "checkin" if p.checkin_reps else "two-sessions"
     for w in range(p.wearers):
         model = fit_model(classifier, own(w), **options)
-        rows["default"].append(score(model, takes[(w, "score")]))
+        rows["default"].append(score(model, takes[(w, "score")], keep=Path(cache) / f"hops-{workflow}-wearer{w}.npz"))
         t = tune_model(model, [takes[(w, "tune")]])
         rows["tuned"].append(score(model, takes[(w, "score")], t.settings))
         rows["wearers"].append(w)
@@ -197,7 +204,7 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
         others = [w for w in range(p.wearers) if w != held]
         enrol = [takes[(held, "checkin")]] if p.checkin_reps else []   # a new wearer's few minutes
         model = fit_model(classifier, [takes[(w, r)] for w in others for r in ("fit0", "fit1")] + enrol, **options)
-        d = score(model, takes[(held, "score")])
+        d = score(model, takes[(held, "score")], keep=Path(cache) / f"hops-{workflow}-unseen{held}.npz")
         t = tune_model(model, [takes[(w, "tune")] for w in others])
         tt = score(model, takes[(held, "score")], t.settings)
         out["unseen_default"], out["unseen_tuned"] = pool([d]), pool([tt])
