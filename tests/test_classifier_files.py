@@ -125,23 +125,6 @@ def test_edge_mode_travels_in_the_file(tmp_path):
             load_model(set_meta(path, tmp_path / "x.npz", edges=bad))
 
 
-def test_level_features_travel_in_the_file(tmp_path):
-    m = fit_cases("minirocket", X, Y, ["a", "b", "c"], rate_hz=20.0, n_features=840, edges="valid",
-                  level_features=True)
-    # 2 channels: 2 held levels, 2 steps, 3 products (a², ab, b²) after the 840 transform features
-    assert m.weights.shape == (840 + 7, 4) and m.feature_mean.shape == (847,)   # null, a, b, c
-    path = m.save(tmp_path / "m.npz")
-    loaded = load_model(path)
-    assert loaded.level_features is True
-    np.testing.assert_array_equal(predict_proba(loaded, X), predict_proba(m, X))
-    for bad in ("yes", 1, None):
-        with pytest.raises(ModelError, match="level_features must be true or false"):
-            load_model(set_meta(path, tmp_path / "x.npz", level_features=bad))
-    # Without the flag the weights' rows do not match the transform's features: refused.
-    with pytest.raises(ModelError):
-        load_model(set_meta(path, tmp_path / "y.npz", level_features=False))
-
-
 def test_object_arrays_refused(model, tmp_path):
     arrays = arrays_of(model.save(tmp_path / "m.npz"))
     name = next(k for k in arrays if k != "meta_json")

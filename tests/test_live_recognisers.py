@@ -26,8 +26,6 @@ def fitted(name, stream, **options):
     ("minirocket", "motion", {"n_features": 840}),
     ("minirocket", "motion", {"n_features": 840, "edges": "valid"}),
     ("minirocket", "both", {"n_features": 840, "edges": "valid"}),
-    ("minirocket", "level", {"n_features": 840, "edges": "valid", "level_features": True}),
-    ("minirocket", "both", {"n_features": 840, "level_features": True}),
     ("dtw", "both", {"band": 0.1}),
     ("dtw", "level", {"band": 0.2}),
 ])
