@@ -33,7 +33,7 @@ from .dtw import (
     scores_from_distances,
     spread,
 )
-from .features import level_summary, window_features
+from .features import window_features
 from .linear import expected_calibration_error, fit_temperature, probabilities
 from .minirocket import fit_minirocket, minirocket_transform, rolling_transform
 from .model import NULL, STREAMS, DtwModel, MiniRocketModel, Model
@@ -160,7 +160,7 @@ def class_figures(prob: np.ndarray, y: np.ndarray, full: tuple[str, ...]) -> dic
 
 def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_features: int = 10_000,
                          seed: int = 0, edges: str = "alternate", splits=None, held_out_by: str = "",
-                         level_features: bool = False, **options) -> MiniRocketModel:
+                         **options) -> MiniRocketModel:
     """Convolution features and ridge; temperature from the ridge's held-out scores.
 
     ``edges``: "alternate" (the paper's padding, for ready-cut cases) or "valid" (no
@@ -170,11 +170,10 @@ def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_
     overlapping windows of recordings; ``held_out_by`` names the grouping in the summary.
     Features are computed once: the held-out scores of every penalty come from the one
     ridge decomposition. The transform's biases and the feature scaling are taken from
-    all cases (they never see a label). ``level_features``: add ``features.level_summary``
-    (where the level stands at the window's end) to the transform's features.
+    all cases (they never see a label).
     """
     params = fit_minirocket(X, n_features, seed, edges)
-    f = _minirocket_features(params, X, level_features)
+    f = minirocket_transform(params, X)
     mean = f.mean(axis=0)
     scale = f.std(axis=0)
     scale[scale < 1e-12] = 1.0
@@ -191,16 +190,11 @@ def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_
     summary["calibration_error"] = round(expected_calibration_error(prob, y), 4)
     return MiniRocketModel(**_common(X, full, options), stream=options.get("stream", "level"), params=params,
                            feature_mean=mean, feature_scale=scale, weights=w, bias=b, temperature=temperature,
-                           summary=summary, level_features=bool(level_features))
-
-
-def _minirocket_features(params, X: np.ndarray, level_features: bool) -> np.ndarray:
-    f = minirocket_transform(params, X)
-    return np.hstack([f, level_summary(X)]) if level_features else f
+                           summary=summary)
 
 
 def _minirocket_scores(model: MiniRocketModel, X: np.ndarray) -> np.ndarray:
-    return model.scores(_minirocket_features(model.params, X, model.level_features))
+    return model.scores(minirocket_transform(model.params, X))
 
 
 # --- dtw ----------------------------------------------------------------------------------
@@ -246,23 +240,10 @@ class MiniRocketRecogniser:
     def __init__(self, model: MiniRocketModel):
         self.model = model
         self.rolling = rolling_transform(model.params, model.windows.hop)
-        # With level features: the last window's samples (zeros before any), and how many seen.
-        self.recent = np.zeros((model.params.length, model.params.n_channels))
-        self.seen = 0
 
     def push(self, level: np.ndarray, motion: np.ndarray) -> tuple[list[int], np.ndarray]:
         """Add a conditioned block; returns (end sample index per hop, probabilities (hops, classes))."""
-        x = select_stream(level, motion, self.model.stream)
-        feats, ends = self.rolling.push(x)
-        if self.model.level_features:
-            L = self.model.params.length
-            span = np.concatenate([self.recent, x])          # samples seen − L … seen + len(x)
-            if ends:
-                at = np.asarray(ends) - (self.seen - L)      # each window's end within span
-                cases = span[at[:, None] + np.arange(-L, 0)[None, :]].transpose(0, 2, 1)
-                feats = np.hstack([feats, level_summary(cases)])
-            self.recent = span[-L:]
-            self.seen += x.shape[0]
+        feats, ends = self.rolling.push(select_stream(level, motion, self.model.stream))
         if not ends:
             return [], np.empty((0, len(self.model.classes)))
         return ends, probabilities(self.model.scores(feats), self.model.temperature)
@@ -370,7 +351,7 @@ def make_recogniser(model):
 # null windows give the null templates and thresholds. Figures: docs/benchmarks.md.
 RECORDING_DEFAULTS = {
     "minirocket": {"stream": "level", "n_features": 2_000, "cases_per_class": 300, "null_cases": 4000,
-                   "edges": "valid", "mine_rounds": 1, "level_features": False},
+                   "edges": "valid", "mine_rounds": 1},
     "dtw": {"stream": "level", "cases_per_class": 60, "null_cases": 300, "templates_per_class": 5, "band": 0.1},
 }
 

@@ -87,27 +87,3 @@ def _stretches(L: int, n: int) -> np.ndarray:
     for i, part in enumerate(np.array_split(np.arange(L), n)):
         rows[i, part] = 1.0 / len(part)
     return rows
-
-
-def level_summary(cases: np.ndarray) -> np.ndarray:
-    """Where the level stands at a window's end, for cases (m, channels, length) of ΔC/C0.
-
-    Returns (m, level_summary_size(channels)): per channel the mean of the last tenth
-    (the level held now, above the tracked baseline), that minus the mean of the first
-    tenth (the step within the window), and the products of every pair of last-tenth
-    levels, squares included. Zero-sum convolution kernels cannot see a held level at all;
-    the products let a linear score prefer one region of levels (a posture's own pattern
-    across channels) over the others, which a step from something near a sleeve is not in.
-    """
-    cases = np.asarray(cases, dtype=float)
-    m, C, L = cases.shape
-    n = max(1, L // 10)
-    tail = cases[:, :, L - n:].mean(axis=2)
-    head = cases[:, :, :n].mean(axis=2)
-    i, j = np.triu_indices(C)
-    return np.hstack([tail, tail - head, tail[:, i] * tail[:, j]])
-
-
-def level_summary_size(channels: int) -> int:
-    """Columns of ``level_summary`` for ``channels`` input channels."""
-    return 2 * channels + channels * (channels + 1) // 2

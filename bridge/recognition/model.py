@@ -190,9 +190,7 @@ class MiniRocketModel(LiveModel):
 
     ``stream`` says which conditioned stream(s) the transform reads: "level", "motion" or
     "both" (level channels then motion channels). Scores are ``z @ weights + bias`` of the
-    standardised features z; probabilities are softmax(scores / temperature). With
-    ``level_features`` the transform's features are followed by ``features.level_summary``
-    of the window (where the level stands at its end), and the scaling and weights cover both.
+    standardised features z; probabilities are softmax(scores / temperature).
     """
 
     classes: tuple[str, ...]
@@ -210,10 +208,9 @@ class MiniRocketModel(LiveModel):
     classifier: str = "minirocket"
     decision: dict = field(default_factory=dict)
     summary: dict = field(default_factory=dict)
-    level_features: bool = False
 
     def scores(self, features: np.ndarray) -> np.ndarray:
-        """Ridge scores (m, classes) of features (m, n_features [+ level summary]); each row's the
+        """Ridge scores (m, classes) of transform features (m, n_features); each row's the
         same whatever m (``rows_matmul``), so live hops and replayed blocks agree to the bit."""
         return rows_matmul((features - self.feature_mean) / self.feature_scale, self.weights) + self.bias
 
@@ -221,7 +218,7 @@ class MiniRocketModel(LiveModel):
         meta = self.common_metadata()
         meta.update(stream=self.stream, length=self.params.length, input_channels=self.params.n_channels,
                     n_dilations=len(self.params.dilations), n_features=self.params.n_features,
-                    edges=self.params.edges, level_features=self.level_features)
+                    edges=self.params.edges)
         return meta
 
     def arrays(self) -> dict[str, np.ndarray]:

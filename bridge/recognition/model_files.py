@@ -14,7 +14,7 @@ import numpy as np
 from numpy.lib import format as npformat
 
 from ..signal import BandPass
-from .features import FEATURES_PER_CHANNEL, level_summary_size
+from .features import FEATURES_PER_CHANNEL
 from .minirocket import EDGE_MODES, KERNEL_LENGTH, MAX_DILATIONS, N_KERNELS, MiniRocketParams
 from .model import (FORMAT, FORMAT_VERSION, MAX_ARRAY_VALUES, MAX_CHANNELS, MAX_CLASSES, MAX_FEATURES, MAX_FOURIER,
                     MAX_MAGNITUDE, MAX_META_BYTES, MAX_TEMPLATES, MAX_WINDOW_SAMPLES, NULL, STREAMS, DtwModel,
@@ -200,17 +200,14 @@ def _load_minirocket(ar: _Archive, meta: dict, common: dict, path) -> MiniRocket
     mask = ar.read("channel_mask", (n_dil, N_KERNELS, n_in), "f")
     _require(bool(np.isin(mask, (0.0, 1.0)).all() and (mask.sum(axis=2) >= 1).all()), path,
              "channel_mask must be 0/1 with at least one channel per kernel")
-    levels = meta.get("level_features", False)  # files from before level features: none
-    _require(isinstance(levels, bool), path, "metadata level_features must be true or false")
-    n_all = n_feat + (level_summary_size(n_in) if levels else 0)
     k = len(common["classes"])
     arrays = {name: ar.read(name, shape, "f").astype(float) for name, shape in (
-        ("biases", (n_feat,)), ("feature_mean", (n_all,)), ("feature_scale", (n_all,)),
-        ("weights", (n_all, k)), ("bias", (k,)))}
+        ("biases", (n_feat,)), ("feature_mean", (n_feat,)), ("feature_scale", (n_feat,)),
+        ("weights", (n_feat, k)), ("bias", (k,)))}
     _require(bool((arrays["feature_scale"] > 0).all()), path, "feature_scale must be positive")
     params = MiniRocketParams(length, n_in, dil.astype(np.int64), fpk.astype(np.int64), mask.astype(float), arrays.pop("biases"),
                               edges)
-    return MiniRocketModel(**common, stream=stream, params=params, **arrays, level_features=levels)
+    return MiniRocketModel(**common, stream=stream, params=params, **arrays)
 
 
 def _load_dtw(ar: _Archive, meta: dict, common: dict, path) -> DtwModel:
