@@ -502,8 +502,6 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     ordinary = list(opts.pop("ordinary", None) or ())
     ordinary_cases = int(opts.pop("ordinary_cases", per_null or 1500))
     cue_takes = list(opts.pop("others", None) or ())   # other people's cues
-    gain_copies = int(opts.pop("gain_copies", 0))
-    gain_sd = float(opts.pop("gain_sd", 0.25))
     recordings = list(recordings)
     if cue_takes:
         # Other people's cues: the same gestures as others perform them, so the model is
@@ -533,8 +531,6 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     missing = [c for k, c in enumerate(classes) if not (y == k).any()]
     if missing:
         raise ValueError(f"no usable windows for: {', '.join(missing)} (recordings too short or gestures longer than the window)")
-    if gain_copies:
-        w, y, g, e = gain_copies_of(w, y, g, e, gain_copies, gain_sd)
     labels = list(classes[1:])
     channels = tuple(recordings[0].channel_names)
 
@@ -597,21 +593,6 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         if n:
             model.summary["cross_validated_window_accuracy"] = round(correct / n, 4)
     return model
-
-
-def gain_copies_of(w: np.ndarray, y: np.ndarray, g: np.ndarray, e: np.ndarray, copies: int, sd: float,
-                   seed: int = 0):
-    """The windows, followed by ``copies`` copies of each cue window (class > 0) with every
-    channel scaled by its own gain, log-normal with log-sd ``sd``: the same movement seen
-    through cables that sit closer or farther than in the fit sessions. Both streams scale
-    alike (the band-pass is linear); a copy keeps its window's recording and end, so
-    grouped folds keep it on its original's side."""
-    cue = np.flatnonzero(y > 0)
-    rng = np.random.default_rng(seed)
-    gains = np.exp(rng.normal(0.0, sd, size=(copies, len(cue), 1, 1, w.shape[3])))
-    extra = (w[cue][None] * gains).reshape(-1, *w.shape[1:])
-    tile = lambda a: np.concatenate([a, np.tile(a[cue], copies)])
-    return np.concatenate([w, extra]), tile(y), tile(g), tile(e)
 
 
 def hard_negatives(model, recordings, kinds: dict[str, str], settings=None, level: float = 0.3,
