@@ -120,3 +120,18 @@ def test_score_keeps_the_hops_it_counted(demo_model, tmp_path):
     again = count_take(gate_events(demo_model, t, probs, gate), rec.intervals, 60.0)
     assert {k: again[k] for k in ("hit", "double", "wrong_name", "ordinary")} == \
         {k: counts[k] for k in ("hit", "double", "wrong_name", "ordinary")}
+    # recount reads the kept hops beside the take, as run_protocol leaves them in its cache
+    from bridge.sources import write_recording
+    (tmp_path / "hops.npz").rename(tmp_path / "hops-two-sessions-wearer0.npz")
+    write_recording(tmp_path / "wearer0-score.take", rec)
+    same = spotting.recount(tmp_path, "two-sessions")["pooled"]
+    assert {k: same[k] for k in ("hit", "double", "wrong_name", "ordinary")} == \
+        {k: counts[k] for k in ("hit", "double", "wrong_name", "ordinary")}
+    # a gate no hop can pass fires nothing; a looser gesture threshold fires no less
+    silent = spotting.recount(tmp_path, "two-sessions", {"agree_k": 99, "agree_n": 99}, {"agree_k": 99, "agree_n": 99})["pooled"]
+    assert silent["hit"] == silent["false"] == 0
+    loose = spotting.recount(tmp_path, "two-sessions", {"threshold": 0.4})["pooled"]
+    assert loose["hit"] + loose["false"] >= counts["hit"] + counts["false"]
+    with pytest.raises(ValueError, match="keeps no scored sessions of 'checkin'"):
+        spotting.recount(tmp_path, "checkin")
+

@@ -152,16 +152,50 @@ def prior_options(p: Protocol, takes: dict) -> dict:
 def score(model, rec, settings=None, keep: str | Path | None = None) -> dict:
     """``matching.count_take`` of a model (with ``settings`` as its decision table, if given)
     replayed over a take. ``keep``: also write each hop's time (s) and class probabilities
-    there (.npz: ``t_s``, ``probabilities``, ``classes``), to count other gate settings later
-    without refitting."""
+    there (.npz: ``t_s``, ``probabilities``, ``classes``, ``hop_s`` and the model's stored
+    decision table as ``decision_json``), for ``recount``."""
+    from ..evaluation.tuning import _hop_s
     from ..service.replay import replay_take
     if settings is not None:
         model.decision = {**model.decision, **settings}
     events, hops, _ = replay_take(rec, model, None, 5.0)
     if keep is not None:
         np.savez(keep, t_s=np.array([t for t, _ in hops]), probabilities=np.array([q for _, q in hops]),
-                 classes=np.array(model.classes))
+                 classes=np.array(model.classes), hop_s=np.array(_hop_s(model)),
+                 decision_json=np.array(json.dumps(model.decision)))
     return count_take(events, rec.intervals, rec.freq_hz.shape[0] / rec.rate_hz)
+
+
+def recount(cache: str | Path, workflow: str, gestures: dict | None = None, postures: dict | None = None) -> dict:
+    """The known wearers' scored sessions kept by ``run_protocol`` in ``cache``
+    (``hops-{workflow}-wearer*.npz`` beside the takes), counted again through the gate with
+    ``gestures`` / ``postures`` (GateSettings fields, e.g. {"threshold": 0.5}) replacing the
+    stored settings of every class of that kind. Returns {"per_wearer": [counts...],
+    "pooled": ``pool``}. A setting chosen on these counts is no longer held out on them."""
+    from dataclasses import replace
+
+    from ..decisions.gate import gate_settings_for
+    from ..sources import read_recording
+    from .tuning import gate_events
+    folder = Path(cache)
+    kept = sorted(folder.glob(f"hops-{workflow}-wearer*.npz"), key=lambda q: int(q.stem.rsplit("wearer", 1)[1]))
+    if not kept:
+        raise ValueError(f"{folder} keeps no scored sessions of {workflow!r} (run drape bench --spotting on it first)")
+    rows = []
+    for path in kept:
+        rec = read_recording(folder / f"{path.stem.rsplit('-', 1)[1]}-score.take")
+        with np.load(path, allow_pickle=False) as z:
+            t, probs, classes = z["t_s"], z["probabilities"], tuple(str(c) for c in z["classes"])
+            hop_s, decision = float(z["hop_s"]), json.loads(str(z["decision_json"]))
+        kinds = {c: rec.kinds[c] for c in classes[1:]}
+        table = gate_settings_for(classes[1:], decision, kinds, hop_s=hop_s)
+        for c, v in table.items():
+            change = gestures if kinds[c] == "gesture" else postures
+            table[c] = replace(v, **(change or {}))
+        shell = type("Kept", (), {"classes": classes, "kinds": kinds, "windows": type("W", (), {"hop_s": hop_s})})
+        rows.append(count_take(gate_events(shell, t, probs, table), rec.intervals,
+                               rec.freq_hz.shape[0] / rec.rate_hz))
+    return {"per_wearer": rows, "pooled": pool(rows)}
 
 
 def fit_model(classifier: str, recs, **options):

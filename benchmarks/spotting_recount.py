@@ -1,0 +1,46 @@
+"""Count a spotting bench's scored sessions again at another gate, without refitting.
+
+    python benchmarks/spotting_recount.py --cache DIR [--workflow two-sessions|checkin]
+        [--gestures THRESHOLD K N] [--postures THRESHOLD K N]
+
+`drape bench --spotting --spotting-cache DIR` keeps each known wearer's scored-session hop
+probabilities in DIR; this reads them back and counts them with the one matcher, with every
+gesture (or posture) at the given threshold on K of N hops. A gate chosen by looking at
+these counts is no longer held out on them: choose on development sessions, then count here.
+Figures only; nothing here passes or fails.
+"""
+
+from __future__ import annotations
+
+import argparse
+
+from bridge.evaluation.matching import format_counts
+from bridge.evaluation.spotting import recount
+
+
+def _gate(values):
+    if values is None:
+        return None
+    threshold, k, n = float(values[0]), int(values[1]), int(values[2])
+    return {"threshold": threshold, "agree_k": k, "agree_n": n}
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
+    ap.add_argument("--cache", required=True, help="the folder given to drape bench --spotting-cache")
+    ap.add_argument("--workflow", default="two-sessions", choices=("two-sessions", "checkin"))
+    ap.add_argument("--gestures", nargs=3, metavar=("THRESHOLD", "K", "N"), help="every gesture's gate")
+    ap.add_argument("--postures", nargs=3, metavar=("THRESHOLD", "K", "N"), help="every posture's entry")
+    a = ap.parse_args()
+    try:
+        out = recount(a.cache, a.workflow, _gate(a.gestures), _gate(a.postures))
+    except ValueError as exc:   # no kept sessions, or a gate GateSettings refuses
+        raise SystemExit(f"spotting_recount: {exc}")
+    for w, c in enumerate(out["per_wearer"]):
+        print(f"wearer{w}: {c['hit']}/{c['performed']} hits, {c['false']} false ({c['double']} double, "
+              f"{c['wrong_name']} wrong name, {c['ordinary']} ordinary)")
+    print("\n".join(format_counts(out["pooled"])))
+
+
+if __name__ == "__main__":
+    main()
