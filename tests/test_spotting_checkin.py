@@ -84,6 +84,19 @@ def test_every_fit_adds_the_wearers_own_checkin_and_never_the_scored_take(monkey
                               "hops-checkin-unseen1.npz", None]
 
 
+def test_every_unseen_wearer_is_held_out_in_turn_and_pooled(monkeypatch, tmp_path):
+    fits, result = _recorded_fits(monkeypatch, Protocol(**{**asdict(TINY), "unseen_wearers": 2}), tmp_path)
+    scored = f"session{ROLES['score']}"
+    # after the two known-wearer fits: wearer 0 held out (wearer 1's sessions and wearer 0's
+    # check-in), then wearer 1 held out
+    assert fits[2] == [("wearer1", "session0"), ("wearer1", "session1"), ("wearer0", scored + "-take1")]
+    assert fits[3] == [("wearer0", "session0"), ("wearer0", "session1"), ("wearer1", scored + "-take1")]
+    assert result["unseen_per_wearer"]["wearers"] == [0, 1]
+    assert result["unseen_default"]["performed"] == 2        # one cue each in the stub counts, pooled
+    assert "hops-checkin-unseen0.npz" in result["kept"] and "hops-checkin-unseen1.npz" in result["kept"]
+    assert spotting.format_table(result)[-1].startswith("| new wearers, each held out in turn, check-in take only | tuned |")
+
+
 def test_without_a_checkin_the_fits_are_the_two_fit_sessions(monkeypatch, tmp_path):
     fits, result = _recorded_fits(monkeypatch, Protocol(**{**asdict(TINY), "checkin_reps": 0}), tmp_path)
     assert fits[0] == [("wearer0", "session0"), ("wearer0", "session1")]
@@ -95,6 +108,8 @@ def test_without_a_checkin_the_fits_are_the_two_fit_sessions(monkeypatch, tmp_pa
     (["--spotting-checkin", "-1"], "0 or more"),
     (["--spotting-checkin-s", "-5"], "0 or more"),
     (["--spotting-checkin", "3", "--spotting-development"], "development sessions have none"),
+    (["--spotting-unseen", "0"], "--spotting-unseen must be 1 to --spotting-wearers"),
+    (["--spotting-unseen", "7"], "--spotting-unseen must be 1 to --spotting-wearers"),
 ])
 def test_bad_checkin_options_are_refused_before_any_take_is_rendered(args, message, tmp_path, capsys):
     rc = main(["bench", "--spotting", "--spotting-cache", str(tmp_path / "c"), *args])

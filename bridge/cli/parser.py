@@ -160,6 +160,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "that wearer adds; the leave-wearer-out model adds the new wearer's (default 0: none)")
     b.add_argument("--spotting-checkin-s", type=float, default=60.0, metavar="S",
                    help="--spotting-checkin: seconds of ordinary movement in the check-in take (default 60)")
+    b.add_argument("--spotting-unseen", type=int, default=1, metavar="N",
+                   help="--spotting: leave-wearer-out for the last N wearers, each held out in turn (default 1; "
+                        "each adds a fit of the others, a tune and an hour scored)")
     b.add_argument("--spotting-development", action="store_true",
                    help="--spotting: instead of tune and score, count each wearer's default fit on a development "
                         "session (3 repetitions + 30 min) that the protocol never scores: where changes are chosen")

@@ -11,7 +11,9 @@ Per simulated wearer of a troupe (full vocabulary):
   movement, with the one matcher, every firing counted.
 
 Leave-wearer-out: a model fitted on the other wearers' fit sessions and tuned on their
-tune sessions, scored on the held-out wearer's fourth session. Takes are rendered once
+tune sessions, scored on the held-out wearer's fourth session; the last wearer is held
+out, or the last ``unseen_wearers`` each in turn (their counts pooled), so that the
+unseen-wearer row covers enough hours to show a rate. Takes are rendered once
 into a cache folder and read back on later runs; each scored session's hop probabilities
 at the default gate are written there too (``hops-*.npz``).
 
@@ -58,12 +60,13 @@ class Protocol:
     dev_null_s: float = 1800.0    # ... and ordinary movement, s
     checkin_reps: int = 0         # check-in take in the scored session's dressing: repetitions (0: none) ...
     checkin_null_s: float = 60.0  # ... and ordinary movement, s
+    unseen_wearers: int = 1       # leave-wearer-out: the last this many wearers, each held out in turn
 
 
 ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
 DEV_SESSION = 5                                         # the development session's number
 CHECKIN_TAKE = 1                                        # the check-in's performance key (Jacket ``take``)
-APART = ("prior_", "dev_", "checkin_")   # settings of takes that are named apart: a cache holds the others
+APART = ("prior_", "dev_", "checkin_", "unseen_")   # settings of takes that are named apart: a cache holds the others
 
 
 def session_take(p: Protocol, wearer: int, role: str):
@@ -234,17 +237,20 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
            "options": {k: (f"{len(v)} takes" if k in ("ordinary", "others") else str(v)) for k, v in options.items()},
            "per_wearer": rows, "known_default": pool(rows["default"]), "known_tuned": pool(rows["tuned"])}
     if leave_wearer_out and p.wearers > 1:
-        held = p.wearers - 1
-        others = [w for w in range(p.wearers) if w != held]
-        enrol = [takes[(held, "checkin")]] if p.checkin_reps else []   # a new wearer's few minutes
-        model = fit_model(classifier, [takes[(w, r)] for w in others for r in ("fit0", "fit1")] + enrol, **options)
-        d = score(model, takes[(held, "score")], keep=Path(cache) / f"hops-{workflow}-unseen{held}.npz")
-        t = tune_model(model, [takes[(w, "tune")] for w in others])
-        tt = score(model, takes[(held, "score")], t.settings)
-        out["unseen_default"], out["unseen_tuned"] = pool([d]), pool([tt])
-        if progress:
-            progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
-                     f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false")
+        unseen = {"default": [], "tuned": [], "wearers": []}
+        for held in range(p.wearers - max(1, min(p.unseen_wearers, p.wearers)), p.wearers):
+            others = [w for w in range(p.wearers) if w != held]
+            enrol = [takes[(held, "checkin")]] if p.checkin_reps else []   # a new wearer's few minutes
+            model = fit_model(classifier, [takes[(w, r)] for w in others for r in ("fit0", "fit1")] + enrol, **options)
+            d = score(model, takes[(held, "score")], keep=Path(cache) / f"hops-{workflow}-unseen{held}.npz")
+            t = tune_model(model, [takes[(w, "tune")] for w in others])
+            tt = score(model, takes[(held, "score")], t.settings)
+            unseen["default"].append(d); unseen["tuned"].append(tt); unseen["wearers"].append(held)
+            if progress:
+                progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: default {d['hit']}/{d['performed']} hits, "
+                         f"{d['false']} false; tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false")
+        out["unseen_per_wearer"] = unseen
+        out["unseen_default"], out["unseen_tuned"] = pool(unseen["default"]), pool(unseen["tuned"])
     return out
 
 
@@ -297,7 +303,9 @@ def format_table(result: dict) -> list[str]:
     row("pooled, known wearers", "default gate", result["known_default"])
     row("pooled, known wearers", "tuned", result["known_tuned"])
     if "unseen_tuned" in result:
-        who = "new wearer, check-in take only" if result["protocol"].get("checkin_reps") else "unseen wearer"
+        n = len(result.get("unseen_per_wearer", {}).get("wearers", [None]))
+        who = ("new wearer" if result["protocol"].get("checkin_reps") else "unseen wearer") + \
+            ("s, each held out in turn" if n > 1 else "") + (", check-in take only" if result["protocol"].get("checkin_reps") else "")
         row(who, "default gate", result["unseen_default"])
         row(who, "tuned", result["unseen_tuned"])
     return lines
