@@ -149,4 +149,16 @@ def test_score_keeps_the_hops_it_counted(demo_model, tmp_path):
     assert loose["hit"] + loose["false"] >= counts["hit"] + counts["false"]
     with pytest.raises(ValueError, match="keeps no scored sessions of 'checkin'"):
         spotting.recount(tmp_path, "checkin")
+    # the script prints the same counts; without kept sessions it says so and exits non-zero
+    import subprocess
+    import sys
+    from pathlib import Path
+    script = Path(__file__).resolve().parent.parent / "benchmarks" / "spotting_recount.py"
+    run = subprocess.run([sys.executable, str(script), "--cache", str(tmp_path), "--gestures", "0.4", "4", "5"],
+                         capture_output=True, text=True)
+    assert run.returncode == 0, run.stderr
+    assert f"wearer0: {loose['hit']}/{loose['performed']} hits, {loose['false']} false" in run.stdout
+    empty = subprocess.run([sys.executable, str(script), "--cache", str(tmp_path), "--workflow", "checkin"],
+                           capture_output=True, text=True)
+    assert empty.returncode != 0 and "keeps no scored sessions" in empty.stderr
 
