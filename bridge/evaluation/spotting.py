@@ -157,7 +157,7 @@ def score(model, rec, settings=None, keep: str | Path | None = None) -> dict:
     replayed over a take. ``keep``: also write each hop's time (s) and class probabilities
     there (.npz: ``t_s``, ``probabilities``, ``classes``, ``hop_s`` and the model's stored
     decision table as ``decision_json``), for ``recount``."""
-    from ..evaluation.tuning import _hop_s
+    from .tuning import _hop_s
     from ..service.replay import replay_take
     if settings is not None:
         model.decision = {**model.decision, **settings}
@@ -179,7 +179,7 @@ def recount(cache: str | Path, workflow: str, gestures: dict | None = None, post
 
     from ..decisions.gate import gate_settings_for
     from ..sources import read_recording
-    from .tuning import gate_events
+    from .tuning import gate_hops
     folder = Path(cache)
     kept = sorted(folder.glob(f"hops-{workflow}-wearer*.npz"), key=lambda q: int(q.stem.rsplit("wearer", 1)[1]))
     if not kept:
@@ -195,8 +195,7 @@ def recount(cache: str | Path, workflow: str, gestures: dict | None = None, post
         for c, v in table.items():
             change = gestures if kinds[c] == "gesture" else postures
             table[c] = replace(v, **(change or {}))
-        shell = type("Kept", (), {"classes": classes, "kinds": kinds, "windows": type("W", (), {"hop_s": hop_s})})
-        rows.append(count_take(gate_events(shell, t, probs, table), rec.intervals,
+        rows.append(count_take(gate_hops(classes, kinds, hop_s, t, probs, table), rec.intervals,
                                rec.freq_hz.shape[0] / rec.rate_hz))
     return {"per_wearer": rows, "pooled": pool(rows)}
 

@@ -77,7 +77,12 @@ def _hop_s(model) -> float:
 
 def gate_events(model, times_s, probs, settings: dict):
     """The real decision layer's events over stored hops (``Gate.step`` hop by hop)."""
-    g = Gate(model.classes, model.kinds, settings, hop_s=_hop_s(model))
+    return gate_hops(model.classes, model.kinds, _hop_s(model), times_s, probs, settings)
+
+
+def gate_hops(classes, kinds: dict[str, str], hop_s: float, times_s, probs, settings: dict):
+    """``gate_events`` for hops kept without their model: its classes, kinds and hop (s)."""
+    g = Gate(classes, kinds, settings, hop_s=hop_s)
     out = []
     for t, p in zip(times_s, probs):
         out += g.step(float(t), p)
