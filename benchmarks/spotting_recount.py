@@ -36,7 +36,7 @@ def main() -> None:
         out = recount(a.cache, a.workflow, _gate(a.gestures), _gate(a.postures))
     except ValueError as exc:   # no kept sessions, or a gate GateSettings refuses
         raise SystemExit(f"spotting_recount: {exc}")
-    for w, c in enumerate(out["per_wearer"]):
+    for w, c in zip(out["wearers"], out["per_wearer"]):
         print(f"wearer{w}: {c['hit']}/{c['performed']} hits, {c['false']} false ({c['double']} double, "
               f"{c['wrong_name']} wrong name, {c['ordinary']} ordinary)")
     print("\n".join(format_counts(out["pooled"])))

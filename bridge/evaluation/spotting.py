@@ -173,15 +173,17 @@ def recount(cache: str | Path, workflow: str, gestures: dict | None = None, post
     """The known wearers' scored sessions kept by ``run_protocol`` in ``cache``
     (``hops-{workflow}-wearer*.npz`` beside the takes), counted again through the gate with
     ``gestures`` / ``postures`` (GateSettings fields, e.g. {"threshold": 0.5}) replacing the
-    stored settings of every class of that kind. Returns {"per_wearer": [counts...],
-    "pooled": ``pool``}. A setting chosen on these counts is no longer held out on them."""
+    stored settings of every class of that kind. Returns {"wearers": [wearer numbers],
+    "per_wearer": [counts...], "pooled": ``pool``}. A setting chosen on these counts is no
+    longer held out on them."""
     from dataclasses import replace
 
     from ..decisions.gate import gate_settings_for
     from ..sources import read_recording
     from .tuning import gate_hops
     folder = Path(cache)
-    kept = sorted(folder.glob(f"hops-{workflow}-wearer*.npz"), key=lambda q: int(q.stem.rsplit("wearer", 1)[1]))
+    number = {q: int(q.stem.rsplit("wearer", 1)[1]) for q in folder.glob(f"hops-{workflow}-wearer*.npz")}
+    kept = sorted(number, key=number.get)
     if not kept:
         raise ValueError(f"{folder} keeps no scored sessions of {workflow!r} (run drape bench --spotting on it first)")
     rows = []
@@ -197,7 +199,7 @@ def recount(cache: str | Path, workflow: str, gestures: dict | None = None, post
             table[c] = replace(v, **(change or {}))
         rows.append(count_take(gate_hops(classes, kinds, hop_s, t, probs, table), rec.intervals,
                                rec.freq_hz.shape[0] / rec.rate_hz))
-    return {"per_wearer": rows, "pooled": pool(rows)}
+    return {"wearers": [number[q] for q in kept], "per_wearer": rows, "pooled": pool(rows)}
 
 
 def fit_model(classifier: str, recs, **options):
@@ -302,9 +304,10 @@ def format_table(result: dict) -> list[str]:
     row("pooled, known wearers", "default gate", result["known_default"])
     row("pooled, known wearers", "tuned", result["known_tuned"])
     if "unseen_tuned" in result:
-        n = len(result.get("unseen_per_wearer", {}).get("wearers", [None]))
-        who = ("new wearer" if result["protocol"].get("checkin_reps") else "unseen wearer") + \
-            ("s, each held out in turn" if n > 1 else "") + (", check-in take only" if result["protocol"].get("checkin_reps") else "")
+        new = bool(result["protocol"].get("checkin_reps"))
+        in_turn = len(result.get("unseen_per_wearer", {}).get("wearers", ())) > 1
+        who = (("new wearer" if new else "unseen wearer") + ("s, each held out in turn" if in_turn else "")
+               + (", check-in take only" if new else ""))
         row(who, "default gate", result["unseen_default"])
         row(who, "tuned", result["unseen_tuned"])
     return lines
