@@ -158,8 +158,8 @@ def build_parser() -> argparse.ArgumentParser:
                    help="--spotting: each wearer, dressed for the scored session, first records a check-in take "
                         "(every gesture R times + --spotting-checkin-s of ordinary movement) that every fit of "
                         "that wearer adds; the leave-wearer-out model adds the new wearer's (default 0: none)")
-    b.add_argument("--spotting-checkin-s", type=float, default=60.0, metavar="S",
-                   help="--spotting-checkin: seconds of ordinary movement in the check-in take (default 60)")
+    b.add_argument("--spotting-checkin-s", type=float, default=180.0, metavar="S",
+                   help="--spotting-checkin: seconds of ordinary movement in the check-in take (default 180)")
     b.add_argument("--spotting-unseen", type=int, default=1, metavar="N",
                    help="--spotting: leave-wearer-out for the last N wearers, each held out in turn (default 1; "
                         "each adds a fit of the others, a tune and an hour scored)")
@@ -245,7 +245,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--gestures", help="comma-separated names to prompt (default: the built-in vocabulary)")
     g.add_argument("--postures", help="which of the names are postures (held); built-in names know their kind")
     g.add_argument("--check-in", action="store_true",
-                   help="a short take after dressing, before a show: each gesture 3 times and 60 s of ordinary "
+                   help="a short take after dressing, before a show: each gesture 3 times and 3 min of ordinary "
                         "movement (unless --reps or --ordinary-s say otherwise), saved as WEARER-SESSION-checkin.take; "
                         "fit it together with your training takes, so the model knows how the garment sits today")
     g.add_argument("--reps", type=int, help="repetitions of each gesture (default 5; 3 with --check-in)")
@@ -255,7 +255,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--rest-s", type=float, default=2.0, help="shortest rest between prompts, s (up to twice this)")
     g.add_argument("--lead-s", type=float, default=4.0, help="null activity recorded before the first prompt, s")
     g.add_argument("--ordinary-s", type=float,
-                   help="ordinary movement recorded after the last prompt, s (default 180, 60 with --check-in: the "
+                   help="ordinary movement recorded after the last prompt, s (default 180, with --check-in too: the "
                         "model learns from it to stay silent when no gesture is meant)")
     g.add_argument("--seed", type=int, default=0, help="seeds the prompt order (and the simulated jacket)")
     g.add_argument("--fast", action="store_true", help="simulated: run as fast as possible")

@@ -59,7 +59,7 @@ class Protocol:
     dev_reps: int = 3             # development session: repetitions ...
     dev_null_s: float = 1800.0    # ... and ordinary movement, s
     checkin_reps: int = 0         # check-in take in the scored session's dressing: repetitions (0: none) ...
-    checkin_null_s: float = 60.0  # ... and ordinary movement, s
+    checkin_null_s: float = 180.0  # ... and ordinary movement, s
     unseen_wearers: int = 1       # leave-wearer-out: the last this many wearers, each held out in turn
 
 
