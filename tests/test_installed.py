@@ -5,6 +5,7 @@ the installed package; a checkout-relative read would crash here and nowhere els
 Slow (a venv and a real install, about a minute): skip it with ``-m "not installed"``.
 """
 
+import ast
 import os
 import shutil
 import subprocess
@@ -58,7 +59,9 @@ def test_installed_package_is_the_one_run(installed, tmp_path):
                          env={k: v for k, v in os.environ.items() if k != "PYTHONPATH"})
     where, requires = out.stdout.splitlines()
     assert Path(where).is_relative_to(installed.parent), where
-    assert "tqdm" in requires  # progress bars are a core feature now
+    # Runtime needs stay the light five (anything more is an extra): the project's rule.
+    core = {r.split(">")[0].split("=")[0].strip() for r in ast.literal_eval(requires) if "extra ==" not in r}
+    assert core == {"numpy", "scipy", "python-osc", "mido", "pyserial"}, core
 
 
 def test_bench_fuzz_from_a_scratch_folder(installed, tmp_path):
