@@ -180,3 +180,25 @@ def test_dropped_stretches_and_every_penalty_match_explicit_refits(d):
         errs.append(((target - want) ** 2).mean())
     _, _, chosen, _ = fit_ridge_heldout(z, y, k, splits, alphas=alphas)
     assert chosen == alphas[int(np.argmin(errs))]
+
+
+@pytest.mark.parametrize("d", [40, 300])   # features fewer than cases, and more
+@pytest.mark.parametrize("grouped", [False, True])
+def test_centring_in_place_gives_the_same_fit_to_the_bit(d, grouped):
+    """`overwrite_z` (the fit's memory: no copy of the features) changes nothing of the
+    result, and leaves the features centred as it says."""
+    rng = np.random.default_rng(3)
+    m, k = 120, 3
+    z = rng.normal(loc=2.0, size=(m, d))
+    y = rng.integers(0, k, size=m)
+    z[:, :3] += 1.5 * np.eye(k)[y]
+    splits = None
+    if grouped:
+        splits = [(np.arange(m) // 40 == f, np.abs(np.arange(m) - (40 * f + 20)) < 25) for f in range(3)]
+    want = fit_ridge_heldout(z, y, k, splits)
+    work = z.copy()
+    got = fit_ridge_heldout(work, y, k, splits, overwrite_z=True)
+    for a, b in zip(want, got):
+        assert np.array_equal(a, b)
+    np.testing.assert_array_equal(work, z - z.mean(axis=0))
+    assert not np.array_equal(work, z)

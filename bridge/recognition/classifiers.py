@@ -177,7 +177,9 @@ def fit_minirocket_cases(X: np.ndarray, y: np.ndarray, full: tuple[str, ...], n_
     mean = f.mean(axis=0)
     scale = f.std(axis=0)
     scale[scale < 1e-12] = 1.0
-    w, b, alpha, held = fit_ridge_heldout((f - mean) / scale, y, len(full), splits)
+    f -= mean      # standardised in place, and centred in place by the ridge: the raw
+    f /= scale     # features are not needed again, and each copy is m × d (the fit's peak)
+    w, b, alpha, held = fit_ridge_heldout(f, y, len(full), splits, overwrite_z=True)
     temperature = fit_temperature(held, y, bounds=(-9.0, 5.0))
     prob = probabilities(held, temperature)
     accuracy = round(float((prob.argmax(1) == y).mean()), 4)

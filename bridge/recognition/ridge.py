@@ -27,8 +27,12 @@ def _decompose(zc: np.ndarray) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     s2, v = s2[keep], v[:, keep]
     s = np.sqrt(s2)
     if d <= m:
-        return (zc @ v) / s, s, v
-    return v, s, (zc.T @ v) / s
+        u = zc @ v
+        u /= s      # in place: u is m × r, as large as the features
+        return u, s, v
+    w = zc.T @ v
+    w /= s
+    return v, s, w
 
 
 def _solve_spd(a: np.ndarray, b: np.ndarray) -> np.ndarray:
@@ -42,7 +46,8 @@ def _solve_spd(a: np.ndarray, b: np.ndarray) -> np.ndarray:
 
 
 def fit_ridge_heldout(z: np.ndarray, y: np.ndarray, n_classes: int, splits=None,
-                      alphas: np.ndarray = DEFAULT_ALPHAS) -> tuple[np.ndarray, np.ndarray, float, np.ndarray]:
+                      alphas: np.ndarray = DEFAULT_ALPHAS, overwrite_z: bool = False
+                      ) -> tuple[np.ndarray, np.ndarray, float, np.ndarray]:
     """Fit ridge regression from standardised features z (m, d) to targets +1/−1 per class.
 
     The penalty is alpha · m for each alpha in ``alphas`` (so alpha is per case and
@@ -59,6 +64,8 @@ def fit_ridge_heldout(z: np.ndarray, y: np.ndarray, n_classes: int, splits=None,
 
     Returns (weights (d, k), bias (k,), chosen alpha, held-out scores (m, k)); scores of
     new cases are ``z @ weights + bias``. A class with no cases gets target −1 throughout.
+    ``overwrite_z``: centre a float64 z in place (it is left centred) instead of copying it;
+    the results are the same to the bit.
     """
     z = np.asarray(z, dtype=float)
     m = z.shape[0]
@@ -66,7 +73,11 @@ def fit_ridge_heldout(z: np.ndarray, y: np.ndarray, n_classes: int, splits=None,
     target[np.arange(m), y] = 1.0
     t_mean = target.mean(axis=0)
     z_mean = z.mean(axis=0)
-    zc = z - z_mean
+    if overwrite_z:
+        zc = z
+        zc -= z_mean
+    else:
+        zc = z - z_mean
     tc = target - t_mean
     u, s, v = _decompose(zc)
     ut_t = u.T @ tc                       # (r, k)
