@@ -66,8 +66,6 @@ def cmd_capture(a) -> int:
             return _err(f"the simulated wearer knows {', '.join(GESTURES)}; not {', '.join(unknown)}")
     if a.reps is None:
         a.reps = 3 if a.check_in else 5
-    if a.ordinary_s is None:
-        a.ordinary_s = 180.0
     if a.reps < 1 or not gestures:
         return _err("capture needs at least one gesture and --reps of 1 or more")
     interactive = sys.stdin is not None and sys.stdin.isatty() and not a.yes

@@ -254,7 +254,7 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--hold-s", type=float, default=5.0, help="time a posture is held, s")
     g.add_argument("--rest-s", type=float, default=2.0, help="shortest rest between prompts, s (up to twice this)")
     g.add_argument("--lead-s", type=float, default=4.0, help="null activity recorded before the first prompt, s")
-    g.add_argument("--ordinary-s", type=float,
+    g.add_argument("--ordinary-s", type=float, default=180.0,
                    help="ordinary movement recorded after the last prompt, s (default 180, with --check-in too: the "
                         "model learns from it to stay silent when no gesture is meant)")
     g.add_argument("--seed", type=int, default=0, help="seeds the prompt order (and the simulated jacket)")
