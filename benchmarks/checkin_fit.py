@@ -18,6 +18,7 @@ only; nothing here passes or fails.
 from __future__ import annotations
 
 import argparse
+import contextlib
 import json
 import os
 import platform
@@ -105,12 +106,10 @@ def main() -> None:
                             ("hard_negatives", "mining (features inside)")):
             stages.wrap(c, name, stage)
         print(f"before the fit: resident {resident_mb():.0f} MB (the takes loaded)")
-        stages.__enter__()
-    wall, cpu = time.perf_counter(), time.process_time()
-    model = fit_model("minirocket", own, **prior_options(p, takes))
-    wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
-    if stages:
-        stages.__exit__()
+    with stages or contextlib.nullcontext():
+        wall, cpu = time.perf_counter(), time.process_time()
+        model = fit_model("minirocket", own, **prior_options(p, takes))
+        wall, cpu = time.perf_counter() - wall, time.process_time() - cpu
     peak_mb = resource.getrusage(resource.RUSAGE_SELF).ru_maxrss / 1024.0   # kB on Linux
     s = model.summary
     print(f"check-in fit, seed {a.seed} wearer {a.wearer}: {minutes:.1f} min of the wearer's takes + 6 simulated people; "

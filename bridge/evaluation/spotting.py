@@ -246,7 +246,8 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
             d = score(model, takes[(held, "score")], keep=Path(cache) / f"hops-{workflow}-unseen{held}.npz")
             t = tune_model(model, [takes[(w, "tune")] for w in others])
             tt = score(model, takes[(held, "score")], t.settings)
-            unseen["default"].append(d); unseen["tuned"].append(tt); unseen["wearers"].append(held)
+            for key, value in (("default", d), ("tuned", tt), ("wearers", held)):
+                unseen[key].append(value)
             if progress:
                 progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: default {d['hit']}/{d['performed']} hits, "
                          f"{d['false']} false; tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false")
