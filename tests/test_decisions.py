@@ -224,3 +224,32 @@ def test_a_gesture_whose_evidence_dips_is_not_fired_again_until_it_has_been_low_
         seq = ["wave"] * round(2.0 / hop_s) + ["null"] * gap_hops + ["wave"] * 5 + ["null"] * 10
         fired = [e for e in run(g, seq, hop_s) if e.gesture == "wave"]
         assert len(fired) == (2 if again else 1), (hop_s, gap_hops)
+
+
+def test_a_posture_needs_its_agreeing_hops_mean_to_reach_min_confidence():
+    # every hop above the 0.5 threshold, but their mean below the 0.65 asked: no entry
+    s = GateSettings(threshold=0.5, agree_k=8, agree_n=10, min_confidence=0.65)
+    g = Gate(CLASSES, KINDS, {"wave": GateSettings(), "hold": s})
+    assert run(g, ["null"] * 5 + [("hold", 0.6)] * 30) == []
+    # the same hops climbing: entered on the first hop whose last 8 agreeing hops average ≥ 0.65
+    g = Gate(CLASSES, KINDS, {"wave": GateSettings(), "hold": s})
+    ev = run(g, ["null"] * 5 + [("hold", 0.6)] * 8 + [("hold", 0.9)] * 10)
+    assert [(e.gesture, e.kind) for e in ev] == [("hold", "entered")]
+    # 8 votes: 0.6 × (8 − m) + 0.9 × m ≥ 5.2 first at m = 2, the 10th hop of the posture
+    assert ev[0].t_s == pytest.approx((5 + 9) * 0.1) and ev[0].confidence >= 0.65
+    # without it the same hops enter at the 8th hop
+    g = Gate(CLASSES, KINDS, {"wave": GateSettings(), "hold": replace(s, min_confidence=0.0)})
+    assert [e.t_s for e in run(g, ["null"] * 5 + [("hold", 0.6)] * 8 + [("hold", 0.9)] * 10)] == \
+        pytest.approx([(5 + 7) * 0.1])
+
+
+def test_min_confidence_is_checked_and_stored():
+    with pytest.raises(ValueError, match="min_confidence"):
+        GateSettings(min_confidence=1.2)
+    from bridge.decisions import gate_settings_for
+    stored = gate_settings_for(["hold"], {"hold": GateSettings(min_confidence=0.7).to_dict()}, KINDS)
+    assert stored["hold"].min_confidence == 0.7
+    # a table stored before the setting existed takes the default of its kind
+    old = {k: v for k, v in GateSettings().to_dict().items() if k != "min_confidence"}
+    assert gate_settings_for(["hold"], {"hold": old}, KINDS)["hold"].min_confidence == \
+        gate_settings_for(["hold"], None, KINDS)["hold"].min_confidence

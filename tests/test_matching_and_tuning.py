@@ -47,7 +47,8 @@ def test_one_class_search_walk_equals_the_gate():
     raw = np.repeat(raw, rng.integers(1, 12, size=3000), axis=0)[:6000]   # runs of similar hops
     times = np.round(np.arange(len(raw)) * 0.1, 6)
     for s in (GateSettings(), GateSettings(threshold=0.4, agree_k=1, agree_n=1, rearm_below=0.2, rearm_hops=5),
-              GateSettings(threshold=0.7, agree_k=4, agree_n=5, refractory_s=3.0, rearm_hops=1)):
+              GateSettings(threshold=0.7, agree_k=4, agree_n=5, refractory_s=3.0, rearm_hops=1),
+              GateSettings(threshold=0.5, agree_k=3, agree_n=5, min_confidence=0.75)):
         for quiet_s in (-1.0, s.after_posture_s):
             s = replace(s, after_posture_s=quiet_s)
             settings = {"wave": s, "hold": replace(s, exit_threshold=min(0.35, s.threshold))}

@@ -1,7 +1,7 @@
 """The decision layer: turns per-hop class probabilities into few, deliberate events.
 
-A dynamic gesture fires once when k of the last n hops agree on it above its threshold;
-then no gesture fires for its refractory time, and the same gesture does not fire again
+A dynamic gesture fires once when k of the last n hops agree on it above its threshold
+and those hops' mean probability reaches ``min_confidence``; then no gesture fires for its refractory time, and the same gesture does not fire again
 until it has re-armed: its probability below ``rearm_below`` for ``rearm_hops`` hops in a
 row. The evidence of a gesture stays in the classifier's window for up to a window's
 length after the movement, so a fixed quiet time shorter than that fires it twice; the
@@ -60,6 +60,10 @@ class GateSettings:
     # to the classifier: while a posture is held, and for this long after one is left,
     # this class does not fire; its evidence then must fall away (re-arm) as after a firing.
     after_posture_s: float = 1.0  # s; negative: fire whatever the postures do
+    # The agreeing hops' mean probability must reach this too (the event's confidence):
+    # a false entry passes the per-hop threshold on a few hops just above it, a true one
+    # mostly well above (docs/benchmarks.md, "Spotting"). 0: the votes alone decide.
+    min_confidence: float = 0.0   # 0..1
 
     def __post_init__(self):
         if not 0 < self.threshold <= 1 or not 0 <= self.exit_threshold <= self.threshold:
@@ -74,12 +78,15 @@ class GateSettings:
             raise ValueError("held_every_s must be >= 0")
         if not np.isfinite(self.after_posture_s):
             raise ValueError("after_posture_s must be finite")
+        if not 0 <= self.min_confidence <= 1:
+            raise ValueError("need 0 <= min_confidence <= 1")
 
     def to_dict(self) -> dict:
         return {"threshold": self.threshold, "agree_k": self.agree_k, "agree_n": self.agree_n,
                 "refractory_s": self.refractory_s, "rearm_below": self.rearm_below, "rearm_hops": self.rearm_hops,
                 "exit_threshold": self.exit_threshold,
-                "held_every_s": self.held_every_s, "after_posture_s": self.after_posture_s}
+                "held_every_s": self.held_every_s, "after_posture_s": self.after_posture_s,
+                "min_confidence": self.min_confidence}
 
 
 # A held posture must agree longer before it counts: brief passes through a posture-like
@@ -128,6 +135,12 @@ def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None
     return out
 
 
+def confident(agreeing: np.ndarray, min_confidence: float) -> bool:
+    """Whether the agreeing hops' mean probability reaches ``min_confidence`` (a hair's
+    tolerance, so that summing in another order, as the tune's walk does, decides alike)."""
+    return float(np.sum(agreeing)) >= min_confidence * len(agreeing) - 1e-9
+
+
 class Gate:
     """Decision state for one garment: recent hops, refractory clock, gestures waiting to
     re-arm, postures held."""
@@ -164,7 +177,8 @@ class Gate:
         n_low = (inside & (cols < np.array([s.exit_threshold for s in settings]))).sum(axis=0)
         for j, name in enumerate(names):
             s = settings[j]
-            agreed = n_votes[j] >= s.agree_k
+            agreed = n_votes[j] >= s.agree_k and (
+                s.min_confidence <= 0 or confident(cols[voting[:, j], j], s.min_confidence))
             if self.kinds[name] == "posture":
                 if name in self.held:
                     if n_low[j] >= s.agree_k:

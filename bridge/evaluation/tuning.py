@@ -5,7 +5,8 @@ the decision layer is then searched over those stored probabilities (no classifi
 
 - **search space** per class: threshold, votes (k of n) and, for gestures, the re-arm rule
   (``rearm_below`` for ``rearm_hops`` hops). The grid always holds the class's current
-  settings and stricter ones.
+  settings and stricter ones; the agreeing hops' needed mean (``min_confidence``) stays
+  the class's own.
 - **choice**: one candidate per class so that the false firings of all classes together
   stay within the budget (``max_false_per_hour`` × hours, rounded down) and never exceed
   those of the settings tune started from, with the most hits; ties go to fewer false
@@ -117,7 +118,7 @@ def replace_times(iv, shift_s: float):
 
 
 def _rolling_count(x: np.ndarray, n: int) -> np.ndarray:
-    """Trues among the last n entries (fewer at the start), per entry."""
+    """Sum of the last n entries (fewer at the start), per entry: of booleans, the trues."""
     c = np.concatenate([[0], np.cumsum(x)])
     i = np.arange(1, len(x) + 1)
     return c[i] - c[np.maximum(i - n, 0)]
@@ -132,7 +133,11 @@ def class_firings(times_s: np.ndarray, probs: np.ndarray, j: int, kind: str, s: 
         return np.empty(0)
     p = probs[:, j]
     votes = ((probs.argmax(axis=1) if top is None else top) == j) & (p >= s.threshold)
-    agreed = np.flatnonzero(_rolling_count(votes, s.agree_n) >= s.agree_k)
+    n_votes = _rolling_count(votes, s.agree_n)
+    agreeing = n_votes >= s.agree_k
+    if s.min_confidence > 0:   # the gate's ``confident``, over every hop at once
+        agreeing &= _rolling_count(np.where(votes, p, 0.0), s.agree_n) >= s.min_confidence * n_votes - 1e-9
+    agreed = np.flatnonzero(agreeing)
     out = []
     i = 0
     low = p < s.rearm_below
