@@ -2,10 +2,12 @@
 
     python benchmarks/spotting_recount.py --cache DIR [--workflow two-sessions|checkin]
         [--gestures THRESHOLD K N] [--postures THRESHOLD K N]
+        [--gesture-min-confidence P] [--posture-min-confidence P]
 
 `drape bench --spotting --spotting-cache DIR` keeps each known wearer's scored-session hop
 probabilities in DIR; this reads them back and counts them with the one matcher, with every
-gesture (or posture) at the given threshold on K of N hops. A gate chosen by looking at
+gesture (or posture) at the given threshold on K of N hops, and the agreeing hops' mean
+probability needed (``min_confidence``; 0 turns it off). A gate chosen by looking at
 these counts is no longer held out on them: choose on development sessions, then count here.
 Figures only; nothing here passes or fails.
 """
@@ -18,11 +20,13 @@ from bridge.evaluation.matching import format_counts
 from bridge.evaluation.spotting import recount
 
 
-def _gate(values):
-    if values is None:
-        return None
-    threshold, k, n = float(values[0]), int(values[1]), int(values[2])
-    return {"threshold": threshold, "agree_k": k, "agree_n": n}
+def _gate(values, min_confidence):
+    out = {}
+    if values is not None:
+        out.update(threshold=float(values[0]), agree_k=int(values[1]), agree_n=int(values[2]))
+    if min_confidence is not None:
+        out["min_confidence"] = min_confidence
+    return out or None
 
 
 def main() -> None:
@@ -31,9 +35,14 @@ def main() -> None:
     ap.add_argument("--workflow", default="two-sessions", choices=("two-sessions", "checkin"))
     ap.add_argument("--gestures", nargs=3, metavar=("THRESHOLD", "K", "N"), help="every gesture's gate")
     ap.add_argument("--postures", nargs=3, metavar=("THRESHOLD", "K", "N"), help="every posture's entry")
+    ap.add_argument("--gesture-min-confidence", type=float, metavar="P",
+                    help="every gesture's needed mean of its agreeing hops, 0..1")
+    ap.add_argument("--posture-min-confidence", type=float, metavar="P",
+                    help="every posture's needed mean of its agreeing hops, 0..1 (0: the votes alone)")
     a = ap.parse_args()
     try:
-        out = recount(a.cache, a.workflow, _gate(a.gestures), _gate(a.postures))
+        out = recount(a.cache, a.workflow, _gate(a.gestures, a.gesture_min_confidence),
+                      _gate(a.postures, a.posture_min_confidence))
     except ValueError as exc:   # no kept sessions, or a gate GateSettings refuses
         raise SystemExit(f"spotting_recount: {exc}")
     for w, c in zip(out["wearers"], out["per_wearer"]):

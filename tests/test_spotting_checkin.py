@@ -158,6 +158,11 @@ def test_score_keeps_the_hops_it_counted(demo_model, tmp_path):
                          capture_output=True, text=True)
     assert run.returncode == 0, run.stderr
     assert f"wearer0: {loose['hit']}/{loose['performed']} hits, {loose['false']} false" in run.stdout
+    votes_only = spotting.recount(tmp_path, "two-sessions", None, {"min_confidence": 0.0})["pooled"]
+    run = subprocess.run([sys.executable, str(script), "--cache", str(tmp_path), "--posture-min-confidence", "0"],
+                         capture_output=True, text=True)
+    assert run.returncode == 0, run.stderr
+    assert f"wearer0: {votes_only['hit']}/{votes_only['performed']} hits, {votes_only['false']} false" in run.stdout
     empty = subprocess.run([sys.executable, str(script), "--cache", str(tmp_path), "--workflow", "checkin"],
                            capture_output=True, text=True)
     assert empty.returncode != 0 and "keeps no scored sessions" in empty.stderr
