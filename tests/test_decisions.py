@@ -253,3 +253,11 @@ def test_min_confidence_is_checked_and_stored():
     old = {k: v for k, v in GateSettings().to_dict().items() if k != "min_confidence"}
     assert gate_settings_for(["hold"], {"hold": old}, KINDS)["hold"].min_confidence == \
         gate_settings_for(["hold"], None, KINDS)["hold"].min_confidence
+
+
+def test_default_posture_entry_needs_a_mean_of_065_over_its_agreeing_hops():
+    from bridge.decisions.gate import posture_default
+    assert posture_default(0.1).min_confidence == 0.65
+    assert run(Gate(CLASSES, KINDS), ["null"] * 5 + [("hold", 0.6)] * 40) == []
+    ev = run(Gate(CLASSES, KINDS), ["null"] * 5 + [("hold", 0.7)] * 40)
+    assert [(e.gesture, e.kind) for e in ev] == [("hold", "entered")]

@@ -89,8 +89,13 @@ def test_tune_reports_held_out_and_never_fires_more_than_it_started(demo_model, 
     code = main(["tune", "--model", str(demo_model_file), *map(str, paths), "-o", str(out), "--max-false-per-hour", "1"])
     text = capsys.readouterr()
     assert "held out (settings chosen on the other 1 of 2 pieces" in text.out
+    # the search keeps each class's needed mean: the posture default's 0.65 is printed and stored
+    postures = [c for c in demo_model.classes[1:] if demo_model.kinds[c] == "posture"]
+    assert postures and all(f"{c} " in text.out for c in postures)
+    assert text.out.count("averaging ≥ 0.65") == len(postures)
     if code == 0:
         tuned = load_model(out)
+        assert all(tuned.decision[c]["min_confidence"] == 0.65 for c in postures)
         assert set(tuned.decision) == set(demo_model.classes[1:])
         assert all(0 < d["threshold"] <= 1 and 1 <= d["agree_k"] <= d["agree_n"] for d in tuned.decision.values())
     else:

@@ -255,7 +255,8 @@ def cmd_tune(a) -> int:
     for g, st in result.settings.items():
         rearm = (f", re-arms below {st['rearm_below']:.2f} for {st['rearm_hops']} hops"
                  if model.kinds.get(g) == "gesture" else "")
-        print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops{rearm}")
+        mean = f" averaging ≥ {st['min_confidence']:.2f}" if st.get("min_confidence", 0) > 0 else ""
+        print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops{mean}{rearm}")
     problems = []
     if not result.met:
         problems.append(f"even the strictest settings fire {result.in_sample['false']} false on these takes, "

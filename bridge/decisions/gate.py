@@ -90,10 +90,11 @@ class GateSettings:
 
 
 # A held posture must agree longer before it counts: brief passes through a posture-like
-# shape at the edges of other movements are common and must not fire "entered". A posture
-# left for a moment mid-hold must not be entered again: it re-arms only after
+# shape at the edges of other movements are common and must not fire "entered"; nor must
+# a shape that only just passes the threshold (its agreeing hops' mean below 0.65). A
+# posture left for a moment mid-hold must not be entered again: it re-arms only after
 # POSTURE_REARM_S of low hops (20 at the usual 0.1 s hop).
-POSTURE_DEFAULT = GateSettings(threshold=0.5, agree_k=8, agree_n=10)
+POSTURE_DEFAULT = GateSettings(threshold=0.5, agree_k=8, agree_n=10, min_confidence=0.65)
 POSTURE_REARM_S = 2.0
 
 
