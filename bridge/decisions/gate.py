@@ -1,9 +1,9 @@
 """The decision layer: turns per-hop class probabilities into few, deliberate events.
 
 A dynamic gesture fires once when k of the last n hops agree on it above its threshold
-and those hops' mean probability reaches ``min_confidence``; then no gesture fires for its refractory time, and the same gesture does not fire again
-until it has re-armed: its probability below ``rearm_below`` for ``rearm_hops`` hops in a
-row. The evidence of a gesture stays in the classifier's window for up to a window's
+and those hops' mean probability reaches ``min_confidence``; then no gesture fires for its
+refractory time, and the same gesture does not fire again until it has re-armed: its
+probability below ``rearm_below`` for ``rearm_hops`` hops in a row. The evidence of a gesture stays in the classifier's window for up to a window's
 length after the movement, so a fixed quiet time shorter than that fires it twice; the
 re-arm rule waits for the evidence itself to fall away, however long the window. A
 posture that was left re-arms by the same rule before it can be entered again. A posture
