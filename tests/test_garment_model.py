@@ -282,3 +282,26 @@ def test_unseen_wearer_is_above_chance_and_below_the_five_trained_on():
     print(f"on the five {on_the_five:.3f} unseen {unseen:.3f} chance {chance:.3f}")
     assert unseen > 3 * chance
     assert unseen < on_the_five
+
+
+def test_a_host_that_clears_its_input_on_opening_still_gets_the_header():
+    # pyserial's open() clears the port's input right after opening it: a header sent the
+    # moment the host appeared would go with it. The device waits a boot time first.
+    import os
+    import termios
+
+    from bridge.garment import Jacket
+    from bridge.garment.vocabulary import GESTURES, NULL_ACTIVITIES
+    from bridge.sources.pseudodevice import BOOT_S, PseudoGarment
+    dev = PseudoGarment(Jacket(seed=3), np.random.default_rng(0), list(GESTURES), NULL_ACTIVITIES)
+    dev.step(0.0)
+    fd = os.open(dev.path, os.O_RDWR | os.O_NOCTTY | os.O_NONBLOCK)
+    try:
+        dev.step(0.05)                          # the host is seen: booting, nothing sent
+        termios.tcflush(fd, termios.TCIFLUSH)   # what the host's serial library does on open
+        dev.step(0.05 + BOOT_S + 0.1)
+        data = os.read(fd, 65536)
+    finally:
+        os.close(fd)
+    assert data.startswith(b"t_s,left_sleeve,right_sleeve,left_front,right_front\n"), data[:80]
+    assert data.count(b"\n") > 5                # and the lines after it

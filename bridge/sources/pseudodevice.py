@@ -8,9 +8,11 @@ Nothing runs behind the caller's back: no threads; the caller paces ``step``.
 
 POSIX only (pseudo-terminals).  While nobody has the port open, lines are
 discarded, as a real board's USB serial discards them with no host listening.
-When a host opens the port, the first line it gets is the channel-name header
-(``t_s,left_sleeve,...``), as from a board that starts over when its port is
-opened, so a capture names the channels as ``drape simulate`` does.
+When a host opens the port, the device starts over as a board does when its port is
+opened: nothing for ``BOOT_S``, then the channel-name header (``t_s,left_sleeve,...``)
+first, so a capture names the channels as ``drape simulate`` does. (The wait matters: a
+host's serial library clears its input right after opening the port, which would take a
+header sent at once with it.)
 """
 
 from __future__ import annotations
@@ -23,6 +25,8 @@ import numpy as np
 from ..garment.delivery import DROP_PROBABILITY, LATE_PROBABILITY, deliver
 from ..garment.jacket import Jacket, random_script
 from .textline import format_line
+
+BOOT_S = 0.25  # s from a host opening the port to the header, as a board restarting
 
 
 class PseudoGarment:
@@ -59,6 +63,7 @@ class PseudoGarment:
         self._next = 0
         self._start: float | None = None
         self._host = False  # a host has the port open (the header goes first when one comes)
+        self._boot_until = -1.0  # s since the first step: lines due before then are not sent
         names = ",".join(jacket.channel_names)
         self.header = (f"t_s,{names}" if with_time else names).encode() + b"\n"
 
@@ -85,9 +90,15 @@ class PseudoGarment:
             chunk.append(self._pending[self._next][1])
             self._next += 1
         host = self._host_present()
-        if host and not self._host:  # a host has just opened the port: the header first
-            chunk.insert(0, self.header)
+        if host and not self._host:  # a host has just opened the port: start over
+            self._boot_until = t + BOOT_S
         self._host = host
+        if host and t < self._boot_until:  # booting: these lines are lost, as on a board
+            self.discarded_lines += len(chunk)
+            return max(0.0, min(self._pending[self._next][0], self._boot_until) - t)
+        if host and self._boot_until >= 0:  # booted: the header first
+            chunk.insert(0, self.header)
+            self._boot_until = -1.0
         if chunk:
             self._write(b"".join(chunk), len(chunk))
         return max(0.0, self._pending[self._next][0] - t)
