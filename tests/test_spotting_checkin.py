@@ -163,6 +163,13 @@ def test_score_keeps_the_hops_it_counted(demo_model, tmp_path):
                          capture_output=True, text=True)
     assert run.returncode == 0, run.stderr
     assert f"wearer0: {votes_only['hit']}/{votes_only['performed']} hits, {votes_only['false']} false" in run.stdout
+    # two caches (the same troupe twice here) pool into one figure: every count doubled
+    run = subprocess.run([sys.executable, str(script), "--cache", str(tmp_path), "--cache", str(tmp_path)],
+                         capture_output=True, text=True)
+    assert run.returncode == 0, run.stderr
+    assert "pooled over 2 caches, 2 scored sessions" in run.stdout
+    assert f"{tmp_path} wearer0: {counts['hit']}/{counts['performed']} hits" in run.stdout
+    assert f"firings: {2 * counts['hit']} hits of {2 * counts['performed']} performed" in run.stdout
     empty = subprocess.run([sys.executable, str(script), "--cache", str(tmp_path), "--workflow", "checkin"],
                            capture_output=True, text=True)
     assert empty.returncode != 0 and "keeps no scored sessions" in empty.stderr
