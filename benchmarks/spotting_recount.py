@@ -8,8 +8,8 @@
 probabilities in DIR; this reads them back and counts them with the one matcher, with every
 gesture (or posture) at the given threshold on K of N hops, and the agreeing hops' mean
 probability needed (``min_confidence``; 0 turns it off). Several caches (troupes) are
-pooled into one figure. A gate chosen by looking at
-these counts is no longer held out on them: choose on development sessions, then count here.
+pooled into one figure. A gate chosen by looking at these counts is no longer held out on
+them: choose on development sessions, then count here.
 Figures only; nothing here passes or fails.
 """
 
