@@ -1,6 +1,7 @@
 """Count a spotting bench's scored sessions again at another gate, without refitting.
 
-    python benchmarks/spotting_recount.py --cache DIR [--cache DIR ...] [--workflow two-sessions|checkin]
+    python benchmarks/spotting_recount.py --cache DIR [--cache DIR ...]
+        [--workflow two-sessions|checkin|three-dressings]
         [--gestures THRESHOLD K N] [--postures THRESHOLD K N]
         [--gesture-min-confidence P] [--posture-min-confidence P]
 
@@ -18,7 +19,7 @@ from __future__ import annotations
 import argparse
 
 from bridge.evaluation.matching import format_counts, pool
-from bridge.evaluation.spotting import recount
+from bridge.evaluation.spotting import WORKFLOWS, recount
 
 
 def _gate(values, min_confidence):
@@ -34,7 +35,7 @@ def main() -> None:
     ap = argparse.ArgumentParser(description=__doc__.split("\n\n")[0])
     ap.add_argument("--cache", required=True, action="append",
                     help="the folder given to drape bench --spotting-cache; repeat to pool troupes")
-    ap.add_argument("--workflow", default="two-sessions", choices=("two-sessions", "checkin"))
+    ap.add_argument("--workflow", default="two-sessions", choices=WORKFLOWS)
     ap.add_argument("--gestures", nargs=3, metavar=("THRESHOLD", "K", "N"), help="every gesture's gate")
     ap.add_argument("--postures", nargs=3, metavar=("THRESHOLD", "K", "N"), help="every posture's entry")
     ap.add_argument("--gesture-min-confidence", type=float, metavar="P",

@@ -104,11 +104,33 @@ def test_without_a_checkin_the_fits_are_the_two_fit_sessions(monkeypatch, tmp_pa
     assert spotting.format_table(result)[-1].startswith("| unseen wearer | tuned |")
 
 
+def test_a_third_dressing_is_fitted_and_never_tuned_on(monkeypatch, tmp_path):
+    p = Protocol(**{**asdict(TINY), "checkin_reps": 0, "three_dressings": True})
+    fits, result = _recorded_fits(monkeypatch, p, tmp_path)
+    tune = f"session{ROLES['tune']}"
+    assert fits[0] == [("wearer0", "session0"), ("wearer0", "session1"), ("wearer0", tune)]
+    # the unseen wearer's model: the other wearer's three sessions, none of its own
+    assert fits[2] == [("wearer0", "session0"), ("wearer0", "session1"), ("wearer0", tune)]
+    assert "known_tuned" not in result and "unseen_tuned" not in result
+    table = spotting.format_table(result)
+    assert not any("| tuned |" in line for line in table)
+    assert table[2].startswith("| wearer0 | default gate |") and table[-1].startswith("| unseen wearer | default gate |")
+    # no tuned rescoring (it would keep nothing: a None between these)
+    assert result["kept"] == ["hops-three-dressings-wearer0.npz", "hops-three-dressings-wearer1.npz",
+                              "hops-three-dressings-unseen1.npz"]
+    # the takes do not depend on the workflow: a two-session cache serves it
+    protocol_takes(Protocol(**{**asdict(p), "three_dressings": False}), tmp_path, roles=("score",))
+    with pytest.raises(ValueError, match="choose one"):
+        spotting.run_protocol(Protocol(**{**asdict(TINY), "three_dressings": True}), "minirocket", tmp_path,
+                              progress=None, use_prior=False)
+
+
 @pytest.mark.parametrize("args, message", [
     (["--spotting-checkin", "-1"], "0 or more"),
     (["--spotting-checkin-s", "-5"], "0 or more"),
     (["--spotting-checkin", "3", "--spotting-development"], "development sessions have none"),
     (["--spotting-unseen", "0"], "--spotting-unseen must be 1 to --spotting-wearers"),
+    (["--spotting-three-dressings", "--spotting-checkin", "3"], "a workflow of its own"),
     (["--spotting-unseen", "7"], "--spotting-unseen must be 1 to --spotting-wearers"),
 ])
 def test_bad_checkin_options_are_refused_before_any_take_is_rendered(args, message, tmp_path, capsys):

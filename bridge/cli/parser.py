@@ -160,6 +160,9 @@ def build_parser() -> argparse.ArgumentParser:
                         "that wearer adds; the leave-wearer-out model adds the new wearer's (default 0: none)")
     b.add_argument("--spotting-checkin-s", type=float, default=180.0, metavar="S",
                    help="--spotting-checkin: seconds of ordinary movement in the check-in take (default 180)")
+    b.add_argument("--spotting-three-dressings", action="store_true",
+                   help="--spotting: fit each wearer's third session too, as a third dressing, instead of tuning on it "
+                        "(no tuned rows; kept hops named three-dressings)")
     b.add_argument("--spotting-unseen", type=int, default=1, metavar="N",
                    help="--spotting: leave-wearer-out for the last N wearers, each held out in turn (default 1; "
                         "each adds a fit of the others, a tune and an hour scored)")

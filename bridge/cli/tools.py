@@ -45,6 +45,9 @@ def _bench_spotting(a) -> int:
                     "--spotting-checkin-s 0 or more")
     if not 1 <= a.spotting_unseen <= a.spotting_wearers:
         return _err(f"--spotting-unseen must be 1 to --spotting-wearers ({a.spotting_wearers}), not {a.spotting_unseen}")
+    if a.spotting_three_dressings and (a.spotting_checkin or a.spotting_development):
+        return _err("--spotting-three-dressings is a workflow of its own: not with --spotting-checkin or "
+                    "--spotting-development")
     if a.spotting_checkin and a.spotting_development:
         return _err("--spotting-checkin is for the protocol's scored sessions; the development sessions have none")
     from ..recognition.classifiers import DEFAULT_CLASSIFIER
@@ -53,10 +56,12 @@ def _bench_spotting(a) -> int:
     p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min,
                  prior_wearers=0 if classifier == "linear" else a.spotting_prior,
                  prior_cue_people=0 if classifier == "linear" else a.spotting_prior_cues, prior_reps=a.spotting_prior_reps,
-                 checkin_reps=a.spotting_checkin, checkin_null_s=a.spotting_checkin_s, unseen_wearers=a.spotting_unseen)
+                 checkin_reps=a.spotting_checkin, checkin_null_s=a.spotting_checkin_s, unseen_wearers=a.spotting_unseen,
+                 three_dressings=a.spotting_three_dressings)
     cache = Path(a.spotting_cache or f"drape-spotting-{a.spotting_seed}-{a.spotting_wearers}-{a.spotting_score_min:g}")
     print(f"spotting protocol, {classifier}: {p.wearers} simulated wearers, full vocabulary; fit on 2 sessions "
-          f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), tune on a third "
+          f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), "
+          f"{'fit a third as a third dressing' if p.three_dressings else 'tune on a third'} "
           f"({p.tune_reps} + {p.tune_null_s / 60:g} min), score a fourth ({p.score_reps} + {p.score_null_s / 60:g} min); "
           f"takes cached in {cache}"
           + (f"; every fit adds {p.prior_s / 60:g} min of ordinary movement of each of {p.prior_wearers} other "

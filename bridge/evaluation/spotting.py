@@ -24,6 +24,11 @@ and noise are drawn apart), and every fit of that wearer adds it. The leave-wear
 model then adds the held-out wearer's check-in take too: a new wearer enrolled with a few
 minutes. The scored performance itself is never fitted on.
 
+Three-dressings variant (``three_dressings``): the third session is fitted as a third
+dressing instead of tuned on (each wearer's fit: the two fit sessions and that one; the
+unseen wearer's: the others' three sessions), so there are no tuned rows. What the README's
+advice to train over several dressings is measured by.
+
 Development sessions (``run_development``): session DEV_SESSION of each wearer (``dev_reps``
 repetitions and ``dev_null_s`` of ordinary movement), never scored by the protocol, on
 which the default fit is counted at its stored gate. Changes are chosen there, so that the
@@ -61,12 +66,13 @@ class Protocol:
     checkin_reps: int = 0         # check-in take in the scored session's dressing: repetitions (0: none) ...
     checkin_null_s: float = 180.0  # ... and ordinary movement, s
     unseen_wearers: int = 1       # leave-wearer-out: the last this many wearers, each held out in turn
+    three_dressings: bool = False  # the third session fitted as a third dressing instead of tuned on
 
 
 ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
 DEV_SESSION = 5                                         # the development session's number
 CHECKIN_TAKE = 1                                        # the check-in's performance key (Jacket ``take``)
-APART = ("prior_", "dev_", "checkin_", "unseen_")   # settings of takes that are named apart: a cache holds the others
+APART = ("prior_", "dev_", "checkin_", "unseen_", "three_")   # settings a cache's takes do not depend on
 
 
 def session_take(p: Protocol, wearer: int, role: str):
@@ -214,46 +220,63 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
                  progress=print, use_prior: bool = True, **options) -> dict:
     """Rows per wearer (known-wearer) and for the held-out wearer: untuned and tuned counts."""
     from .tuning import tune_model
+    if p.three_dressings and p.checkin_reps:
+        raise ValueError("a check-in take and a third fitted dressing are two workflows: choose one")
     roles = tuple(ROLES) + (("checkin",) if p.checkin_reps else ())
     takes = protocol_takes(p, cache, progress, roles=roles)
+    fitted = ("fit0", "fit1", "tune") if p.three_dressings else ("fit0", "fit1")
 
     def own(w):  # a wearer's own takes in a fit: fit sessions, and the check-in take if any
-        return [takes[(w, "fit0")], takes[(w, "fit1")]] + ([takes[(w, "checkin")]] if p.checkin_reps else [])
+        return [takes[(w, r)] for r in fitted] + ([takes[(w, "checkin")]] if p.checkin_reps else [])
+
+    def tuned(model, tune_takes, rec):   # None when the tune sessions were fitted
+        return None if p.three_dressings else score(model, rec, tune_model(model, tune_takes).settings)
+
+    def told(d, tt):
+        out = f"default {d['hit']}/{d['performed']} hits, {d['false']} false"
+        return out if tt is None else (out + f"; tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false "
+                                       f"({tt['double']} double, {tt['wrong_name']} wrong name, {tt['ordinary']} ordinary)")
     if use_prior:
         options = {**options, **prior_options(p, takes)}
     rows = {"default": [], "tuned": [], "wearers": []}
-    workflow = "checkin" if p.checkin_reps else "two-sessions"
+    workflow = workflow_name(p)
     for w in range(p.wearers):
         model = fit_model(classifier, own(w), **options)
         rows["default"].append(score(model, takes[(w, "score")], keep=Path(cache) / f"hops-{workflow}-wearer{w}.npz"))
-        t = tune_model(model, [takes[(w, "tune")]])
-        rows["tuned"].append(score(model, takes[(w, "score")], t.settings))
+        rows["tuned"].append(tuned(model, [takes[(w, "tune")]], takes[(w, "score")]))
         rows["wearers"].append(w)
         if progress:
-            d, tt = rows["default"][-1], rows["tuned"][-1]
-            progress(f"wearer{w}: default {d['hit']}/{d['performed']} hits, {d['false']} false; "
-                     f"tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false "
-                     f"({tt['double']} double, {tt['wrong_name']} wrong name, {tt['ordinary']} ordinary)")
+            progress(f"wearer{w}: " + told(rows["default"][-1], rows["tuned"][-1]))
     out = {"protocol": asdict(p), "classifier": classifier,
            "options": {k: (f"{len(v)} takes" if k in ("ordinary", "others") else str(v)) for k, v in options.items()},
-           "per_wearer": rows, "known_default": pool(rows["default"]), "known_tuned": pool(rows["tuned"])}
+           "per_wearer": rows, "known_default": pool(rows["default"])}
+    if not p.three_dressings:
+        out["known_tuned"] = pool(rows["tuned"])
     if leave_wearer_out and p.wearers > 1:
         unseen = {"default": [], "tuned": [], "wearers": []}
         for held in range(p.wearers - max(1, min(p.unseen_wearers, p.wearers)), p.wearers):
             others = [w for w in range(p.wearers) if w != held]
             enrol = [takes[(held, "checkin")]] if p.checkin_reps else []   # a new wearer's few minutes
-            model = fit_model(classifier, [takes[(w, r)] for w in others for r in ("fit0", "fit1")] + enrol, **options)
+            model = fit_model(classifier, [takes[(w, r)] for w in others for r in fitted] + enrol, **options)
             d = score(model, takes[(held, "score")], keep=Path(cache) / f"hops-{workflow}-unseen{held}.npz")
-            t = tune_model(model, [takes[(w, "tune")] for w in others])
-            tt = score(model, takes[(held, "score")], t.settings)
+            tt = tuned(model, [takes[(w, "tune")] for w in others], takes[(held, "score")])
             for key, value in (("default", d), ("tuned", tt), ("wearers", held)):
                 unseen[key].append(value)
             if progress:
-                progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: default {d['hit']}/{d['performed']} hits, "
-                         f"{d['false']} false; tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false")
+                progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: " + told(d, tt))
         out["unseen_per_wearer"] = unseen
-        out["unseen_default"], out["unseen_tuned"] = pool(unseen["default"]), pool(unseen["tuned"])
+        out["unseen_default"] = pool(unseen["default"])
+        if not p.three_dressings:
+            out["unseen_tuned"] = pool(unseen["tuned"])
     return out
+
+
+def workflow_name(p: Protocol) -> str:
+    """What a wearer's fit holds, naming the scored sessions' kept hops (``hops-{name}-*.npz``)."""
+    return "checkin" if p.checkin_reps else "three-dressings" if p.three_dressings else "two-sessions"
+
+
+WORKFLOWS = ("two-sessions", "checkin", "three-dressings")
 
 
 def run_development(p: Protocol, classifier: str, cache: str | Path, progress=print, use_prior: bool = True,
@@ -289,7 +312,8 @@ def format_development(result: dict) -> list[str]:
 
 def format_table(result: dict) -> list[str]:
     """The protocol's table in Markdown: recall and every kind of false firing with its
-    rate and 95 % interval, per wearer (tuned) and pooled."""
+    rate and 95 % interval, per wearer (tuned; the default gate when the third session was
+    fitted) and pooled."""
     lines = ["| who | setting | recall | double /h of take | wrong name /h of take | "
              "ordinary /h of ordinary movement | all false /h of take |",
              "|---|---|---|---|---|---|---|"]
@@ -300,15 +324,19 @@ def format_table(result: dict) -> list[str]:
         lines.append(f"| {who} | {setting} | {rec} | {format_rate(r['double_per_take_hour'])} | "
                      f"{format_rate(r['wrong_name_per_take_hour'])} | {format_rate(r['ordinary_per_ordinary_hour'])} | "
                      f"{format_rate(r['false_per_take_hour'])} |")
-    for w, c in zip(result["per_wearer"]["wearers"], result["per_wearer"]["tuned"]):
-        row(f"wearer{w}", "tuned", pool([c]))
+    per = result["per_wearer"]
+    was_tuned = "known_tuned" in result   # not when the third session was fitted
+    for w, c in zip(per["wearers"], per["tuned"] if was_tuned else per["default"]):
+        row(f"wearer{w}", "tuned" if was_tuned else "default gate", pool([c]))
     row("pooled, known wearers", "default gate", result["known_default"])
-    row("pooled, known wearers", "tuned", result["known_tuned"])
-    if "unseen_tuned" in result:
+    if was_tuned:
+        row("pooled, known wearers", "tuned", result["known_tuned"])
+    if "unseen_default" in result:
         new = bool(result["protocol"].get("checkin_reps"))
         in_turn = len(result.get("unseen_per_wearer", {}).get("wearers", ())) > 1
         who = (("new wearer" if new else "unseen wearer") + ("s, each held out in turn" if in_turn else "")
                + (", check-in take only" if new else ""))
         row(who, "default gate", result["unseen_default"])
-        row(who, "tuned", result["unseen_tuned"])
+        if "unseen_tuned" in result:
+            row(who, "tuned", result["unseen_tuned"])
     return lines
