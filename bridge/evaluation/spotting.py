@@ -232,7 +232,7 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
     def tuned(model, tune_takes, rec):   # None when the tune sessions were fitted
         return None if p.three_dressings else score(model, rec, tune_model(model, tune_takes).settings)
 
-    def told(d, tt):
+    def said(d, tt):   # the progress line of one scored wearer
         out = f"default {d['hit']}/{d['performed']} hits, {d['false']} false"
         return out if tt is None else (out + f"; tuned {tt['hit']}/{tt['performed']} hits, {tt['false']} false "
                                        f"({tt['double']} double, {tt['wrong_name']} wrong name, {tt['ordinary']} ordinary)")
@@ -246,7 +246,7 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
         rows["tuned"].append(tuned(model, [takes[(w, "tune")]], takes[(w, "score")]))
         rows["wearers"].append(w)
         if progress:
-            progress(f"wearer{w}: " + told(rows["default"][-1], rows["tuned"][-1]))
+            progress(f"wearer{w}: " + said(rows["default"][-1], rows["tuned"][-1]))
     out = {"protocol": asdict(p), "classifier": classifier,
            "options": {k: (f"{len(v)} takes" if k in ("ordinary", "others") else str(v)) for k, v in options.items()},
            "per_wearer": rows, "known_default": pool(rows["default"])}
@@ -263,7 +263,7 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
             for key, value in (("default", d), ("tuned", tt), ("wearers", held)):
                 unseen[key].append(value)
             if progress:
-                progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: " + told(d, tt))
+                progress(f"{'new' if p.checkin_reps else 'unseen'} wearer{held}: " + said(d, tt))
         out["unseen_per_wearer"] = unseen
         out["unseen_default"] = pool(unseen["default"])
         if not p.three_dressings:
