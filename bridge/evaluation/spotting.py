@@ -218,7 +218,8 @@ def fit_model(classifier: str, recs, **options):
 
 def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_out: bool = True,
                  progress=print, use_prior: bool = True, **options) -> dict:
-    """Rows per wearer (known-wearer) and for the held-out wearer: untuned and tuned counts."""
+    """Rows per wearer (known-wearer) and for the held-out wearer: counts at the default gate,
+    and tuned counts unless the third session was fitted (``three_dressings``)."""
     from .tuning import tune_model
     if p.three_dressings and p.checkin_reps:
         raise ValueError("a check-in take and a third fitted dressing are two workflows: choose one")
@@ -226,7 +227,7 @@ def run_protocol(p: Protocol, classifier: str, cache: str | Path, leave_wearer_o
     takes = protocol_takes(p, cache, progress, roles=roles)
     fitted = ("fit0", "fit1", "tune") if p.three_dressings else ("fit0", "fit1")
 
-    def own(w):  # a wearer's own takes in a fit: fit sessions, and the check-in take if any
+    def own(w):  # a wearer's own takes in a fit: the fitted sessions, and the check-in take if any
         return [takes[(w, r)] for r in fitted] + ([takes[(w, "checkin")]] if p.checkin_reps else [])
 
     def tuned(model, tune_takes, rec):   # None when the tune sessions were fitted
