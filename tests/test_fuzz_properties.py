@@ -1,7 +1,7 @@
 """Property-based tests of the loaders and ports that read outside input: whatever arrives,
 only the loader's own error type comes out (MappingError, ModelError, ProtocolUndecided), and
 the control port never raises and never acts without its token. Examples are kept few here;
-`drape bench --fuzz N` runs millions (see DEVELOPERS.md)."""
+`drape bench --fuzz N` runs millions (see docs/robustness.md)."""
 
 import io
 import json

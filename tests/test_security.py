@@ -1,4 +1,4 @@
-"""Security review checks (DEVELOPERS.md, "Security review"): no code from data, the control
+"""Security review checks (docs/security.md): no code from data, the control
 port's guard, no network path to the keyboard, config paths resolved, the service unit."""
 
 import inspect
