@@ -154,6 +154,10 @@ def build_parser() -> argparse.ArgumentParser:
                         "as drape fit adds them (default 6, the same people; 0 for none)")
     b.add_argument("--spotting-prior-reps", type=int, default=1, metavar="R",
                    help="--spotting: how often each of those people performs every gesture (default 1; 0 for none)")
+    b.add_argument("--spotting-layout", metavar="FILE",
+                   help="--spotting: the wearers' garment as a cable layout (TOML, see examples/layouts), with "
+                        "how steadily each cable sits between dressings (turn_spread_deg, gap_spread_mm, "
+                        "slide_spread_mm); default: the built-in jacket")
     b.add_argument("--spotting-checkin", type=int, default=0, metavar="R",
                    help="--spotting: each wearer, dressed for the scored session, first records a check-in take "
                         "(every gesture R times + --spotting-checkin-s of ordinary movement) that every fit of "

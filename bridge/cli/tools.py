@@ -52,18 +52,33 @@ def _bench_spotting(a) -> int:
         return _err("--spotting-checkin is for the protocol's scored sessions; the development sessions have none")
     from ..recognition.classifiers import DEFAULT_CLASSIFIER
     classifier = (a.classifier or [DEFAULT_CLASSIFIER])[0]
+    garment = ""
+    if a.spotting_layout:
+        from ..garment import LayoutError, default_layout, load_layout
+        try:
+            layout = load_layout(a.spotting_layout)
+        except LayoutError as exc:
+            return _err(str(exc))
+        built_in = default_layout().channel_names
+        if (layout.channel_names != built_in and classifier != "linear"
+                and (a.spotting_prior or (a.spotting_prior_cues and a.spotting_prior_reps))):
+            return _err(f"{a.spotting_layout}: its cables ({', '.join(layout.channel_names)}) are not the built-in "
+                        f"jacket's ({', '.join(built_in)}) that the simulated people wear; name them so, or add "
+                        "--spotting-prior 0 --spotting-prior-cues 0")
+        garment = Path(a.spotting_layout).read_text(encoding="utf-8")
     # linear takes no ordinary-movement takes (drape fit refuses --ordinary for it)
     p = Protocol(wearers=a.spotting_wearers, seed=a.spotting_seed, score_null_s=60.0 * a.spotting_score_min,
                  prior_wearers=0 if classifier == "linear" else a.spotting_prior,
                  prior_cue_people=0 if classifier == "linear" else a.spotting_prior_cues, prior_reps=a.spotting_prior_reps,
                  checkin_reps=a.spotting_checkin, checkin_null_s=a.spotting_checkin_s, unseen_wearers=a.spotting_unseen,
-                 three_dressings=a.spotting_three_dressings)
+                 three_dressings=a.spotting_three_dressings, garment=garment)
     cache = Path(a.spotting_cache or f"drape-spotting-{a.spotting_seed}-{a.spotting_wearers}-{a.spotting_score_min:g}")
     print(f"spotting protocol, {classifier}: {p.wearers} simulated wearers, full vocabulary; fit on 2 sessions "
           f"({p.fit_reps} repetitions + {p.fit_null_s / 60:g} min ordinary movement each), "
           f"{'fit a third as a third dressing' if p.three_dressings else 'tune on a third'} "
           f"({p.tune_reps} + {p.tune_null_s / 60:g} min), score a fourth ({p.score_reps} + {p.score_null_s / 60:g} min); "
           f"takes cached in {cache}"
+          + (f"; the wearers' garment: {layout.name} ({a.spotting_layout})" if garment else "")
           + (f"; every fit adds {p.prior_s / 60:g} min of ordinary movement of each of {p.prior_wearers} other "
              "simulated people" if p.prior_wearers else "")
           + (f"; every fit adds {p.prior_reps} performance(s) of each gesture by each of {p.prior_cue_people} other "

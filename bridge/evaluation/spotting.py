@@ -67,6 +67,7 @@ class Protocol:
     checkin_null_s: float = 180.0  # ... and ordinary movement, s
     unseen_wearers: int = 1       # leave-wearer-out: the last this many wearers, each held out in turn
     three_dressings: bool = False  # the third session fitted as a third dressing instead of tuned on
+    garment: str = ""             # the wearers' jacket as layout TOML text (``garment.load_layout``); "": built-in
 
 
 ROLES = {"fit0": 0, "fit1": 1, "tune": 2, "score": 3}   # role -> session number
@@ -91,8 +92,18 @@ def session_take(p: Protocol, wearer: int, role: str):
     rng = np.random.default_rng([p.seed, wearer, session, 29] + ([] if perf is None else [perf]))
     script = training_script(rng, reps, list(gestures), null_activities=tuple(nulls)) + \
         ordinary_script(rng, null_s, nulls)
-    take = Jacket(seed=p.seed, wearer=wearer, session=session, take=perf).perform(script)
+    take = Jacket(seed=p.seed, wearer=wearer, session=session, take=perf, layout=garment_layout(p)).perform(script)
     return Recording.from_take(take, dict(gestures))
+
+
+def garment_layout(p: Protocol):
+    """The wearers' cable layout (None: the built-in four cables). The simulated people added
+    to fits wear the built-in jacket, as ``drape fit`` adds them."""
+    if not p.garment:
+        return None
+    import tomllib
+    from ..garment.layout import parse_layout
+    return parse_layout(tomllib.loads(p.garment), "the protocol's garment")
 
 
 def prior_take(p: Protocol, k: int):
@@ -121,7 +132,9 @@ def protocol_takes(p: Protocol, cache: str | Path, progress=None, roles=tuple(RO
     folder.mkdir(parents=True, exist_ok=True)
     stamp = folder / "protocol.json"
     sessions = {k: v for k, v in asdict(p).items() if not k.startswith(APART)}
-    if stamp.exists() and {k: v for k, v in json.loads(stamp.read_text()).items() if not k.startswith(APART)} != sessions:
+    # Settings added since a cache was written take their defaults (its takes were rendered so).
+    if stamp.exists() and {k: v for k, v in {**asdict(Protocol()), **json.loads(stamp.read_text())}.items()
+                           if not k.startswith(APART)} != sessions:
         raise ValueError(f"{folder} holds takes of another protocol; give an empty folder")
     stamp.write_text(json.dumps(asdict(p), indent=1))
     out = {}

@@ -45,6 +45,10 @@ class SleeveLayout:
     gap_m: float  # cloth gap around the limb for an average girth
     natural_hz: float = 3.5  # cloth sway resonance
     damping: float = 0.5  # cloth is well damped by air and friction
+    # How differently it sits each time the jacket is put on (one standard deviation; ``draw_fit``).
+    turn_spread_rad: float = 0.15  # about the arm: a loose sleeve turns freely
+    gap_spread_m: float = 0.004    # standing off the arm
+    slide_spread_m: float = 0.012  # along the arm
 
 
 @dataclass(frozen=True)
@@ -61,6 +65,9 @@ class PanelLayout:
     gaps_m: tuple[float, ...]
     natural_hz: float = 2.0
     damping: float = 0.5
+    turn_spread_rad: float = 0.05  # around the torso: a panel is held by the shoulders
+    gap_spread_m: float = 0.004
+    slide_spread_m: float = 0.012  # up the torso
 
 
 def _lin(a: float, b: float, n: int) -> tuple[float, ...]:
@@ -90,16 +97,20 @@ class Fit:
 def draw_fit(rng: np.random.Generator, names, cables=None) -> dict[str, Fit]:
     """Draw each cable's placement for one session (jacket put on anew).
 
-    ``cables`` maps names to their layouts (default: the built-in ``LAYOUTS``).
+    ``cables`` maps names to their layouts (default: the built-in ``LAYOUTS``); each
+    cable's ``*_spread_*`` fields are the standard deviations of its slide, turn and gap
+    (the built-in values are our guesses, not measured on cloth). Draws are clipped to
+    ±30 mm, ±0.4 rad and ±8 mm. The same generator state gives the same unit draws
+    whatever the spreads, so halving a spread halves every unclipped placement.
     """
     cables = LAYOUTS if cables is None else cables
     fits = {}
     for name in names:
-        sleeve = isinstance(cables[name], SleeveLayout)
+        c = cables[name]
         fits[name] = Fit(
-            slide_m=float(np.clip(rng.normal(0.0, 0.012), -0.03, 0.03)),
-            turn_rad=float(np.clip(rng.normal(0.0, 0.15 if sleeve else 0.05), -0.4, 0.4)),
-            gap_m=float(np.clip(rng.normal(0.0, 0.004), -0.008, 0.008)),
+            slide_m=float(np.clip(rng.normal(0.0, c.slide_spread_m), -0.03, 0.03)),
+            turn_rad=float(np.clip(rng.normal(0.0, c.turn_spread_rad), -0.4, 0.4)),
+            gap_m=float(np.clip(rng.normal(0.0, c.gap_spread_m), -0.008, 0.008)),
         )
     return fits
 

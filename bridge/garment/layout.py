@@ -22,6 +22,14 @@ the torso part of the jacket (front panels, back, collar, hem)::
     path = [[0.8, 31.5, 12], [0.15, 31.5, 35]]
     points = 8                # vertices the polyline is resampled to (more: finer, slower)
 
+Any cable may also say how differently it sits each time the garment is put on, one
+standard deviation of each (defaults: a loose jacket, our guesses, not measured on cloth)::
+
+    turn_spread_deg = 8.6     # about the limb (sleeves) or the torso (panels: 2.9)
+    gap_spread_mm = 4         # standing off the body
+    slide_spread_mm = 12      # along the limb, or up the torso
+
+A cable sewn down so that it cannot turn or stand off gets smaller spreads.
 The order of the cables is the order of the channels.  Errors name the file,
 the cable and what to change.
 """
@@ -38,8 +46,9 @@ import numpy as np
 from .antennas import ANTENNA_ORDER, LAYOUTS, PanelLayout, SleeveLayout
 
 MIN_CABLES, MAX_CABLES = 2, 16
-_SLEEVE_KEYS = {"name", "on", "side", "upper_arm", "forearm", "around_deg", "gap_mm", "points", "sway_hz"}
-_TORSO_KEYS = {"name", "on", "path", "points", "sway_hz"}
+_SPREAD_KEYS = {"turn_spread_deg", "gap_spread_mm", "slide_spread_mm"}
+_SLEEVE_KEYS = {"name", "on", "side", "upper_arm", "forearm", "around_deg", "gap_mm", "points", "sway_hz"} | _SPREAD_KEYS
+_TORSO_KEYS = {"name", "on", "path", "points", "sway_hz"} | _SPREAD_KEYS
 
 
 class LayoutError(ValueError):
@@ -137,6 +146,23 @@ def _span(table: dict, key: str, here: str) -> tuple[float, float] | None:
     return float(v[0]), float(v[1])
 
 
+def _spreads(table: dict, here: str, default: SleeveLayout | PanelLayout) -> dict:
+    """The cable's dressing spreads in SI units; absent keys keep ``default``'s. The upper
+    limits are the clips of ``antennas.draw_fit``: a larger spread would only pile draws there."""
+    out = {}
+    if "turn_spread_deg" in table:
+        out["turn_spread_rad"] = math.radians(_number(table, "turn_spread_deg", here, 0.0, 0.0, 23.0))
+    if "gap_spread_mm" in table:
+        out["gap_spread_m"] = _number(table, "gap_spread_mm", here, 0.0, 0.0, 8.0) / 1000.0
+    if "slide_spread_mm" in table:
+        out["slide_spread_m"] = _number(table, "slide_spread_mm", here, 0.0, 0.0, 30.0) / 1000.0
+    return {k: out.get(k, getattr(default, k)) for k in ("turn_spread_rad", "gap_spread_m", "slide_spread_m")}
+
+
+_LOOSE_SLEEVE = SleeveLayout("left", (), (), 0.0, 0.0)   # the default spreads of each kind
+_LOOSE_PANEL = PanelLayout((), (), ())
+
+
 def _sleeve(table: dict, here: str) -> SleeveLayout:
     _unknown(table, _SLEEVE_KEYS, here)
     side = table.get("side")
@@ -165,6 +191,7 @@ def _sleeve(table: dict, here: str) -> SleeveLayout:
         angle_rad=math.radians(_number(table, "around_deg", here, -23.0, -180.0, 180.0)),
         gap_m=_number(table, "gap_mm", here, 22.0, 2.0, 80.0) / 1000.0,
         natural_hz=_number(table, "sway_hz", here, 3.5, 0.5, 20.0),
+        **_spreads(table, here, _LOOSE_SLEEVE),
     )
 
 
@@ -197,4 +224,5 @@ def _torso(table: dict, here: str) -> PanelLayout:
         azimuths_rad=tuple(math.radians(a) for a in col[1]),
         gaps_m=tuple(g / 1000.0 for g in col[2]),
         natural_hz=_number(table, "sway_hz", here, 2.0, 0.5, 20.0),
+        **_spreads(table, here, _LOOSE_PANEL),
     )
