@@ -55,3 +55,17 @@ def test_evaluate_into_a_reader_that_stops_early_ends_without_a_traceback(take_f
     err = proc.stderr.read()
     assert proc.wait(timeout=120) == 0, err
     assert "Traceback" not in err and "BrokenPipe" not in err
+
+
+def test_a_bench_whose_reader_stops_early_ends_without_a_traceback(tmp_path):
+    # `drape bench --spotting ... | head -1`: the reader is gone after the first line.
+    import subprocess
+
+    from tests.conftest import drape_cmd
+    proc = subprocess.Popen(drape_cmd("bench", "--spotting", "--spotting-wearers", "2", "--spotting-score-min", "0.1",
+                                      "--spotting-cache", str(tmp_path / "c")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    proc.stdout.close()
+    err = proc.stderr.read()
+    assert proc.wait(timeout=300) == 141, err
+    assert "Traceback" not in err and "standard output was closed" in err

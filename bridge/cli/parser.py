@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import sys
 import time
 
 from .data import cmd_capture, cmd_check, cmd_range, cmd_replay, cmd_simulate
@@ -286,4 +287,10 @@ def main(argv=None) -> int:
     if not getattr(a, "func", None):
         parser.print_help()
         return 2
-    return a.func(a)
+    try:
+        return a.func(a)
+    except BrokenPipeError:   # the reader went away (`| head`); the live loops keep going on their own
+        from .models import _stdout_to_devnull
+        _stdout_to_devnull()
+        print("drape: standard output was closed; stopped", file=sys.stderr)
+        return 141            # 128 + SIGPIPE, as a shell reports a command a closed pipe stopped
