@@ -30,4 +30,3 @@ def test_a_missing_midi_system_leaves_the_other_destinations_running(capsys):
     _close_outputs(outputs)
     assert "output show: sent 1, dropped 0" in capsys.readouterr().err
     r.close()
-

@@ -148,4 +148,3 @@ def test_the_snug_example_is_the_built_in_jacket_with_half_the_sleeve_spreads():
         for field in ("angle_rad", "gap_m", "azimuths_rad", "gaps_m", "heights_frac"):
             if hasattr(built_in, field):
                 assert np.allclose(getattr(cable, field), getattr(built_in, field), rtol=0, atol=1e-12)
-
