@@ -11,6 +11,38 @@ def _err(msg: str) -> int:
     return 2
 
 
+def _output_problem(path, inputs=(), model: bool = False) -> str:
+    """Why ``path`` cannot be written ("" when it can), checked before any work is done: a
+    folder, a folder that does not exist or cannot be written, one of the ``inputs`` (a take
+    written over is lost), or with ``model`` an existing file that is not a model (.npz)."""
+    import os
+    from pathlib import Path
+    out = Path(path)
+    if out.is_dir():
+        return f"{out} is a folder; give a file name"
+    parent = out.parent if str(out.parent) else Path(".")
+    if not parent.is_dir():
+        return f"cannot write {out}: the folder {parent} does not exist"
+    if not os.access(parent, os.W_OK):
+        return f"cannot write {out}: the folder {parent} is not writable"
+    for given in inputs:
+        try:
+            same = Path(given).exists() and out.exists() and out.samefile(given)
+        except OSError:
+            same = False
+        if same:
+            return f"{out} is one of the files read; writing there would replace it: give another name"
+    if model and out.is_file():
+        try:
+            with open(out, "rb") as f:
+                head = f.read(2)
+        except OSError as exc:
+            return f"cannot write {out}: {exc.strerror}"
+        if head and head != b"PK":   # a model is a .npz, a zip archive
+            return f"{out} exists and is not a model file; give another name"
+    return ""
+
+
 def _stop_on_signals(flag, reload: bool = False):
     """Every signal that ends the process only sets the flag: the loop then lets go of
     every key and note and puts lights to their safe look before it exits. SIGHUP (a

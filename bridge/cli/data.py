@@ -6,7 +6,7 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _plural, _stop_on_signals
+from .common import _err, _output_problem, _plural, _stop_on_signals
 
 
 class _Keys:
@@ -76,6 +76,9 @@ def cmd_capture(a) -> int:
     out = Path(a.out or f"{wearer}-{session}{'-checkin' if a.check_in else ''}.take")
     if out.exists() and not a.overwrite:
         return _err(f"{out} exists; choose another --out or pass --overwrite")
+    problem = _output_problem(out)
+    if problem:
+        return _err(problem)
 
     stop = StopFlag()
     if a.simulated:
@@ -159,6 +162,9 @@ def cmd_replay(a) -> int:
         mapping = load_mapping(a.mapping, model.classes, model.kinds) if a.mapping else None
     except (ModelError, RecordingError, MappingError) as exc:
         return _err(str(exc))
+    from ..mapping.watcher import nothing_to_send
+    if nothing_to_send(mapping, a.mapping):
+        print(f"drape: {a.mapping}: no destinations and no rules; nothing is sent", file=sys.stderr)
     from ..sources.replay import ReplaySource
 
     pipe = Pipeline(model, mapping)
@@ -268,6 +274,11 @@ def cmd_simulate(a) -> int:
         print(f"{out}: troupe of {a.wearers or 1} wearers x {a.sessions or 1} sessions, {vocabulary} vocabulary "
               f"({len(gestures)} gestures and postures, {len(nulls)} null kinds), listed in troupe.json")
         return 0
+    if Path(a.out).exists() and not a.overwrite:
+        return _err(f"{a.out} exists; choose another --out or pass --overwrite")
+    problem = _output_problem(a.out)
+    if problem:
+        return _err(problem)
     jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session, rate_hz=a.rate_hz, layout=layout)
     rng = np.random.default_rng([a.seed, a.wearer, a.session, 3])
     # Training repetitions, then ordinary movement (null activity), then a random performance.
@@ -352,6 +363,9 @@ def cmd_check(a) -> int:
                                model.channel_names if model else None)
     except (ModelError, MappingError) as exc:
         return _err(str(exc))
+    from ..mapping.watcher import nothing_to_send
+    if nothing_to_send(mapping, a.file):
+        return _err(f"{a.file}: no destinations and no rules: a running daemon would send nothing")
     print(f"{a.file}: OK, {_plural(len(mapping.rules), 'rule')}, {_plural(len(mapping.controls), 'continuous control')}"
           + ("" if model else " (not checked against a model: give --model to check gestures and channels)"))
     print("destinations:")
@@ -385,6 +399,10 @@ def cmd_range(a) -> int:
     from ..decisions import RangeError, capture_range
     from ..signal import Conditioner
     from ..sources.base import SourceGone
+
+    problem = _output_problem(a.out, [a.model] if a.model else [])
+    if problem:
+        return _err(problem)
 
     try:
         if a.port:

@@ -115,7 +115,9 @@ def _close_outputs(outputs) -> None:
         o.close()
         s = o.stats
         err = f"; last error: {s.last_error}" if s.last_error else ""
-        print(f"drape: output {name}: sent {s.sent}, dropped {s.dropped}{err}", file=sys.stderr, flush=True)
+        let_go = getattr(getattr(o, "inner", o), "stats", s).on_close
+        print(f"drape: output {name}: sent {s.sent}, dropped {s.dropped}{err}" + (f"; on stop: {let_go}" if let_go else ""),
+              file=sys.stderr, flush=True)
 
 
 def cmd_demo(a) -> int:
@@ -160,6 +162,9 @@ def cmd_demo(a) -> int:
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
     mapping = watcher.mapping
+    from ..mapping.watcher import nothing_to_send
+    if nothing_to_send(mapping, mapping_path):
+        _report(nothing_to_send(mapping, mapping_path))
     try:
         stop = _stop_flag(a.pid_file)  # before anything is held: every ending lets go
     except OSError as exc:
@@ -285,6 +290,9 @@ def cmd_start(a) -> int:
         return _err(str(exc))
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
+    from ..mapping.watcher import nothing_to_send
+    if nothing_to_send(mapping, cfg.mapping):
+        _report(nothing_to_send(mapping, cfg.mapping))
 
     def said(connected, message):
         print(f"drape: {cfg.port}: {message}", file=sys.stderr, flush=True)

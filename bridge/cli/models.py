@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from .common import _err, _plural, _report
+from .common import _err, _output_problem, _plural, _report
 
 
 def _progress(desc: str):
@@ -72,6 +72,9 @@ def cmd_fit(a) -> int:
 
     if bool(a.recordings) == bool(a.ts):
         return _err("give take files or --ts TRAIN.ts (one of the two)")
+    problem = _output_problem(a.output, [*a.recordings, *a.ordinary, *([a.ts] if a.ts else [])], model=True)
+    if problem:
+        return _err(problem)
     options = {}
     edges = getattr(a, "edges", None)
     if edges:
@@ -243,6 +246,9 @@ def cmd_tune(a) -> int:
     from ..recognition import ModelError, load_model
     from ..sources import RecordingError, read_recording
 
+    problem = _output_problem(a.output or a.model, a.recordings, model=True)
+    if problem:
+        return _err(problem)
     try:
         model = load_model(a.model)
         recs = [read_recording(p) for p in a.recordings]

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import argparse
+import math
 import sys
 import time
 
@@ -30,14 +31,35 @@ VERBS = {
 }
 
 
+def _checked(convert, ok, what: str):
+    """An argparse type: ``convert`` the text, then refuse it unless ``ok(value)``, saying ``what``."""
+    def parse(text: str):
+        try:
+            value = convert(text)
+        except ValueError:
+            raise argparse.ArgumentTypeError(f"must be {what}, got {text!r}") from None
+        if not ok(value):
+            raise argparse.ArgumentTypeError(f"must be {what}, got {text!r}")
+        return value
+    parse.__name__ = what   # argparse names the type in some messages
+    return parse
+
+
+_POSITIVE = _checked(float, lambda v: math.isfinite(v) and v > 0, "a number above 0")
+_NON_NEGATIVE = _checked(float, lambda v: math.isfinite(v) and v >= 0, "a number, 0 or more")
+_COUNT = _checked(int, lambda v: v >= 1, "a whole number, 1 or more")
+_NON_NEGATIVE_INT = _checked(int, lambda v: v >= 0, "a whole number, 0 or more")
+_PORT = _checked(int, lambda v: 1 <= v <= 65535, "a UDP port, 1 to 65535")
+
+
 def build_parser() -> argparse.ArgumentParser:
     p = argparse.ArgumentParser(prog="drape", description="Postures and gestures from textile antennas, as live control messages.")
     sub = p.add_subparsers(dest="verb", metavar="VERB")
     d = sub.add_parser("demo", help=VERBS["demo"], description=VERBS["demo"])
-    d.add_argument("--for", dest="for_s", type=float, default=None, metavar="SECONDS", help="stop after this many seconds")
+    d.add_argument("--for", dest="for_s", type=_POSITIVE, default=None, metavar="SECONDS", help="stop after this many seconds")
     d.add_argument("--mapping", help="mapping file (default mappings/demo.toml)")
-    d.add_argument("--seed", type=int, default=1)
-    d.add_argument("--wearer", type=int, default=0)
+    d.add_argument("--seed", type=_NON_NEGATIVE_INT, default=1)
+    d.add_argument("--wearer", type=_NON_NEGATIVE_INT, default=0)
     d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
     d.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
     d.add_argument("--model", help="use this model of the simulated jacket instead of training one first")
@@ -55,10 +77,10 @@ def build_parser() -> argparse.ArgumentParser:
     s.set_defaults(func=cmd_start)
     w = sub.add_parser("watch", help=VERBS["watch"], description=VERBS["watch"] +
                        ". Add this address to the daemon's [status] to = [...] list.")
-    w.add_argument("--port", type=int, default=9200, help="UDP port the status stream comes to (default 9200)")
+    w.add_argument("--port", type=_PORT, default=9200, help="UDP port the status stream comes to (default 9200)")
     w.add_argument("--host", default="127.0.0.1", help="address to listen on (default 127.0.0.1)")
     w.add_argument("--once", action="store_true", help="print one plain frame once every garment was heard, then exit")
-    w.add_argument("--wait-s", type=float, default=5.0, help="--once: give up after this long, s")
+    w.add_argument("--wait-s", type=_POSITIVE, default=5.0, help="--once: give up after this long, s")
     w.set_defaults(func=cmd_watch)
     n = sub.add_parser("send", help=VERBS["send"], description=VERBS["send"] +
                        ". Network commands never press keys.")
@@ -66,11 +88,11 @@ def build_parser() -> argparse.ArgumentParser:
     n.add_argument("layer", nargs="?", help="layer: the layer's name")
     n.add_argument("--garment", default="", help="only this garment (default: every garment)")
     n.add_argument("--to", default="127.0.0.1:9100", help="the daemon's control port (default 127.0.0.1:9100)")
-    n.add_argument("--port", type=int, help="shorthand for --to 127.0.0.1:PORT")
+    n.add_argument("--port", type=_PORT, help="shorthand for --to 127.0.0.1:PORT")
     n.add_argument("--token", default="", help="the shared token, when the daemon's port has one (other users can "
                    "see it in the process list: prefer DRAPE_TOKEN or --token-file)")
     n.add_argument("--token-file", metavar="FILE", help="read the token from this file")
-    n.add_argument("--wait-s", type=float, default=1.0, help="how long to wait for the daemon's answer, s (default 1)")
+    n.add_argument("--wait-s", type=_POSITIVE, default=1.0, help="how long to wait for the daemon's answer, s (default 1)")
     n.set_defaults(func=cmd_send)
     from ..recognition.classifiers import CLASSIFIERS, DEFAULT_CLASSIFIER
     f = sub.add_parser("fit", help=VERBS["fit"], description=VERBS["fit"])
@@ -80,10 +102,10 @@ def build_parser() -> argparse.ArgumentParser:
                    help="minirocket (default: convolution features, trained against false cues), "
                         "linear (tiny) or dtw (few-shot templates)")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
-    f.add_argument("--window-s", type=float, default=None,
+    f.add_argument("--window-s", type=_POSITIVE, default=None,
                    help="window length, s (default: room for the labelled gestures, at least 2 s)")
-    f.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
-    f.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
+    f.add_argument("--hop-s", type=_POSITIVE, default=0.1, help="hop between windows, s")
+    f.add_argument("--band-hz", type=_POSITIVE, nargs=2, metavar=("LOW", "HIGH"),
                    help="band-pass edges, Hz (default 1 to 10 Hz, the upper edge lowered to 0.4 × the rate "
                         "for slow sources); stored in the model")
     f.add_argument("--ordinary", metavar="TAKE", nargs="+", action="extend", default=[],
@@ -113,29 +135,29 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--ts", metavar="TEST.ts", help="cases to score --model on (resampled to its window)")
     e.add_argument("--json", action="store_true", help="print a machine-readable summary")
     e.add_argument("--report", metavar="DIR", help="write an HTML report with pictures into DIR (needs matplotlib)")
-    e.add_argument("--window-s", type=float, default=None, help="window length, s (as drape fit)")
-    e.add_argument("--hop-s", type=float, default=0.1, help="hop between windows, s")
-    e.add_argument("--band-hz", type=float, nargs=2, metavar=("LOW", "HIGH"),
+    e.add_argument("--window-s", type=_POSITIVE, default=None, help="window length, s (as drape fit)")
+    e.add_argument("--hop-s", type=_POSITIVE, default=0.1, help="hop between windows, s")
+    e.add_argument("--band-hz", type=_POSITIVE, nargs=2, metavar=("LOW", "HIGH"),
                    help="band-pass edges, Hz (as drape fit)")
     e.set_defaults(func=cmd_evaluate)
     b = sub.add_parser("bench", help=VERBS["bench"], description=VERBS["bench"])
-    b.add_argument("--channels", type=int, nargs="+", default=[4, 8])
-    b.add_argument("--hops", type=int, default=200, help="hops timed per classifier and channel count")
-    b.add_argument("--replay-s", type=float, default=300.0, help="length of the replayed take, s (0 to skip)")
-    b.add_argument("--fit-minutes", type=float, default=30.0, help="minutes of 4-channel data to time fitting on (0 to skip)")
+    b.add_argument("--channels", type=_COUNT, nargs="+", default=[4, 8])
+    b.add_argument("--hops", type=_COUNT, default=200, help="hops timed per classifier and channel count")
+    b.add_argument("--replay-s", type=_NON_NEGATIVE, default=300.0, help="length of the replayed take, s (0 to skip)")
+    b.add_argument("--fit-minutes", type=_NON_NEGATIVE, default=30.0, help="minutes of 4-channel data to time fitting on (0 to skip)")
     b.add_argument("--classifier", action="append", choices=tuple(CLASSIFIERS), help="only this one (repeatable)")
     b.add_argument("--continuous-only", action="store_true", help="only the continuous-control figures")
     b.add_argument("--compare", action="store_true",
                    help="also time the reference implementations in the same run and print ratios "
                         "(the numba MiniRocket needs the compare extra)")
-    b.add_argument("--batch-windows", type=int, default=1000,
+    b.add_argument("--batch-windows", type=_NON_NEGATIVE_INT, default=1000,
                    help="windows of the batch minirocket transform figure (0 to skip)")
     b.add_argument("--live", action="store_true",
                    help="end to end instead: simulated garments through ptys into `drape start`, out to loopback OSC "
                         "(arrival → send overhead, jitter, daemon CPU and memory)")
-    b.add_argument("--live-s", type=float, default=30.0, help="--live: seconds of stream (the target is for 600)")
-    b.add_argument("--live-garments", type=int, default=4, help="--live: garments in the one daemon (default 4)")
-    b.add_argument("--soak", type=float, metavar="HOURS",
+    b.add_argument("--live-s", type=_POSITIVE, default=30.0, help="--live: seconds of stream (the target is for 600)")
+    b.add_argument("--live-garments", type=_COUNT, default=4, help="--live: garments in the one daemon (default 4)")
+    b.add_argument("--soak", type=_POSITIVE, metavar="HOURS",
                    help="soak instead: HOURS of simulated performance through the live loop, memory and replay check")
     b.add_argument("--soak-model", metavar="MODEL", help="--soak: a model of simulated wearer 1 (default: train one)")
     b.add_argument("--soak-out", metavar="DIR", help="--soak: keep the captured take and live events in DIR")
@@ -145,7 +167,7 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--spotting-wearers", type=int, default=6, help="--spotting: simulated wearers (default 6)")
     b.add_argument("--spotting-score-min", type=float, default=60.0,
                    help="--spotting: minutes of ordinary movement in each scored session (default 60)")
-    b.add_argument("--spotting-seed", type=int, default=1)
+    b.add_argument("--spotting-seed", type=_NON_NEGATIVE_INT, default=1)
     b.add_argument("--spotting-prior", type=int, default=6, metavar="N",
                    help="--spotting: add 10 minutes of ordinary movement of each of N other simulated people to "
                         "every minirocket fit (default 6: at the default seed, the very people drape fit adds to "
@@ -176,12 +198,12 @@ def build_parser() -> argparse.ArgumentParser:
                         "session (3 repetitions + 30 min) that the protocol never scores: where changes are chosen")
     b.add_argument("--spotting-cache", metavar="DIR", help="--spotting: folder for the rendered takes (kept for reruns) and each scored session's hop probabilities")
     b.add_argument("--spotting-json", metavar="FILE", help="--spotting: also write the full result as JSON")
-    b.add_argument("--fuzz", type=int, metavar="N", help="fuzz instead: N mutated inputs into each parser")
+    b.add_argument("--fuzz", type=_COUNT, metavar="N", help="fuzz instead: N mutated inputs into each parser")
     b.add_argument("--fuzz-target", action="append", choices=("text", "frames", "osc", "control", "mapping", "model"),
                    help="--fuzz: only this parser (repeatable)")
-    b.add_argument("--fuzz-seed", type=int, default=1, help="--fuzz: mutator seed (same seed, same inputs)")
+    b.add_argument("--fuzz-seed", type=_NON_NEGATIVE_INT, default=1, help="--fuzz: mutator seed (same seed, same inputs)")
     b.add_argument("--fuzz-crashes", metavar="DIR", help="--fuzz: save the first input of each crash kind here")
-    b.add_argument("--fuzz-limit-s", type=float, metavar="S", help="--fuzz: stop each target after S seconds")
+    b.add_argument("--fuzz-limit-s", type=_POSITIVE, metavar="S", help="--fuzz: stop each target after S seconds")
     b.set_defaults(func=cmd_bench)
     r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
     r.add_argument("recording", metavar="TAKE")
@@ -190,29 +212,30 @@ def build_parser() -> argparse.ArgumentParser:
     r.set_defaults(func=cmd_replay)
     m = sub.add_parser("simulate", help=VERBS["simulate"], description=VERBS["simulate"])
     m.add_argument("--out", help="take file to write (a folder with --wearers/--sessions)")
-    m.add_argument("--duration-s", type=float, default=None,
+    m.add_argument("--overwrite", action="store_true", help="replace an existing take file")
+    m.add_argument("--duration-s", type=_POSITIVE, default=None,
                    help="length of a random performance, s (default 120 when nothing else is asked for)")
-    m.add_argument("--repetitions", type=int, default=None,
+    m.add_argument("--repetitions", type=_NON_NEGATIVE_INT, default=None,
                    help="each gesture this many times first (a training take; 3 per session in a troupe)")
-    m.add_argument("--null-s", type=float, default=0.0, help="then this long of ordinary movement (standing, walking, fidgeting), s")
-    m.add_argument("--seed", type=int, default=0)
-    m.add_argument("--wearer", type=int, default=0)
-    m.add_argument("--session", type=int, default=0)
-    m.add_argument("--wearers", type=int, help="write a troupe: this many wearers (into the folder --out)")
-    m.add_argument("--sessions", type=int, help="troupe: sessions per wearer (the jacket put on anew each time)")
+    m.add_argument("--null-s", type=_NON_NEGATIVE, default=0.0, help="then this long of ordinary movement (standing, walking, fidgeting), s")
+    m.add_argument("--seed", type=_NON_NEGATIVE_INT, default=0)
+    m.add_argument("--wearer", type=_NON_NEGATIVE_INT, default=0)
+    m.add_argument("--session", type=_NON_NEGATIVE_INT, default=0)
+    m.add_argument("--wearers", type=_COUNT, help="write a troupe: this many wearers (into the folder --out)")
+    m.add_argument("--sessions", type=_COUNT, help="troupe: sessions per wearer (the jacket put on anew each time)")
     m.add_argument("--layout", metavar="FILE", help="cable layout (TOML, see examples/layouts); default: built-in four cables")
     m.add_argument("--vocabulary", choices=("demo", "full"),
                    help="demo: the 9 of mappings/demo.toml; full: 15 gestures and postures, 8 null kinds "
                         "(default: full for a troupe, demo otherwise)")
-    m.add_argument("--rate-hz", type=float, default=100.0, help="counter gates per second (sample rate)")
+    m.add_argument("--rate-hz", type=_POSITIVE, default=100.0, help="counter gates per second (sample rate)")
     m.add_argument("--serve", action="store_true",
                    help="act as a garment on a pseudo-terminal in real time; prints its path first")
-    m.add_argument("--for", dest="for_s", type=float, default=None, metavar="SECONDS", help="--serve: stop after this long")
+    m.add_argument("--for", dest="for_s", type=_POSITIVE, default=None, metavar="SECONDS", help="--serve: stop after this long")
     m.add_argument("--no-drops", action="store_true", help="--serve: never drop or delay a sample")
-    m.add_argument("--ordinary-people", type=int, metavar="N",
+    m.add_argument("--ordinary-people", type=_COUNT, metavar="N",
                    help="write N takes (into the folder --out), each one simulated person's ordinary movement "
                         "of all 8 kinds and no cue: for drape fit --ordinary")
-    m.add_argument("--ordinary-s", type=float, default=600.0, help="--ordinary-people: seconds of each (default 600)")
+    m.add_argument("--ordinary-s", type=_POSITIVE, default=600.0, help="--ordinary-people: seconds of each (default 600)")
     m.set_defaults(func=cmd_simulate)
     c = sub.add_parser("check", help=VERBS["check"], description=VERBS["check"])
     c.add_argument("file", metavar="MAPPING")
@@ -221,7 +244,7 @@ def build_parser() -> argparse.ArgumentParser:
     t = sub.add_parser("tune", help=VERBS["tune"], description=VERBS["tune"])
     t.add_argument("recordings", nargs="+", metavar="TAKE", help="held-out labelled takes (not used to fit the model)")
     t.add_argument("--model", required=True)
-    t.add_argument("--max-false-per-hour", type=float, default=1.0, help="false-trigger budget (default 1)")
+    t.add_argument("--max-false-per-hour", type=_NON_NEGATIVE, default=1.0, help="false-trigger budget (default 1)")
     t.add_argument("-o", "--output", help="write the tuned model here (default: update MODEL in place)")
     t.add_argument("--store-anyway", action="store_true",
                    help="store the settings even when the false-firing budget is missed (exit 0)")
@@ -231,13 +254,13 @@ def build_parser() -> argparse.ArgumentParser:
     g.add_argument("--out", required=True, help="range file to write (JSON)")
     g.add_argument("--port", help="the garment's serial device")
     g.add_argument("--model", help="model of this garment (channel names and rate); needed with --port")
-    g.add_argument("--baud", type=int, default=115200)
-    g.add_argument("--seconds", type=float, default=5.0, help="length of each capture, s")
-    g.add_argument("--countdown-s", type=float, default=3.0, help="countdown before each capture, s (0: none)")
+    g.add_argument("--baud", type=_COUNT, default=115200)
+    g.add_argument("--seconds", type=_POSITIVE, default=5.0, help="length of each capture, s")
+    g.add_argument("--countdown-s", type=_NON_NEGATIVE, default=3.0, help="countdown before each capture, s (0: none)")
     g.add_argument("--leave-out-flat", action="store_true",
                    help="leave out of the range file the channels whose level did not rise in the second capture")
-    g.add_argument("--seed", type=int, default=1)
-    g.add_argument("--wearer", type=int, default=0)
+    g.add_argument("--seed", type=_NON_NEGATIVE_INT, default=1)
+    g.add_argument("--wearer", type=_NON_NEGATIVE_INT, default=0)
     g.set_defaults(func=cmd_range)
     o = sub.add_parser("ports", help=VERBS["ports"], description=VERBS["ports"])
     o.set_defaults(func=cmd_ports)
@@ -256,27 +279,27 @@ def build_parser() -> argparse.ArgumentParser:
                    help="a short take after dressing, before a show: each gesture 3 times and 3 min of ordinary "
                         "movement (unless --reps or --ordinary-s say otherwise), saved as WEARER-SESSION-checkin.take; "
                         "fit it together with your training takes, so the model knows how the garment sits today")
-    g.add_argument("--reps", type=int, help="repetitions of each gesture (default 5; 3 with --check-in)")
-    g.add_argument("--countdown-s", type=float, default=3.0)
-    g.add_argument("--window-s", type=float, default=3.0, help="time given to perform a gesture, s")
-    g.add_argument("--hold-s", type=float, default=5.0, help="time a posture is held, s")
-    g.add_argument("--rest-s", type=float, default=2.0, help="shortest rest between prompts, s (up to twice this)")
-    g.add_argument("--lead-s", type=float, default=4.0, help="null activity recorded before the first prompt, s")
-    g.add_argument("--ordinary-s", type=float, default=180.0,
+    g.add_argument("--reps", type=_COUNT, help="repetitions of each gesture (default 5; 3 with --check-in)")
+    g.add_argument("--countdown-s", type=_NON_NEGATIVE, default=3.0)
+    g.add_argument("--window-s", type=_POSITIVE, default=3.0, help="time given to perform a gesture, s")
+    g.add_argument("--hold-s", type=_POSITIVE, default=5.0, help="time a posture is held, s")
+    g.add_argument("--rest-s", type=_NON_NEGATIVE, default=2.0, help="shortest rest between prompts, s (up to twice this)")
+    g.add_argument("--lead-s", type=_NON_NEGATIVE, default=4.0, help="null activity recorded before the first prompt, s")
+    g.add_argument("--ordinary-s", type=_NON_NEGATIVE, default=180.0,
                    help="ordinary movement recorded after the last prompt, s (default 180, with --check-in too: the "
                         "model learns from it to stay silent when no gesture is meant)")
-    g.add_argument("--seed", type=int, default=0, help="seeds the prompt order (and the simulated jacket)")
+    g.add_argument("--seed", type=_NON_NEGATIVE_INT, default=0, help="seeds the prompt order (and the simulated jacket)")
     g.add_argument("--fast", action="store_true", help="simulated: run as fast as possible")
-    g.add_argument("--sim-wearer", type=int, default=0)
-    g.add_argument("--sim-session", type=int, default=0)
+    g.add_argument("--sim-wearer", type=_NON_NEGATIVE_INT, default=0)
+    g.add_argument("--sim-session", type=_NON_NEGATIVE_INT, default=0)
     g.add_argument("--no-keys", action="store_true", help="ignore standard input")
     g.add_argument("--protocol", choices=("auto", "text", "frames"), default="auto")
-    g.add_argument("--channels", type=int, help="channels per sample (default: detect)")
+    g.add_argument("--channels", type=_COUNT, help="channels per sample (default: detect)")
     g.add_argument("--timestamp", choices=("yes", "no"), help="text lines start with the device time (default: detect)")
-    g.add_argument("--rate-hz", type=float, default=100.0, help="sample rate to record at, Hz")
-    g.add_argument("--baud", type=int, default=115200)
+    g.add_argument("--rate-hz", type=_POSITIVE, default=100.0, help="sample rate to record at, Hz")
+    g.add_argument("--baud", type=_COUNT, default=115200)
     g.add_argument("--layout", default="", help="garment or antenna layout, kept in the take")
-    g.add_argument("--wait-s", type=float, default=5.0, help="give up when the port sends nothing for this long, s")
+    g.add_argument("--wait-s", type=_POSITIVE, default=5.0, help="give up when the port sends nothing for this long, s")
     g.set_defaults(func=cmd_capture)
     return p
 
@@ -294,3 +317,6 @@ def main(argv=None) -> int:
         _stdout_to_devnull()
         print("drape: standard output was closed; stopped", file=sys.stderr)
         return 141            # 128 + SIGPIPE, as a shell reports a command a closed pipe stopped
+    except KeyboardInterrupt:  # Ctrl-C in a fit, a tune, a bench (live verbs stop on their own signal handlers)
+        print(f"\ndrape: interrupted; {a.verb} stopped before it finished", file=sys.stderr)
+        return 130            # 128 + SIGINT

@@ -99,6 +99,15 @@ class MappingWatcher:
         return found
 
 
+def nothing_to_send(mapping: Mapping | None, path) -> str:
+    """A warning for a mapping that sends nothing ("" when it sends something): at start, and
+    from ``drape check``, an empty file must not pass for one that works."""
+    if mapping is None or mapping.destinations or mapping.rules or mapping.controls:
+        return ""
+    return (f"{path}: no destinations and no rules: nothing will be sent until the file has some "
+            "(saved while running, it is read again)")
+
+
 def refuse_empty(new: Mapping, old: Mapping | None, path) -> str:
     """Why ``new`` is refused ("" when it is not): no destinations and no rules where the
     running mapping had some."""

@@ -18,6 +18,7 @@ class OutputStats:
     dropped: int = 0
     last_error: str = ""
     overflowed: int = 0
+    on_close: str = ""   # what closing let go of, in words for the operator
 
 
 class OutputUnavailable(RuntimeError):

@@ -105,8 +105,10 @@ class KeyOutput(Output):
         if self._closed:
             return
         self._closed = True
+        held = len(self.held)
         try:
             self.release_all()
+            self.stats.on_close = f"{held} held key{'' if held == 1 else 's'} released"
         finally:
             self.keyboard.close()
 

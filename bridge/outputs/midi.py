@@ -188,7 +188,10 @@ class MidiPortOutput(Output):
             self.port.closed = True  # nor may mido's port close it when collected
             return
         try:
+            sounding = sum(len(n) for n in self.notes.sounding.values())
             self.release()
+            self.stats.on_close = (f"note-off for {sounding} sounding note{'' if sounding == 1 else 's'}, "
+                                   "All Notes Off on every channel used")
             time.sleep(self.settle_s)
         finally:
             self.port.close()

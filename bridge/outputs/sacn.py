@@ -219,5 +219,8 @@ class SacnOutput(Output):
             for _ in range(TERMINATION_PACKETS):
                 for number, u in self.universes.items():
                     self._transmit(number, u, now, OPTION_STREAM_TERMINATED)
+            numbers = ", ".join(str(n) for n in sorted(self.universes))
+            self.stats.on_close = (f"universe{'s' if len(self.universes) > 1 else ''} {numbers} set to the safe look, "
+                                   "then the stream terminated")
         finally:
             self.sock.close()

@@ -339,6 +339,9 @@ class Service:
                 g.watcher = MappingWatcher(cfg.mapping, g.model.classes, g.model.kinds,
                                            g.model.channel_names) if cfg.mapping else None
                 mapping = g.watcher.mapping if g.watcher else None
+                from ..mapping.watcher import nothing_to_send
+                if nothing_to_send(mapping, cfg.mapping):
+                    log.warning("%s: %s", g.name, nothing_to_send(mapping, cfg.mapping))
                 g.pipeline = Pipeline(g.model, mapping, g.name, settle=self.settling())
                 if mapping is not None:
                     reconcile_outputs(g.outputs, None, mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))

@@ -174,6 +174,11 @@ def watch(host: str, port: int, once: bool = False, wait_s: float = 5.0, out=Non
                 if complete or now - started > wait_s:
                     out.write(render(view, _width(out), now, stale_s) + "\n")
                     out.flush()
+                    if not complete:
+                        why = (f"nothing arrived on {host}:{port} in {wait_s:g} s: is the daemon running, with "
+                               f"this address in its [status] to = [...] list?" if not view.heard_alive else
+                               f"not every garment had sent its state and levels within {wait_s:g} s")
+                        print(f"drape: {why}", file=sys.stderr, flush=True)
                     return 0 if complete else 1
                 continue
             if now >= next_draw:

@@ -1,0 +1,137 @@
+"""What a careless command line must not do: write over a take, lose a finished fit to a
+bad output path, take impossible numbers, pass an empty mapping as good, stop in silence."""
+
+import socket
+
+import pytest
+
+import bridge.cli.parser as parser
+from bridge.cli import main
+from bridge.cli.live import _close_outputs
+
+
+@pytest.fixture(scope="module")
+def small_take(tmp_path_factory):
+    path = tmp_path_factory.mktemp("guards") / "a.take"
+    assert main(["simulate", "--repetitions", "1", "--out", str(path)]) == 0
+    return path
+
+
+def test_fit_never_writes_over_a_take_it_reads(small_take, capsys):
+    before = small_take.read_bytes()
+    assert main(["fit", str(small_take), "-o", str(small_take), "--classifier", "linear"]) == 2
+    assert "one of the files read" in capsys.readouterr().err
+    assert small_take.read_bytes() == before
+
+
+def test_fit_never_writes_over_a_file_that_is_not_a_model(small_take, tmp_path, capsys):
+    other = tmp_path / "b.take"
+    other.write_bytes(small_take.read_bytes())
+    assert main(["fit", str(small_take), "-o", str(other), "--classifier", "linear"]) == 2
+    assert "is not a model file" in capsys.readouterr().err
+    assert other.read_bytes() == small_take.read_bytes()
+
+
+@pytest.mark.parametrize("where", ["missing/dir/m.npz", "."])
+def test_fit_refuses_an_output_it_could_not_write_before_fitting(small_take, tmp_path, monkeypatch, capsys, where):
+    import bridge.recognition as recognition
+    monkeypatch.setattr(recognition, "fit_recordings", lambda *a, **k: pytest.fail("fitted before the check"))
+    monkeypatch.chdir(tmp_path)
+    assert main(["fit", str(small_take), "-o", where, "--classifier", "linear"]) == 2
+    err = capsys.readouterr().err
+    assert ("does not exist" in err) if "missing" in where else ("is a folder" in err)
+
+
+def test_tune_never_writes_over_a_take_it_reads(small_take, demo_model_file, capsys):
+    before = small_take.read_bytes()
+    assert main(["tune", "--model", str(demo_model_file), str(small_take), "-o", str(small_take)]) == 2
+    assert "one of the files read" in capsys.readouterr().err
+    assert small_take.read_bytes() == before
+
+
+def test_simulate_keeps_an_existing_take_unless_told(small_take, tmp_path, capsys):
+    out = tmp_path / "c.take"
+    out.write_bytes(b"someone's capture")
+    assert main(["simulate", "--repetitions", "1", "--out", str(out)]) == 2
+    assert "--overwrite" in capsys.readouterr().err and out.read_bytes() == b"someone's capture"
+    assert main(["simulate", "--repetitions", "1", "--out", str(out), "--overwrite"]) == 0
+    assert out.read_bytes() != b"someone's capture"
+
+
+@pytest.mark.parametrize("argv, says", [
+    (["fit", "x.take", "-o", "m.npz", "--hop-s", "0"], "--hop-s: must be a number above 0"),
+    (["fit", "x.take", "-o", "m.npz", "--hop-s", "-0.1"], "--hop-s: must be a number above 0"),
+    (["fit", "x.take", "-o", "m.npz", "--window-s", "-1"], "--window-s: must be a number above 0"),
+    (["demo", "--for", "-5"], "--for: must be a number above 0"),
+    (["demo", "--for", "0"], "--for: must be a number above 0"),
+    (["demo", "--wearer", "-1"], "--wearer: must be a whole number, 0 or more"),
+    (["send", "panic", "--port", "0"], "--port: must be a UDP port, 1 to 65535"),
+    (["watch", "--port", "70000", "--once"], "--port: must be a UDP port, 1 to 65535"),
+    (["tune", "--model", "m.npz", "x.take", "--max-false-per-hour", "-1"], "--max-false-per-hour: must be a number, 0 or more"),
+    (["simulate", "--null-s", "-10", "--out", "s.take"], "--null-s: must be a number, 0 or more"),
+    (["capture", "--rate-hz", "0"], "--rate-hz: must be a number above 0"),
+    (["capture", "--ordinary-s", "-5"], "--ordinary-s: must be a number, 0 or more"),
+    (["bench", "--hops", "-5"], "--hops: must be a whole number, 1 or more"),
+    (["bench", "--fuzz", "-1"], "--fuzz: must be a whole number, 1 or more"),
+    (["simulate", "--serve", "--for", "-1"], "--for: must be a number above 0"),
+    (["fit", "x.take", "-o", "m.npz", "--hop-s", "nan"], "--hop-s: must be a number above 0"),
+])
+def test_impossible_numbers_are_refused_by_name(argv, says, capsys):
+    with pytest.raises(SystemExit) as stop:
+        main(argv)
+    assert stop.value.code == 2 and says in capsys.readouterr().err
+
+
+def test_check_refuses_a_mapping_that_sends_nothing(tmp_path, capsys):
+    empty = tmp_path / "empty.toml"
+    empty.write_text("")
+    assert main(["check", str(empty)]) == 2
+    assert "no destinations and no rules" in capsys.readouterr().err
+
+
+def test_a_replay_with_an_empty_mapping_says_nothing_is_sent(small_take, demo_model_file, tmp_path, capsys):
+    empty = tmp_path / "empty.toml"
+    empty.write_text("# nothing yet\n")
+    assert main(["replay", str(small_take), "--model", str(demo_model_file), "--mapping", str(empty)]) == 0
+    assert "no destinations and no rules; nothing is sent" in capsys.readouterr().err
+
+
+def test_watch_once_says_why_when_nothing_arrives(capsys):
+    s = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+    s.bind(("127.0.0.1", 0))
+    port = s.getsockname()[1]
+    s.close()
+    assert main(["watch", "--once", "--port", str(port), "--wait-s", "0.3"]) == 1
+    assert f"nothing arrived on 127.0.0.1:{port}" in capsys.readouterr().err
+
+
+def test_ctrl_c_in_a_fit_ends_with_one_line_and_exit_130(monkeypatch, capsys):
+    def interrupted(_a):
+        raise KeyboardInterrupt
+    monkeypatch.setattr(parser, "cmd_fit", interrupted)
+    assert main(["fit", "x.take", "-o", "m.npz"]) == 130
+    err = capsys.readouterr().err
+    assert "interrupted; fit stopped before it finished" in err and "Traceback" not in err
+
+
+def test_stopping_a_lighting_output_says_the_lights_went_to_their_safe_look(capsys):
+    from bridge.mapping.messages import Destination, LightLevels
+    from bridge.outputs import open_output
+    sink = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+    sink.bind(("127.0.0.1", 0))
+    out = open_output(Destination("rig", "sacn", host="127.0.0.1", port=sink.getsockname()[1], universe=7))
+    out.send(LightLevels(7, {1: 255}))
+    _close_outputs({"rig": out})
+    sink.close()
+    err = capsys.readouterr().err
+    assert "output rig: sent" in err and "on stop: universe 7 set to the safe look, then the stream terminated" in err
+
+
+def test_stopping_a_key_output_says_how_many_keys_it_let_go():
+    from bridge.mapping.messages import KeyAction
+    from bridge.outputs.keys import KeyOutput
+    from tests.test_keys import Recorder
+    out = KeyOutput("keys", Recorder())
+    out.send(KeyAction(("shift",), "down"))
+    out.close()
+    assert out.stats.on_close == "1 held key released"
