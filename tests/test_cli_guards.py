@@ -135,3 +135,25 @@ def test_stopping_a_key_output_says_how_many_keys_it_let_go():
     out.send(KeyAction(("shift",), "down"))
     out.close()
     assert out.stats.on_close == "1 held key released"
+
+
+@pytest.mark.parametrize("argv, says", [
+    (["replay", "{model}", "--model", "{model}"], "not a drape take file (binary"),
+    (["check", "{model}"], "not a mapping file (binary"),
+    (["start", "--config", "{model}"], "not a config file (binary"),
+])
+def test_a_model_given_where_text_belongs_is_named_for_what_it_is(argv, says, demo_model_file, capsys):
+    assert main([a.format(model=demo_model_file) for a in argv]) == 2
+    err = capsys.readouterr().err
+    assert says in err and "codec" not in err
+
+
+def test_a_fit_on_one_gesture_says_it_can_fire_nothing_else(tmp_path, capsys):
+    from bridge.garment import Jacket
+    from bridge.sources import Recording, write_recording
+    take = Jacket(seed=3).perform([("standing", 3.0), ("wave_right", None), ("standing", 4.0), ("wave_right", None),
+                                  ("walking", 4.0), ("wave_right", None), ("standing", 4.0)])
+    path = tmp_path / "cut.take"
+    write_recording(path, Recording.from_take(take, {"wave_right": "gesture"}))
+    assert main(["fit", str(path), "-o", str(tmp_path / "m.npz"), "--classifier", "linear"]) == 0
+    assert "only one gesture in these takes (wave_right)" in capsys.readouterr().out

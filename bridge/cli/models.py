@@ -120,6 +120,9 @@ def cmd_fit(a) -> int:
     estimate = f"{key.replace('_', ' ')} {s[key]:.3f}" if key else "no held-out estimate (one take)"
     cal = f", calibration error {s['calibration_error']:.3f}" if "calibration_error" in s else ""
     print(f"{a.output}: {a.classifier}, {len(model.classes) - 1} classes from {source}; {estimate}{cal}")
+    if len(model.classes) == 2:
+        print(f"only one gesture in these takes ({model.classes[1]}): the model can fire nothing else; "
+              "if a capture was cut short, record the rest and fit again")
     weakest = sorted((v["recall"], c) for c, v in s.get("held_out_by_class", {}).items() if v["recall"] is not None)[:3]
     if weakest:
         print("held-out window recall, lowest first: " + ", ".join(f"{c} {r:.2f}" for r, c in weakest)

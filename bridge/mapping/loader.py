@@ -102,7 +102,9 @@ def load_mapping(path: str | Path, classes=None, kinds: dict[str, str] | None = 
         text = path.read_text(encoding="utf-8")
     except FileNotFoundError:
         raise MappingError([f"{path}: no such mapping file"]) from None
-    except (OSError, UnicodeDecodeError) as exc:
+    except UnicodeDecodeError:
+        raise MappingError([f"{path}: not a mapping file (binary; a model?): a mapping is TOML text"]) from None
+    except OSError as exc:
         raise MappingError([f"{path}: cannot read ({exc})"]) from None
     return parse_mapping(text, str(path), classes, kinds, channel_names, base_dir=path.resolve().parent)
 

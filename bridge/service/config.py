@@ -74,7 +74,9 @@ def _read_toml(path: Path) -> dict:
         return tomllib.loads(path.read_text(encoding="utf-8"))
     except FileNotFoundError:
         raise ConfigError(f"{path}: no such config file") from None
-    except (tomllib.TOMLDecodeError, OSError, UnicodeDecodeError) as exc:
+    except UnicodeDecodeError:
+        raise ConfigError(f"{path}: not a config file (binary; a model or a take?): a config is TOML text") from None
+    except (tomllib.TOMLDecodeError, OSError) as exc:
         raise ConfigError(f"{path}: {exc}") from None
 
 

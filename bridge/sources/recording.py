@@ -183,7 +183,9 @@ def read_recording(path: str | Path) -> Recording:
         lines = path.read_text(encoding="utf-8").split("\n")
     except FileNotFoundError:
         raise RecordingError(f"{path}: no such take file") from None
-    except (OSError, UnicodeDecodeError) as exc:
+    except UnicodeDecodeError:
+        raise RecordingError(f"{path}: not a drape take file (binary; a model or an archive?)") from None
+    except OSError as exc:
         raise RecordingError(f"{path}: cannot read ({exc})") from None
     if not lines or lines[0].strip() != MAGIC:
         raise RecordingError(f"{path}:1: not a drape take file (first line should be {MAGIC!r})")
