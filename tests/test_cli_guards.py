@@ -157,3 +157,19 @@ def test_a_fit_on_one_gesture_says_it_can_fire_nothing_else(tmp_path, capsys):
     write_recording(path, Recording.from_take(take, {"wave_right": "gesture"}))
     assert main(["fit", str(path), "-o", str(tmp_path / "m.npz"), "--classifier", "linear"]) == 0
     assert "only one gesture in these takes (wave_right)" in capsys.readouterr().out
+
+
+def test_evaluate_with_a_model_refuses_fitting_options_and_names_cues_it_cannot_know(
+        demo_model_file, tmp_path, capsys):
+    from bridge.garment import Jacket
+    from bridge.sources import Recording, write_recording
+    take = Jacket(seed=4).perform([("standing", 3.0), ("bow", None), ("standing", 3.0), ("wave_right", None),
+                                  ("standing", 3.0)])
+    path = tmp_path / "t.take"
+    write_recording(path, Recording.from_take(take, {"bow": "gesture", "wave_right": "gesture"}))
+    assert main(["evaluate", "--model", str(demo_model_file), str(path), "--scheme", "leave-wearer-out"]) == 2
+    assert "leave them out" in capsys.readouterr().err
+    assert main(["evaluate", "--model", str(demo_model_file), str(path)]) == 0
+    err = capsys.readouterr().err   # the demo model knows bow, not wave_right
+    assert "1 labelled performance of wave_right, which the model does not know, count as missed" in err
+    assert "bow" not in err

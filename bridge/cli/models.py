@@ -186,6 +186,9 @@ def cmd_evaluate(a) -> int:
     from ..sources import RecordingError
     from ..sources.ts_format import TsFormatError
 
+    if a.model and (a.scheme or a.window_s is not None or a.band_hz):
+        return _err("--scheme, --window-s and --band-hz fit models to evaluate; with --model the model's own are used: "
+                    "leave them out")
     step, close = _progress("evaluating")
     try:
         if a.model:
@@ -198,6 +201,11 @@ def cmd_evaluate(a) -> int:
                 recs, _ = _read_takes(a.recordings)
                 for r in recs:
                     model.check_source(len(r.channel_names), r.rate_hz)
+                unknown = sorted({iv.label for r in recs for iv in r.intervals} - set(model.classes))
+                if unknown:
+                    n = sum(iv.label in unknown for r in recs for iv in r.intervals)
+                    print(f"drape: {_plural(n, 'labelled performance')} of {', '.join(unknown)}, which the model does "
+                          "not know, count as missed", file=sys.stderr)
                 result = evaluate_takes(model, recs, progress=step)
                 title = f"{a.model} on {_plural(len(recs), 'take')}"
             else:
