@@ -11,15 +11,18 @@ def _err(msg: str) -> int:
     return 2
 
 
-def _output_problem(path, inputs=(), model: bool = False) -> str:
+def _output_problem(path, inputs=(), model: bool = False, replace: bool = True) -> str:
     """Why ``path`` cannot be written ("" when it can), checked before any work is done: a
     folder, a folder that does not exist or cannot be written, one of the ``inputs`` (a take
-    written over is lost), or with ``model`` an existing file that is not a model (.npz)."""
+    written over is lost), with ``model`` an existing file that is not a model (.npz), and
+    without ``replace`` any existing file (a take: --overwrite replaces one)."""
     import os
     from pathlib import Path
     out = Path(path)
     if out.is_dir():
         return f"{out} is a folder; give a file name"
+    if out.exists() and not replace:
+        return f"{out} exists; choose another --out or pass --overwrite"
     parent = out.parent if str(out.parent) else Path(".")
     if not parent.is_dir():
         return f"cannot write {out}: the folder {parent} does not exist"

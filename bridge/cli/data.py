@@ -74,9 +74,7 @@ def cmd_capture(a) -> int:
         wearer = input(f"wearer [{wearer}]: ").strip() or wearer
         session = input(f"session [{session}]: ").strip() or session
     out = Path(a.out or f"{wearer}-{session}{'-checkin' if a.check_in else ''}.take")
-    if out.exists() and not a.overwrite:
-        return _err(f"{out} exists; choose another --out or pass --overwrite")
-    problem = _output_problem(out)
+    problem = _output_problem(out, replace=a.overwrite)
     if problem:
         return _err(problem)
 
@@ -245,11 +243,6 @@ def cmd_simulate(a) -> int:
 
     if not a.serve and not a.out:
         return _err("simulate needs --out FILE (or DIR with --wearers), or --serve")
-    for name in ("wearers", "sessions", "repetitions"):
-        if getattr(a, name) is not None and getattr(a, name) < (0 if name == "repetitions" else 1):
-            return _err(f"--{name} must be at least {0 if name == 'repetitions' else 1}")
-    if not ((a.duration_s is None or a.duration_s > 0) and a.rate_hz > 0):
-        return _err("--duration-s and --rate-hz must be positive")
     try:
         layout = load_layout(a.layout) if a.layout else None
     except LayoutError as exc:
@@ -274,9 +267,7 @@ def cmd_simulate(a) -> int:
         print(f"{out}: troupe of {a.wearers or 1} wearers x {a.sessions or 1} sessions, {vocabulary} vocabulary "
               f"({len(gestures)} gestures and postures, {len(nulls)} null kinds), listed in troupe.json")
         return 0
-    if Path(a.out).exists() and not a.overwrite:
-        return _err(f"{a.out} exists; choose another --out or pass --overwrite")
-    problem = _output_problem(a.out)
+    problem = _output_problem(a.out, replace=a.overwrite)
     if problem:
         return _err(problem)
     jacket = Jacket(seed=a.seed, wearer=a.wearer, session=a.session, rate_hz=a.rate_hz, layout=layout)
