@@ -5,6 +5,7 @@ show what it does; these check the takes themselves (simulated data, our own sce
 from pathlib import Path
 
 import numpy as np
+import pytest
 
 from bridge.cli import main
 from bridge.garment import FULL_NULL_ACTIVITIES
@@ -46,7 +47,9 @@ def test_people_follow_a_layout_file(tmp_path):
 def test_people_refuse_options_that_would_add_cues(tmp_path, capsys):
     assert main(["simulate", "--ordinary-people", "1", "--repetitions", "2", "--out", str(tmp_path)]) == 2
     assert "ordinary movement only" in capsys.readouterr().err
-    assert main(["simulate", "--ordinary-people", "0", "--out", str(tmp_path)]) == 2
+    with pytest.raises(SystemExit) as refused:   # the parser refuses it, exit status 2
+        main(["simulate", "--ordinary-people", "0", "--out", str(tmp_path)])
+    assert refused.value.code == 2 and "--ordinary-people: must be a whole number, 1 or more" in capsys.readouterr().err
     assert not list(tmp_path.glob("*.take"))
 
 
