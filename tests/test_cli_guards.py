@@ -173,3 +173,16 @@ def test_evaluate_with_a_model_refuses_fitting_options_and_names_cues_it_cannot_
     err = capsys.readouterr().err   # the demo model knows bow, not wave_right
     assert "1 labelled performance of wave_right, which the model does not know, count as missed" in err
     assert "bow" not in err
+
+
+def test_a_take_the_model_was_fitted_on_is_named_as_in_sample(small_take, tmp_path, capsys):
+    model = tmp_path / "m.npz"
+    assert main(["fit", str(small_take), "-o", str(model), "--classifier", "linear"]) == 0
+    other = tmp_path / "other.take"
+    assert main(["simulate", "--repetitions", "1", "--seed", "5", "--out", str(other)]) == 0
+    capsys.readouterr()
+    assert main(["evaluate", "--model", str(model), str(small_take), str(other)]) == 0
+    err = capsys.readouterr().err
+    assert f"{small_take} is one of the takes {model} was fitted on" in err and str(other) not in err
+    assert main(["tune", "--model", str(model), str(small_take), "-o", str(tmp_path / "t.npz"), "--store-anyway"]) == 0
+    assert "was fitted on: figures on it are in-sample" in capsys.readouterr().err

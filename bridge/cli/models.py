@@ -24,6 +24,15 @@ def _read_takes(paths):
     return recs, kinds
 
 
+def _in_sample(model, model_path, paths, recs) -> None:
+    """Warn about each take the model was fitted on: its figures are in-sample."""
+    seen = set(model.summary.get("fitted_on", ()))
+    for path, r in zip(paths, recs):
+        if r.fingerprint() in seen:
+            print(f"drape: {path} is one of the takes {model_path} was fitted on: figures on it are in-sample, "
+                  "not what to expect live; give a take the model never saw", file=sys.stderr)
+
+
 def _times(n: int) -> str:
     return {1: "once", 2: "twice"}.get(n, f"{n} times")
 
@@ -114,6 +123,8 @@ def cmd_fit(a) -> int:
         close()
         return _err(str(exc))
     close()
+    if not a.ts:   # so that tune and evaluate can say when they are given a take the model learnt from
+        model.summary["fitted_on"] = [r.fingerprint() for r in recs]
     model.save(a.output)
     s = model.summary
     key = next((k for k in ("cross_validated_window_accuracy", "held_out_accuracy", "leave_one_out_accuracy") if k in s), None)
@@ -201,6 +212,7 @@ def cmd_evaluate(a) -> int:
                 recs, _ = _read_takes(a.recordings)
                 for r in recs:
                     model.check_source(len(r.channel_names), r.rate_hz)
+                _in_sample(model, a.model, a.recordings, recs)
                 unknown = sorted({iv.label for r in recs for iv in r.intervals} - set(model.classes))
                 if unknown:
                     n = sum(iv.label in unknown for r in recs for iv in r.intervals)
@@ -267,6 +279,7 @@ def cmd_tune(a) -> int:
             model.check_source(len(r.channel_names), r.rate_hz)
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
+    _in_sample(model, a.model, a.recordings, recs)
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
     print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, "
           f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)

@@ -59,6 +59,14 @@ class Recording:
                    tuple(Label(i.start_s, i.end_s, i.label) for i in take.intervals),
                    str(take.wearer), str(take.session), layout, dict(kinds or {}))
 
+    def fingerprint(self) -> str:
+        """A short digest of the samples (rate, channels, frequencies): the same take read
+        again gives the same one, so a model can name the takes it was fitted on."""
+        import hashlib
+        h = hashlib.sha256(json.dumps([self.rate_hz, list(self.channel_names)]).encode())
+        h.update(np.ascontiguousarray(self.freq_hz, dtype="<f8").tobytes())
+        return h.hexdigest()[:16]
+
 
 class TakeWriteError(OSError):
     """The take could not be written (disk full, medium gone). What was on disk is kept,
