@@ -163,8 +163,9 @@ def cmd_demo(a) -> int:
         return _err(f"--listen: {exc}")
     mapping = watcher.mapping
     from ..mapping.watcher import nothing_to_send
-    if nothing_to_send(mapping, mapping_path):
-        _report(nothing_to_send(mapping, mapping_path))
+    note = nothing_to_send(mapping, mapping_path)
+    if note:
+        _report(note)
     try:
         stop = _stop_flag(a.pid_file)  # before anything is held: every ending lets go
     except OSError as exc:
@@ -291,8 +292,9 @@ def cmd_start(a) -> int:
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
     from ..mapping.watcher import nothing_to_send
-    if nothing_to_send(mapping, cfg.mapping):
-        _report(nothing_to_send(mapping, cfg.mapping))
+    note = nothing_to_send(mapping, cfg.mapping)
+    if note:
+        _report(note)
 
     def said(connected, message):
         print(f"drape: {cfg.port}: {message}", file=sys.stderr, flush=True)

@@ -340,8 +340,9 @@ class Service:
                                            g.model.channel_names) if cfg.mapping else None
                 mapping = g.watcher.mapping if g.watcher else None
                 from ..mapping.watcher import nothing_to_send
-                if nothing_to_send(mapping, cfg.mapping):
-                    log.warning("%s: %s", g.name, nothing_to_send(mapping, cfg.mapping))
+                note = nothing_to_send(mapping, cfg.mapping)
+                if note:
+                    log.warning("%s: %s", g.name, note)
                 g.pipeline = Pipeline(g.model, mapping, g.name, settle=self.settling())
                 if mapping is not None:
                     reconcile_outputs(g.outputs, None, mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
