@@ -120,31 +120,6 @@ def posture_default(hop_s: float = 0.1) -> GateSettings:
     return _rearm_after(POSTURE_DEFAULT, POSTURE_REARM_S, hop_s)
 
 
-# A gesture that its fit's held-out takes show weakly (median peak below WEAK_PEAK) but that
-# stays quiet in their ordinary movement (99.9th percentile at most QUIET_ORDINARY) misses
-# cues at the default threshold without the default's margin being needed: its threshold
-# comes down to its median peak (never below THRESHOLD_FLOOR) on 3 of 5 hops. Chosen on the
-# development troupe; its check on troupes held out: docs/benchmarks.md, "Spotting".
-WEAK_PEAK, QUIET_ORDINARY, THRESHOLD_FLOOR, WEAK_AGREE_K = 0.65, 0.2, 0.45, 3
-
-
-def held_out_gates(cues: dict, kinds: dict[str, str]) -> dict:
-    """Decision-table entries (class -> settings) for the gestures ``cues`` shows weak but quiet.
-
-    cues: a model's ``summary["held_out_cues"]`` (``recognition.classifiers.held_out_cue_strength``:
-    per class ``median_peak`` and ``ordinary_q999``, probabilities 0..1). Postures and
-    classes without both figures keep their defaults (no entry).
-    """
-    out = {}
-    for c, v in (cues or {}).items():
-        peak, quiet = v.get("median_peak"), v.get("ordinary_q999")
-        if kinds.get(c) != "gesture" or peak is None or quiet is None:
-            continue
-        if quiet <= QUIET_ORDINARY and peak < WEAK_PEAK:
-            out[c] = {"threshold": round(max(THRESHOLD_FLOOR, float(peak)), 4), "agree_k": WEAK_AGREE_K}
-    return out
-
-
 def gate_settings_for(classes, stored: dict | None, kinds: dict[str, str] | None = None,
                       default: GateSettings | None = None, hop_s: float = 0.1) -> dict[str, GateSettings]:
     """Per-class settings from a model's stored decision table; missing entries take the

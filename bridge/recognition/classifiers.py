@@ -551,25 +551,16 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
         # movement in it that looks like a gesture (in-sample, the model knows its own
         # null windows' neighbours and finds almost none). At most ``mine_folds`` fits:
         # recording i is mined by the model of fold i mod k.
-        # The same passes give each of the wearer's takes its hops from a model that never
-        # saw it but saw another of the wearer's takes: how strongly each gesture shows on a
-        # take the model did not learn from (``held_out_cues``).
         k = min(mine_folds, len(recordings))
-        own = len(recordings) - len(cue_takes)
-        found, unseen = [], {}
+        found = []
         for f in range(k):
             mined = [i for i in range(len(recordings)) if i % k == f]
             others = ~np.isin(g, mined)
             if len(np.unique(y[others])) < len(classes):
                 continue
-            fold_model = fit(others)
-            hops = [take_hops(fold_model, recordings[i]) for i in mined]
-            mw, origin, ends = hard_negatives(fold_model, [recordings[i] for i in mined], kinds, settings,
-                                              level=mine_level, most=max(1, mine_most * len(mined) // len(recordings)),
-                                              hops=hops)
+            mw, origin, ends = hard_negatives(fit(others), [recordings[i] for i in mined], kinds, settings,
+                                              level=mine_level, most=max(1, mine_most * len(mined) // len(recordings)))
             found.append((mw, np.asarray(mined, dtype=int)[origin], ends))
-            if any(j not in mined for j in range(own)):
-                unseen.update({i: h for i, h in zip(mined, hops) if i < own})
         n_found = sum(len(x[0]) for x in found)
         if n_found:
             w = np.concatenate([w, *(x[0] for x in found)])
@@ -578,9 +569,6 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
             e = np.concatenate([e, *(x[2] for x in found)])
         model = fit(np.ones(len(y), bool))
         model.summary["hard_negatives"] = int(n_found)
-        if unseen:
-            model.summary["held_out_cues"] = held_out_cue_strength(
-                [(recordings[i], *unseen[i]) for i in sorted(unseen)], classes)
     model.summary["recordings"] = len(set(g[g < len(recordings) - len(cue_takes)].tolist()))
     if cue_takes:
         model.summary["others_takes"] = len(cue_takes)
@@ -609,60 +597,13 @@ def fit_recordings(name: str, recordings, kinds: dict[str, str], settings=None, 
     return model
 
 
-def take_hops(model, recording) -> tuple[np.ndarray, np.ndarray]:
-    """(end sample (h,), probabilities (h, classes)) of every hop of a whole take, from the
-    live recogniser (hop times in s are end / rate_hz, as the pipeline's)."""
-    from .training import condition_recording
-    streams = condition_recording(recording, model.conditioning)
-    ends, prob = make_recogniser(model).push(streams[0], streams[1])
-    return np.asarray(ends, dtype=np.int64), np.asarray(prob, dtype=float).reshape(len(ends), len(model.classes))
-
-
-# Where a performance's evidence is looked for (from its start to this long after its end,
-# s), and how far from any performance a hop must be to count as ordinary movement (s
-# before its start, s after its end): a window holds a gesture for a while after it ends.
-CUE_AFTER_S = 1.5
-ORDINARY_CLEAR_S = (2.0, 3.0)
-
-
-def held_out_cue_strength(takes, classes: tuple[str, ...]) -> dict:
-    """How strongly each class shows on takes its model did not learn from.
-
-    takes: (recording, hop end samples (h,), probabilities (h, classes)) per take, the
-    hops from a model fitted without that take. Per non-null class: ``median_peak``, the
-    median over its performances of the highest probability from the performance's start
-    to CUE_AFTER_S after its end (0 when no hop falls there); ``performances``;
-    ``ordinary_q999``, the highest over takes of the 99.9th percentile of its probability
-    in ordinary movement (hops ORDINARY_CLEAR_S away from every performance; None when a
-    take has none). Probabilities 0..1.
-    """
-    peaks = {c: [] for c in classes[1:]}
-    quiet = {c: [] for c in classes[1:]}
-    for rec, ends, prob in takes:
-        t = np.asarray(ends, dtype=float) / rec.rate_hz
-        near = np.zeros(len(t), bool)
-        for iv in rec.intervals:
-            if iv.label not in peaks:
-                continue
-            sel = (t >= iv.start_s) & (t <= iv.end_s + CUE_AFTER_S)
-            peaks[iv.label].append(float(prob[sel, classes.index(iv.label)].max()) if sel.any() else 0.0)
-            near |= (t >= iv.start_s - ORDINARY_CLEAR_S[0]) & (t <= iv.end_s + ORDINARY_CLEAR_S[1])
-        for j, c in enumerate(classes[1:], start=1):
-            quiet[c].append(float(np.quantile(prob[~near, j], 0.999)) if (~near).any() else None)
-    return {c: {"median_peak": round(float(np.median(peaks[c])), 4) if peaks[c] else None,
-                "performances": len(peaks[c]),
-                "ordinary_q999": None if not quiet[c] or None in quiet[c] else round(max(quiet[c]), 4)}
-            for c in classes[1:]}
-
-
 def hard_negatives(model, recordings, kinds: dict[str, str], settings=None, level: float = 0.3,
-                   most: int = 2000, hops=None) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+                   most: int = 2000) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """Null windows of the training recordings that the model takes for a gesture: the
     windows outside every labelled gesture (``training.label_windows`` null) whose highest
     non-null probability, from the live recogniser run over the whole recording, is at
     least ``level``. Returns (windows (m, 2, length, channels), recording index (m,), end
     sample (m,)), the ``most`` most confident, for training them as null (hard-negative mining).
-    ``hops``: each recording's ``take_hops`` when already computed.
     """
     from .training import TrainingSettings, condition_recording, label_windows
     settings = settings or TrainingSettings()
@@ -670,9 +611,10 @@ def hard_negatives(model, recordings, kinds: dict[str, str], settings=None, leve
     length = model.windows.length
     for i, r in enumerate(recordings):
         streams = condition_recording(r, model.conditioning)
-        ends, prob = hops[i] if hops is not None else take_hops(model, r)
+        ends, prob = make_recogniser(model).push(streams[0], streams[1])
         if not len(ends):
             continue
+        ends = np.asarray(ends)
         y = label_windows(ends, length, model.rate_hz, r.intervals, model.classes,
                           {c: kinds.get(c, "gesture") for c in model.classes[1:]})
         top = prob[:, 1:].max(axis=1)
