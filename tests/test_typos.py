@@ -64,9 +64,12 @@ def test_a_port_that_is_not_there_points_to_drape_ports(tmp_path, demo_model_fil
             lines.append(line)
             if "waiting for the garment" in line:
                 break
+        time.sleep(1.5)   # longer than the hold-still at start, had it begun
         proc.send_signal(signal.SIGINT)
-        proc.communicate(timeout=20)
+        rest = proc.communicate(timeout=20)[1]
     finally:
         proc.kill()
     waiting = [l for l in lines if "waiting for the garment" in l]
     assert waiting and "drape ports" in waiting[0], lines
+    # no sample ever came: nobody is asked to hold still, and the ending says there were none
+    assert "hold still" not in "".join(lines) + rest and "no samples" in rest, rest

@@ -125,7 +125,9 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     watchdog = Watchdog(stall_s) if stall_s else None
     failures = OutputWatch()
     marks = hasattr(pipeline, "dispatches_marked")  # a stand-in pipeline may only route
-    holds_told = tell_holds(pipeline, 0, report)
+    # The capture at start is told when the first samples arrive: "hold still" while the
+    # garment is not there yet would send a performer to stand still for nothing.
+    holds_told = 0
     reported = None
 
     def send(dispatches) -> None:
