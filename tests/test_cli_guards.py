@@ -24,6 +24,12 @@ def test_fit_never_writes_over_a_take_it_reads(small_take, capsys):
     assert small_take.read_bytes() == before
 
 
+def test_a_new_model_must_be_named_npz(small_take, tmp_path, capsys):
+    assert main(["fit", str(small_take), "-o", str(tmp_path / "me.txt"), "--classifier", "linear"]) == 2
+    assert "name it me.npz, not me.txt" in capsys.readouterr().err
+    assert not (tmp_path / "me.txt").exists()
+
+
 def test_fit_never_writes_over_a_file_that_is_not_a_model(small_take, tmp_path, capsys):
     other = tmp_path / "b.take"
     other.write_bytes(small_take.read_bytes())

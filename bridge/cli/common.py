@@ -14,8 +14,9 @@ def _err(msg: str) -> int:
 def _output_problem(path, inputs=(), model: bool = False, replace: bool = True) -> str:
     """Why ``path`` cannot be written ("" when it can), checked before any work is done: a
     folder, a folder that does not exist or cannot be written, one of the ``inputs`` (a take
-    written over is lost), with ``model`` an existing file that is not a model (.npz), and
-    without ``replace`` any existing file (a take: --overwrite replaces one)."""
+    written over is lost), with ``model`` an existing file that is not a model (.npz) or a
+    new one not named .npz, and without ``replace`` any existing file (a take: --overwrite
+    replaces one)."""
     import os
     from pathlib import Path
     out = Path(path)
@@ -43,6 +44,8 @@ def _output_problem(path, inputs=(), model: bool = False, replace: bool = True) 
             return f"cannot write {out}: {exc.strerror}"
         if head and head != b"PK":   # a model is a .npz, a zip archive
             return f"{out} exists and is not a model file; give another name"
+    if model and not out.exists() and out.suffix.lower() != ".npz":   # a new model is named for what it is
+        return f"a model file is a .npz archive: name it {out.with_suffix('.npz').name}, not {out.name}"
     return ""
 
 
