@@ -165,6 +165,51 @@ def state_of(rx, name, t0, pred, timeout=30.0):  # generous: a loaded machine is
     return rx.wait(lambda a, args: a == f"/drape/g/{name}/state" and pred(args), timeout, t0)[1]
 
 
+def test_a_garment_whose_port_is_not_there_is_waiting_and_says_why(tmp_path, demo_model_file):
+    """Not "calibrating" (nobody should hold still for a device that is not plugged in), and
+    the reason in the log and in the state every view shows."""
+    rx = Receiver()
+    (tmp_path / "show.toml").write_text(f"""
+[[garment]]
+name = "lead"
+port = "{tmp_path / 'ttyNOPE'}"
+model = "{demo_model_file}"
+
+[control]
+listen = "127.0.0.1:{free_port()}"
+
+[status]
+to = ["127.0.0.1:{rx.port}"]
+""")
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    try:
+        t0 = time.monotonic()
+        state = state_of(rx, "lead", t0, lambda s: True)
+        time.sleep(1.5)   # longer than the hold-still at start, had it begun
+        later = state_of(rx, "lead", time.monotonic(), lambda s: True)
+        # then the garment is plugged in (the simulated jacket on a pseudo-terminal): it calibrates, then runs
+        jacket = subprocess.Popen(drape_cmd("simulate", "--serve", "--for", "20"), stdout=subprocess.PIPE,
+                                  stderr=subprocess.DEVNULL, text=True, cwd=ROOT)
+        try:
+            os.symlink(jacket.stdout.readline().strip(), tmp_path / "ttyNOPE")
+            t1 = time.monotonic()
+            state_of(rx, "lead", t1, lambda s: s[0] == "running" and s[3] == 1)
+        finally:
+            jacket.kill()
+            jacket.wait(timeout=10)
+        proc.send_signal(signal.SIGINT)
+        err = proc.communicate(timeout=20)[1]
+    finally:
+        proc.kill()
+        rx.close()
+    for s in (state, later):
+        assert s[0] == "waiting" and s[3] == 0 and "waiting for the garment" in s[7] and "drape ports" in s[7], s
+    assert "lead: waiting for the garment (cannot open" in err, err
+    waiting, there = err.index("waiting for the garment"), err.index("the garment is there; hold still: calibrating")
+    assert waiting < there and "calibrating" not in err[:there], err
+
+
 def test_two_garments_in_one_daemon(tmp_path, demo_model_file, second_model_file):
     rx = Receiver()
     ctl = free_port()

@@ -11,7 +11,9 @@ taken together go through its pipeline as one (events do not depend on the block
 
 Each garment is a ``Garment``: its pipeline, outputs, mapping watcher, watchdog and its
 calibration state ("calibrating" at start and on rebaseline: a hold-still capture sets each
-channel's resting frequency; "settling" after a sudden sustained shift: the same, reported).
+channel's resting frequency; "settling" after a sudden sustained shift: the same, reported;
+"waiting" before a garment's first sample when its device could not be opened: the capture
+at start begins once it is there).
 The captures and the shift detection run inside ``Pipeline`` (``Settling`` from the config's
 [calibration], see ``Service.settling``), sample-exact, so a replay of the raw stream with
 the same settings decides the same events; the daemon only mirrors ``pipeline.holding``
@@ -46,6 +48,7 @@ from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 log = logging.getLogger("drape")
 
 RUNNING, FAILED = "running", "failed"
+WAITING = "waiting"   # no sample yet: the garment's device is not there (yet); it is tried again and again
 
 
 @dataclass
@@ -351,7 +354,11 @@ class Service:
                 self.fail(g, str(exc))
                 continue
             g.watchdog = Watchdog(cfg.stall_s)
-            self.sync_hold(g)  # the pipeline starts calibrating
+            self.sync_hold(g)  # the pipeline starts calibrating ...
+            if not getattr(g.source, "connected", True):   # ... once the garment is there: say why it is not
+                hint = "" if "drape ports" in g.source.last_error else "; `drape ports` lists the serial ports"
+                g.state, g.note = WAITING, f"waiting for the garment ({g.source.last_error}{hint})"
+                log.warning("%s: %s", g.name, g.note)
             g.reader = Reader(i, g.source, self.q)
             where = "simulated jacket" if cfg.simulated else (cfg.port or f"OSC {cfg.listen}")
             log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).resolve(),
@@ -400,7 +407,7 @@ class Service:
             g.ends_told += 1
         if p.holding:
             g.state, g.note = p.holding, p.holds[-1].why
-        elif g.state in (CALIBRATING, SETTLING):
+        elif g.state in (CALIBRATING, SETTLING, WAITING):
             g.state, g.note = RUNNING, ""
 
     # -- the loop ---------------------------------------------------------------------------
@@ -448,6 +455,10 @@ class Service:
             self.watch(g, step)
             return
         self.watch(g, step)
+        if g.state == WAITING:
+            text = f"the garment is there; hold still: calibrating ({self.settling().hold_still_s:g} s)"
+            log.info("%s: %s", g.name, text)
+            self.status.send([st.notice(g.name, text)])
         g.recent.append((now, n))
         g.last_freq = block.freq_hz[-1]
         if self.timings is not None:
