@@ -125,6 +125,18 @@ def test_poisson_interval_against_the_tables(k, low, high):
     assert (lo2, hi2) == pytest.approx((lo / 2, hi / 2))
 
 
+def test_a_printed_rate_is_rounded_once():
+    """1 firing in 6.44 h is 0.1553 per hour: printed 0.16 (rounded once, half up at the
+    second place), not 0.15 from 0.155 stored first; 30 in 60.46 h has its lower bound at
+    0.3348 (the chi-square bound above): 0.33, not 0.34. Worked by hand."""
+    from bridge.evaluation.matching import format_rate
+    assert "= 0.16 per hour" in format_rate(rate(1, 6.44))
+    assert "(95 % 0.33–" in format_rate(rate(30, 60.46))
+    from bridge.evaluation.matching import format_counts
+    line = format_counts(pool([{**count_take([], [], 3600.0), "hit": 248, "performed": 270}]))[0]
+    assert "recall 0.919" in line, line    # 248/270 = 0.91852, not 0.9185 printed as 0.918
+
+
 def test_too_short_to_show_one_per_hour():
     ten_min = rate(0, 1 / 6)
     assert ten_min["high"] == pytest.approx(22.13, abs=0.01) and "too_short" in ten_min

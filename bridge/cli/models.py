@@ -146,7 +146,7 @@ def cmd_fit(a) -> int:
             print(advice)
         if not a.ordinary and a.classifier != "linear" and not model.summary.get("ordinary_takes"):
             print("no --ordinary takes: on the simulated troupe, models fitted without other people's ordinary movement "
-                  "fired 20 to 100 times as often during it (docs/benchmarks.md, Spotting); "
+                  "fired about 17 to 120 times as often during it (docs/benchmarks.md, Spotting); "
                   "drape simulate --ordinary-people 6 --out others writes simulated ones")
     return 0
 

@@ -120,8 +120,9 @@ def rate(k: int, hours: float, target_per_hour: float | None = 1.0) -> dict:
     """{count, hours, per_hour, low, high} and, when the data cannot show a rate at or
     below ``target_per_hour`` even with none seen, a ``too_short`` sentence."""
     lo, hi = poisson_interval(k, hours)
-    out = {"count": int(k), "hours": round(hours, 4), "per_hour": round(k / hours, 3) if hours > 0 else None,
-           "low": round(lo, 3), "high": round(hi, 3)}
+    # Six places: printing at two never rounds twice (0.1553 kept as 0.155 printed as 0.15).
+    out = {"count": int(k), "hours": round(hours, 6), "per_hour": round(k / hours, 6) if hours > 0 else None,
+           "low": round(lo, 6), "high": round(hi, 6)}
     if target_per_hour and hours > 0:
         need_h = poisson_interval(0, 1.0)[1] / target_per_hour
         if hours < need_h:
@@ -180,14 +181,14 @@ def pool(takes: list[dict], target_per_hour: float = 1.0) -> dict:
     ordinary_h = sum(t["ordinary_s"] for t in takes) / 3600.0
     lat = np.array([x for t in takes for x in t["latency_s"]], dtype=float)
     out.update(
-        recall=round(out["hit"] / out["performed"], 4) if out["performed"] else None,
-        take_hours=round(take_h, 4), ordinary_hours=round(ordinary_h, 4),
+        recall=round(out["hit"] / out["performed"], 6) if out["performed"] else None,
+        take_hours=round(take_h, 6), ordinary_hours=round(ordinary_h, 6),
         rates={"false_per_take_hour": rate(out["false"], take_h, target_per_hour),
                "double_per_take_hour": rate(out["double"], take_h, target_per_hour),
                "wrong_name_per_take_hour": rate(out["wrong_name"], take_h, target_per_hour),
                "ordinary_per_ordinary_hour": rate(out["ordinary"], ordinary_h, target_per_hour)},
-        latency_s={"median": round(float(np.median(lat)), 3) if lat.size else None,
-                   "p95": round(float(np.percentile(lat, 95)), 3) if lat.size else None, "count": int(lat.size)},
+        latency_s={"median": round(float(np.median(lat)), 6) if lat.size else None,
+                   "p95": round(float(np.percentile(lat, 95)), 6) if lat.size else None, "count": int(lat.size)},
         by_name=dict(sorted(names.items())),
     )
     return out
