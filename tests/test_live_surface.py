@@ -220,6 +220,21 @@ def test_send_with_nobody_listening_fails(capsys):
     assert "sent panic" not in err and ("nothing is listening" in err or "no answer" in err)
 
 
+def test_send_with_a_garment_name_in_place_of_a_layer_sends_nothing(capsys):
+    """`drape send arm chorus` must not arm every garment: the name goes with --garment."""
+    from bridge.cli import main
+    sock = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+    sock.bind(("127.0.0.1", 0))
+    sock.settimeout(0.3)
+    try:
+        assert main(["send", "arm", "chorus", "--port", str(sock.getsockname()[1])]) == 2
+        assert "drape send arm --garment chorus" in capsys.readouterr().err
+        with pytest.raises(socket.timeout):
+            sock.recv(2048)                 # nothing reached the port
+    finally:
+        sock.close()
+
+
 class IdleSource:
     """A garment that sends nothing: the loop keeps polling its inbox."""
     ended = False
@@ -262,7 +277,8 @@ def test_the_single_loop_acknowledges_every_command_and_refuses_what_it_cannot_d
     inbox = ControlInbox("127.0.0.1", 0)
     stop, said = StopFlag(), []
     loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"), {},
-                                              stop), kwargs=dict(inbox=inbox, report=said.append), daemon=True)
+                                              stop), kwargs=dict(inbox=inbox, report=said.append, stall_s=0.2),
+                            daemon=True)
     loop.start()
     port = str(inbox.address[1])
     try:
@@ -278,11 +294,33 @@ def test_the_single_loop_acknowledges_every_command_and_refuses_what_it_cannot_d
         code, r = send("panic")
         assert code == 0 and "panic" in r.out
         code, r = send("rebaseline")
-        assert code != 0 and "refused" in r.err
+        assert code != 0 and "refused" in r.err and "does not calibrate here" in r.err
+        code, r = send("status")   # the idle garment has sent nothing for longer than stall_s
+        assert code == 0 and "jacket: no data" in r.out, r.out
         code, r = send("layer", "a\nFAKE drape: armed")   # a forged log line stays on its line
         assert code != 0
         assert not any(line.startswith("FAKE") for s in said for line in s.splitlines())
         assert any("\\n" in s for s in said)
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+
+
+def test_the_single_loop_rebaselines_when_it_calibrates(demo_model, capsys):
+    from bridge.cli import main
+    from bridge.service import Pipeline, Settling, StopFlag, run
+    from bridge.service.control import ControlInbox
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop = StopFlag()
+    pipe = Pipeline(demo_model, None, "jacket", settle=Settling(0.5))
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), pipe, {}, stop),
+                            kwargs=dict(inbox=inbox, report=lambda t: None), daemon=True)
+    loop.start()
+    try:
+        assert main(["send", "rebaseline", "--port", str(inbox.address[1])]) == 0
+        assert "jacket: hold still, re-baselining (0.5 s)" in capsys.readouterr().out
+        assert [h.why for h in pipe.holds][-1] == "hold still: re-baselining"
     finally:
         stop.set("test")
         loop.join(10)
@@ -380,6 +418,23 @@ def test_watch_says_when_the_daemon_went_silent_and_marks_every_value_stale():
     assert "NO HEARTBEAT FOR 12 s" in dead.splitlines()[0]
     body = dead.splitlines()[1:]
     assert body and all("STALE" in line for line in body if "jacket" in line or "left_sleeve" in line or "top" in line)
+
+
+def test_a_garment_whose_data_stopped_shows_its_last_levels_and_scores_as_stale():
+    """The daemon is alive but the garment's device is gone: its bars and top scores are the
+    last it gave, and say so; once data flows again they are live."""
+    from bridge.service.watch import StatusView, render
+    v = StatusView()
+    v.take("/drape/alive", [12.0, 1, 4242], now_s=100.0)
+    v.take("/drape/g/jacket/state", ["running", 1, "", 0, 0.0, 0, 5000, "device gone"], now_s=100.0)
+    v.take("/drape/g/jacket/channels", ["left_sleeve"], now_s=100.0)
+    v.take("/drape/g/jacket/levels", [0.01], now_s=100.0)
+    v.take("/drape/g/jacket/top", ["raise_left", 0.47, "null", 0.4, "bow", 0.1], now_s=100.0)
+    gone = render(v, 200, now_s=100.5).splitlines()
+    assert all("STALE" in line for line in gone if "left_sleeve" in line or "top:" in line), gone
+    assert any("top:" in line for line in gone) and "NO HEARTBEAT" not in gone[0]
+    v.take("/drape/g/jacket/state", ["running", 1, "", 1, 99.0, 0, 5100, ""], now_s=101.0)
+    assert "STALE" not in render(v, 200, now_s=101.2)
 
 
 def test_watch_redraws_with_the_terminal_width_and_goes_stale(tmp_path):

@@ -295,6 +295,12 @@ hold_still_s = 0.5
         r = send("status")
         # lead may be re-settling after a shift its simulated wearer caused; it must be live
         assert r.returncode == 0 and re.search(r"\[lead\] (running|settling)", r.stdout) and "[ghost] failed" in r.stdout
+        ghost_note = next(line for line in r.stdout.splitlines() if "note:" in line and "missing.npz" in line)
+        assert ghost_note.rstrip().endswith(")"), ghost_note        # a command's answer is never cut short
+        one = send("status", "--garment", "chorus")
+        assert one.returncode == 0 and "[chorus]" in one.stdout and "[lead]" not in one.stdout, one.stdout
+        nobody = send("status", "--garment", "nobody")
+        assert nobody.returncode == 1 and "no garment 'nobody'" in nobody.stderr + nobody.stdout, nobody
         # SIGHUP reloads mappings
         t1 = time.monotonic()
         proc.send_signal(signal.SIGHUP)

@@ -397,6 +397,8 @@ def cmd_send(a) -> int:
     to = f"127.0.0.1:{a.port}" if a.port else a.to
     if a.what == "layer" and not a.layer:
         return _err("send layer needs the layer's name: drape send layer NAME")
+    if a.what != "layer" and a.layer:   # never widen a command to every garment by a misplaced name
+        return _err(f"send {a.what} takes no name; for one garment: drape send {a.what} --garment {a.layer}")
     try:
         answer = send_command(to, a.what, a.layer or "", a.garment, _send_token(a), a.wait_s)
     except (ValueError, OSError) as exc:

@@ -53,7 +53,7 @@ def ack_message(outcome: str, command: str, text: str) -> bytes:
 
 
 COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic", "/drape/layer": "layer"}
-INBOX_COMMANDS = dict(COMMANDS, **{"/drape/reload": "reload", "/drape/status": "status"})
+INBOX_COMMANDS = dict(COMMANDS, **{"/drape/reload": "reload", "/drape/status": "status", "/drape/rebaseline": "rebaseline"})
 
 
 def parse_host_port(text: str) -> tuple[str, int]:

@@ -556,15 +556,18 @@ class Service:
             # The state a command set goes out at once, not at the next half-second tick: a
             # rebaseline's short hold-still can end before that tick, and a view would never see it.
             self.status.send(self.state_messages(self.clock()))
-        if peer is not None and self.control is not None and cmd != "status":
+        if peer is not None and self.control is not None and (cmd != "status" or not ok):
             self.control.acknowledge(peer, ok, cmd, text)
 
     def carry_out(self, cmd: str, detail: str, target: str, peer) -> tuple[bool, str]:
         if cmd == "status":  # answered with the state itself, failed garments included
+            asked = [g for g in self.garments if not target or g.name == target]
+            if not asked:
+                return False, f"no garment {printable(target)!r} (have {', '.join(g.name for g in self.garments) or 'none'})"
             if peer is not None and self.control is not None:
                 now = self.clock()
-                self.control.reply(peer, [st.alive(now - self.started_s, len(self.garments), os.getpid())]
-                                   + self.state_messages(now))
+                self.control.reply(peer, [st.alive(now - self.started_s, len(asked), os.getpid())]
+                                   + self.state_messages(now, asked))
             return True, "status sent"
         chosen = [g for g in self.live() if not target or g.name == target]
         if target and not chosen:
@@ -630,9 +633,9 @@ class Service:
 
     # -- status -------------------------------------------------------------------------------
 
-    def state_messages(self, now: float) -> list[bytes]:
+    def state_messages(self, now: float, garments=None) -> list[bytes]:
         out = []
-        for g in self.garments:
+        for g in self.garments if garments is None else garments:
             p = g.pipeline
             armed = bool(p.router.armed) if p is not None and p.router is not None else bool(p and p.safety.armed)
             layer = p.router.layer if p is not None and p.router is not None else ""

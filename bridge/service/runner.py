@@ -171,7 +171,8 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             return False, f"no garment {printable(garment)!r} here; this loop runs {name!r}"
         if kind == "status":
             r = pipeline.router
-            return True, (f"{name}: running, {'armed' if r is None or r.armed else 'disarmed'}"
+            flow = "running" if reported is None or reported[0] != NO_DATA else f"no data ({reported[1]})"
+            return True, (f"{name}: {flow}, {'armed' if r is None or r.armed else 'disarmed'}"
                           + (f", layer {r.layer!r}" if r is not None and r.layer else "")
                           + f", {pipeline.samples} samples, {pipeline.skipped} skipped as implausible")
         if kind == "reload":
@@ -187,6 +188,11 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             if m is None or detail not in m.layers:
                 have = ", ".join(m.layers) if m is not None and m.layers else "none"
                 return False, f"no layer {printable(detail)!r} in the mapping (layers: {have})"
+        if kind == "rebaseline":
+            if getattr(pipeline, "settle", None) is None:
+                return False, f"{name} does not calibrate here (no hold-still capture in this loop)"
+            deliver(pipeline.rebaseline(), clock())
+            return True, f"{name}: hold still, re-baselining ({pipeline.settle.hold_still_s:g} s)"
         if kind not in ("arm", "disarm", "panic", "layer"):
             return False, f"{kind} is not available in the single-garment loop (use a service config)"
         deliver(pipeline.command(kind, detail), clock())

@@ -100,6 +100,8 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
     for name in sorted(view.garments):
         g = view.garments[name]
         g_stale = mark or ("STALE " if now_s is not None and g.heard_s and now_s - g.heard_s > stale_s else "")
+        # levels and scores are the last the garment gave: stale while its data has stopped
+        d_stale = g_stale or ("STALE " if not g.flowing and g.state != "failed" else "")
         head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {'ARMED' if g.armed else 'disarmed'}  "
                 f"layer {printable(g.layer, 32) or '-'}  "
                 f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}"
@@ -109,9 +111,9 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
             lines.append(f"  {g_stale}note: {printable(g.note, 400)}"[:width])
         full = max([0.02] + [abs(v) for v in g.levels])
         for ch, v in zip(g.channels or [f"ch{i}" for i in range(len(g.levels))], g.levels):
-            lines.append(f"  {g_stale}{printable(ch, 14):<14} {bar(v, full)} {v:+.4f}"[:width])
+            lines.append(f"  {d_stale}{printable(ch, 14):<14} {bar(v, full)} {v:+.4f}"[:width])
         if g.top:
-            lines.append(f"  {g_stale}top: " + "  ".join(f"{printable(c, 20)} {p:.2f}" for c, p in g.top))
+            lines.append(f"  {d_stale}top: " + "  ".join(f"{printable(c, 20)} {p:.2f}" for c, p in g.top))
         for kind, gesture, conf, send_ms, *rest in g.events[-4:]:
             sent = rest[0] if rest else True
             how = f"sent {send_ms:6.2f} ms after arrival" if sent else "disarmed: not sent"
@@ -210,6 +212,9 @@ class Answer:
     lines: list
 
 
+ANSWER_WIDTH = 10_000   # a command's answer is read whole, not cut to a terminal's width
+
+
 def send_command(to: str, what: str, layer: str = "", garment: str = "", token: str = "",
                  wait_s: float = 1.0) -> Answer:
     """Send one command and wait up to ``wait_s`` for the daemon's acknowledgement
@@ -247,9 +252,9 @@ def send_command(to: str, what: str, layer: str = "", garment: str = "", token: 
             view.take(m.address, args)
             if what == "status" and view.heard_alive and len(view.garments) >= view.expected and all(
                     g.channels or g.state == "failed" for g in view.garments.values()):
-                return Answer(True, render(view).splitlines())
+                return Answer(True, render(view, width=ANSWER_WIDTH).splitlines())
         if what == "status" and view.heard_alive:
-            return Answer(True, render(view).splitlines())
+            return Answer(True, render(view, width=ANSWER_WIDTH).splitlines())
         return Answer(None, [f"no answer from {to} within {wait_s:g} s: nothing was confirmed (is the daemon "
                              "running and listening there? with a token, is it the right one?)"])
     finally:
