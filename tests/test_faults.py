@@ -675,3 +675,20 @@ def test_a_garment_with_one_channel_more_than_the_model_is_refused_not_read_as_a
         src.close()
     assert "does not behave like a device time in seconds" in str(got.value)
     assert "If the garment has 3 channels, the model is not made for it" in str(got.value)
+
+
+def test_a_serial_port_another_reader_holds_is_refused_with_the_reason():
+    """Two readers of one serial device split its lines between them (each sees gaps, neither
+    knows why): the second is refused, saying another program has the port."""
+    from bridge.sources.base import SourceGone
+    master, slave = os.openpty()
+    path = os.ttyname(slave)
+    first = SerialSource(path, 4)
+    try:
+        with pytest.raises(SourceGone, match="another program has it open"):
+            SerialSource(path, 4)
+    finally:
+        first.close()
+    SerialSource(path, 4).close()     # free again once the first lets go
+    os.close(master)
+    os.close(slave)

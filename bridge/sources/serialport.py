@@ -114,10 +114,13 @@ class SerialSource(Source):
             self.device = resolve_port(port)
             if "://" in self.device:
                 self.serial = serial.serial_for_url(self.device, baud, timeout=timeout_s)
-            else:
-                self.serial = serial.Serial(self.device, baud, timeout=timeout_s)
+            else:   # exclusive: a second reader would take every other line (two daemons, a serial monitor)
+                self.serial = serial.Serial(self.device, baud, timeout=timeout_s, exclusive=True)
         except (serial.SerialException, OSError) as exc:
             device = getattr(self, "device", port)
+            if "exclusively lock" in str(exc):
+                raise SourceGone(f"cannot open serial port {port}: another program has it open (another drape, "
+                                 "a capture, a serial monitor?); it is tried again until it is free") from None
             gone = "://" not in device and not os.path.exists(device) and "drape ports" not in str(exc)
             hint = " (no such device here; `drape ports` lists the serial ports)" if gone else ""
             raise SourceGone(f"cannot open serial port {port}: {exc}{hint}") from None
