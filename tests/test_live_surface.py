@@ -340,8 +340,26 @@ def _service(tmp_path, model, ctl, extra="", status_port=None, mapping=LAYERED, 
                             stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
     err = []
     threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
-    wait_for(lambda: any("running 1 garment" in l for l in err) or proc.poll() is not None, 60, "the service to start")
+    wait_for(lambda: any("running 1 of 1 garment" in l for l in err) or proc.poll() is not None, 60, "the service to start")
     return proc, err
+
+
+def test_the_service_says_what_each_output_let_go_of_when_it_stops(tmp_path, demo_model_file):
+    """As the single loop does: the lights' safe look and the stream's end are told, and
+    the stop line names the signal."""
+    peer = SacnPeer()
+    mapping = (f'[destinations.rig]\nsacn = 9\nhost = "127.0.0.1"\nport = {peer.port}\n'
+               '[[rule]]\ngesture = "bow"\nto = "rig"\nlevels = { 1 = 255 }\n')
+    try:
+        proc, err = _service(tmp_path, demo_model_file, free_port(), mapping=mapping)
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(30) == 0
+        time.sleep(0.2)
+    finally:
+        peer.close()
+    text = "".join(err)
+    assert "lead: output rig: sent" in text and "on stop: universe 9 set to the safe look, then the stream terminated" in text, text
+    assert "stopped (SIGTERM)" in text
 
 
 def test_the_service_acknowledges_and_refuses_with_reasons(tmp_path, demo_model_file):
@@ -832,7 +850,7 @@ def test_the_osc_input_loop_stop_line_counts_samples_and_implausible_ones(tmp_pa
         _, err = proc.communicate(timeout=30)
     finally:
         proc.kill()
-    stop = [l for l in err.splitlines() if "stopped;" in l][0]
+    stop = [l for l in err.splitlines() if "stopped (SIGTERM);" in l][0]   # the stop line names the signal
     assert "protocol not yet known" not in stop
     assert "OSC samples good 500" in stop and "implausible (far from the resting frequency) 10" in stop
 

@@ -111,13 +111,10 @@ def _open_outputs(mapping, open_fn=None):
 
 def _close_outputs(outputs) -> None:
     """Close every output (each releases what it holds) and report what it sent and dropped."""
+    from ..outputs.base import closing_summary
     for name, o in outputs.items():
         o.close()
-        s = o.stats
-        err = f"; last error: {s.last_error}" if s.last_error else ""
-        let_go = getattr(getattr(o, "inner", o), "stats", s).on_close
-        print(f"drape: output {name}: sent {s.sent}, dropped {s.dropped}{err}" + (f"; on stop: {let_go}" if let_go else ""),
-              file=sys.stderr, flush=True)
+        print(f"drape: output {name}: {closing_summary(o)}", file=sys.stderr, flush=True)
 
 
 def cmd_demo(a) -> int:
@@ -255,8 +252,11 @@ def cmd_serve(a) -> int:
     service.start_garments()
     if cfg.status_to:
         log.info("status stream to %s", ", ".join(cfg.status_to))
-    log.info("running %d garment(s); SIGTERM or Ctrl-C stops, SIGHUP reloads mappings, SIGUSR1 panics",
-             len(service.garments))
+    failed = [g.name for g in service.garments if g not in service.live()]
+    log.log(logging.WARNING if failed else logging.INFO,
+            "running %d of %d garment(s)%s; SIGTERM or Ctrl-C stops, SIGHUP reloads mappings, SIGUSR1 panics",
+            len(service.garments) - len(failed), len(service.garments),
+            f" ({', '.join(failed)} failed: see above)" if failed else "")
     import gc
     gc.freeze()  # what start loaded (models, modules) is left out of later collections: a full one
     service.serve()  # then scans only what the loop made, not a pause of tens of ms in the stream
@@ -344,7 +344,7 @@ def cmd_start(a) -> int:
         if inbox:
             inbox.close()
         _close_outputs(outputs)
-        _report(f"stopped; {describe_counters(source.counters())}; "
+        _report(f"stopped{f' ({stop.reason})' if stop.reason else ''}; {describe_counters(source.counters())}; "
                 f"samples skipped as implausible (far from the resting frequency) {pipeline.skipped}")
     return code
 

@@ -21,6 +21,15 @@ class OutputStats:
     on_close: str = ""   # what closing let go of, in words for the operator
 
 
+def closing_summary(output) -> str:
+    """What a closed output did, for the operator: 'sent N, dropped M[; last error: ...][; on
+    stop: what closing let go of]' (a queued output's own output says what it let go)."""
+    s = output.stats
+    let_go = getattr(getattr(output, "inner", output), "stats", s).on_close
+    return (f"sent {s.sent}, dropped {s.dropped}" + (f"; last error: {s.last_error}" if s.last_error else "")
+            + (f"; on stop: {let_go}" if let_go else ""))
+
+
 class OutputUnavailable(RuntimeError):
     """The system this output needs is missing; the message says what to install or start."""
 

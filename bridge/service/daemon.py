@@ -42,6 +42,7 @@ from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
 from .control import printable
 from .outputwatch import OutputWatch
+from ..outputs.base import closing_summary
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
 from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 
@@ -675,9 +676,7 @@ class Service:
             finally:
                 for name, o in g.outputs.items():
                     o.close()
-                    s = o.stats
-                    log.info("%s: output %s: sent %d, dropped %d%s", g.name, name, s.sent, s.dropped,
-                             f"; last error: {s.last_error}" if s.last_error else "")
+                    log.info("%s: output %s: %s", g.name, name, closing_summary(o))
                 g.outputs.clear()
         for g in self.garments:
             if g.reader is not None:
