@@ -384,6 +384,12 @@ def test_the_service_acknowledges_and_refuses_with_reasons(tmp_path, demo_model_
         assert code == 0 and "lead: panic" in text
         code, text = send("layer", "act2", env={"DRAPE_TOKEN": TOKEN})
         assert code == 0 and "lead: layer 'act2'" in text
+        (tmp_path / "m.toml").write_text(LAYERED.replace('gesture = "bow"', 'gesture = "bwo"', 1))
+        code, text = send("reload", env={"DRAPE_TOKEN": TOKEN})   # the answer says what to fix, not "see the log"
+        assert code != 0 and "mapping not reloaded" in text and "'bwo'" in text and "m.toml" in text, text
+        proc.send_signal(signal.SIGHUP)
+        wait_for(lambda: any("SIGHUP: reload refused" in l for l in err), 10, "a refused SIGHUP reload named as such")
+        assert sum("control: reload refused" in l for l in err) == 1   # the one sent over the port
         wait_for(lambda: any("control messages ignored: 1 wrong or missing token" in l or
                              "control messages ignored: 2 wrong or missing token" in l for l in err), 5,
                  "ignored messages counted by reason")

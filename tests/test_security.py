@@ -178,3 +178,26 @@ def test_service_unit_runs_unprivileged():
     assert keys["CapabilityBoundingSet"] == "" and keys["AmbientCapabilities"] == ""
     assert not keys["ExecStart"].startswith(("/bin/sh", "sh ", "sudo"))
     assert "--system" in text and "useradd" in text
+
+
+def test_the_service_warns_in_its_log_and_views_when_a_garments_destinations_cannot_open(caplog):
+    """An output whose system is missing leaves the garment running, but never quietly: a
+    warning in the log and a notice every view shows, saying when nothing at all is sent."""
+    import logging
+    from bridge.outputs import OutputUnavailable
+    from bridge.service.daemon import Garment, Service
+    m = parse_mapping(KEYS_MAPPING, "k.toml")
+
+    def refuse(d):
+        raise OutputUnavailable(f"{d.name}: the system it needs is missing")
+    service = Service(SimpleNamespace(garments=[], status_to=()), refuse)
+    notices = []
+    service.status.send = notices.extend
+    g = Garment("coat", SimpleNamespace(input="serial"))
+    caplog.set_level(logging.INFO, logger="drape")
+    service.reconcile(g, None, m)
+    warned = [r.getMessage() for r in caplog.records if r.levelno == logging.WARNING]
+    assert len(warned) == len(m.destinations) and all("left out, its cues go nowhere" in w for w in warned)
+    assert "nothing is sent" in warned[-1]
+    assert len(notices) == len(m.destinations) and all(b"/drape/g/coat/notice" in n for n in notices)
+    service.status.close()

@@ -349,7 +349,7 @@ class Service:
                     log.warning("%s: %s", g.name, note)
                 g.pipeline = Pipeline(g.model, mapping, g.name, settle=self.settling())
                 if mapping is not None:
-                    reconcile_outputs(g.outputs, None, mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
+                    self.reconcile(g, None, mapping)
                 g.source = open_source(cfg, g.model)
             except (ModelError, MappingError, OSError, ValueError) as exc:
                 self.fail(g, str(exc))
@@ -372,6 +372,17 @@ class Service:
     def opener(self, g: Garment):
         """How this garment's outputs are opened: no keys for samples from the network."""
         return keys_only_for_local_input(self.open_fn, getattr(g.cfg, "input", "serial") == "osc")
+
+    def reconcile(self, g: Garment, old, new) -> None:
+        """``reconcile_outputs`` for a garment: a destination that could not be opened is a
+        warning, in the log and every view (its cues go nowhere)."""
+        def report(text: str) -> None:
+            if " left out" in text:
+                log.warning("%s: %s", g.name, text)
+                self.status.send([st.notice(g.name, text)])
+            else:
+                log.info("%s: %s", g.name, text)
+        reconcile_outputs(g.outputs, old, new, self.opener(g), report)
 
     def fail(self, g: Garment, why: str) -> None:
         g.state, g.note = FAILED, why
@@ -521,7 +532,7 @@ class Service:
                 self.deliver(g, g.pipeline.command("panic", "signal"), now)
         if self.reloads_asked != self._reloads_seen:
             self._reloads_seen = self.reloads_asked
-            self.command("reload", "", "", None)
+            self.command("reload", "", "", None, source="SIGHUP")
         if self.control is not None:
             for cmd, detail, target, peer in self.control.poll():
                 self.command(cmd, detail, target, peer)
@@ -547,12 +558,12 @@ class Service:
     def live(self) -> list[Garment]:
         return [g for g in self.garments if g.state != FAILED and g.pipeline is not None]
 
-    def command(self, cmd: str, detail: str, target: str, peer) -> None:
-        """One control message; the sender gets an acknowledgement (``ControlPort.acknowledge``)
-        with what was done, or why it was refused."""
-        ok, text = self.carry_out(cmd, detail, target, peer)
+    def command(self, cmd: str, detail: str, target: str, peer, source: str = "control") -> None:
+        """One control message (or a signal: ``source``); the sender gets an acknowledgement
+        (``ControlPort.acknowledge``) with what was done, or why it was refused."""
+        ok, text = self.carry_out(cmd, detail, target, peer, source)
         if not ok:
-            log.warning("control: %s refused: %s", cmd, text)
+            log.warning("%s: %s refused: %s", source, cmd, text)
         if ok and cmd != "status":
             # The state a command set goes out at once, not at the next half-second tick: a
             # rebaseline's short hold-still can end before that tick, and a view would never see it.
@@ -560,7 +571,7 @@ class Service:
         if peer is not None and self.control is not None and (cmd != "status" or not ok):
             self.control.acknowledge(peer, ok, cmd, text)
 
-    def carry_out(self, cmd: str, detail: str, target: str, peer) -> tuple[bool, str]:
+    def carry_out(self, cmd: str, detail: str, target: str, peer, source: str = "control") -> tuple[bool, str]:
         if cmd == "status":  # answered with the state itself, failed garments included
             asked = [g for g in self.garments if not target or g.name == target]
             if not asked:
@@ -581,18 +592,21 @@ class Service:
             if len(without) == len(chosen):
                 return False, f"no layer {printable(detail)!r} in the mapping of {', '.join(without)}"
             chosen = [g for g in chosen if g.name not in without]
-        log.info("control message: %s%s asked for %s", cmd, f" {printable(detail)}" if detail else "",
-                 target or "every garment")
+        log.info("%s: %s%s asked for %s", "control message" if source == "control" else source, cmd,
+                 f" {printable(detail)}" if detail else "", target or "every garment")
         said, refused = [], []
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
                 if g.watcher is None:
                     refused.append(f"{g.name}: no mapping file")
-                elif self.apply_reload(g, g.watcher.reload_now()):
-                    said.append(f"{g.name}: mapping reloaded ({len(g.pipeline.mapping.rules)} rules)")
                 else:
-                    refused.append(f"{g.name}: mapping not reloaded, the last good one keeps running (see the log)")
+                    change = g.watcher.reload_now()
+                    if self.apply_reload(g, change):
+                        said.append(f"{g.name}: mapping reloaded ({len(g.pipeline.mapping.rules)} rules)")
+                    else:
+                        refused.append(f"{g.name}: mapping not reloaded, the last good one keeps running; fix: "
+                                       + "; ".join(change.problems))
             elif cmd == "rebaseline":
                 self.begin_hold(g, "hold still: re-baselining")
                 said.append(f"{g.name}: hold still, re-baselining")
@@ -626,7 +640,7 @@ class Service:
             return False
         old = g.pipeline.mapping
         g.pipeline.swap_mapping(change.mapping)
-        reconcile_outputs(g.outputs, old, change.mapping, self.opener(g), lambda t: log.info("%s: %s", g.name, t))
+        self.reconcile(g, old, change.mapping)
         text = f"mapping reloaded: {len(change.mapping.rules)} rules"
         log.info("%s: %s", g.name, text)
         self.status.send([st.notice(g.name, text)])

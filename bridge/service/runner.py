@@ -79,9 +79,11 @@ def keys_only_for_local_input(open_fn, network_input: bool):
     return opener
 
 
-def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
+def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> dict:
     """Bring ``outputs`` in line with a reloaded mapping: open new destinations, close
-    removed or changed ones (closing releases what they hold), keep the rest running."""
+    removed or changed ones (closing releases what they hold), keep the rest running.
+    Returns the destinations left out ({name: why}): nothing is sent to them."""
+    left_out = {}
     old_d = old.destinations if old is not None else {}
     for name, d in old_d.items():
         if name in outputs and new.destinations.get(name) != d:
@@ -93,7 +95,11 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> None:
                 outputs[name] = open_fn(d)
                 report(f"destination {name!r} opened")
             except Exception as exc:  # a missing system leaves the others running
-                report(f"destination {name!r} left out: {exc}")
+                left_out[name] = str(exc)
+    for name, why in left_out.items():
+        report(f"destination {name!r} left out, its cues go nowhere: {why}"
+               + ("" if outputs else " (no destination is open: nothing is sent)"))
+    return left_out
 
 
 def tell_holds(pipeline: Pipeline, told: int, report) -> int:
