@@ -103,7 +103,7 @@ def test_capture_command_gives_a_take_that_fits(tmp_path, capsys):
                  "--countdown-s", "1", "--rest-s", "1", "--ordinary-s", "30", "--out", str(out)])
     printed = capsys.readouterr().out
     assert code == 0 and "saved" in printed and "9 labelled" in printed
-    assert "0.5 min of ordinary movement" in printed
+    assert "30 s of ordinary movement" in printed   # under a minute in seconds, never 0.0833 min
     rec = read_recording(out)
     # the ordinary movement after the last prompt is in the take, unlabelled
     assert rec.t_s[-1] >= max(iv.end_s for iv in rec.intervals) + 30.0

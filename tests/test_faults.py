@@ -692,3 +692,11 @@ def test_a_serial_port_another_reader_holds_is_refused_with_the_reason():
     SerialSource(path, 4).close()     # free again once the first lets go
     os.close(master)
     os.close(slave)
+
+
+def test_a_device_never_seen_is_not_gone_yet():
+    from bridge.sources.health import Watchdog
+    w = Watchdog(1.0)
+    assert w.step(0.0, 0, connected=False)[1] == "no device yet"
+    assert w.step(0.5, 10, connected=True) == ("streaming", "")
+    assert w.step(1.0, 0, connected=False)[1] == "device gone"

@@ -220,6 +220,19 @@ def test_send_with_nobody_listening_fails(capsys):
     assert "sent panic" not in err and ("nothing is listening" in err or "no answer" in err)
 
 
+def test_a_control_port_already_taken_says_who_may_hold_it():
+    from bridge.service.control import ControlInbox, ControlPort
+    holder = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+    holder.bind(("127.0.0.1", 0))
+    port = holder.getsockname()[1]
+    try:
+        for make in (ControlInbox, lambda h, p: ControlPort(h, p, "")):
+            with pytest.raises(OSError, match="already taken .another drape"):
+                make("127.0.0.1", port)
+    finally:
+        holder.close()
+
+
 def test_send_with_a_garment_name_in_place_of_a_layer_sends_nothing(capsys):
     """`drape send arm chorus` must not arm every garment: the name goes with --garment."""
     from bridge.cli import main

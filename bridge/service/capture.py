@@ -98,7 +98,9 @@ class CaptureSession:
                 if self.current is None:
                     if self.settings.ordinary_s > 0:
                         self.phase, self.phase_end_s = ORDINARY, t + self.settings.ordinary_s
-                        out.append(f"all prompts done; now {self.settings.ordinary_s / 60:g} min of ordinary movement: "
+                        s_ = self.settings.ordinary_s
+                        how_long = f"{s_ / 60:.3g} min" if s_ >= 60 else f"{s_:.3g} s"
+                        out.append(f"all prompts done; now {how_long} of ordinary movement: "
                                    f"{ORDINARY_HINT}")
                         continue
                     self.phase = DONE

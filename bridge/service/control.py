@@ -63,6 +63,19 @@ def parse_host_port(text: str) -> tuple[str, int]:
     return host, int(port)
 
 
+def _bind(sock, host: str, port: int) -> None:
+    """Bind a control socket; a port already taken says who is likely to hold it."""
+    import errno
+    try:
+        sock.bind((host, port))
+    except OSError as exc:
+        sock.close()
+        if exc.errno == errno.EADDRINUSE:
+            raise OSError(exc.errno, f"{host}:{port} is already taken (another drape? `drape send status --to "
+                          f"{host}:{port}` asks it; or choose another port with --listen HOST:PORT)") from None
+        raise
+
+
 class ControlInbox:
     """Receives command messages on a UDP port; ``poll`` returns [(command, detail)].
 
@@ -77,7 +90,7 @@ class ControlInbox:
             raise TokenMissing(f"--listen {host}:{port} would take commands from the network without a token: "
                                "listen on 127.0.0.1, or use a service config with [control] listen and token")
         self.sock = socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET, socket.SOCK_DGRAM)
-        self.sock.bind((host, port))
+        _bind(self.sock, host, port)
         self.sock.setblocking(False)
         self.address = self.sock.getsockname()
         self.ignored = 0
@@ -173,7 +186,7 @@ class ControlPort:
         check_token(token, "[control] token")
         self.token = token
         self.sock = socket.socket(socket.AF_INET6 if ":" in host else socket.AF_INET, socket.SOCK_DGRAM)
-        self.sock.bind((host, port))
+        _bind(self.sock, host, port)
         self.sock.setblocking(False)
         self.address = self.sock.getsockname()
         self.ignored = 0

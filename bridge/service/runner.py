@@ -156,10 +156,12 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             if on_event:
                 on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3, disarmed))
 
-    def apply(change) -> None:
+    def apply(change, quiet: bool = False) -> None:
+        """Swap in a reloaded mapping; ``quiet``: the outcome is said by the caller (a command's answer)."""
         if change.mapping is None:
             stats.broken_reloads += 1
-            report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
+            if not quiet:
+                report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
             return
         old = pipeline.mapping
         pipeline.swap_mapping(change.mapping)
@@ -167,8 +169,9 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
         if open_fn is not None:
             reconcile_outputs(outputs, old, change.mapping, open_fn, report)
         m = change.mapping
-        report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
-               + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
+        if not quiet:
+            report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
+                   + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
 
     def command(kind: str, detail: str, garment: str) -> tuple[bool, str]:
         """One control message: (done, what was done or why it was refused)."""
@@ -185,7 +188,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             if watcher is None:
                 return False, f"{name} has no mapping file to reload"
             change = watcher.reload_now()
-            apply(change)
+            apply(change, quiet=True)   # the answer below is reported once, as every command's
             if change.mapping is None:
                 return False, "mapping not reloaded, the last good one keeps running: " + "; ".join(change.problems)
             return True, f"mapping reloaded: {len(change.mapping.rules)} rules, {len(change.mapping.controls)} controls"

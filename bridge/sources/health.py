@@ -24,15 +24,19 @@ class Watchdog:
     last_sample_s: float | None = None
     stalls: int = 0
     outages: int = 0
+    was_connected: bool = False   # a device that was never there is not "gone"
 
     def step(self, now_s: float, n_samples: int, connected: bool = True) -> tuple[str, str]:
         if self.last_sample_s is None:
             self.last_sample_s = now_s
         if not connected:
-            if self.reason != "device gone":
+            gone = "device gone" if self.was_connected else "no device yet"
+            if self.reason != gone:
                 self.outages += 1
-            self.status, self.reason = NO_DATA, "device gone"
-        elif n_samples > 0:
+            self.status, self.reason = NO_DATA, gone
+            return self.status, self.reason
+        self.was_connected = True
+        if n_samples > 0:
             self.last_sample_s = now_s
             self.status, self.reason = STREAMING, ""
         elif now_s - self.last_sample_s >= self.stall_s and self.status == STREAMING:
