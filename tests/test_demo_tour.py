@@ -74,3 +74,13 @@ def test_demo_with_a_model_of_other_channels_says_so_without_a_traceback(tmp_pat
     assert main(["demo", "--model", str(path), "--for", "1", "--fast"]) == 2
     err = capsys.readouterr().err
     assert "trained on 8 channels" in err and "Traceback" not in err
+
+
+def test_a_decision_while_disarmed_says_nothing_was_sent():
+    lines = []
+    n = Narrator([Interval(2.0, 3.5, "raise_right")], say=lines.append)
+    n.on_read(3.0)
+    n.on_event(Event(9.0, "bow", "gesture", 0.8), disarmed=True)       # nothing performed: a false trigger
+    assert "FALSE TRIGGER" in lines[-1] and lines[-1].endswith("(disarmed: not sent)")
+    n.on_event(Event(9.5, "bow", "gesture", 0.8))
+    assert "not sent" not in lines[-1]

@@ -180,7 +180,7 @@ def cmd_demo(a) -> int:
     source.on_read = narrator.on_read
 
     def on_event(e, timing=None):
-        if not narrator.on_event(e):
+        if not narrator.on_event(e, disarmed=bool(timing is not None and timing.disarmed)):
             _print_event(e, timing)
 
     print(f"the simulated wearer is performing: each of the {len(tour)} demo gestures once (about 50 s), then at "

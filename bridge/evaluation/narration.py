@@ -72,13 +72,14 @@ class Narrator:
                 self.say(f"{iv.end_s + self.slack_s:9.2f} s    MISSED {iv.label}: no decision within "
                          f"{self.slack_s:g} s of its end")
 
-    def on_event(self, e) -> bool:
-        """Say a decision, marked as the answer to a performed gesture or as a false trigger.
+    def on_event(self, e, disarmed: bool = False) -> bool:
+        """Say a decision, marked as the answer to a performed gesture or as a false trigger,
+        and when ``disarmed`` that nothing was sent for it.
 
         False for events it leaves to the caller (control values, arming, panic, layers)."""
         line = self._line(e)
         if line:
-            self.say(line)
+            self.say(line + ("  (disarmed: not sent)" if disarmed else ""))
         return line is not None
 
     def _line(self, e) -> str | None:
