@@ -200,4 +200,9 @@ def test_the_service_warns_in_its_log_and_views_when_a_garments_destinations_can
     assert len(warned) == len(m.destinations) and all("left out, its cues go nowhere" in w for w in warned)
     assert "nothing is sent" in warned[-1]
     assert len(notices) == len(m.destinations) and all(b"/drape/g/coat/notice" in n for n in notices)
+    # and in the garment's state, which every view and status request gets, not only at that moment
+    g.pipeline = None
+    service.garments.append(g)
+    state = b"".join(service.state_messages(0.0))
+    assert b"go nowhere" in state and all(name.encode() in state for name in m.destinations)
     service.status.close()

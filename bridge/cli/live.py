@@ -78,7 +78,8 @@ def _inbox(listen):
         return None
     from ..service.control import ControlInbox, parse_host_port
     inbox = ControlInbox(*parse_host_port(listen))
-    _report(f"control messages (/drape/arm, /drape/disarm, /drape/panic, /drape/layer NAME) on "
+    _report(f"control messages (/drape/arm, /drape/disarm, /drape/panic, /drape/layer NAME, /drape/reload, "
+            f"/drape/rebaseline, /drape/status) on "
             f"{inbox.address[0]}:{inbox.address[1]}; they never press keys")
     return inbox
 
@@ -315,7 +316,7 @@ def cmd_start(a) -> int:
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
           + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:
-        hint = "" if cfg.input != "serial" or "drape ports" in source.last_error else \
+        hint = "" if cfg.input != "serial" or any(w in source.last_error for w in ("drape ports", "another program")) else \
             "; `drape ports` lists the serial ports of this machine"
         print(f"drape: waiting for the garment ({source.last_error}){hint}", file=sys.stderr, flush=True)
     if hasattr(source, "on_change"):

@@ -200,6 +200,7 @@ class Garment:
     watchdog: Watchdog | None = None
     state: str = CALIBRATING
     note: str = ""
+    left_out: dict = field(default_factory=dict)   # destinations that could not be opened: {name: why}
     holds_told: int = 0                         # pipeline.holds whose start was reported
     ends_told: int = 0                          # ... and whose end
     last_freq: np.ndarray | None = None
@@ -357,7 +358,8 @@ class Service:
             g.watchdog = Watchdog(cfg.stall_s)
             self.sync_hold(g)  # the pipeline starts calibrating ...
             if not getattr(g.source, "connected", True):   # ... once the garment is there: say why it is not
-                hint = "" if "drape ports" in g.source.last_error else "; `drape ports` lists the serial ports"
+                hint = ("" if any(w in g.source.last_error for w in ("drape ports", "another program"))
+                        else "; `drape ports` lists the serial ports")
                 g.state, g.note = WAITING, f"waiting for the garment ({g.source.last_error}{hint})"
                 log.warning("%s: %s", g.name, g.note)
             g.reader = Reader(i, g.source, self.q)
@@ -382,7 +384,8 @@ class Service:
                 self.status.send([st.notice(g.name, text)])
             else:
                 log.info("%s: %s", g.name, text)
-        reconcile_outputs(g.outputs, old, new, self.opener(g), report)
+        # kept in the garment's state, so a view started later (or a status request) sees it too
+        g.left_out = reconcile_outputs(g.outputs, old, new, self.opener(g), report)
 
     def fail(self, g: Garment, why: str) -> None:
         g.state, g.note = FAILED, why
@@ -655,8 +658,12 @@ class Service:
             armed = bool(p.router.armed) if p is not None and p.router is not None else bool(p and p.safety.armed)
             layer = p.router.layer if p is not None and p.router is not None else ""
             channels = g.model.channel_names if g.model is not None else ()
+            note = g.note
+            if g.left_out and g.state != FAILED:
+                gone = f"cues to {', '.join(sorted(g.left_out))} go nowhere (left out at start or reload: see the log)"
+                note = f"{note}; {gone}" if note else gone
             out += st.garment_state(g.name, g.state, armed, layer, g.flowing and g.state != FAILED,
-                                    g.rate_hz(now), g.dropped(), p.samples if p else 0, g.note, channels,
+                                    g.rate_hz(now), g.dropped(), p.samples if p else 0, note, channels,
                                     p.skipped if p else 0)
         return out
 
