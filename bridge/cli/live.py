@@ -323,7 +323,7 @@ def cmd_start(a) -> int:
         source.on_change = said
 
     def status(state, reason):
-        print(f"drape: {state}" + (f" ({reason}); postures released, outputs held" if reason else ""),
+        print(f"drape: {state}" + (f" ({reason}); postures released, outputs stay open" if reason else ""),
               file=sys.stderr, flush=True)
 
     code = 0

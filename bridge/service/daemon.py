@@ -488,7 +488,7 @@ class Service:
     def watch(self, g: Garment, step) -> None:
         status, reason = step
         if status == NO_DATA and reason and g.note != reason and g.state == RUNNING:
-            log.warning("%s: no data (%s); postures released, outputs held", g.name, reason)
+            log.warning("%s: no data (%s); postures released, outputs stay open", g.name, reason)
             self.deliver(g, g.pipeline.stop(), self.clock())
             g.note = reason
         elif status == STREAMING and g.note and g.state == RUNNING:
