@@ -206,3 +206,19 @@ def test_the_service_warns_in_its_log_and_views_when_a_garments_destinations_can
     state = b"".join(service.state_messages(0.0))
     assert b"go nowhere" in state and all(name.encode() in state for name in m.destinations)
     service.status.close()
+
+
+def test_a_cue_to_a_destination_left_out_is_logged_as_not_sent(demo_model, caplog):
+    import logging
+    from bridge.decisions.gate import Event
+    from bridge.service import Pipeline
+    from bridge.service.daemon import Garment, Service
+    m = parse_mapping('[destinations.show]\nosc = "127.0.0.1:9"\n[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/bow"\n',
+                      "m.toml", demo_model.classes, demo_model.kinds, demo_model.channel_names)
+    service = Service(SimpleNamespace(garments=[], status_to=()), None)
+    g = Garment("coat", SimpleNamespace(input="serial"), model=demo_model, pipeline=Pipeline(demo_model, m, "coat"))
+    caplog.set_level(logging.INFO, logger="drape")
+    service.deliver(g, [Event(1.0, "bow", "gesture", 0.9)], service.clock())   # "show" never opened
+    line = next(r.getMessage() for r in caplog.records if "gesture bow" in r.getMessage())
+    assert line.endswith("; not sent to show (left out)"), line
+    service.status.close()

@@ -495,20 +495,26 @@ class Service:
             log.info("%s: data flowing again", g.name)
             g.note = ""
 
-    def send(self, g: Garment, dispatches) -> None:
+    def send(self, g: Garment, dispatches) -> set:
+        """Hand each dispatch to its output; returns the destinations that have none (left out)."""
+        missing = set()
         for d in dispatches:
             out = g.outputs.get(d.destination)
             if out is not None:
                 out.send(d.message)
+            else:
+                missing.add(d.destination)
+        return missing
 
     def deliver(self, g: Garment, events, arrived_s: float) -> None:
         if not events:
             return
         decided = self.clock()
         dispatches, unsent = g.pipeline.dispatches_marked(events)
-        self.send(g, dispatches)
+        missing = self.send(g, dispatches)
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
+        nowhere = f"; not sent to {', '.join(sorted(missing))} (left out)" if missing else ""
         if self.timings is not None:
             cpu = time.thread_time() - self._cpu_at_take if self._cpu_at_take is not None else float("nan")
             self.timings.record(g.index, events, lat, cpu)
@@ -523,7 +529,8 @@ class Service:
                 continue
             g.latencies_ms.append(lat.send_ms)
             del g.latencies_ms[:-1000]
-            log.info("%s; decided %.2f ms, sent %.2f ms after its last sample arrived", what, lat.decide_ms, lat.send_ms)
+            log.info("%s; decided %.2f ms, sent %.2f ms after its last sample arrived%s", what, lat.decide_ms,
+                     lat.send_ms, nowhere)
             if self.on_event:
                 self.on_event(g.name, e, lat)
         self.status.send(out)
