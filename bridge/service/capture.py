@@ -98,8 +98,8 @@ class CaptureSession:
                 if self.current is None:
                     if self.settings.ordinary_s > 0:
                         self.phase, self.phase_end_s = ORDINARY, t + self.settings.ordinary_s
-                        s_ = self.settings.ordinary_s
-                        how_long = f"{s_ / 60:.3g} min" if s_ >= 60 else f"{s_:.3g} s"
+                        ordinary_s = self.settings.ordinary_s
+                        how_long = f"{ordinary_s / 60:.3g} min" if ordinary_s >= 60 else f"{ordinary_s:.3g} s"
                         out.append(f"all prompts done; now {how_long} of ordinary movement: "
                                    f"{ORDINARY_HINT}")
                         continue

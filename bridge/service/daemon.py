@@ -37,12 +37,12 @@ from pathlib import Path
 
 import numpy as np
 
+from ..outputs.base import closing_summary
 from ..sources.base import Block
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
 from .control import printable
 from .outputwatch import OutputWatch
-from ..outputs.base import closing_summary
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
 from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 
@@ -378,14 +378,12 @@ class Service:
     def reconcile(self, g: Garment, old, new) -> None:
         """``reconcile_outputs`` for a garment: a destination that could not be opened is a
         warning, in the log and every view (its cues go nowhere)."""
-        def report(text: str) -> None:
-            if " left out" in text:
-                log.warning("%s: %s", g.name, text)
-                self.status.send([st.notice(g.name, text)])
-            else:
-                log.info("%s: %s", g.name, text)
+        def warn(text: str) -> None:
+            log.warning("%s: %s", g.name, text)
+            self.status.send([st.notice(g.name, text)])
         # kept in the garment's state, so a view started later (or a status request) sees it too
-        g.left_out = reconcile_outputs(g.outputs, old, new, self.opener(g), report)
+        g.left_out = reconcile_outputs(g.outputs, old, new, self.opener(g),
+                                       lambda text: log.info("%s: %s", g.name, text), warn)
 
     def fail(self, g: Garment, why: str) -> None:
         g.state, g.note = FAILED, why

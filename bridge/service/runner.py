@@ -79,10 +79,11 @@ def keys_only_for_local_input(open_fn, network_input: bool):
     return opener
 
 
-def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> dict:
+def reconcile_outputs(outputs: dict, old, new, open_fn, report=print, warn=None) -> dict:
     """Bring ``outputs`` in line with a reloaded mapping: open new destinations, close
     removed or changed ones (closing releases what they hold), keep the rest running.
-    Returns the destinations left out ({name: why}): nothing is sent to them."""
+    Returns the destinations left out ({name: why}): nothing is sent to them; each is told
+    through ``warn`` (default ``report``)."""
     left_out = {}
     old_d = old.destinations if old is not None else {}
     for name, d in old_d.items():
@@ -97,8 +98,8 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print) -> dict:
             except Exception as exc:  # a missing system leaves the others running
                 left_out[name] = str(exc)
     for name, why in left_out.items():
-        report(f"destination {name!r} left out, its cues go nowhere: {why}"
-               + ("" if outputs else " (no destination is open: nothing is sent)"))
+        (warn or report)(f"destination {name!r} left out, its cues go nowhere: {why}"
+                         + ("" if outputs else " (no destination is open: nothing is sent)"))
     return left_out
 
 
