@@ -411,6 +411,84 @@ def test_the_service_acknowledges_and_refuses_with_reasons(tmp_path, demo_model_
         proc.wait(30)
 
 
+RULE = '[destinations.show]\nosc = "127.0.0.1:9"\n[[rule]]\ngesture = "{g}"\nto = "show"\naddress = "/x"\n'
+
+
+def _three_garment_service(tmp_path, model, model_file):
+    """A service running three garments in this process (no readers: commands only), each
+    with its own mapping file, and its control port on loopback."""
+    from types import SimpleNamespace
+    from bridge.mapping import MappingWatcher
+    from bridge.service import Pipeline
+    from bridge.service.control import ControlPort
+    from bridge.service.daemon import Garment, Service, file_signature
+    service = Service(SimpleNamespace(garments=[], status_to=()),
+                      open_fn=lambda d: SimpleNamespace(send=lambda m: None, close=lambda: None))
+    for name in ("lead", "chorus", "ghost"):
+        (tmp_path / f"{name}.toml").write_text(RULE.format(g="bow"))
+        watcher = MappingWatcher(tmp_path / f"{name}.toml", model.classes, model.kinds, model.channel_names)
+        g = Garment(name, SimpleNamespace(model=model_file, input="serial"), len(service.garments), model=model,
+                    pipeline=Pipeline(model, watcher.mapping, name), watcher=watcher, model_sig=file_signature(model_file))
+        service.reconcile(g, None, watcher.mapping)
+        service.garments.append(g)
+    service.control = ControlPort("127.0.0.1", 0)
+    return service
+
+
+def _send_to(service, *argv):
+    """`drape send ...` against the in-process service: (exit code, stdout, stderr)."""
+    import contextlib
+    import io
+    from bridge.cli import main
+    out, err, code = io.StringIO(), io.StringIO(), []
+    with contextlib.redirect_stdout(out), contextlib.redirect_stderr(err):
+        t = threading.Thread(target=lambda: code.append(main(["send", *argv, "--port", str(service.control.address[1]),
+                                                               "--wait-s", "10"])))
+        t.start()
+        while t.is_alive():   # the daemon's loop, as far as commands go
+            for cmd, detail, target, peer in service.control.poll():
+                service.command(cmd, detail, target, peer)
+            time.sleep(0.005)
+    return code[0], out.getvalue(), err.getvalue()
+
+
+def test_a_reload_that_works_on_some_garments_says_which_and_exits_apart(tmp_path, demo_model, demo_model_file):
+    """Reloading every garment when one mapping is broken: the answer says which garments
+    reloaded and which did not (with the file:line to fix), and `drape send` exits 3: not
+    0 (a full success), not 1 (nothing took effect)."""
+    service = _three_garment_service(tmp_path, demo_model, demo_model_file)
+    try:
+        for name in ("lead", "chorus"):
+            (tmp_path / f"{name}.toml").write_text(RULE.format(g="bow") + '[[rule]]\ngesture = "raise_right"\n'
+                                                  'to = "show"\naddress = "/y"\n')
+        (tmp_path / "ghost.toml").write_text(RULE.format(g="bwo"))   # a typo on line 4
+        code, out, err = _send_to(service, "reload")
+        assert code == 3, (code, out, err)
+        assert "partly done: reload took effect on lead, chorus, NOT on ghost" in err, err
+        assert "ghost.toml:4:" in err and "'bwo'" in err and "lead: mapping reloaded (2 rules)" in err, err
+        assert [len(service.garments[i].pipeline.mapping.rules) for i in range(3)] == [2, 2, 1]  # ghost kept its last good one
+        code, out, err = _send_to(service, "reload", "--garment", "ghost")   # nothing took effect: refused, 1
+        assert code == 1 and "refused: ghost: mapping not reloaded" in err and "partly" not in err, (code, err)
+        (tmp_path / "ghost.toml").write_text(RULE.format(g="bow"))
+        code, out, err = _send_to(service, "reload")                          # every garment: done, 0
+        assert code == 0 and err == "" and "ghost: mapping reloaded (1 rules)" in out, (code, out, err)
+    finally:
+        service.control.close()
+        service.status.close()
+
+
+def test_a_partial_outcome_is_an_osc_string_the_reference_library_reads():
+    """The acknowledgement's outcome word read back with python-osc (the reference OSC 1.0
+    implementation): "done", "partly", "refused"; True and False still mean done and refused."""
+    from pythonosc.osc_message import OscMessage
+    from bridge.service.control import ACK, ack_message
+    for outcome, word in ((True, "done"), (False, "refused"), ("partly", "partly")):
+        m = OscMessage(ack_message(outcome, "reload", "lead: mapping reloaded"))
+        assert m.address == ACK and list(m.params) == [word, "reload", "lead: mapping reloaded"]
+    with pytest.raises(ValueError):
+        ack_message("maybe", "reload", "")
+
+
 def test_short_tokens_are_refused(tmp_path):
     from bridge.service.config import ConfigError, load_service
     from bridge.service.control import ControlPort, TokenMissing

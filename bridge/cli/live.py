@@ -393,7 +393,13 @@ def _send_token(a) -> str:
     return a.token
 
 
+SEND_PARTLY = 3   # `drape send`'s exit when some garments did it and some did not (1: none did, or no answer)
+
+
 def cmd_send(a) -> int:
+    """Exit 0: done; 3: done on some garments only (the answer names which); 1: refused or
+    unanswered (nothing was confirmed); 2: the command line was wrong, nothing was sent."""
+    from ..service.control import PARTLY
     from ..service.watch import send_command
     to = f"127.0.0.1:{a.port}" if a.port else a.to
     if a.what == "layer" and not a.layer:
@@ -406,4 +412,6 @@ def cmd_send(a) -> int:
         return _err(str(exc))
     for line in answer.lines:
         (print if answer.ok else _report)(line)
-    return 0 if answer.ok else 1
+    if answer.ok:
+        return 0
+    return SEND_PARTLY if answer.outcome == PARTLY else 1

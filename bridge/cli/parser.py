@@ -83,7 +83,8 @@ def build_parser() -> argparse.ArgumentParser:
     w.add_argument("--wait-s", type=_POSITIVE, default=5.0, help="--once: give up after this long, s")
     w.set_defaults(func=cmd_watch)
     n = sub.add_parser("send", help=VERBS["send"], description=VERBS["send"] +
-                       ". Network commands never press keys.")
+                       ". Network commands never press keys. Exits 0 when done, 3 when done on some garments "
+                       "only (the answer says which), 1 when refused or not answered.")
     n.add_argument("what", choices=("arm", "disarm", "panic", "layer", "reload", "rebaseline", "status"))
     n.add_argument("layer", nargs="?", help="layer: the layer's name")
     n.add_argument("--garment", default="", help="only this garment (default: every garment)")

@@ -23,7 +23,11 @@ from ..sources.addresses import is_loopback  # noqa: F401  (also this module's n
 
 LOOPBACK = ("127.0.0.1", "::1", "localhost")
 MIN_TOKEN = 16       # characters: a short token can be guessed from the network
-ACK = "/drape/ack"   # the reply to every command: s outcome ("done" | "refused"), s command, s text
+ACK = "/drape/ack"   # the reply to every command: s outcome (DONE | PARTLY | REFUSED), s command, s text
+ACK_TEXT = 1000      # characters of an answer's text: room for several garments' file:line reasons
+DONE = "done"        # the command took effect everywhere it was meant to
+PARTLY = "partly"    # it took effect on some garments, not on others (the text names both)
+REFUSED = "refused"  # it took effect nowhere
 
 
 class TokenMissing(ValueError):
@@ -45,9 +49,20 @@ def check_token(token: str, where: str) -> None:
                            "(random text, e.g. from `python -c \"import secrets; print(secrets.token_urlsafe(24))\"`)")
 
 
-def ack_message(outcome: str, command: str, text: str) -> bytes:
+def outcome_word(outcome) -> str:
+    """An acknowledgement's outcome: True is DONE, False is REFUSED, a word is kept."""
+    if outcome is True or outcome is False:
+        return DONE if outcome else REFUSED
+    if outcome not in (DONE, PARTLY, REFUSED):
+        raise ValueError(f"an acknowledgement's outcome is {DONE!r}, {PARTLY!r} or {REFUSED!r} (got {outcome!r})")
+    return outcome
+
+
+def ack_message(outcome, command: str, text: str) -> bytes:
+    """``outcome``: DONE, PARTLY or REFUSED (or True / False for done / refused)."""
+    outcome = outcome_word(outcome)
     b = OscMessageBuilder(ACK)
-    for a in (outcome, command, printable(text, 400)):
+    for a in (outcome, command, printable(text, ACK_TEXT)):
         b.add_arg(a)
     return b.build().dgram
 
@@ -144,7 +159,7 @@ class ControlInbox:
 
     def acknowledge(self, peer, ok: bool, command: str, text: str) -> None:
         try:
-            self.sock.sendto(ack_message("done" if ok else "refused", command, text), peer)
+            self.sock.sendto(ack_message(ok, command, text), peer)
         except OSError:
             pass
 
@@ -200,8 +215,9 @@ class ControlPort:
         if peer is not None and address.startswith("/drape/"):  # only our own kind of sender gets an answer
             self.acknowledge(peer, False, address.rsplit("/", 1)[-1], why)
 
-    def acknowledge(self, peer, ok: bool, command: str, text: str) -> None:
-        self.reply(peer, [ack_message("done" if ok else "refused", command, text)])
+    def acknowledge(self, peer, outcome, command: str, text: str) -> None:
+        """``outcome``: DONE, PARTLY or REFUSED (True / False: done / refused)."""
+        self.reply(peer, [ack_message(outcome, command, text)])
 
     def take_ignored(self) -> str:
         """What was ignored since the last call, by reason ("" when nothing was)."""

@@ -41,7 +41,7 @@ from ..outputs.base import closing_summary
 from ..sources.base import Block
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from . import status as st
-from .control import printable
+from .control import DONE, PARTLY, REFUSED, printable
 from .outputwatch import OutputWatch
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
 from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
@@ -569,52 +569,60 @@ class Service:
     def command(self, cmd: str, detail: str, target: str, peer, source: str = "control") -> None:
         """One control message (or a signal: ``source``); the sender gets an acknowledgement
         (``ControlPort.acknowledge``) with what was done, or why it was refused."""
-        ok, text = self.carry_out(cmd, detail, target, peer, source)
-        if not ok:
+        outcome, text = self.carry_out(cmd, detail, target, peer, source)
+        if outcome == REFUSED:
             log.warning("%s: %s refused: %s", source, cmd, text)
-        if ok and cmd != "status":
+        elif outcome == PARTLY:
+            log.warning("%s: %s partly done: %s", source, cmd, text)
+        if outcome != REFUSED and cmd != "status":
             # The state a command set goes out at once, not at the next half-second tick: a
             # rebaseline's short hold-still can end before that tick, and a view would never see it.
             self.status.send(self.state_messages(self.clock()))
-        if peer is not None and self.control is not None and (cmd != "status" or not ok):
-            self.control.acknowledge(peer, ok, cmd, text)
+        if peer is not None and self.control is not None and (cmd != "status" or outcome != DONE):
+            self.control.acknowledge(peer, outcome, cmd, text)
 
-    def carry_out(self, cmd: str, detail: str, target: str, peer, source: str = "control") -> tuple[bool, str]:
+    def carry_out(self, cmd: str, detail: str, target: str, peer, source: str = "control") -> tuple[str, str]:
+        """(outcome, text): DONE, PARTLY (some garments did it and some did not: the text
+        names both, then says why each that did not) or REFUSED."""
         if cmd == "status":  # answered with the state itself, failed garments included
             asked = [g for g in self.garments if not target or g.name == target]
             if not asked:
-                return False, f"no garment {printable(target)!r} (have {', '.join(g.name for g in self.garments) or 'none'})"
+                return REFUSED, f"no garment {printable(target)!r} (have {', '.join(g.name for g in self.garments) or 'none'})"
             if peer is not None and self.control is not None:
                 now = self.clock()
                 self.control.reply(peer, [st.alive(now - self.started_s, len(asked), os.getpid())]
                                    + self.state_messages(now, asked))
-            return True, "status sent"
+            return DONE, "status sent"
         chosen = [g for g in self.live() if not target or g.name == target]
         if target and not chosen:
-            return False, (f"no such running garment {printable(target)!r} (have "
-                           f"{', '.join(g.name + ('' if g.state != FAILED else ' (failed)') for g in self.garments) or 'none'})")
+            return REFUSED, (f"no such running garment {printable(target)!r} (have "
+                             f"{', '.join(g.name + ('' if g.state != FAILED else ' (failed)') for g in self.garments) or 'none'})")
         if not chosen:
-            return False, "no garment is running"
+            return REFUSED, "no garment is running"
         if cmd == "layer":
             without = [g.name for g in chosen if g.pipeline.mapping is None or detail not in g.pipeline.mapping.layers]
             if len(without) == len(chosen):
-                return False, f"no layer {printable(detail)!r} in the mapping of {', '.join(without)}"
+                return REFUSED, f"no layer {printable(detail)!r} in the mapping of {', '.join(without)}"
             chosen = [g for g in chosen if g.name not in without]
         log.info("%s: %s%s asked for %s", "control message" if source == "control" else source, cmd,
                  f" {printable(detail)}" if detail else "", target or "every garment")
         said, refused = [], []
+        took, missed = [], []   # garment names, for the head of a partial answer
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
                 if g.watcher is None:
                     refused.append(f"{g.name}: no mapping file")
+                    missed.append(g.name)
                 else:
                     change = g.watcher.reload_now()
                     if self.apply_reload(g, change):
                         said.append(f"{g.name}: mapping reloaded ({len(g.pipeline.mapping.rules)} rules)")
+                        took.append(g.name)
                     else:
                         refused.append(f"{g.name}: mapping not reloaded, the last good one keeps running; fix: "
                                        + "; ".join(change.problems))
+                        missed.append(g.name)
             elif cmd == "rebaseline":
                 self.begin_hold(g, "hold still: re-baselining")
                 said.append(f"{g.name}: hold still, re-baselining")
@@ -628,7 +636,14 @@ class Service:
         if cmd == "layer":
             said += [f"{n}: no layer {printable(detail)!r}, unchanged" for n in
                      [g.name for g in self.live() if (not target or g.name == target) and g not in chosen]]
-        return not refused, "; ".join(said + refused)
+        if not refused:
+            return DONE, "; ".join(said)
+        if not said:
+            return REFUSED, "; ".join(refused)
+        # Some garments took it, some did not: an operator must not read this as a refusal
+        # (the garments that took it run the new mapping) nor as a success.
+        return PARTLY, (f"{cmd} took effect on {', '.join(took)}, NOT on {', '.join(missed)}: "
+                        + "; ".join(refused + said))
 
     def check_model(self, g: Garment) -> None:
         """On reload: say what became of a model file replaced on disk (never swapped live)."""

@@ -205,11 +205,13 @@ TOKEN_ENV = "DRAPE_TOKEN"
 
 @dataclass
 class Answer:
-    """What the daemon said to one command: ``ok`` True (done), False (refused) or None (no
-    answer within the wait), and the lines to print."""
+    """What the daemon said to one command: ``ok`` True (done), False (refused, or done on
+    only some garments: ``outcome`` "partly") or None (no answer within the wait), and the
+    lines to print."""
 
     ok: bool | None
     lines: list
+    outcome: str = ""    # the acknowledgement's word: "done", "partly", "refused" ("" without one)
 
 
 ANSWER_WIDTH = 10_000   # a command's answer is read whole, not cut to a terminal's width
@@ -218,9 +220,9 @@ ANSWER_WIDTH = 10_000   # a command's answer is read whole, not cut to a termina
 def send_command(to: str, what: str, layer: str = "", garment: str = "", token: str = "",
                  wait_s: float = 1.0) -> Answer:
     """Send one command and wait up to ``wait_s`` for the daemon's acknowledgement
-    (``/drape/ack``: done or refused, and what it did or why); for "status" the reply is
+    (``/drape/ack``: done, partly or refused, and what it did or why); for "status" the reply is
     the daemon's state, drawn as `drape watch` does."""
-    from .control import ACK, parse_host_port, printable
+    from .control import ACK, ACK_TEXT, DONE, PARTLY, REFUSED, parse_host_port, printable
     host, port = parse_host_port(to)
     try:  # IPv4 first: "localhost" may also name ::1, where a daemon on 127.0.0.1 is not
         infos = socket.getaddrinfo(host, port, socket.AF_INET, socket.SOCK_DGRAM)
@@ -248,7 +250,9 @@ def send_command(to: str, what: str, layer: str = "", garment: str = "", token: 
                 continue
             args = list(m.params)
             if m.address == ACK and len(args) >= 3:
-                return Answer(args[0] == "done", [("" if args[0] == "done" else "refused: ") + printable(args[2], 400)])
+                outcome = printable(args[0], 20)
+                head = {DONE: "", PARTLY: "partly done: ", REFUSED: "refused: "}.get(outcome, f"{outcome}: ")
+                return Answer(outcome == DONE, [head + printable(args[2], ACK_TEXT)], outcome)
             view.take(m.address, args)
             if what == "status" and view.heard_alive and len(view.garments) >= view.expected and all(
                     g.channels or g.state == "failed" for g in view.garments.values()):
