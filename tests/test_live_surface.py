@@ -10,6 +10,7 @@ import subprocess
 import threading
 import time
 
+import numpy as np
 import pytest
 
 from conftest import ROOT, drape_cmd
@@ -338,6 +339,51 @@ def test_the_single_loop_rebaselines_when_it_calibrates(demo_model, capsys):
         stop.set("test")
         loop.join(10)
         inbox.close()
+
+
+class StillWearer:
+    """A garment whose wearer stands still, at its own pace (one sample per 10 ms, as the
+    simulated jacket's 100 Hz): the loop gets samples between its polls of the inbox."""
+    ended = False
+    connected = True
+
+    def __init__(self):
+        from bridge.garment import Jacket
+        take = Jacket(seed=1, wearer=0, session=3).perform([("standing", 20.0)])
+        self.freq, self.rate_hz, self.i = take.freq_hz, take.rate_hz, 0
+
+    def read(self):
+        from bridge.sources.base import Block
+        time.sleep(0.01)
+        k = self.i % self.freq.shape[0]
+        self.i += 1
+        return Block(np.array([self.i / self.rate_hz]), self.freq[k:k + 1], time.monotonic())
+
+
+def test_a_rebaseline_in_the_single_loop_is_told_once(demo_model, capsys):
+    """The command's answer says "hold still" with the garment's name and the hold's length;
+    the capture it began is not told a second time when its samples come in."""
+    from bridge.cli import main
+    from bridge.service import Pipeline, Settling, StopFlag, run
+    from bridge.service.control import ControlInbox
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, said = StopFlag(), []
+    pipe = Pipeline(demo_model, None, "jacket", settle=Settling(0.3))
+    loop = threading.Thread(target=run, args=(StillWearer(), pipe, {}, stop),
+                            kwargs=dict(inbox=inbox, report=said.append), daemon=True)
+    loop.start()
+    try:
+        wait_for(lambda: len(pipe.holds) == 1 and pipe.holds[0].end_sample is not None, 20, "the capture at start")
+        assert main(["send", "rebaseline", "--port", str(inbox.address[1]), "--wait-s", "5"]) == 0
+        assert "jacket: hold still, re-baselining (0.3 s)" in capsys.readouterr().out
+        wait_for(lambda: len(pipe.holds) == 2 and pipe.holds[1].end_sample is not None, 20, "the rebaseline's capture")
+        time.sleep(0.1)   # past the block whose samples ended it: anything still to be told is told
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+    told = [line for line in said if "hold still" in line]
+    assert told == ["hold still: calibrating (0.3 s)", "jacket: hold still, re-baselining (0.3 s)"], said
 
 
 TOKEN = "a-show-token-of-some-length"

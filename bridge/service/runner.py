@@ -103,12 +103,15 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print, warn=None)
     return left_out
 
 
-def tell_holds(pipeline: Pipeline, told: int, report) -> int:
-    """Report the pipeline's hold-still captures begun since ``told``; returns how many are told."""
+def tell_holds(pipeline: Pipeline, told: int, report, answered=frozenset()) -> int:
+    """Report the pipeline's hold-still captures begun since ``told``, except those whose
+    index is in ``answered`` (a rebaseline command's answer said it already); returns how
+    many are told."""
     from .pipeline import SETTLING
     holds = getattr(pipeline, "holds", [])
-    for h in holds[told:]:
-        report(h.why if h.state == SETTLING else f"{h.why} ({pipeline.settle.hold_still_s:g} s)")
+    for i, h in enumerate(holds[told:], told):
+        if i not in answered:
+            report(h.why if h.state == SETTLING else f"{h.why} ({pipeline.settle.hold_still_s:g} s)")
     return len(holds)
 
 
@@ -135,6 +138,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
     # The capture at start is told when the first samples arrive: "hold still" while the
     # garment is not there yet would send a performer to stand still for nothing.
     holds_told = 0
+    answered: set[int] = set()   # captures begun by a rebaseline command, whose answer told the operator
     reported = None
 
     def send(dispatches) -> None:
@@ -202,6 +206,9 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             if getattr(pipeline, "settle", None) is None:
                 return False, f"{name} does not calibrate here (no hold-still capture in this loop)"
             deliver(pipeline.rebaseline(), clock())
+            # The answer names the garment and the hold's length: the capture is not told again
+            # when its first samples come in.
+            answered.add(len(pipeline.holds) - 1)
             return True, f"{name}: hold still, re-baselining ({pipeline.settle.hold_still_s:g} s)"
         if kind not in ("arm", "disarm", "panic", "layer"):
             return False, f"{kind} is not available in the single-garment loop (use a service config)"
@@ -262,7 +269,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             stats.samples += len(block)
             deliver(events, block.arrived_s)
             if len(getattr(pipeline, "holds", ())) != holds_told:  # calibration and re-settling, said as the service says them
-                holds_told = tell_holds(pipeline, holds_told, report)
+                holds_told = tell_holds(pipeline, holds_told, report, answered)
     finally:
         if stop.panics != panics_seen:
             deliver(pipeline.command("panic", "signal"), clock())
