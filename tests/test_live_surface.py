@@ -598,6 +598,67 @@ def test_a_garment_whose_data_stopped_shows_its_last_levels_and_scores_as_stale(
     assert "STALE" not in render(v, 200, now_s=101.2)
 
 
+OUTAGE = [("/drape/alive", (30.0, 1, 4242)),
+          ("/drape/g/lead/levels", (-0.0011, -0.0017, 0.0035, 0.0026)),
+          ("/drape/g/lead/top", ("null", 0.81, "hands_on_hips", 0.08, "hand_on_heart", 0.04)),
+          ("/drape/g/lead/state", ("running", 1, "", 0, 0.0, 0, 2100, "device gone", 0))]
+NAMES = ("/drape/g/lead/channels", ("left_sleeve", "right_sleeve", "left_front", "right_front"))
+
+
+def test_a_view_that_has_levels_but_not_yet_the_channel_names_invents_none():
+    """Levels come 20 times a second, the names only with the state: a view started during
+    an outage (levels repeated, data not flowing) draws no bar under a made-up name; once the
+    names come, the bars carry them and are marked stale."""
+    from bridge.service.watch import StatusView, render
+    v = StatusView()
+    for address, args in OUTAGE:
+        v.take(address, list(args), now_s=100.0)
+    early = render(v, 200, now_s=100.1)
+    assert "ch0" not in early and "#" not in early, early
+    assert "STALE levels of 4 channels: their names not heard yet" in early, early
+    v.take(*NAMES[:1], list(NAMES[1]), now_s=100.2)
+    later = render(v, 200, now_s=100.3).splitlines()
+    bars = [line for line in later if "#" in line or "...." in line]
+    assert [line.split()[1] for line in bars] == list(NAMES[1]) and all(line.startswith("  STALE ") for line in bars)
+    fresh = StatusView()   # nothing but levels yet: arming is not known, so not said
+    fresh.take(*OUTAGE[1][:1], list(OUTAGE[1][1]), now_s=0.0)
+    assert "armed ?" in render(fresh, 200) and "disarmed" not in render(fresh, 200)
+
+
+def test_watch_once_during_an_outage_prints_the_channel_names(capsys):
+    """`drape watch --once` started while a garment's data has stopped: the one frame it
+    prints names the channels (they come in their own datagram, after the state) and marks
+    the levels stale."""
+    import io
+    from bridge.service.status import message
+    from bridge.service.watch import watch
+    port, out, code = free_port(), io.StringIO(), []
+    t = threading.Thread(target=lambda: code.append(watch("127.0.0.1", port, once=True, wait_s=8.0, out=out)))
+    t.start()
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:
+        end = time.monotonic() + 5
+        while time.monotonic() < end:   # until the view holds the port
+            try:
+                with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as probe:
+                    probe.bind(("127.0.0.1", port))
+                time.sleep(0.02)
+            except OSError:
+                break
+        for address, args in OUTAGE:     # as the daemon sends them, the names last
+            s.sendto(message(address, *args), ("127.0.0.1", port))
+        time.sleep(0.4)
+        while t.is_alive() and time.monotonic() < end + 5:
+            s.sendto(message(NAMES[0], *NAMES[1]), ("127.0.0.1", port))
+            s.sendto(message(*OUTAGE[1][:1], *OUTAGE[1][1]), ("127.0.0.1", port))
+            time.sleep(0.05)
+    t.join(10)
+    frame = out.getvalue()
+    assert code == [0], (code, frame, capsys.readouterr().err)
+    assert "ch0" not in frame and "names not heard" not in frame, frame
+    for name in NAMES[1]:
+        assert f"STALE {name}" in frame, frame
+
+
 def test_watch_redraws_with_the_terminal_width_and_goes_stale(tmp_path):
     port = free_port()
     proc = subprocess.Popen(drape_cmd("watch", "--port", str(port)), stdout=subprocess.PIPE, stderr=subprocess.PIPE,

@@ -102,7 +102,8 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
         g_stale = mark or ("STALE " if now_s is not None and g.heard_s and now_s - g.heard_s > stale_s else "")
         # levels and scores are the last the garment gave: stale while its data has stopped
         d_stale = g_stale or ("STALE " if not g.flowing and g.state != "failed" else "")
-        head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {'ARMED' if g.armed else 'disarmed'}  "
+        armed = "armed ?" if g.state == "?" else "ARMED" if g.armed else "disarmed"   # "?": no state heard yet
+        head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {armed}  "
                 f"layer {printable(g.layer, 32) or '-'}  "
                 f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}"
                 + (f" (implausible {g.implausible})" if g.implausible else ""))
@@ -110,7 +111,11 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
         if g.note:
             lines.append(f"  {g_stale}note: {printable(g.note, 400)}"[:width])
         full = max([0.02] + [abs(v) for v in g.levels])
-        for ch, v in zip(g.channels or [f"ch{i}" for i in range(len(g.levels))], g.levels):
+        if g.levels and not g.channels:
+            # Levels come 20 times a second, the names only with the state (twice a second):
+            # a view just started shows no bars until it knows which channel each one is.
+            lines.append(f"  {d_stale}levels of {len(g.levels)} channels: their names not heard yet"[:width])
+        for ch, v in zip(g.channels, g.levels):
             lines.append(f"  {d_stale}{printable(ch, 14):<14} {bar(v, full)} {v:+.4f}"[:width])
         if g.top:
             lines.append(f"  {d_stale}top: " + "  ".join(f"{printable(c, 20)} {p:.2f}" for c, p in g.top))
@@ -171,15 +176,18 @@ def watch(host: str, port: int, once: bool = False, wait_s: float = 5.0, out=Non
                 ready, _, _ = select.select([sock], [], [], 0)
             now = time.monotonic()
             if once:
+                # A garment's channel names come in their own datagram after its state: a frame
+                # drawn between the two would have bars without names.
                 complete = view.heard_alive and len(view.garments) >= max(1, view.expected) and all(
-                    g.state != "?" and (g.levels or g.state != "running") for g in view.garments.values())
+                    g.state != "?" and (g.channels or g.state == "failed") and (g.levels or g.state != "running")
+                    for g in view.garments.values())
                 if complete or now - started > wait_s:
                     out.write(render(view, _width(out), now, stale_s) + "\n")
                     out.flush()
                     if not complete:
                         why = (f"nothing arrived on {host}:{port} in {wait_s:g} s: is the daemon running, with "
                                f"this address in its [status] to = [...] list?" if not view.heard_alive else
-                               f"not every garment had sent its state and levels within {wait_s:g} s")
+                               f"not every garment had sent its state, channel names and levels within {wait_s:g} s")
                         print(f"drape: {why}", file=sys.stderr, flush=True)
                     return 0 if complete else 1
                 continue
