@@ -523,6 +523,26 @@ def test_a_reload_that_works_on_some_garments_says_which_and_exits_apart(tmp_pat
         service.status.close()
 
 
+def test_a_reload_of_every_garment_passes_over_one_without_a_mapping_file(tmp_path, demo_model, demo_model_file):
+    """A garment run without a mapping file has nothing to reload: a reload of every garment
+    is done (exit 0) and says so for it; named alone, or when no garment has one, refused."""
+    service = _three_garment_service(tmp_path, demo_model, demo_model_file)
+    try:
+        service.garments[2].watcher = None                                   # ghost: no mapping file
+        code, out, err = _send_to(service, "reload")
+        assert code == 0 and "ghost: no mapping file, nothing to reload" in out, (code, out, err)
+        assert "lead: mapping reloaded" in out and "chorus: mapping reloaded" in out, out
+        code, out, err = _send_to(service, "reload", "--garment", "ghost")
+        assert code == 1 and "refused: ghost: no mapping file" in err, (code, out, err)
+        for g in service.garments:
+            g.watcher = None
+        code, out, err = _send_to(service, "reload")
+        assert code == 1 and "no running garment has a mapping file" in err, (code, out, err)
+    finally:
+        service.control.close()
+        service.status.close()
+
+
 def test_a_partial_outcome_is_an_osc_string_the_reference_library_reads():
     """The acknowledgement's outcome word read back with python-osc (the reference OSC 1.0
     implementation): "done", "partly", "refused"; True and False still mean done and refused."""

@@ -611,7 +611,9 @@ class Service:
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
-                if g.watcher is None:
+                if g.watcher is None and not target:   # nothing of its own to reload: neither took nor missed
+                    said.append(f"{g.name}: no mapping file, nothing to reload")
+                elif g.watcher is None:
                     refused.append(f"{g.name}: no mapping file")
                     missed.append(g.name)
                 else:
@@ -636,10 +638,12 @@ class Service:
         if cmd == "layer":
             said += [f"{n}: no layer {printable(detail)!r}, unchanged" for n in
                      [g.name for g in self.live() if (not target or g.name == target) and g not in chosen]]
+        if cmd == "reload" and not took and not refused:
+            return REFUSED, "no running garment has a mapping file to reload"
         if not refused:
             return DONE, "; ".join(said)
-        if not said:
-            return REFUSED, "; ".join(refused)
+        if cmd != "reload" and not said or cmd == "reload" and not took:
+            return REFUSED, "; ".join(refused + said)
         # Some garments took it, some did not: an operator must not read this as a refusal
         # (the garments that took it run the new mapping) nor as a success.
         return PARTLY, (f"{cmd} took effect on {', '.join(took)}, NOT on {', '.join(missed)}: "
