@@ -640,9 +640,12 @@ def test_a_view_that_has_levels_but_not_yet_the_channel_names_invents_none():
     later = render(v, 200, now_s=100.3).splitlines()
     bars = [line for line in later if "#" in line or "...." in line]
     assert [line.split()[1] for line in bars] == list(NAMES[1]) and all(line.startswith("  STALE ") for line in bars)
-    fresh = StatusView()   # nothing but levels yet: arming is not known, so not said
+    fresh = StatusView()   # nothing but levels yet: arming, data and rate are not known, so none is drawn
     fresh.take(*OUTAGE[1][:1], list(OUTAGE[1][1]), now_s=0.0)
-    assert "armed ?" in render(fresh, 200) and "disarmed" not in render(fresh, 200)
+    frame = render(fresh, 200, now_s=0.1)
+    assert "[lead] state not heard yet: arming, data and rate unknown" in frame, frame
+    for made_up in ("disarmed", "ARMED", "NO DATA", "0.0 Hz", "dropped 0", "STALE", "levels of"):
+        assert made_up not in frame, (made_up, frame)
 
 
 def test_watch_once_during_an_outage_prints_the_channel_names(capsys):

@@ -102,8 +102,13 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
         g_stale = mark or ("STALE " if now_s is not None and g.heard_s and now_s - g.heard_s > stale_s else "")
         # levels and scores are the last the garment gave: stale while its data has stopped
         d_stale = g_stale or ("STALE " if not g.flowing and g.state != "failed" else "")
-        armed = "armed ?" if g.state == "?" else "ARMED" if g.armed else "disarmed"   # "?": no state heard yet
-        head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {armed}  "
+        if g.state == "?":
+            # Levels and events can come before the first state message (twice a second): until
+            # it does, whether data flows, its rate and arming are unknown, so none is drawn.
+            lines.append(f"{g_stale}[{printable(name, 32)}] state not heard yet: arming, data and rate unknown"[:width])
+            lines += _events_and_notices(g, width)
+            continue
+        head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {'ARMED' if g.armed else 'disarmed'}  "
                 f"layer {printable(g.layer, 32) or '-'}  "
                 f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}"
                 + (f" (implausible {g.implausible})" if g.implausible else ""))
@@ -119,13 +124,21 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
             lines.append(f"  {d_stale}{printable(ch, 14):<14} {bar(v, full)} {v:+.4f}"[:width])
         if g.top:
             lines.append(f"  {d_stale}top: " + "  ".join(f"{printable(c, 20)} {p:.2f}" for c, p in g.top))
-        for kind, gesture, conf, send_ms, *rest in g.events[-4:]:
-            sent = rest[0] if rest else True
-            how = f"sent {send_ms:6.2f} ms after arrival" if sent else "disarmed: not sent"
-            lines.append(f"  {kind:<9} {printable(gesture, 32):<16} conf {conf:.2f}  {how}"[:width])
-        for n in g.notices:
-            lines.append(f"  ! {printable(n, 1000)}"[:width])
+        lines += _events_and_notices(g, width)
     return "\n".join(lines)
+
+
+def _events_and_notices(g: GarmentView, width: int) -> list[str]:
+    """A garment's last four decisions (sent or not) and its notices, one line each."""
+    from .control import printable
+    lines = []
+    for kind, gesture, conf, send_ms, *rest in g.events[-4:]:
+        sent = rest[0] if rest else True
+        how = f"sent {send_ms:6.2f} ms after arrival" if sent else "disarmed: not sent"
+        lines.append(f"  {kind:<9} {printable(gesture, 32):<16} conf {conf:.2f}  {how}"[:width])
+    for n in g.notices:
+        lines.append(f"  ! {printable(n, 1000)}"[:width])
+    return lines
 
 
 def _width(out) -> int:
