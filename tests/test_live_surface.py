@@ -543,6 +543,100 @@ def test_a_reload_of_every_garment_passes_over_one_without_a_mapping_file(tmp_pa
         service.status.close()
 
 
+def _standing(model, seconds):
+    """A block of the simulated wearer standing still, as it arrives now."""
+    from bridge.garment import Jacket
+    from bridge.sources.base import Block
+    take = Jacket(seed=1, wearer=0, session=3).perform([("standing", seconds)])
+    return Block(np.arange(len(take.freq_hz)) / take.rate_hz, take.freq_hz, time.monotonic())
+
+
+def _calibrating_service(tmp_path, model, model_file):
+    """``_three_garment_service`` with [calibration] (0.2 s holds) and data: lead and chorus
+    have calibrated on a wearer standing still and run; ghost's serial port is not there
+    (waiting, as the service marks a garment whose device could not be opened)."""
+    from bridge.service import Pipeline
+    from bridge.service.daemon import WAITING
+    from bridge.sources.base import empty_block
+    from bridge.sources.health import Watchdog
+    service = _three_garment_service(tmp_path, model, model_file)
+    service.config.hold_still_s, service.config.detect_shift = 0.2, False
+    for g in service.garments:
+        g.pipeline = Pipeline(model, g.pipeline.mapping, g.name, settle=service.settling())
+        g.watchdog = Watchdog(5.0)
+        service.sync_hold(g)
+    ghost = service.garments[2]
+    ghost.state, ghost.note = WAITING, "waiting for the garment (cannot open serial port /dev/ttyGHOST: no such file)"
+    ghost.source = type("Away", (), {"connected": False})()
+    service.take(2, empty_block(model.n_channels, time.monotonic()))   # a read that found no device
+    for i in (0, 1):
+        service.take(i, _standing(model, 1.0))
+    return service
+
+
+def test_a_rebaseline_is_refused_for_a_garment_without_data_and_its_state_stays(tmp_path, demo_model, demo_model_file,
+                                                                                  caplog):
+    """Nobody is told to hold still for a garment whose device is not there or gone: its part
+    of the answer says why, it counts as not done, its state and note stay, and when its
+    device turns up the wearer is still told to hold still."""
+    import logging
+    from bridge.sources.base import empty_block
+    caplog.set_level(logging.INFO, logger="drape")
+    service = _calibrating_service(tmp_path, demo_model, demo_model_file)
+    lead, chorus, ghost = service.garments
+    try:
+        assert (lead.state, chorus.state, ghost.state) == ("running", "running", "waiting")
+        note = ghost.note
+        code, out, err = _send_to(service, "rebaseline", "--garment", "ghost")
+        assert code == 1 and "refused: ghost: no data (waiting for the garment (cannot open serial port" in err, (code, err)
+        assert "it calibrates when its data comes" in err and "hold still" not in out + err, err
+        assert (ghost.state, ghost.note) == ("waiting", note)
+        code, out, err = _send_to(service, "rebaseline")
+        assert code == 3 and "rebaseline took effect on lead, chorus, NOT on ghost" in err, (code, out, err)
+        assert "lead: hold still, re-baselining (0.2 s)" in err and "ghost: no data (waiting" in err, err
+        assert (lead.state, ghost.state, ghost.note) == ("calibrating", "waiting", note)
+        caplog.clear()
+        service.take(2, _standing(demo_model, 0.5))           # ghost's device turns up
+        assert "ghost: the garment is there; hold still: calibrating (0.2 s)" in caplog.text, caplog.text
+        # chorus's device goes away while it runs: a rebaseline is refused, the note stays
+        service.take(1, _standing(demo_model, 0.5))           # its capture ends: running again
+        chorus.source = type("Away", (), {"connected": False})()
+        service.take(1, empty_block(demo_model.n_channels, time.monotonic()))
+        assert (chorus.state, chorus.note) == ("running", "device gone")
+        code, out, err = _send_to(service, "rebaseline", "--garment", "chorus")
+        assert code == 1 and "chorus: no data (device gone); not re-baselined; ask again once its data flows" in err, err
+        assert (chorus.state, chorus.note) == ("running", "device gone")
+    finally:
+        service.control.close()
+        service.status.close()
+
+
+def test_the_single_loop_refuses_a_rebaseline_while_it_has_no_data(demo_model, capsys):
+    from bridge.cli import main
+    from bridge.service import Pipeline, Settling, StopFlag, run
+    from bridge.service.control import ControlInbox
+
+    class Unplugged(IdleSource):
+        connected = False
+
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, said = StopFlag(), []
+    pipe = Pipeline(demo_model, None, "solo", settle=Settling(0.5))
+    loop = threading.Thread(target=run, args=(Unplugged(demo_model.n_channels), pipe, {}, stop),
+                            kwargs=dict(inbox=inbox, report=said.append, stall_s=0.2), daemon=True)
+    loop.start()
+    try:
+        time.sleep(0.1)   # a few reads: the watchdog has said "no device yet"
+        code = main(["send", "rebaseline", "--port", str(inbox.address[1]), "--wait-s", "5"])
+        r = capsys.readouterr()
+        assert code == 1 and "refused: solo: no data (no device yet); it calibrates when its data comes" in r.err, r
+        assert "hold still" not in r.out + r.err and [h.why for h in pipe.holds] == ["hold still: calibrating"]
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+
+
 def test_a_partial_outcome_is_an_osc_string_the_reference_library_reads():
     """The acknowledgement's outcome word read back with python-osc (the reference OSC 1.0
     implementation): "done", "partly", "refused"; True and False still mean done and refused."""

@@ -607,7 +607,7 @@ class Service:
         log.info("%s: %s%s asked for %s", "control message" if source == "control" else source, cmd,
                  f" {printable(detail)}" if detail else "", target or "every garment")
         said, refused = [], []
-        took, missed = [], []   # garment names, for the head of a partial answer
+        took, missed = [], []   # garment names, for the head of a partial answer and the outcome
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
@@ -626,8 +626,16 @@ class Service:
                                        + "; ".join(change.problems))
                         missed.append(g.name)
             elif cmd == "rebaseline":
-                self.begin_hold(g, "hold still: re-baselining")
-                said.append(f"{g.name}: hold still, re-baselining")
+                why = self.no_data(g)
+                if why:   # nobody to hold still for: state, note and the arrival message stay as they are
+                    later = ("it calibrates when its data comes" if g.pipeline.holding
+                             else "not re-baselined; ask again once its data flows")
+                    refused.append(f"{g.name}: no data ({why}); {later}")
+                    missed.append(g.name)
+                else:
+                    self.begin_hold(g, "hold still: re-baselining")
+                    said.append(f"{g.name}: hold still, re-baselining ({self.settling().hold_still_s:g} s)")
+                    took.append(g.name)
             else:  # arm, disarm, panic, layer: Pipeline.command never presses keys
                 self.deliver(g, g.pipeline.command(cmd, detail), self.clock())
                 r = g.pipeline.router
@@ -635,6 +643,7 @@ class Service:
                 did = {"arm": "armed", "disarm": "disarmed, keys and notes let go",
                        "panic": "panic, every note, key and light released", "layer": f"layer {detail!r}"}[cmd]
                 said.append(f"{g.name}: {did}" + (f" (now {now})" if now and cmd in ("panic", "layer") else ""))
+                took.append(g.name)
         if cmd == "layer":
             said += [f"{n}: no layer {printable(detail)!r}, unchanged" for n in
                      [g.name for g in self.live() if (not target or g.name == target) and g not in chosen]]
@@ -642,12 +651,21 @@ class Service:
             return REFUSED, "no running garment has a mapping file to reload"
         if not refused:
             return DONE, "; ".join(said)
-        if cmd != "reload" and not said or cmd == "reload" and not took:
+        if not took:
             return REFUSED, "; ".join(refused + said)
         # Some garments took it, some did not: an operator must not read this as a refusal
         # (the garments that took it run the new mapping) nor as a success.
         return PARTLY, (f"{cmd} took effect on {', '.join(took)}, NOT on {', '.join(missed)}: "
                         + "; ".join(refused + said))
+
+    def no_data(self, g: Garment) -> str:
+        """Why this garment has no data flowing ("" when it has): its device not there yet
+        (the waiting note), gone, or silent for longer than its stall time."""
+        if g.state == WAITING:
+            return g.note
+        if not g.flowing:
+            return g.watchdog.reason if g.watchdog is not None else "no sample yet"
+        return ""
 
     def check_model(self, g: Garment) -> None:
         """On reload: say what became of a model file replaced on disk (never swapped live)."""

@@ -205,6 +205,10 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
         if kind == "rebaseline":
             if getattr(pipeline, "settle", None) is None:
                 return False, f"{name} does not calibrate here (no hold-still capture in this loop)"
+            if reported is not None and reported[0] == NO_DATA:   # nobody to hold still for
+                later = ("it calibrates when its data comes" if pipeline.holding
+                         else "not re-baselined; ask again once its data flows")
+                return False, f"{name}: no data ({reported[1]}); {later}"
             deliver(pipeline.rebaseline(), clock())
             # The answer names the garment and the hold's length: the capture is not told again
             # when its first samples come in.
