@@ -543,6 +543,26 @@ def test_a_reload_of_every_garment_passes_over_one_without_a_mapping_file(tmp_pa
         service.status.close()
 
 
+def test_a_command_to_every_garment_names_each_failed_garment_and_why(tmp_path, demo_model, demo_model_file):
+    """A garment that failed at start cannot be reached by any command: a command to every
+    garment is done when every running garment did it, and its text says which garment was
+    not reached and why; named alone, the failed garment is refused."""
+    service = _three_garment_service(tmp_path, demo_model, demo_model_file)
+    ghost = service.garments[2]
+    try:
+        ghost.pipeline, ghost.watcher = None, None
+        service.fail(ghost, "model file missing: /shows/ghost.npz")
+        for cmd in ("reload", "arm", "disarm", "panic"):
+            code, out, err = _send_to(service, cmd)
+            assert code == 0 and "lead: " in out and "chorus: " in out, (cmd, code, out, err)
+            assert "ghost: failed at start, not running (model file missing: /shows/ghost.npz)" in out, (cmd, out)
+        code, out, err = _send_to(service, "arm", "--garment", "ghost")
+        assert code == 1 and "no such running garment 'ghost'" in err and "ghost (failed)" in err, (code, out, err)
+    finally:
+        service.control.close()
+        service.status.close()
+
+
 def _standing(model, seconds):
     """A block of the simulated wearer standing still, as it arrives now."""
     from bridge.garment import Jacket

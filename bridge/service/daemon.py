@@ -207,6 +207,7 @@ class Garment:
     recent: list = field(default_factory=list)  # (host time, samples) for the rate figure
     latencies_ms: list = field(default_factory=list)
     model_sig: tuple | None = None              # the model file as loaded (see check_model)
+    ran: bool = False                           # its reader was started: a failure since is one while running
     failures: OutputWatch = field(default_factory=OutputWatch)  # outputs failing, told as it happens
 
     @property
@@ -370,6 +371,7 @@ class Service:
         for g in self.garments:  # read only once every model is ready: none waits on another's training
             if g.reader is not None and g.state != FAILED:
                 g.reader.start()
+                g.ran = True
 
     def opener(self, g: Garment):
         """How this garment's outputs are opened: no keys for samples from the network."""
@@ -597,12 +599,16 @@ class Service:
         if target and not chosen:
             return REFUSED, (f"no such running garment {printable(target)!r} (have "
                              f"{', '.join(g.name + ('' if g.state != FAILED else ' (failed)') for g in self.garments) or 'none'})")
+        # A command to every garment cannot reach a failed one: the answer says so, with why,
+        # so nobody reads "done" as "every garment did it".
+        passed = [] if target else [f"{g.name}: {self.failed_how(g)}" for g in self.garments if g.state == FAILED]
         if not chosen:
-            return REFUSED, "no garment is running"
+            return REFUSED, "; ".join(["no garment is running"] + passed)
         if cmd == "layer":
             without = [g.name for g in chosen if g.pipeline.mapping is None or detail not in g.pipeline.mapping.layers]
             if len(without) == len(chosen):
-                return REFUSED, f"no layer {printable(detail)!r} in the mapping of {', '.join(without)}"
+                return REFUSED, "; ".join([f"no layer {printable(detail)!r} in the mapping of {', '.join(without)}"]
+                                          + passed)
             chosen = [g for g in chosen if g.name not in without]
         log.info("%s: %s%s asked for %s", "control message" if source == "control" else source, cmd,
                  f" {printable(detail)}" if detail else "", target or "every garment")
@@ -648,15 +654,20 @@ class Service:
             said += [f"{n}: no layer {printable(detail)!r}, unchanged" for n in
                      [g.name for g in self.live() if (not target or g.name == target) and g not in chosen]]
         if cmd == "reload" and not took and not refused:
-            return REFUSED, "no running garment has a mapping file to reload"
+            return REFUSED, "; ".join(["no running garment has a mapping file to reload"] + passed)
         if not refused:
-            return DONE, "; ".join(said)
+            return DONE, "; ".join(said + passed)
         if not took:
-            return REFUSED, "; ".join(refused + said)
+            return REFUSED, "; ".join(refused + said + passed)
         # Some garments took it, some did not: an operator must not read this as a refusal
         # (the garments that took it run the new mapping) nor as a success.
         return PARTLY, (f"{cmd} took effect on {', '.join(took)}, NOT on {', '.join(missed)}: "
-                        + "; ".join(refused + said))
+                        + "; ".join(refused + said + passed))
+
+    @staticmethod
+    def failed_how(g: Garment) -> str:
+        """A failed garment's part of an answer: when it failed, and why."""
+        return f"failed {'while running' if g.ran else 'at start'}, not running ({g.note})"
 
     def no_data(self, g: Garment) -> str:
         """Why this garment has no data flowing ("" when it has): its device not there yet
