@@ -210,6 +210,67 @@ to = ["127.0.0.1:{rx.port}"]
     assert waiting < there and "calibrating" not in err[:there], err
 
 
+def test_a_service_whose_every_garment_failed_says_why_and_exits(tmp_path):
+    """Nothing runs, so nothing may look healthy: the reasons are logged, the process ends
+    non-zero, and no "other garments carry on" is claimed where there are none."""
+    ctl = free_port()
+    (tmp_path / "show.toml").write_text(f"""
+[[garment]]
+name = "ghost"
+port = "/dev/nonexistent-drape-port"
+model = "missing.npz"
+
+[control]
+listen = "127.0.0.1:{ctl}"
+""")
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    try:
+        _, err = proc.communicate(timeout=60)
+    finally:
+        proc.kill()
+    assert proc.returncode == 1, err
+    assert "no garment could start (ghost: " in err and "missing.npz" in err, err
+    assert "carry on" not in err and "running 0 of" not in err, err
+    with socket.socket(socket.AF_INET, socket.SOCK_DGRAM) as s:   # its control port was let go
+        s.bind(("127.0.0.1", ctl))
+
+
+def test_a_garment_waiting_for_its_port_keeps_the_service_running_when_the_others_failed(tmp_path, demo_model_file):
+    (tmp_path / "show.toml").write_text(f"""
+[[garment]]
+name = "lead"
+port = "{tmp_path / 'ttyNOPE'}"
+model = "{demo_model_file}"
+
+[[garment]]
+name = "ghost"
+port = "/dev/nonexistent-drape-port"
+model = "missing.npz"
+
+[control]
+listen = "127.0.0.1:{free_port()}"
+""")
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, text=True, cwd=ROOT)
+    err = []
+    threading.Thread(target=lambda: [err.append(line) for line in proc.stderr], daemon=True).start()
+    try:
+        deadline = time.monotonic() + 60
+        while not any("running 1 of 2 garment(s) (ghost failed" in line for line in err) and proc.poll() is None \
+                and time.monotonic() < deadline:
+            time.sleep(0.05)
+        time.sleep(0.5)
+        assert proc.poll() is None, "".join(err)
+        text = "".join(err)
+        assert "running 1 of 2 garment(s) (ghost failed" in text and "lead: waiting for the garment" in text, text
+        assert "ghost: model" in text or "missing.npz" in text, text
+    finally:
+        proc.send_signal(signal.SIGTERM)
+        proc.wait(20)
+    assert proc.returncode == 0
+
+
 def test_two_garments_in_one_daemon(tmp_path, demo_model_file, second_model_file):
     rx = Receiver()
     ctl = free_port()

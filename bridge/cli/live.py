@@ -251,13 +251,18 @@ def cmd_serve(a) -> int:
             service.reloads_asked += 1
         signal.signal(signal.SIGHUP, hup)
     service.start_garments()
+    nothing = service.none_started()
+    if nothing:   # a service that runs nothing must not look healthy: say why, close what opened, fail
+        log.error("no garment could start (%s); stopping", nothing)
+        service.shutdown()
+        return 1
     if cfg.status_to:
         log.info("status stream to %s", ", ".join(cfg.status_to))
     failed = [g.name for g in service.garments if g not in service.live()]
     log.log(logging.WARNING if failed else logging.INFO,
             "running %d of %d garment(s)%s; SIGTERM or Ctrl-C stops, SIGHUP reloads mappings, SIGUSR1 panics",
             len(service.garments) - len(failed), len(service.garments),
-            f" ({', '.join(failed)} failed: see above)" if failed else "")
+            f" ({', '.join(failed)} failed: see above; the other garments carry on)" if failed else "")
     import gc
     gc.freeze()  # what start loaded (models, modules) is left out of later collections: a full one
     service.serve()  # then scans only what the loop made, not a pause of tens of ms in the stream

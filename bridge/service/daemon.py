@@ -373,6 +373,13 @@ class Service:
                 g.reader.start()
                 g.ran = True
 
+    def none_started(self) -> str:
+        """After ``start_garments``: why no garment could start ("" when one did). A garment
+        waiting for its device has started (it runs once the device is there)."""
+        if self.live():
+            return ""
+        return "; ".join(f"{g.name}: {g.note}" for g in self.garments) or "no garment in the config"
+
     def opener(self, g: Garment):
         """How this garment's outputs are opened: no keys for samples from the network."""
         return keys_only_for_local_input(self.open_fn, getattr(g.cfg, "input", "serial") == "osc")
@@ -389,7 +396,12 @@ class Service:
 
     def fail(self, g: Garment, why: str) -> None:
         g.state, g.note = FAILED, why
-        log.error("%s: %s; the other garments carry on", g.name, why)
+        # At start the others are not all tried yet: the line after start says who runs
+        # (and a start where none could ends, see none_started).
+        others = [x for x in self.garments if x is not g and x.state != FAILED]
+        tail = ("" if not g.ran else "; the other garments carry on" if others else
+                "; no garment is running now" if len(self.garments) > 1 else "")
+        log.error("%s: %s%s", g.name, why, tail)
         self.status.send([st.notice(g.name, f"failed: {why}")])
         if g.pipeline is not None:
             self.deliver(g, g.pipeline.stop(), self.clock())
