@@ -119,21 +119,27 @@ def test_capture_command_gives_a_take_that_fits(tmp_path, capsys):
 
 
 def test_interrupted_capture_leaves_a_readable_take(tmp_path):
-    for sig in (signal.SIGINT, signal.SIGKILL):
-        out = tmp_path / f"cut-{sig.name}.take"
-        proc = subprocess.Popen(drape_cmd("capture", "--simulated", "--yes", "--no-keys", "--lead-s", "1",
-                                          "--countdown-s", "0.5", "--out", str(out)),
-                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
-        try:
+    # Both captures run side by side (they wait on the simulated jacket's real time), with
+    # a 1 s window for the first prompt rather than the 3 s (or 5 s hold) of the defaults.
+    sigs = (signal.SIGINT, signal.SIGKILL)
+    procs = [subprocess.Popen(drape_cmd("capture", "--simulated", "--yes", "--no-keys", "--lead-s", "1",
+                                        "--countdown-s", "0.5", "--window-s", "1", "--hold-s", "1",
+                                        "--out", str(tmp_path / f"cut-{sig.name}.take")),
+                              stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True) for sig in sigs]
+    try:
+        for proc in procs:
             for line in proc.stdout:
                 if line.startswith("done:"):  # one labelled prompt, then pull the plug
                     break
-            time.sleep(1.2)  # past the writer's once-a-second flush
+        time.sleep(1.2)  # past the writer's once-a-second flush
+        for sig, proc in zip(sigs, procs):
             proc.send_signal(sig)
-            stdout, stderr = proc.communicate(timeout=20)
-        finally:
+        outputs = [proc.communicate(timeout=20) for proc in procs]
+    finally:
+        for proc in procs:
             proc.kill()
-        rec = read_recording(out)
+    for sig, proc, (stdout, stderr) in zip(sigs, procs, outputs):
+        rec = read_recording(tmp_path / f"cut-{sig.name}.take")
         assert len(rec.intervals) >= 1 and rec.freq_hz.shape[0] > 100 and "Traceback" not in stderr
         if sig == signal.SIGINT:
             assert proc.returncode == 0 and "saved" in stdout and "SIGINT" in stdout
