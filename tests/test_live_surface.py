@@ -859,6 +859,65 @@ def test_disarmed_events_are_marked_not_sent_in_every_view(demo_model, capsys):
     assert "disarmed: not sent" in lines[0] and "sent" in lines[1] and "disarmed" not in lines[1]
 
 
+def test_events_of_a_garment_without_a_mapping_are_never_reported_sent(tmp_path, demo_model, demo_model_file,
+                                                                          caplog, capsys):
+    """Nothing goes out for a garment run without a mapping: the log, the status stream and
+    the single loop's lines say so, with no sent latency; and an event a command set off
+    claims no latency from a sample that did not cause it."""
+    import logging
+    from bridge.cli import _print_event
+    from bridge.decisions.gate import Event
+    from bridge.service import Pipeline, Timing
+    from pythonosc.osc_message import OscMessage
+    caplog.set_level(logging.INFO, logger="drape")
+    bow = Event(1.0, "bow", "gesture", 0.9)
+    sent, unsent = Pipeline(demo_model, None, "ghost").dispatches_marked([bow])
+    assert sent == [] and unsent == [True]
+    service = _three_garment_service(tmp_path, demo_model, demo_model_file)
+    ghost = service.garments[2]
+    told = []
+    service.status.send = told.extend
+    try:
+        ghost.pipeline, ghost.watcher = Pipeline(demo_model, None, "ghost"), None
+        service.deliver(ghost, [bow], time.monotonic())
+        line = next(r.getMessage() for r in caplog.records if "ghost: gesture bow" in r.getMessage())
+        assert line.endswith("no mapping: not sent") and "ms" not in line, line
+        ev = OscMessage(told[-1])
+        assert ev.address == "/drape/g/ghost/event" and list(ev.params)[7:] == [0, "no mapping"], list(ev.params)
+        caplog.clear()
+        code, out, err = _send_to(service, "disarm", "--garment", "lead")
+        assert code == 0, (code, out, err)
+        line = next(r.getMessage() for r in caplog.records if "lead: disarmed" in r.getMessage())
+        assert "after the command" in line and "sample" not in line, line
+    finally:
+        service.control.close()
+        service.status.close()
+    _print_event(bow, Timing(0.4, 1.85, not_sent="no mapping"))
+    out = capsys.readouterr().out
+    assert "no mapping: not sent" in out and "latency" not in out and "disarmed" not in out, out
+
+
+def test_the_single_loop_tells_an_event_without_a_mapping_as_not_sent(demo_model):
+    from bridge.cli import main
+    from bridge.service import Pipeline, StopFlag, run
+    from bridge.service.control import ControlInbox
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, heard = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, None, "solo"),
+                                              {}, stop),
+                            kwargs=dict(inbox=inbox, report=lambda t: None, on_event=lambda e, t: heard.append((e, t))),
+                            daemon=True)
+    loop.start()
+    try:
+        assert main(["send", "disarm", "--port", str(inbox.address[1]), "--wait-s", "5"]) == 0
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+    assert [e.kind for e, _ in heard] == ["disarmed"], heard
+    assert all(t.not_sent == "no mapping" and not t.disarmed for _, t in heard), heard
+
+
 class FailingOutput:
     """An output whose destination went away after its first message."""
 

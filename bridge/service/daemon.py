@@ -49,6 +49,7 @@ from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
 log = logging.getLogger("drape")
 
 RUNNING, FAILED = "running", "failed"
+SAMPLE = "its last sample arrived"   # what set an event off, as ``Service.deliver`` logs it
 WAITING = "waiting"   # no sample yet: the garment's device is not there (yet); it is tried again and again
 
 
@@ -296,7 +297,9 @@ class Service:
     """Runs the garments of a ``ServiceConfig`` until ``stop`` is set (see module doc).
 
     open_fn(destination) opens an output (``bridge.outputs.open_output``); clock is the host
-    monotonic clock. ``serve()`` returns when stopped, with every output closed.
+    monotonic clock. on_event(garment name, event, latency) hears every event but the
+    continuous controls', after its messages were handed over; latency (a ``Latency``) is
+    None when nothing went out for it (disarmed, no mapping). ``serve()`` returns when stopped, with every output closed.
     """
 
     def __init__(self, config, open_fn, stop: StopFlag | None = None, clock=time.monotonic,
@@ -404,7 +407,7 @@ class Service:
         log.error("%s: %s%s", g.name, why, tail)
         self.status.send([st.notice(g.name, f"failed: {why}")])
         if g.pipeline is not None:
-            self.deliver(g, g.pipeline.stop(), self.clock())
+            self.deliver(g, g.pipeline.stop(), self.clock(), after="the failure")
             self.send(g, g.pipeline.let_go())
 
     def settling(self) -> Settling:
@@ -414,7 +417,7 @@ class Service:
 
     def begin_hold(self, g: Garment, why: str) -> None:
         """Rebaseline: a hold-still capture from the next sample; postures held are released."""
-        self.deliver(g, g.pipeline.rebaseline(why), self.clock())
+        self.deliver(g, g.pipeline.rebaseline(why), self.clock(), after="the command")
         self.sync_hold(g)
 
     def sync_hold(self, g: Garment) -> None:
@@ -501,7 +504,7 @@ class Service:
         status, reason = step
         if status == NO_DATA and reason and g.note != reason and g.state == RUNNING:
             log.warning("%s: no data (%s); postures released, outputs stay open", g.name, reason)
-            self.deliver(g, g.pipeline.stop(), self.clock())
+            self.deliver(g, g.pipeline.stop(), self.clock(), after="no data was seen")
             g.note = reason
         elif status == STREAMING and g.note and g.state == RUNNING:
             log.info("%s: data flowing again", g.name)
@@ -518,7 +521,12 @@ class Service:
                 missing.add(d.destination)
         return missing
 
-    def deliver(self, g: Garment, events, arrived_s: float) -> None:
+    def deliver(self, g: Garment, events, arrived_s: float, after: str = SAMPLE) -> None:
+        """Route and send a garment's events; log each, tell the status stream.
+
+        ``arrived_s``: host time of what set them off, s; ``after`` names it: the last sample
+        of the block (``SAMPLE``) or, for events a command, a signal or a stop caused, that
+        cause, so a log line never claims a latency from a sample that did not cause it."""
         if not events:
             return
         decided = self.clock()
@@ -527,22 +535,29 @@ class Service:
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
         nowhere = f"; not sent to {', '.join(sorted(missing))} (left out)" if missing else ""
+        held_back = "no mapping" if g.pipeline.router is None else "disarmed"   # why an unsent event went nowhere
         if self.timings is not None:
             cpu = time.thread_time() - self._cpu_at_take if self._cpu_at_take is not None else float("nan")
             self.timings.record(g.index, events, lat, cpu)
         out = []
-        for e, disarmed in zip(events, unsent):
+        for e, not_sent in zip(events, unsent):
             if e.kind == "control":
                 continue
-            out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms, not disarmed))
+            out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms, not not_sent,
+                                held_back if not_sent else ""))
             what = f"{g.name}: {e.kind} {e.gesture}{' ' + printable(e.detail) if e.detail else ''} at {e.t_s:.2f} s"
-            if disarmed:
-                log.info("%s; disarmed: not sent", what)
+            if not_sent:
+                log.info("%s; %s: not sent", what, held_back)
+                if self.on_event:
+                    self.on_event(g.name, e, None)
                 continue
-            g.latencies_ms.append(lat.send_ms)
-            del g.latencies_ms[:-1000]
-            log.info("%s; decided %.2f ms, sent %.2f ms after its last sample arrived%s", what, lat.decide_ms,
-                     lat.send_ms, nowhere)
+            if after != SAMPLE:
+                log.info("%s; sent %.2f ms after %s%s", what, lat.send_ms, after, nowhere)
+            else:
+                g.latencies_ms.append(lat.send_ms)
+                del g.latencies_ms[:-1000]
+                log.info("%s; decided %.2f ms, sent %.2f ms after %s%s", what, lat.decide_ms, lat.send_ms, after,
+                         nowhere)
             if self.on_event:
                 self.on_event(g.name, e, lat)
         self.status.send(out)
@@ -551,7 +566,7 @@ class Service:
         if self.stop.panics:
             self.stop.panics = 0
             for g in self.live():
-                self.deliver(g, g.pipeline.command("panic", "signal"), now)
+                self.deliver(g, g.pipeline.command("panic", "signal"), now, after="the signal")
         if self.reloads_asked != self._reloads_seen:
             self._reloads_seen = self.reloads_asked
             self.command("reload", "", "", None, source="SIGHUP")
@@ -655,7 +670,7 @@ class Service:
                     said.append(f"{g.name}: hold still, re-baselining ({self.settling().hold_still_s:g} s)")
                     took.append(g.name)
             else:  # arm, disarm, panic, layer: Pipeline.command never presses keys
-                self.deliver(g, g.pipeline.command(cmd, detail), self.clock())
+                self.deliver(g, g.pipeline.command(cmd, detail), self.clock(), after="the command")
                 r = g.pipeline.router
                 now = "" if r is None else f"{'armed' if r.armed else 'disarmed'}" + (f", layer {r.layer!r}" if r.layer else "")
                 did = {"arm": "armed", "disarm": "disarmed, keys and notes let go",
@@ -757,7 +772,7 @@ class Service:
         for g in self.garments:
             try:
                 if g.pipeline is not None:
-                    self.deliver(g, g.pipeline.stop(), self.clock())
+                    self.deliver(g, g.pipeline.stop(), self.clock(), after="the stop")
                     self.send(g, g.pipeline.let_go())
             finally:
                 for name, o in g.outputs.items():

@@ -305,12 +305,13 @@ class Pipeline:
         return self.router.route(events) + self.router.due(self.t_s)
 
     def dispatches_marked(self, events: list[Event]) -> tuple[list[Dispatch], list[bool]]:
-        """``dispatches(events)``, and for each event whether it went unsent because the
-        garment was disarmed (a gesture or posture event that produced no message), so
-        logs and views never show such an event as sent."""
+        """``dispatches(events)``, and for each event whether nothing went out for it: the
+        garment was disarmed (a gesture or posture event that produced no message), or it
+        has no mapping (``router`` None: every event), so logs and views never show such an
+        event as sent."""
         r = self.router
         if r is None:
-            return [], [False] * len(events)
+            return [], [True] * len(events)
         if r.armed and not any(e.kind in ("disarmed", "panic") for e in events):
             return r.route(events) + r.due(self.t_s), [False] * len(events)
         out, unsent = [], []

@@ -26,6 +26,7 @@ class Timing:
     decide_ms: float
     send_ms: float
     disarmed: bool = False  # the event matched nothing because the garment was disarmed: nothing went out
+    not_sent: str = ""      # why nothing went out for the event ("disarmed", "no mapping"); "" when sent
 
 
 @dataclass
@@ -153,13 +154,15 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
                               (pipeline.dispatches(events), [False] * len(events)))
         send(dispatches)
         sent = clock()
-        for e, disarmed in zip(events, unsent):
+        held_back = "no mapping" if getattr(pipeline, "router", None) is None else "disarmed"
+        for e, not_sent in zip(events, unsent):
             if e.kind == "control":
                 stats.controls += 1
             else:
                 stats.events += 1
             if on_event:
-                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3, disarmed))
+                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3,
+                                   not_sent and held_back == "disarmed", held_back if not_sent else ""))
 
     def apply(change, quiet: bool = False) -> None:
         """Swap in a reloaded mapping; ``quiet``: the outcome is said by the caller (a command's answer)."""

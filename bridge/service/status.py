@@ -10,7 +10,8 @@ Addresses (our own design; the table in docs/service.md is the reference):
     /drape/g/NAME/top             s class, f probability (three pairs)          levels_hz
     /drape/g/NAME/event           s kind, s gesture, f confidence, f t_s (stream), f arrived_s
                                   (host monotonic), f decide_ms, f send_ms,
-                                  i sent (0: disarmed, nothing went out)       each event
+                                  i sent (0: nothing went out), s why not
+                                  ("disarmed", "no mapping"; "" when sent)     each event
     /drape/g/NAME/notice          s text (shift found, reload, failure)         when it happens
 
 Building a message is separate from sending it (python-osc style): the functions here return
@@ -58,11 +59,14 @@ def top(name, classes, probabilities, n: int = 3) -> bytes:
     return message(f"/drape/g/{name}/top", *args)
 
 
-def event(name, e, arrived_s: float, decide_ms: float, send_ms: float, sent: bool = True) -> bytes:
-    """``sent`` False: the garment was disarmed and nothing went out for this event."""
+def event(name, e, arrived_s: float, decide_ms: float, send_ms: float, sent: bool = True,
+          why_not: str = "") -> bytes:
+    """``sent`` False: nothing went out for this event; ``why_not`` says why ("disarmed": the
+    garment was disarmed, "no mapping": it runs without one)."""
     from .control import printable  # a layer name from the network is forwarded escaped
     return message(f"/drape/g/{name}/event", str(e.kind), printable(e.gesture or e.detail), float(e.confidence),
-                   float(e.t_s), float(arrived_s), float(decide_ms), float(send_ms), int(bool(sent)))
+                   float(e.t_s), float(arrived_s), float(decide_ms), float(send_ms), int(bool(sent)),
+                   "" if sent else str(why_not or "disarmed"))
 
 
 def notice(name, text: str) -> bytes:
