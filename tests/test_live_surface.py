@@ -321,6 +321,35 @@ def test_the_single_loop_acknowledges_every_command_and_refuses_what_it_cannot_d
         inbox.close()
 
 
+def test_the_single_loop_names_its_garment_and_says_each_state_once(tmp_path, demo_model, capsys):
+    from bridge.cli import main
+    from bridge.mapping import MappingWatcher
+    from bridge.service import Pipeline, StopFlag, run
+    from bridge.service.control import ControlInbox
+    (tmp_path / "m.toml").write_text(LAYERED)
+    watcher = MappingWatcher(tmp_path / "m.toml", demo_model.classes, demo_model.kinds, demo_model.channel_names)
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop = StopFlag()
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, watcher.mapping,
+                                                                                          "solo"), {}, stop),
+                            kwargs=dict(inbox=inbox, watcher=watcher, report=lambda t: None), daemon=True)
+    loop.start()
+    try:
+        def send(*a):
+            code = main(["send", *a, "--port", str(inbox.address[1]), "--wait-s", "5"])
+            return code, capsys.readouterr().out
+        for cmd, said in (("arm", "solo: armed"), ("disarm", "solo: disarmed: keys and notes let go"),
+                          ("reload", "solo: mapping reloaded (2 rules)")):
+            code, out = send(cmd)
+            assert code == 0 and out.strip().endswith(said) and out.count("armed") == said.count("armed"), (cmd, out)
+        code, out = send("panic")
+        assert code == 0 and "solo: panic" in out and "now disarmed" in out, out
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+
+
 def test_the_single_loop_rebaselines_when_it_calibrates(demo_model, capsys):
     from bridge.cli import main
     from bridge.service import Pipeline, Settling, StopFlag, run

@@ -198,8 +198,8 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             change = watcher.reload_now()
             apply(change, quiet=True)   # the answer below is reported once, as every command's
             if change.mapping is None:
-                return False, "mapping not reloaded, the last good one keeps running: " + "; ".join(change.problems)
-            return True, f"mapping reloaded: {len(change.mapping.rules)} rules, {len(change.mapping.controls)} controls"
+                return False, f"{name}: mapping not reloaded, the last good one keeps running: " + "; ".join(change.problems)
+            return True, f"{name}: mapping reloaded ({len(change.mapping.rules)} rules)"   # as the service says it
         if kind == "layer":
             m = pipeline.mapping
             if m is None or detail not in m.layers:
@@ -221,7 +221,9 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             return False, f"{kind} is not available in the single-garment loop (use a service config)"
         deliver(pipeline.command(kind, detail), clock())
         r = pipeline.router
-        state = "" if r is None else f"; now {'armed' if r.armed else 'disarmed'}" + (f", layer {r.layer!r}" if r.layer else "")
+        # arm and disarm say the state themselves; a panic disarms, a layer may not be the only change
+        state = "" if r is None or kind in ("arm", "disarm") else \
+            f"; now {'armed' if r.armed else 'disarmed'}" + (f", layer {r.layer!r}" if r.layer else "")
         done = {"arm": "armed", "disarm": "disarmed: keys and notes let go",
                 "panic": "panic: every note, key and light released", "layer": f"layer {detail!r}"}[kind]
         return True, f"{name}: {done}{state}"
