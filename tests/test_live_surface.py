@@ -913,6 +913,11 @@ def test_events_of_a_garment_without_a_mapping_are_never_reported_sent(tmp_path,
         assert line.endswith("no mapping: not sent") and "ms" not in line, line
         ev = OscMessage(told[-1])
         assert ev.address == "/drape/g/ghost/event" and list(ev.params)[7:] == [0, "no mapping"], list(ev.params)
+        from bridge.service.watch import StatusView, render
+        view = StatusView()
+        view.take(ev.address, list(ev.params))
+        shown = [l for l in render(view, 200).splitlines() if "bow" in l]
+        assert len(shown) == 1 and "no mapping: not sent" in shown[0] and "disarmed" not in shown[0], shown
         caplog.clear()
         code, out, err = _send_to(service, "disarm", "--garment", "lead")
         assert code == 0, (code, out, err)

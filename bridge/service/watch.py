@@ -71,7 +71,8 @@ class StatusView:
             g.top = [(str(args[i]), float(args[i + 1])) for i in range(0, len(args) - 1, 2)]
         elif what == "event" and len(args) >= 7:
             sent = bool(args[7]) if len(args) >= 8 else True
-            g.events = (g.events + [(str(args[0]), str(args[1]), float(args[2]), float(args[6]), sent)])[-6:]
+            why_not = "" if sent else (str(args[8]) if len(args) >= 9 and args[8] else "disarmed")
+            g.events = (g.events + [(str(args[0]), str(args[1]), float(args[2]), float(args[6]), sent, why_not)])[-6:]
         elif what == "notice" and args:
             g.notices = (g.notices + [str(args[0])])[-2:]
 
@@ -134,7 +135,8 @@ def _events_and_notices(g: GarmentView, width: int) -> list[str]:
     lines = []
     for kind, gesture, conf, send_ms, *rest in g.events[-4:]:
         sent = rest[0] if rest else True
-        how = f"sent {send_ms:6.2f} ms after arrival" if sent else "disarmed: not sent"
+        why_not = rest[1] if len(rest) > 1 and rest[1] else "disarmed"
+        how = f"sent {send_ms:6.2f} ms after arrival" if sent else f"{printable(why_not, 32)}: not sent"
         lines.append(f"  {kind:<9} {printable(gesture, 32):<16} conf {conf:.2f}  {how}"[:width])
     for n in g.notices:
         lines.append(f"  ! {printable(n, 1000)}"[:width])
