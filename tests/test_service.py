@@ -165,16 +165,21 @@ def state_of(rx, name, t0, pred, timeout=30.0):  # generous: a loaded machine is
     return rx.wait(lambda a, args: a == f"/drape/g/{name}/state" and pred(args), timeout, t0)[1]
 
 
+def _lead_without_port(tmp_path, model_file) -> str:
+    """A garment whose serial port is not there (yet): it waits for it."""
+    return f"""
+[[garment]]
+name = "lead"
+port = "{tmp_path / 'ttyNOPE'}"
+model = "{model_file}"
+"""
+
+
 def test_a_garment_whose_port_is_not_there_is_waiting_and_says_why(tmp_path, demo_model_file):
     """Not "calibrating" (nobody should hold still for a device that is not plugged in), and
     the reason in the log and in the state every view shows."""
     rx = Receiver()
-    (tmp_path / "show.toml").write_text(f"""
-[[garment]]
-name = "lead"
-port = "{tmp_path / 'ttyNOPE'}"
-model = "{demo_model_file}"
-
+    (tmp_path / "show.toml").write_text(_lead_without_port(tmp_path, demo_model_file) + f"""
 [control]
 listen = "127.0.0.1:{free_port()}"
 
@@ -210,16 +215,20 @@ to = ["127.0.0.1:{rx.port}"]
     assert waiting < there and "calibrating" not in err[:there], err
 
 
-def test_a_service_whose_every_garment_failed_says_why_and_exits(tmp_path):
-    """Nothing runs, so nothing may look healthy: the reasons are logged, the process ends
-    non-zero, and no "other garments carry on" is claimed where there are none."""
-    ctl = free_port()
-    (tmp_path / "show.toml").write_text(f"""
+# A garment that fails at start: its model file is not there (its port is not either).
+GHOST = """
 [[garment]]
 name = "ghost"
 port = "/dev/nonexistent-drape-port"
 model = "missing.npz"
+"""
 
+
+def test_a_service_whose_every_garment_failed_says_why_and_exits(tmp_path):
+    """Nothing runs, so nothing may look healthy: the reasons are logged, the process ends
+    non-zero, and no "other garments carry on" is claimed where there are none."""
+    ctl = free_port()
+    (tmp_path / "show.toml").write_text(GHOST + f"""
 [control]
 listen = "127.0.0.1:{ctl}"
 """)
@@ -237,17 +246,7 @@ listen = "127.0.0.1:{ctl}"
 
 
 def test_a_garment_waiting_for_its_port_keeps_the_service_running_when_the_others_failed(tmp_path, demo_model_file):
-    (tmp_path / "show.toml").write_text(f"""
-[[garment]]
-name = "lead"
-port = "{tmp_path / 'ttyNOPE'}"
-model = "{demo_model_file}"
-
-[[garment]]
-name = "ghost"
-port = "/dev/nonexistent-drape-port"
-model = "missing.npz"
-
+    (tmp_path / "show.toml").write_text(_lead_without_port(tmp_path, demo_model_file) + GHOST + f"""
 [control]
 listen = "127.0.0.1:{free_port()}"
 """)
