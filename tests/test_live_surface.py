@@ -872,11 +872,11 @@ def test_disarmed_events_are_marked_not_sent_in_every_view(demo_model, capsys):
                       demo_model.channel_names)
     p = Pipeline(demo_model, m, "jacket")
     bow = Event(1.0, "bow", "gesture", 0.9)
-    sent, unsent = p.dispatches_marked([bow])
-    assert sent == [] and unsent == [True]
-    sent, unsent = p.dispatches_marked(p.command("arm") + [bow])
-    assert len(sent) >= 1 and unsent[-1] is False
-    _print_event(bow, Timing(0.4, 1.85, disarmed=True))
+    sent, why_not = p.dispatches_marked([bow])
+    assert sent == [] and why_not == ["disarmed"]
+    sent, why_not = p.dispatches_marked(p.command("arm") + [bow])
+    assert len(sent) >= 1 and why_not[-1] == ""
+    _print_event(bow, Timing(0.4, 1.85, not_sent="disarmed"))
     _print_event(bow, Timing(0.4, 1.85))
     out = capsys.readouterr().out.splitlines()
     assert "disarmed: not sent" in out[0] and "latency" not in out[0] and "latency  1.85 ms" in out[1]
@@ -900,8 +900,8 @@ def test_events_of_a_garment_without_a_mapping_are_never_reported_sent(tmp_path,
     from pythonosc.osc_message import OscMessage
     caplog.set_level(logging.INFO, logger="drape")
     bow = Event(1.0, "bow", "gesture", 0.9)
-    sent, unsent = Pipeline(demo_model, None, "ghost").dispatches_marked([bow])
-    assert sent == [] and unsent == [True]
+    sent, why_not = Pipeline(demo_model, None, "ghost").dispatches_marked([bow])
+    assert sent == [] and why_not == ["no mapping"]
     service = _three_garment_service(tmp_path, demo_model, demo_model_file)
     ghost = service.garments[2]
     told = []

@@ -35,8 +35,8 @@ def _print_event(e, timing=None) -> None:
         _line(f"{e.t_s:9.2f} s  ** {e.kind}{' ' + printable(e.detail) if e.detail else ''}")
         return
     extra = f"  held {e.duration_s:5.2f} s" if e.kind == "left" else ""
-    if timing is not None and (timing.not_sent or timing.disarmed):
-        lat = f"  {timing.not_sent or 'disarmed'}: not sent"
+    if timing is not None and timing.not_sent:
+        lat = f"  {timing.not_sent}: not sent"
     else:
         lat = f"  latency {timing.send_ms:5.2f} ms" if timing else ""
     _line(f"{e.t_s:9.2f} s  {e.gesture:<16} {e.kind:<8} confidence {e.confidence:.2f}{lat}{extra}")

@@ -530,24 +530,23 @@ class Service:
         if not events:
             return
         decided = self.clock()
-        dispatches, unsent = g.pipeline.dispatches_marked(events)
+        dispatches, why_not = g.pipeline.dispatches_marked(events)
         missing = self.send(g, dispatches)
         sent = self.clock()
         lat = Latency(arrived_s, decided, sent)
         nowhere = f"; not sent to {', '.join(sorted(missing))} (left out)" if missing else ""
-        held_back = "no mapping" if g.pipeline.router is None else "disarmed"   # why an unsent event went nowhere
         if self.timings is not None:
             cpu = time.thread_time() - self._cpu_at_take if self._cpu_at_take is not None else float("nan")
             self.timings.record(g.index, events, lat, cpu)
         out = []
-        for e, not_sent in zip(events, unsent):
+        for e, not_sent in zip(events, why_not):
             if e.kind == "control":
                 continue
             out.append(st.event(g.name, e, arrived_s, lat.decide_ms, lat.send_ms, not not_sent,
-                                held_back if not_sent else ""))
+                                not_sent))
             what = f"{g.name}: {e.kind} {e.gesture}{' ' + printable(e.detail) if e.detail else ''} at {e.t_s:.2f} s"
             if not_sent:
-                log.info("%s; %s: not sent", what, held_back)
+                log.info("%s; %s: not sent", what, not_sent)
                 if self.on_event:
                     self.on_event(g.name, e, None)
                 continue

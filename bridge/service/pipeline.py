@@ -304,23 +304,24 @@ class Pipeline:
             return []
         return self.router.route(events) + self.router.due(self.t_s)
 
-    def dispatches_marked(self, events: list[Event]) -> tuple[list[Dispatch], list[bool]]:
-        """``dispatches(events)``, and for each event whether nothing went out for it: the
-        garment was disarmed (a gesture or posture event that produced no message), or it
-        has no mapping (``router`` None: every event), so logs and views never show such an
-        event as sent."""
+    def dispatches_marked(self, events: list[Event]) -> tuple[list[Dispatch], list[str]]:
+        """``dispatches(events)``, and for each event why nothing went out for it ("" when
+        something did): "disarmed" (a gesture or posture event that produced no message while
+        the garment was disarmed) or "no mapping" (``router`` None: every event), so logs and
+        views never show such an event as sent."""
         r = self.router
         if r is None:
-            return [], [True] * len(events)
+            return [], ["no mapping"] * len(events)
         if r.armed and not any(e.kind in ("disarmed", "panic") for e in events):
-            return r.route(events) + r.due(self.t_s), [False] * len(events)
-        out, unsent = [], []
+            return r.route(events) + r.due(self.t_s), [""] * len(events)
+        out, why_not = [], []
         for e in events:  # the arming state can change within the list
             armed = r.armed
             ds = r.route([e])
             out += ds
-            unsent.append(e.kind in ("gesture", "entered", "held", "left") and not armed and not ds)
-        return out + r.due(self.t_s), unsent
+            why_not.append("disarmed" if e.kind in ("gesture", "entered", "held", "left") and not armed and not ds
+                           else "")
+        return out + r.due(self.t_s), why_not
 
     def stop(self) -> list[Event]:
         """Release held postures: the "left" events to send before shutting down."""

@@ -25,8 +25,12 @@ class Timing:
 
     decide_ms: float
     send_ms: float
-    disarmed: bool = False  # the event matched nothing because the garment was disarmed: nothing went out
     not_sent: str = ""      # why nothing went out for the event ("disarmed", "no mapping"); "" when sent
+
+    @property
+    def disarmed(self) -> bool:
+        """The event matched nothing because the garment was disarmed: nothing went out."""
+        return self.not_sent == "disarmed"
 
 
 @dataclass
@@ -150,19 +154,17 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
 
     def deliver(events: list[Event], arrived: float) -> None:
         decided = clock()
-        dispatches, unsent = (pipeline.dispatches_marked(events) if marks else
-                              (pipeline.dispatches(events), [False] * len(events)))
+        dispatches, why_not = (pipeline.dispatches_marked(events) if marks else
+                               (pipeline.dispatches(events), [""] * len(events)))
         send(dispatches)
         sent = clock()
-        held_back = "no mapping" if getattr(pipeline, "router", None) is None else "disarmed"
-        for e, not_sent in zip(events, unsent):
+        for e, not_sent in zip(events, why_not):
             if e.kind == "control":
                 stats.controls += 1
             else:
                 stats.events += 1
             if on_event:
-                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3,
-                                   not_sent and held_back == "disarmed", held_back if not_sent else ""))
+                on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3, not_sent))
 
     def apply(change, quiet: bool = False) -> None:
         """Swap in a reloaded mapping; ``quiet``: the outcome is said by the caller (a command's answer)."""
