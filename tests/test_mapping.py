@@ -91,3 +91,95 @@ def test_shipped_demo_mapping_is_valid_against_the_simulated_vocabulary():
     m = load_mapping(root / "mappings" / "demo.toml", ("null", *GESTURES), dict(GESTURES))
     assert {r.gesture for r in m.rules} == set(GESTURES)
     assert m.destinations["show"].port == 9000
+
+
+def _hold_hand_on_heart(mapping, spans_s, hop_s=0.1):
+    """Keys a mapping sends when the wearer holds hand_on_heart over each (start, end) span
+    (s), through the live decision stage and router (as `drape replay` and the daemon do)."""
+    from dataclasses import replace
+
+    import numpy as np
+
+    from bridge.decisions import Gate, gate_settings_for
+    from bridge.garment import GESTURES
+    from bridge.mapping import Router
+    from bridge.mapping.messages import KeyAction
+
+    classes = ("null", *GESTURES)
+    every = mapping.held_every_s()
+    settings = {c: replace(s, held_every_s=every.get(c, s.held_every_s))
+                for c, s in gate_settings_for(classes[1:], None, dict(GESTURES), hop_s=hop_s).items()}
+    gate, router = Gate(classes, dict(GESTURES), settings, hop_s=hop_s), Router(mapping)
+    heart = classes.index("hand_on_heart")
+    sent = []
+    for t in np.arange(0, spans_s[-1][1] + 3.0, hop_s):
+        p = np.full(len(classes), 0.01)
+        p[heart if any(a <= t < b for a, b in spans_s) else 0] = 0.95
+        sent += [(round(d.decided_s, 2), d.message.keys) for d in router.route(gate.step(float(t), p))
+                 if isinstance(d.message, KeyAction)]
+    return sent
+
+
+def test_single_switch_confirms_once_per_hold():
+    from bridge.garment import GESTURES, Jacket
+
+    root = Path(__file__).resolve().parent.parent
+    m = load_mapping(root / "mappings" / "single-switch.toml", ("null", *GESTURES), dict(GESTURES),
+                     Jacket(seed=0).channel_names)
+    sent = _hold_hand_on_heart(m, [(1.0, 9.0), (12.0, 16.0)])  # 8 s, then 4 s
+    assert [k for _, k in sent] == [("space",), ("enter",), ("space",), ("enter",)]
+    (t_select, _), (t_confirm, _), (t_select2, _), (t_confirm2, _) = sent
+    assert t_confirm - t_select == pytest.approx(2.0) and t_confirm2 - t_select2 == pytest.approx(2.0)
+    assert m.safety.start_armed  # as its comments say: a carer disarms over the control port
+
+
+def test_once_after_s_beside_a_faster_repeat_and_while_disarmed():
+    from bridge.mapping import Router
+
+    m = parse_mapping(GOOD + """
+[[rule]]
+gesture = "arms_crossed"
+on = "held"
+every_s = 0.5
+to = "desk"
+address = "/often"
+
+[[rule]]
+gesture = "arms_crossed"
+on = "held"
+once_after_s = 1.2
+to = "desk"
+address = "/once"
+""", "show.toml", CLASSES, KINDS)
+    assert m.held_every_s() == {"arms_crossed": 0.5}
+    r = Router(m)
+
+    def hold(t0, disarm_at=None):
+        out = r.route([Event(t0, "arms_crossed", "entered", 0.9)])
+        for k in range(1, 7):
+            if disarm_at == k:
+                r.route([Event(t0 + 0.5 * k, "", "disarmed", 1.0)])
+            if disarm_at is not None and k == disarm_at + 2:
+                r.route([Event(t0 + 0.5 * k, "", "armed", 1.0)])
+            out += r.route([Event(t0 + 0.5 * k, "arms_crossed", "held", 0.9, 0.5 * k)])
+        out += r.route([Event(t0 + 4, "arms_crossed", "left", 0.9, 4.0)])
+        return [(d.decided_s - t0, d.message.address) for d in out if d.message.address in ("/once", "/often")]
+
+    first = hold(0.0)
+    assert [t for t, a in first if a == "/once"] == [1.5]  # the first held moment at or after 1.2 s
+    assert len([a for _, a in first if a == "/often"]) == 6
+    # disarmed across 1.5 s: the moment is spent, arming at 2.5 s does not send it late
+    assert [a for _, a in hold(10.0, disarm_at=3) if a == "/once"] == []
+    assert [t for t, a in hold(20.0) if a == "/once"] == [1.5]  # a new hold fires again
+
+
+def test_once_after_s_is_checked_with_lines():
+    base = GOOD.replace('on = "left"', 'on = "{on}"')
+    probs = errors(base.replace('"{on}"', '"left"\nonce_after_s = 2'))
+    assert probs == ['show.toml:13: rule[2].once_after_s: once_after_s is for rules with on = "held" '
+                     '(once per hold, after that long); remove it or set on = "held"']
+    probs = errors(base.replace('"{on}"', '"held"\nonce_after_s = 2\nevery_s = 1'))
+    assert probs == ["show.toml:14: rule[2].every_s: give every_s (repeats while held) or once_after_s "
+                     "(once per hold), not both"]
+    [p] = errors(base.replace('"{on}"', '"held"\nonce_after_s = 0'))
+    assert p.startswith("show.toml:13: rule[2].once_after_s:")

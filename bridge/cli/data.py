@@ -374,7 +374,8 @@ def cmd_check(a) -> int:
         print(f"status: {mapping.status.to} {mapping.status.address}")
     print(f"  {'line':<5} {'layer':<8} {'gesture':<16} {'on':<16} {'to':<10} does")
     for r in mapping.rules:
-        when = f"{r.on} every {r.every_s:g} s" if r.on == "held" else r.on
+        when = (r.on if r.on != "held" else f"held once at {r.once_after_s:g} s" if r.once_after_s
+                else f"held every {r.every_s:g} s")
         print(f"  {r.line:<5} {r.layer or '*':<8} {r.gesture:<16} {when:<16} {r.to or '-':<10} {r.action.describe()}")
     for c in mapping.controls:
         mix = " + ".join(f"{w:g}·{ch}" for ch, w in c.mix)

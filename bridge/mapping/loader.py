@@ -6,7 +6,7 @@
                                    #   keys = "x11" | "uinput"     sacn = UNIVERSE
     [[rule]]
     gesture = "raise_right"        # a class of the model
-    on = "gesture"                 # gesture | entered | held | left
+    on = "gesture"                 # gesture | entered | held (every_s, or once_after_s) | left
     to = "desk"
     address = "/drape/cue"         # what it does: address (+ args), bundle, note, cc,
     args = ["{gesture}", 1]        # program, keys, levels, or set_layer
@@ -43,7 +43,7 @@ from .rules import (FIELDS, UNIT_FIELDS, ControlRule, Mapping, PlayNote, PressKe
 
 EVENT_KINDS = ("gesture", "entered", "held", "left")
 ACTIONS = ("address", "bundle", "note", "cc", "program", "keys", "levels", "set_layer")
-RULE_KEYS = {"gesture", "on", "to", "layer", "every_s", "args", "velocity", "channel", "length_s", "hold",
+RULE_KEYS = {"gesture", "on", "to", "layer", "every_s", "once_after_s", "args", "velocity", "channel", "length_s", "hold",
              "value", "fade_s", *ACTIONS}
 CONTROL_KEYS = {"name", "mix", "range", "relaxed", "closest", "min_cutoff_hz", "beta", "d_cutoff_hz",
                 "only_while", "to", "address", "args", "cc", "channel", "max_rate_hz", "min_change", "layer"}
@@ -402,11 +402,21 @@ def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
             ck.bad(at("on"), f"{path}.on", f"{gesture} is a posture: use on = \"entered\", \"held\" or \"left\"")
         elif kind == "gesture" and on != "gesture":
             ck.bad(at("on"), f"{path}.on", f"{gesture} is a dynamic gesture: use on = \"gesture\"")
-        every_s = 0.0
-        if on == "held":
+        every_s = once_after_s = 0.0
+        if on == "held" and "once_after_s" in r:
+            once_after_s = ck.number(at("once_after_s"), f"{path}.once_after_s", r["once_after_s"], 0.05, 3600,
+                                     "once_after_s")
+            if "every_s" in r:
+                ck.bad(at("every_s"), f"{path}.every_s", "give every_s (repeats while held) or once_after_s "
+                                                         "(once per hold), not both")
+        elif on == "held":
             every_s = ck.number(at("every_s"), f"{path}.every_s", r.get("every_s", 1.0), 0.05, 3600, "every_s")
-        elif "every_s" in r:
-            ck.bad(at("every_s"), f"{path}.every_s", 'only rules with on = "held" repeat; remove it or set on = "held"')
+        else:
+            if "every_s" in r:
+                ck.bad(at("every_s"), f"{path}.every_s", 'only rules with on = "held" repeat; remove it or set on = "held"')
+            if "once_after_s" in r:
+                ck.bad(at("once_after_s"), f"{path}.once_after_s", 'once_after_s is for rules with on = "held" '
+                                                                   '(once per hold, after that long); remove it or set on = "held"')
         hold = r.get("hold", False)
         if not isinstance(hold, bool):
             ck.bad(at("hold"), f"{path}.hold", "must be true or false")
@@ -470,8 +480,8 @@ def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
             else:
                 action = SwitchLayer(r["set_layer"])
                 ck.layer_refs.append((at("set_layer"), f"{path}.set_layer", r["set_layer"]))
-        if action is not None and dest_ok and gesture is not None and every_s is not None:
-            rules.append(Rule(gesture, on, to, action, layer, at(), every_s))
+        if action is not None and dest_ok and gesture is not None and None not in (every_s, once_after_s):
+            rules.append(Rule(gesture, on, to, action, layer, at(), every_s, once_after_s))
     return rules
 
 

@@ -11,6 +11,9 @@ Safety rules kept here:
   is left, by the release recorded when it was pressed, even if the mapping was reloaded
   or the layer switched in between. Disarming and panic let go of everything at once.
 - While disarmed only status messages go out (and releases of what was held).
+- A once-per-hold rule (``once_after_s``) fires at most once between a posture's
+  "entered" and "left", so one long hold is one action. Its moment, once passed, is spent
+  even while disarmed: arming later in the same hold does not send it late.
 - Commands (arm, disarm, panic, layer switch) never press keys: ``command`` drops any
   ``KeyAction`` it would produce, and key outputs are let go with ``Release``. Network
   control messages reach the router only as commands.
@@ -20,9 +23,10 @@ from __future__ import annotations
 
 from ..decisions import Event
 from .messages import Arm, Dispatch, KeyAction, OscMessage, Release
-from .rules import Mapping, PlayNote, PressKeys, SwitchLayer
+from .rules import Mapping, PlayNote, PressKeys, Rule, SwitchLayer
 
 COMMANDS = ("armed", "disarmed", "panic", "layer")
+HELD_SLACK_S = 1e-6  # a held event due at exactly once_after_s may carry a duration a rounding below it
 
 
 class Router:
@@ -33,12 +37,14 @@ class Router:
         self.holding: dict[str, list[Dispatch]] = {}   # posture → releases due when it is left
         self.due_offs: list[tuple[float, Dispatch]] = []  # (stream time, note-off)
         self.control_sent: dict[int, tuple[float, float]] = {}  # control rule index → (t_s, value)
+        self.spent: dict[str, set[Rule]] = {}          # posture → once-per-hold rules done this hold
         self.warnings: list[str] = []
 
     # -- mapping swaps -----------------------------------------------------------------------
     def swap(self, mapping: Mapping) -> None:
         """Use a new mapping from the next event on. Held notes and keys keep their releases;
-        the layer carries over if the new mapping still has it."""
+        the layer carries over if the new mapping still has it; a once-per-hold rule left
+        unchanged does not fire again in the hold under way."""
         self.mapping = mapping
         if self.layer not in mapping.layers:
             self.layer = mapping.first_layer
@@ -77,12 +83,15 @@ class Router:
         out = []
         if e.kind == "left" and e.gesture in self.holding:
             out += [Dispatch(d.destination, d.message, e.t_s) for d in self.holding.pop(e.gesture)]
+        if e.kind in ("entered", "left"):
+            self.spent.pop(e.gesture, None)  # a new hold: once-per-hold rules may fire again
+        layer = self.layer  # a layer switch takes effect after all of this event's rules
+        # (once-per-hold rules are spent here even when disarmed, see the module's docstring)
+        rules = [r for r in self.mapping.rules
+                 if r.gesture == e.gesture and r.on == e.kind and r.layer in ("", layer) and self._due_once(r, e)]
         if not self.armed:
             return out
-        layer = self.layer  # a layer switch takes effect after all of this event's rules
-        for r in self.mapping.rules:
-            if r.gesture != e.gesture or r.on != e.kind or r.layer not in ("", layer):
-                continue
+        for r in rules:
             a = r.action
             if isinstance(a, SwitchLayer):
                 out += self._switch(e.t_s, a.layer, f"gesture {e.gesture}")
@@ -93,6 +102,17 @@ class Router:
             elif isinstance(a, PlayNote):
                 self.due_offs.append((e.t_s + a.length_s, Dispatch(r.to, a.release(), e.t_s)))
         return out
+
+    def _due_once(self, r: Rule, e: Event) -> bool:
+        """Whether rule ``r`` answers held event ``e``: always for a repeating rule; for a
+        once-per-hold rule, the first time the hold has lasted its ``once_after_s`` (then spent)."""
+        if not r.once_after_s:
+            return True
+        spent = self.spent.setdefault(e.gesture, set())
+        if r in spent or e.duration_s < r.once_after_s - HELD_SLACK_S:
+            return False
+        spent.add(r)
+        return True
 
     def _control(self, e: Event) -> list[Dispatch]:
         out = []

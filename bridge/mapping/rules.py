@@ -147,7 +147,8 @@ class Rule:
     action: object
     layer: str = ""
     line: int = 0
-    every_s: float = 0.0        # on = "held": how often
+    every_s: float = 0.0        # on = "held": how often it repeats, s
+    once_after_s: float = 0.0   # on = "held": instead, once per hold, when held this long, s (0: repeats)
 
     # the OSC fields, for callers that only know OSC rules
     @property
@@ -212,11 +213,13 @@ class Mapping:
     source: str = ""
 
     def held_every_s(self) -> dict[str, float]:
-        """Per posture, how often "held" events are wanted (the shortest any rule asks for)."""
+        """Per posture, how often "held" events are wanted (the shortest any rule asks for;
+        a once-per-hold rule asks for its delay, so its first held event comes on time)."""
         out: dict[str, float] = {}
         for r in self.rules:
             if r.on == "held":
-                out[r.gesture] = min(out.get(r.gesture, r.every_s), r.every_s)
+                every = r.once_after_s or r.every_s
+                out[r.gesture] = min(out.get(r.gesture, every), every)
         return out
 
     def dispatches(self, event: Event, layer: str | None = None) -> list:
