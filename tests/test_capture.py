@@ -5,6 +5,7 @@ import subprocess
 import time
 
 import numpy as np
+import pytest
 
 from bridge.cli import main
 from bridge.garment import GESTURES
@@ -143,6 +144,13 @@ def test_interrupted_capture_leaves_a_readable_take(tmp_path):
         assert len(rec.intervals) >= 1 and rec.freq_hz.shape[0] > 100 and "Traceback" not in stderr
         if sig == signal.SIGINT:
             assert proc.returncode == 0 and "saved" in stdout and "SIGINT" in stdout
+            # the take and the message both say it was cut short, where, and what is missing
+            cut = rec.cut_short
+            assert cut.reason == "SIGINT" and "prompt" in cut.step and cut.prompts_left
+            assert cut.ordinary_left_s == cut.ordinary_planned_s == 180.0
+            assert "the take is incomplete" in stdout and "all 180 s of ordinary movement (none recorded)" in stdout
+        else:
+            assert rec.cut_short is None  # killed outright: nothing could mark it
 
 
 def test_capture_from_a_port_detects_the_layout_and_records(tmp_path, capsys):
@@ -247,3 +255,38 @@ def test_a_check_in_take_is_short_named_apart_and_sits_as_the_dressing_does(tmp_
                  "--wearer", "dancer", "--session", "day1", "--countdown-s", "1", "--rest-s", "1", "--ordinary-s", "5"])
     assert code == 0 and "5 labelled" in capsys.readouterr().out
     assert made[1].take_id is None and (tmp_path / "dancer-day1.take").exists()
+
+
+def test_finishing_early_marks_the_take_with_where_and_what_is_missing(tmp_path):
+    src = PromptedSimulatedSource(seed=5, realtime=False)
+    plan = ["raise_right", "bow", "raise_right", "bow"]
+    path = tmp_path / "q.take"
+    with RecordingWriter(path, src.rate_hz, src.channel_names, kinds=GESTURES) as w:
+        sess = CaptureSession(list(plan), GESTURES, FAST, w, np.random.default_rng(2), src.prompt)
+        # q at the countdown of the third prompt
+        run_capture(src, sess, w, keys=lambda: ["q"] if sess.phase == "countdown" and len(sess.done) == 2 else [])
+    assert sess.finished_early
+    step, left, ordinary_s = sess.shortfall()
+    assert step == "the countdown to prompt 3 of 4 (raise_right)"
+    assert left == (("raise_right", 1), ("bow", 1)) and ordinary_s == FAST.ordinary_s
+    # a session run to its end has nothing missing
+    src = PromptedSimulatedSource(seed=5, realtime=False)
+    with RecordingWriter(tmp_path / "all.take", src.rate_hz, src.channel_names, kinds=GESTURES) as w:
+        whole = CaptureSession(["bow"], GESTURES, FAST, w, np.random.default_rng(2), src.prompt)
+        run_capture(src, whole, w)
+    assert whole.shortfall() is None
+    # stopped during the ordinary movement: the part not recorded
+    src = PromptedSimulatedSource(seed=5, realtime=False)
+    with RecordingWriter(tmp_path / "o.take", src.rate_hz, src.channel_names, kinds=GESTURES) as w:
+        late = CaptureSession(["bow"], GESTURES, FAST, w, np.random.default_rng(2), src.prompt)
+        end = {}
+
+        def keys():
+            if late.phase == "ordinary":
+                end.setdefault("q_s", late.phase_end_s - 2.0)
+                return ["q"] if late.now_s >= end["q_s"] else []
+            return []
+        run_capture(src, late, w, keys=keys)
+    step, left, ordinary_s = late.shortfall()
+    assert step.startswith("the ordinary movement after the prompts") and left == ()
+    assert ordinary_s == pytest.approx(2.0, abs=0.1)

@@ -42,3 +42,29 @@ def test_not_a_take(tmp_path):
     (tmp_path / "x.csv").write_text("a,b\n1,2\n")
     with pytest.raises(RecordingError, match=":1: not a drape take file"):
         read_recording(tmp_path / "x.csv")
+
+
+def test_a_take_cut_short_says_so_and_stays_plain_csv(tmp_path):
+    import dataclasses
+    import io
+
+    from bridge.sources import CutShort, describe_incomplete, warn_incomplete
+
+    cut = CutShort("SIGINT", "the countdown to prompt 6 of 45 (bow)", (("bow", 5), ("wave", 4)), 180.0, 180.0)
+    whole = write_recording(tmp_path / "whole.take", sample_recording())
+    short = write_recording(tmp_path / "short.take", dataclasses.replace(sample_recording(), cut_short=cut))
+    assert read_recording(whole).cut_short is None and describe_incomplete(read_recording(whole), whole) == ""
+    back = read_recording(short)
+    assert back.cut_short == cut and back.intervals == sample_recording().intervals
+    note = describe_incomplete(back, short)
+    assert note.startswith(f"{short} is an incomplete take") and "SIGINT" in note and "prompt 6 of 45" in note
+    assert "5 × bow, 4 × wave" in note and "all 180 s of ordinary movement (none recorded)" in note
+    err = io.StringIO()
+    assert warn_incomplete([whole, short], [read_recording(whole), back], err) == 1
+    assert err.getvalue() == f"drape: {note}\n"
+    # the mark is a '#' line: the samples still read as CSV with '#' as the comment character
+    rows = np.loadtxt(short, delimiter=",", comments="#", skiprows=3)
+    assert rows.shape == (300, 3)
+    # a mark cut by a crash still marks the take
+    short.write_text(short.read_text()[:-20])
+    assert read_recording(short).cut_short.reason == "unknown"

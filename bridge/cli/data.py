@@ -49,7 +49,7 @@ def cmd_capture(a) -> int:
     from ..garment import GESTURES
     from ..service import StopFlag
     from ..service.capture import CaptureSession, CaptureSettings, capture_plan, run_capture
-    from ..sources import RecordingWriter
+    from ..sources import CutShort, RecordingWriter
     from ..sources.base import SourceGone
     from ..sources.recording import TakeWriteError
     from ..sources.protocols import describe_counters
@@ -124,20 +124,35 @@ def cmd_capture(a) -> int:
     print(f"capturing {len(gestures)} gestures x {a.reps} into {out} ({len(source.channel_names)} channels at "
           f"{source.rate_hz:g} Hz); keys: r redo last, s skip, q finish", flush=True)
     code = 0
+    gone = ""
     try:
         run_capture(source, sess, writer, stop, text, status, keys, first=first)
     except (SourceGone, ProtocolUndecided) as exc:
         text(f"drape: {exc}; the take so far is saved")
-        code = 1
+        code, gone = 1, "the garment's data stopped"
     except TakeWriteError as exc:  # disk full: stop recording, keep what is on disk readable
         text(f"drape: {exc}; stopped recording")
-        code = 1
+        code, gone = 1, "the take could not be written"
     finally:
         keys.close()
+        # a take cut short says so in the file, so that fit, evaluate and tune can warn about it
+        short = sess.shortfall()
+        cut, marked = None, False
+        if short is not None:
+            reason = stop.reason or gone or ("q pressed" if sess.finished_early else "the source ended")
+            cut = CutShort(reason, short[0], short[1], short[2], settings.ordinary_s)
+            try:
+                writer.cut(cut)
+                marked = True
+            except TakeWriteError:
+                pass  # disk full: the take says nothing more, the message below still does
         writer.close()
         source.close()
     why = f" ({stop.reason})" if stop.reason else " (finished early)" if sess.finished_early else ""
     text(f"saved {out}{why}: {len(sess.done)} labelled, {len(sess.skipped)} skipped, {sess.redone} redone")
+    if cut is not None:
+        text(f"the take is incomplete{' (marked so in the file)' if marked else ''}: stopped during {cut.step}; "
+             f"not recorded: {cut.missing()}. Capture again, or fit it only beside complete takes")
     if a.check_in and sess.done:
         text(f"fit it with your training takes, e.g. drape fit TRAINING.take ... {out} -o today.npz, "
              "and run the show on today.npz")

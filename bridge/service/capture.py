@@ -14,11 +14,14 @@ cues during ordinary movement.
 
 Everything is written as it arrives (RecordingWriter: a crash loses at most a second). Keys:
 ``r`` redo the last prompt (its label is withdrawn and it is asked again next), ``s`` skip
-the current (or coming) prompt, ``q`` finish early.
+the current (or coming) prompt, ``q`` finish early. A session that ends before its ordinary
+movement is over (``q``, a signal, the garment gone) says where it stood and what it did not
+record (``shortfall``), for the take's ``#cut`` line.
 """
 
 from __future__ import annotations
 
+from collections import Counter
 from dataclasses import dataclass, field
 
 import numpy as np
@@ -74,6 +77,8 @@ class CaptureSession:
     redone: int = 0
     finished_early: bool = False
     locate: object = None          # locate(start_s, end_s) -> (a_s, b_s) or None: where the movement was
+    now_s: float = 0.0             # stream time of the last advance, s
+    stopped: tuple | None = None   # where a "q" found it: (step, prompts left, ordinary left s)
 
     def __post_init__(self):
         self.phase_end_s = self.settings.lead_s
@@ -87,6 +92,7 @@ class CaptureSession:
         return self.plan[self.index] if self.index < len(self.plan) else None
 
     def advance(self, now_s: float) -> list[str]:
+        self.now_s = now_s
         out = []
         while self.phase != DONE and now_s >= self.phase_end_s:
             t = self.phase_end_s
@@ -131,6 +137,9 @@ class CaptureSession:
     def key(self, k: str, now_s: float) -> list[str]:
         k = k.strip().lower()[:1]
         if k == "q":
+            if self.phase != DONE:
+                self.now_s = max(self.now_s, now_s)
+                self.stopped = self._where()
             self.phase, self.finished_early = DONE, True
             return ["finishing early"]
         if k == "s":
@@ -156,6 +165,33 @@ class CaptureSession:
                 self.phase, self.phase_end_s = REST, now_s + self.settings.rest_s[0]
             return [f"again: {label} (its last take withdrawn)"]
         return []
+
+    def _where(self) -> tuple:
+        """(the step under way, ((label, count), ...) prompts not recorded, ordinary movement
+        not recorded in s), at ``now_s``."""
+        n, i, label = len(self.plan), self.index, self.current
+        if self.phase == COUNTDOWN:
+            step = f"the countdown to prompt {i + 1} of {n} ({label})"
+        elif self.phase == PERFORM:
+            step = f"prompt {i + 1} of {n} ({label}), while it was performed"
+        elif self.phase == ORDINARY:
+            done_s = self.settings.ordinary_s - max(0.0, self.phase_end_s - self.now_s)
+            step = f"the ordinary movement after the prompts ({done_s:.0f} s of {self.settings.ordinary_s:.0f} s)"
+        elif not self.done and i == 0:
+            step = "the lead-in before the first prompt"
+        else:
+            step = f"the rest after prompt {i} of {n}"
+        left = tuple(Counter(self.plan[i:]).items())
+        ordinary = (max(0.0, self.phase_end_s - self.now_s) if self.phase == ORDINARY
+                    else 0.0 if self.phase == DONE else self.settings.ordinary_s)
+        return step, left, ordinary
+
+    def shortfall(self) -> tuple | None:
+        """None when the session ran to its end; else (step, ((label, count), ...) prompts not
+        recorded, ordinary movement not recorded in s) where it stopped (``q``, or now)."""
+        if self.finished_early:
+            return self.stopped
+        return None if self.phase == DONE else self._where()
 
     def progress_text(self) -> str:
         return f"{len(self.done)}/{len(self.plan)}"

@@ -6,12 +6,15 @@
     0.0000,181234.0,...
     #label {"start_s": 3.2, "end_s": 4.5, "label": "raise_right"}
     #void {"start_s": 3.2, "end_s": 4.5, "label": "raise_right"}
+    #cut {"reason": "SIGINT", "step": "...", "prompts_left": {"bow": 2}, "ordinary_left_s": 180.0, ...}
 
 Lines starting with '#' carry metadata and labels (labels may come anywhere, appended as
 gestures end); the rest is CSV that spreadsheet tools read with '#' as comment. The writer
 flushes at least once a second, so a crash loses at most the last second. A ``#void`` line
 withdraws an earlier label with the same start, end and name (guided capture writes one when
-the wearer asks to redo a take: the file stays append-only). The full description of the
+the wearer asks to redo a take: the file stays append-only). A ``#cut`` line, written last,
+says the capture was cut short, where, and what it did not record; readers that do not know
+it skip it as they skip every '#' line they do not know. The full description of the
 format, version 1, is in docs/acquisition.md.
 """
 
@@ -40,6 +43,42 @@ class Label:
     label: str
 
 
+@dataclass(frozen=True)
+class CutShort:
+    """A capture stopped before its end (a ``#cut`` line): why, where, and what is not in the take."""
+
+    reason: str                     # "SIGINT", "q pressed", "garment gone", ...
+    step: str                       # where it stood, e.g. "the countdown to prompt 6 of 45 (bow)"
+    prompts_left: tuple = ()        # ((label, count), ...) prompts never recorded
+    ordinary_left_s: float = 0.0    # ordinary movement not recorded, s
+    ordinary_planned_s: float = 0.0  # ordinary movement the capture meant to record, s
+
+    def missing(self) -> str:
+        """What the take lacks, e.g. "2 × bow, 1 × raise_left; all 180 s of ordinary movement"."""
+        parts = [", ".join(f"{n} × {label}" for label, n in self.prompts_left)] if self.prompts_left else []
+        if self.ordinary_left_s > 0:
+            parts.append(f"all {self.ordinary_planned_s:.0f} s of ordinary movement (none recorded)"
+                         if self.ordinary_left_s >= self.ordinary_planned_s - 0.05
+                         else f"{self.ordinary_left_s:.0f} s of the {self.ordinary_planned_s:.0f} s of ordinary movement")
+        return "; ".join(parts) or "nothing planned (it stopped at the very end)"
+
+    def to_json(self) -> str:
+        return json.dumps({"reason": self.reason, "step": self.step, "prompts_left": dict(self.prompts_left),
+                           "ordinary_left_s": round(self.ordinary_left_s, 3),
+                           "ordinary_planned_s": round(self.ordinary_planned_s, 3)})
+
+    @classmethod
+    def from_json(cls, text: str) -> "CutShort":
+        """From a ``#cut`` line's JSON; an unreadable one still marks the take as cut short."""
+        try:
+            d = json.loads(text)
+            return cls(str(d.get("reason", "")), str(d.get("step", "")),
+                       tuple((str(k), int(v)) for k, v in dict(d.get("prompts_left", {})).items()),
+                       float(d.get("ordinary_left_s", 0.0)), float(d.get("ordinary_planned_s", 0.0)))
+        except (json.JSONDecodeError, AttributeError, TypeError, ValueError):
+            return cls("unknown", "unknown (its #cut line is unreadable)")
+
+
 @dataclass
 class Recording:
     rate_hz: float
@@ -51,6 +90,7 @@ class Recording:
     session: str = ""
     layout: str = ""
     kinds: dict = field(default_factory=dict)
+    cut_short: CutShort | None = None   # set when its capture stopped before the end
 
     @classmethod
     def from_take(cls, take, kinds: dict | None = None, layout: str = "default") -> "Recording":
@@ -118,6 +158,11 @@ class RecordingWriter:
         self._add(f"#void {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
         self._maybe_flush()
 
+    def cut(self, cut: CutShort) -> None:
+        """Mark the take as cut short (call last, before ``close``)."""
+        self._add(f"#cut {cut.to_json()}\n")
+        self.flush()
+
     def _add(self, text: str) -> None:
         if self.failed is not None:
             raise self.failed
@@ -181,7 +226,39 @@ def write_recording(path: str | Path, rec: Recording) -> Path:
         w.samples(rec.t_s, rec.freq_hz)
         for iv in rec.intervals:
             w.label(iv.start_s, iv.end_s, iv.label)
+        if rec.cut_short is not None:
+            w.cut(rec.cut_short)
     return Path(path)
+
+
+def describe_incomplete(rec: Recording, path) -> str:
+    """A warning naming the take when its capture was cut short ("" when it was not), for
+    the verbs that learn from or score takes: fit, evaluate, tune."""
+    c = rec.cut_short
+    if c is None:
+        return ""
+    lacks = []
+    if c.prompts_left:
+        lacks.append("few examples of some gestures")
+    if c.ordinary_left_s > 0:
+        lacks.append("too little ordinary movement to learn to stay silent on")
+    return (f"{path} is an incomplete take: its capture was cut short ({c.reason}) during {c.step}; "
+            f"not recorded: {c.missing()}"
+            + (f". On its own it gives {' and '.join(lacks)}: capture again or add complete takes" if lacks else ""))
+
+
+def warn_incomplete(paths, recs, stream=None) -> int:
+    """Print ``describe_incomplete`` for each take that has something to say (to stderr);
+    return how many were incomplete."""
+    import sys
+    stream = sys.stderr if stream is None else stream
+    n = 0
+    for path, rec in zip(paths, recs):
+        note = describe_incomplete(rec, path)
+        if note:
+            print(f"drape: {note}", file=stream, flush=True)
+            n += 1
+    return n
 
 
 def read_recording(path: str | Path) -> Recording:
@@ -198,6 +275,7 @@ def read_recording(path: str | Path) -> Recording:
     if not lines or lines[0].strip() != MAGIC:
         raise RecordingError(f"{path}:1: not a drape take file (first line should be {MAGIC!r})")
     meta = None
+    cut = None
     labels, rows = [], []
     n_cols = None
     last_no = max((i for i, l in enumerate(lines, start=1) if l.strip()), default=0)  # the last non-empty line
@@ -234,6 +312,9 @@ def read_recording(path: str | Path) -> Recording:
             else:
                 labels.append(lab)
             continue
+        if s.startswith("#cut "):
+            cut = CutShort.from_json(s[5:])
+            continue
         if s.startswith("#") or s.startswith("t_s"):
             continue
         if n_cols is None:
@@ -255,4 +336,4 @@ def read_recording(path: str | Path) -> Recording:
         raise RecordingError(f"{path}: no #meta line")
     arr = np.array(rows, dtype=float).reshape(-1, n_cols)
     return Recording(rate, channels, arr[:, 0], arr[:, 1:], tuple(labels), str(meta.get("wearer", "")),
-                     str(meta.get("session", "")), str(meta.get("layout", "")), dict(meta.get("kinds", {})))
+                     str(meta.get("session", "")), str(meta.get("layout", "")), dict(meta.get("kinds", {})), cut)
