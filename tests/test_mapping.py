@@ -173,6 +173,39 @@ address = "/once"
     assert [t for t, a in hold(20.0) if a == "/once"] == [1.5]  # a new hold fires again
 
 
+def test_each_repeating_held_rule_keeps_its_own_every_s():
+    """Two repeating rules on one posture: held events come at the shorter repeat (0.5 s),
+    and the 2 s rule fires once per 2 s of the hold, not at every held event."""
+    from bridge.mapping import Router
+
+    m = parse_mapping(GOOD + """
+[[rule]]
+gesture = "arms_crossed"
+on = "held"
+every_s = 0.5
+to = "desk"
+address = "/often"
+
+[[rule]]
+gesture = "arms_crossed"
+on = "held"
+every_s = 2.0
+to = "desk"
+address = "/slow"
+""", "show.toml", CLASSES, KINDS)
+    assert m.held_every_s() == {"arms_crossed": 0.5}
+    r = Router(m)
+    out = r.route([Event(0.0, "arms_crossed", "entered", 0.9)])
+    for k in range(1, 13):   # held 0.5 .. 6.0 s
+        out += r.route([Event(0.5 * k, "arms_crossed", "held", 0.9, 0.5 * k)])
+    out += r.route([Event(6.2, "arms_crossed", "left", 0.9, 6.2)])
+    slow = [d.decided_s for d in out if d.message.address == "/slow"]
+    assert slow == [2.0, 4.0, 6.0]
+    assert len([d for d in out if d.message.address == "/often"]) == 12
+    out = r.route([Event(10.0, "arms_crossed", "entered", 0.9), Event(12.0, "arms_crossed", "held", 0.9, 2.0)])
+    assert [d.decided_s for d in out if d.message.address == "/slow"] == [12.0]   # a new hold counts afresh
+
+
 def test_once_after_s_is_checked_with_lines():
     base = GOOD.replace('on = "left"', 'on = "{on}"')
     probs = errors(base.replace('"{on}"', '"left"\nonce_after_s = 2'))

@@ -14,6 +14,9 @@ Safety rules kept here:
 - A once-per-hold rule (``once_after_s``) fires at most once between a posture's
   "entered" and "left", so one long hold is one action. Its moment, once passed, is spent
   even while disarmed: arming later in the same hold does not send it late.
+- A repeating held rule fires once for each ``every_s`` the hold has lasted, at the first
+  "held" event at or after each multiple, whatever the other held rules of the posture
+  ask (the decision stage repeats "held" at the shortest of them).
 - Commands (arm, disarm, panic, layer switch) never press keys: ``command`` drops any
   ``KeyAction`` it would produce, and key outputs are let go with ``Release``. Network
   control messages reach the router only as commands.
@@ -37,7 +40,7 @@ class Router:
         self.holding: dict[str, list[Dispatch]] = {}   # posture → releases due when it is left
         self.due_offs: list[tuple[float, Dispatch]] = []  # (stream time, note-off)
         self.control_sent: dict[int, tuple[float, float]] = {}  # control rule index → (t_s, value)
-        self.spent: dict[str, set[Rule]] = {}          # posture → once-per-hold rules done this hold
+        self.fired: dict[str, dict[Rule, int]] = {}     # posture → held rule → times fired this hold
         self.warnings: list[str] = []
 
     # -- mapping swaps -----------------------------------------------------------------------
@@ -84,11 +87,11 @@ class Router:
         if e.kind == "left" and e.gesture in self.holding:
             out += [Dispatch(d.destination, d.message, e.t_s) for d in self.holding.pop(e.gesture)]
         if e.kind in ("entered", "left"):
-            self.spent.pop(e.gesture, None)  # a new hold: once-per-hold rules may fire again
+            self.fired.pop(e.gesture, None)  # a new hold: held rules count from the start again
         layer = self.layer  # a layer switch takes effect after all of this event's rules
-        # (once-per-hold rules are spent here even when disarmed, see the module's docstring)
+        # (held rules count their moments here even when disarmed, see the module's docstring)
         rules = [r for r in self.mapping.rules
-                 if r.gesture == e.gesture and r.on == e.kind and r.layer in ("", layer) and self._due_once(r, e)]
+                 if r.gesture == e.gesture and r.on == e.kind and r.layer in ("", layer) and self._due(r, e)]
         if not self.armed:
             return out
         for r in rules:
@@ -103,15 +106,22 @@ class Router:
                 self.due_offs.append((e.t_s + a.length_s, Dispatch(r.to, a.release(), e.t_s)))
         return out
 
-    def _due_once(self, r: Rule, e: Event) -> bool:
-        """Whether rule ``r`` answers held event ``e``: always for a repeating rule; for a
-        once-per-hold rule, the first time the hold has lasted its ``once_after_s`` (then spent)."""
-        if not r.once_after_s:
+    def _due(self, r: Rule, e: Event) -> bool:
+        """Whether rule ``r`` answers event ``e``: always but for a held event, which a
+        once-per-hold rule answers the first time the hold has lasted its ``once_after_s``,
+        and a repeating one each time the hold has lasted one more of its ``every_s``
+        (held events come at the shortest repeat of the posture's rules)."""
+        if e.kind != "held":
             return True
-        spent = self.spent.setdefault(e.gesture, set())
-        if r in spent or e.duration_s < r.once_after_s - HELD_SLACK_S:
+        fired = self.fired.setdefault(e.gesture, {})
+        done = fired.get(r, 0)
+        if r.once_after_s:
+            due = 1 if e.duration_s >= r.once_after_s - HELD_SLACK_S else 0
+        else:
+            due = int((e.duration_s + HELD_SLACK_S) // r.every_s) if r.every_s > 0 else done + 1
+        if r.once_after_s and done or due <= done:
             return False
-        spent.add(r)
+        fired[r] = due
         return True
 
     def _control(self, e: Event) -> list[Dispatch]:
