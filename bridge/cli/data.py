@@ -139,8 +139,8 @@ def cmd_capture(a) -> int:
     why = f" ({stop.reason})" if stop.reason else " (finished early)" if sess.finished_early else ""
     text(f"saved {out}{why}: {len(sess.done)} labelled, {len(sess.skipped)} skipped, {sess.redone} redone")
     if a.check_in and sess.done:
-        text(f"fit it with your training takes, e.g. drape fit TRAINING.take ... {out} -o today.npz, "
-             "and run the show on today.npz")
+        text(f"fit it with your training takes, e.g. drape fit TRAINING.take ... {out} -o today.npz "
+             "(--overwrite replaces the last show's), and run the show on today.npz")
     return code
 
 

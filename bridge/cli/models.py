@@ -81,7 +81,8 @@ def cmd_fit(a) -> int:
 
     if bool(a.recordings) == bool(a.ts):
         return _err("give take files or --ts TRAIN.ts (one of the two)")
-    problem = _output_problem(a.output, [*a.recordings, *a.ordinary, *([a.ts] if a.ts else [])], model=True)
+    problem = _output_problem(a.output, [*a.recordings, *a.ordinary, *([a.ts] if a.ts else [])], model=True,
+                              replace=a.overwrite, option="-o")
     if problem:
         return _err(problem)
     options = {}
@@ -263,13 +264,23 @@ def _stdout_to_devnull() -> None:
     os.close(devnull)
 
 
+def _same_file(path, other) -> bool:
+    """True when ``path`` and ``other`` name one file (or one path, when it does not exist yet)."""
+    try:
+        return Path(path).samefile(other)
+    except OSError:
+        return Path(path).resolve() == Path(other).resolve()
+
+
 def cmd_tune(a) -> int:
     from ..evaluation.matching import format_counts
     from ..evaluation.tuning import tune_model
     from ..recognition import ModelError, load_model
     from ..sources import RecordingError, read_recording
 
-    problem = _output_problem(a.output or a.model, a.recordings, model=True)
+    # Storing into the model being tuned is what tune does; only another existing file needs --overwrite.
+    problem = _output_problem(a.output or a.model, a.recordings, model=True,
+                              replace=a.overwrite or _same_file(a.output or a.model, a.model), option="-o")
     if problem:
         return _err(problem)
     try:

@@ -103,6 +103,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="minirocket (default: convolution features, trained against false cues), "
                         "linear (tiny) or dtw (few-shot templates)")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
+    f.add_argument("--overwrite", action="store_true", help="replace an existing model file")
     f.add_argument("--window-s", type=_POSITIVE, default=None,
                    help="window length, s (default: room for the labelled gestures, at least 2 s)")
     f.add_argument("--hop-s", type=_POSITIVE, default=0.1, help="hop between windows, s")
@@ -247,6 +248,8 @@ def build_parser() -> argparse.ArgumentParser:
     t.add_argument("--model", required=True)
     t.add_argument("--max-false-per-hour", type=_NON_NEGATIVE, default=1.0, help="false-trigger budget (default 1)")
     t.add_argument("-o", "--output", help="write the tuned model here (default: update MODEL in place)")
+    t.add_argument("--overwrite", action="store_true",
+                   help="replace an existing file given as -o (storing into MODEL itself needs no flag)")
     t.add_argument("--store-anyway", action="store_true",
                    help="store the settings even when the false-firing budget is missed (exit 0)")
     t.set_defaults(func=cmd_tune)
