@@ -36,6 +36,20 @@ def test_people_takes_hold_only_ordinary_movement_of_every_kind(tmp_path, capsys
     assert not np.allclose(recs[0].freq_hz[:n], recs[1].freq_hz[:n])
 
 
+def test_people_keep_takes_already_in_the_folder_unless_told(tmp_path, capsys):
+    folder = tmp_path / "people"
+    folder.mkdir()
+    (folder / "ordinary-person1.take").write_bytes(b"an earlier run")
+    run = ["simulate", "--ordinary-people", "3", "--ordinary-s", "12", "--out", str(folder)]
+    assert main(run) == 2
+    err = capsys.readouterr().err
+    assert "1 file this would write exists already" in err and "ordinary-person1.take" in err and "--overwrite" in err
+    assert sorted(p.name for p in folder.iterdir()) == ["ordinary-person1.take"]   # nothing written
+    assert (folder / "ordinary-person1.take").read_bytes() == b"an earlier run"
+    assert main([*run, "--overwrite"]) == 0
+    assert read_recording(folder / "ordinary-person1.take").wearer == "ordinary-person1"
+
+
 def test_people_follow_a_layout_file(tmp_path):
     layout = ROOT / "examples" / "layouts" / "sleeves_only.toml"
     assert main(["simulate", "--ordinary-people", "1", "--ordinary-s", "12", "--layout", str(layout),

@@ -6,7 +6,7 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _output_problem, _plural, _stop_on_signals
+from .common import _err, _folder_problem, _output_problem, _plural, _stop_on_signals
 
 
 class _Keys:
@@ -258,7 +258,11 @@ def cmd_simulate(a) -> int:
     if a.serve:
         return _serve(a, layout, gestures, nulls)
     if troupe:
-        from ..sources.troupe import write_troupe
+        from ..sources.troupe import troupe_file_names, write_troupe
+
+        problem = _folder_problem(a.out, troupe_file_names(a.wearers or 1, a.sessions or 1), a.overwrite)
+        if problem:
+            return _err(problem)
 
         def show(f):
             print(f"  {f['file']}: {f['seconds']:.0f} s, {f['gestures']} labelled", flush=True)
@@ -296,13 +300,17 @@ def _ordinary_people(a, layout) -> int:
     if a.ordinary_people < 1 or not a.ordinary_s > 0:
         return _err("--ordinary-people must be at least 1 and --ordinary-s positive")
     folder = Path(a.out)
+    names = [f"ordinary-person{k}.take" for k in range(a.ordinary_people)]
+    problem = _folder_problem(folder, names, a.overwrite)
+    if problem:
+        return _err(problem)
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         return _err(f"cannot make the folder {folder}: {exc.strerror or exc}")
     for k in range(a.ordinary_people):
         take = ordinary_take(a.seed + ORDINARY_SEED_OFFSET, k, a.ordinary_s, FULL_NULL_ACTIVITIES, layout, a.rate_hz)
-        path = folder / f"ordinary-person{k}.take"
+        path = folder / names[k]
         rec = Recording.from_take(take, {}, layout=layout.name if layout else "built-in")
         rec.wearer, rec.session = f"ordinary-person{k}", "ordinary"   # nobody a troupe names wearerN
         write_recording(path, rec)

@@ -214,7 +214,8 @@ def build_parser() -> argparse.ArgumentParser:
     r.set_defaults(func=cmd_replay)
     m = sub.add_parser("simulate", help=VERBS["simulate"], description=VERBS["simulate"])
     m.add_argument("--out", help="take file to write (a folder with --wearers/--sessions)")
-    m.add_argument("--overwrite", action="store_true", help="replace an existing take file")
+    m.add_argument("--overwrite", action="store_true",
+                   help="replace an existing take file (with a folder --out: the takes already there)")
     m.add_argument("--duration-s", type=_POSITIVE, default=None,
                    help="length of a random performance, s (default 120 when nothing else is asked for)")
     m.add_argument("--repetitions", type=_NON_NEGATIVE_INT, default=None,
