@@ -90,9 +90,9 @@ def _report(text: str) -> None:
         pass
 
 
-def _plural(n: int, word: str) -> str:
-    """'1 take', '3 takes'."""
-    return f"{n} {word}{'' if n == 1 else 's'}"
+def _plural(n: int, word: str, plural: str = "") -> str:
+    """'1 take', '3 takes'; ``plural`` for words that do not add an s ('1 person', '2 people')."""
+    return f"{n} {word if n == 1 else plural or word + 's'}"
 
 
 def replay_events(rec, model, mapping=None, block_s: float = 0.1, settle=None):

@@ -316,7 +316,7 @@ def _ordinary_people(a, layout) -> int:
         write_recording(path, rec)
         print(f"  {path}: {take.t_s.size / take.rate_hz:.0f} s of ordinary movement, "
               f"{len(take.channel_names)} channels at {take.rate_hz:g} Hz", flush=True)
-    print(f"{folder}: {a.ordinary_people} simulated people's ordinary movement "
+    print(f"{folder}: {_plural(a.ordinary_people, 'simulated person', 'simulated people')}'s ordinary movement "
           f"({', '.join(FULL_NULL_ACTIVITIES)}); add it to a fit: drape fit TAKE --ordinary {folder}/*.take -o MODEL")
     return 0
 
