@@ -41,12 +41,12 @@ def test_a_10_hz_source_trains_and_the_band_is_stored(tmp_path, capsys, monkeypa
     figs = sorted((v["recall"], c) for c, v in m.summary["held_out_by_class"].items())
     assert set(m.summary["held_out_by_class"]) == set(m.classes[1:])
     assert "held-out window recall, lowest first: " + ", ".join(f"{c} {r:.2f}" for r, c in figs[:3]) in out
-    assert main(["fit", str(take), "-o", str(model), "--band-hz", "0.5", "3", "--no-simulated-others"]) == 0
+    assert main(["fit", str(take), "-o", str(model), "--overwrite", "--band-hz", "0.5", "3", "--no-simulated-others"]) == 0
     m = load_model(model)
     assert (m.conditioning.low_hz, m.conditioning.high_hz) == (0.5, 3.0)
     assert "ordinary_takes" not in m.summary
     out = capsys.readouterr().out
     assert "no --ordinary takes" in out and "--ordinary-people" in out
     capsys.readouterr()
-    assert main(["fit", str(take), "-o", str(model), "--band-hz", "1", "7"]) != 0
+    assert main(["fit", str(take), "-o", str(model), "--overwrite", "--band-hz", "1", "7"]) != 0
     assert "does not fit a 10 Hz source" in capsys.readouterr().err

@@ -48,6 +48,43 @@ def test_fit_refuses_an_output_it_could_not_write_before_fitting(small_take, tmp
     assert ("does not exist" in err) if "missing" in where else ("is a folder" in err)
 
 
+def test_fit_keeps_an_existing_model_unless_told(small_take, tmp_path, monkeypatch, capsys):
+    import bridge.recognition as recognition
+    from bridge.recognition import load_model
+    model = tmp_path / "me.npz"
+    assert main(["fit", str(small_take), "-o", str(model), "--classifier", "linear", "--hop-s", "0.2"]) == 0
+    before = model.read_bytes()
+    real = recognition.fit_recordings
+    monkeypatch.setattr(recognition, "fit_recordings", lambda *a, **k: pytest.fail("fitted before the check"))
+    capsys.readouterr()
+    assert main(["fit", str(small_take), "-o", str(model), "--classifier", "linear"]) == 2
+    err = capsys.readouterr().err
+    assert f"{model} exists" in err and "--overwrite" in err
+    assert model.read_bytes() == before
+    monkeypatch.setattr(recognition, "fit_recordings", real)
+    assert main(["fit", str(small_take), "-o", str(model), "--classifier", "linear", "--overwrite"]) == 0
+    assert load_model(model).windows.hop_s == 0.1   # the new fit, not the 0.2 s one
+
+
+def test_tune_keeps_another_existing_model_unless_told(small_take, tmp_path, capsys):
+    from bridge.recognition import load_model
+    model, other = tmp_path / "me.npz", tmp_path / "other.npz"
+    assert main(["fit", str(small_take), "-o", str(model), "--classifier", "linear"]) == 0
+    assert main(["fit", str(small_take), "-o", str(other), "--classifier", "linear"]) == 0
+    kept = other.read_bytes()
+    capsys.readouterr()
+    tune = ["tune", "--model", str(model), str(small_take), "--store-anyway"]
+    assert main([*tune, "-o", str(other)]) == 2
+    err = capsys.readouterr().err
+    assert f"{other} exists" in err and "--overwrite" in err
+    assert other.read_bytes() == kept
+    # storing into the model being tuned, with or without -o naming it, needs no flag
+    assert main(tune) == 0 and "decision settings stored" in capsys.readouterr().out
+    assert main([*tune, "-o", str(model)]) == 0
+    assert main([*tune, "-o", str(other), "--overwrite"]) == 0
+    assert set(load_model(other).decision) == set(load_model(model).classes[1:])
+
+
 def test_tune_never_writes_over_a_take_it_reads(small_take, demo_model_file, capsys):
     before = small_take.read_bytes()
     assert main(["tune", "--model", str(demo_model_file), str(small_take), "-o", str(small_take)]) == 2

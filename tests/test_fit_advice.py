@@ -20,5 +20,5 @@ def test_fit_advises_a_check_in_only_for_two_sessions_or_fewer(tmp_path, capsys)
     assert main(["fit", str(takes[0]), str(takes[1]), "-o", str(model), "--classifier", "linear"]) == 0
     out = capsys.readouterr().out
     assert "takes from 2 sessions" in out and "drape capture --check-in" in out
-    assert main(["fit", *map(str, takes), "-o", str(model), "--classifier", "linear"]) == 0
+    assert main(["fit", *map(str, takes), "-o", str(model), "--classifier", "linear", "--overwrite"]) == 0
     assert "check-in" not in capsys.readouterr().out

@@ -216,6 +216,27 @@ def test_troupe_cli_writes_labelled_takes(tmp_path):
     assert not np.array_equal(recs[0].freq_hz[:100], recs[2].freq_hz[:100])  # wearers differ
 
 
+def test_troupe_cli_keeps_takes_already_in_the_folder_unless_told(tmp_path, capsys):
+    out = tmp_path / "troupe"
+    out.mkdir()
+    earlier = ["wearer0-session0.take", "wearer0-session1.take", "wearer1-session0.take", "wearer1-session1.take"]
+    for name in earlier:
+        (out / name).write_bytes(b"an earlier run")
+    run = ["simulate", "--wearers", "2", "--sessions", "2", "--repetitions", "1", "--out", str(out),
+           "--layout", str(LAYOUTS / "sleeves_only.toml")]
+    assert main(run) == 2
+    err = capsys.readouterr().err
+    # the first few are named, the rest counted
+    assert "4 files" in err and "wearer0-session0.take" in err and "and 1 more" in err and "--overwrite" in err
+    assert sorted(p.name for p in out.iterdir()) == earlier and not (out / "troupe.json").exists()
+    assert all((out / n).read_bytes() == b"an earlier run" for n in earlier)
+    (tmp_path / "plain").write_text("not a folder")
+    assert main(["simulate", "--wearers", "1", "--out", str(tmp_path / "plain")]) == 2
+    assert "is a file" in capsys.readouterr().err
+    assert main(["simulate", "--wearers", "1", "--sessions", "1", *run[5:], "--overwrite"]) == 0
+    assert read_recording(out / "wearer0-session0.take").wearer == "wearer0"
+
+
 def test_serve_cli_behaves_like_a_serial_garment():
     import serial
     proc = subprocess.Popen(drape_cmd("simulate", "--serve", "--for", "8", "--seed", "3"), stdout=subprocess.PIPE,

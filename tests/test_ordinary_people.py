@@ -36,10 +36,25 @@ def test_people_takes_hold_only_ordinary_movement_of_every_kind(tmp_path, capsys
     assert not np.allclose(recs[0].freq_hz[:n], recs[1].freq_hz[:n])
 
 
-def test_people_follow_a_layout_file(tmp_path):
+def test_people_keep_takes_already_in_the_folder_unless_told(tmp_path, capsys):
+    folder = tmp_path / "people"
+    folder.mkdir()
+    (folder / "ordinary-person1.take").write_bytes(b"an earlier run")
+    run = ["simulate", "--ordinary-people", "3", "--ordinary-s", "12", "--out", str(folder)]
+    assert main(run) == 2
+    err = capsys.readouterr().err
+    assert "1 file this would write exists already" in err and "ordinary-person1.take" in err and "--overwrite" in err
+    assert sorted(p.name for p in folder.iterdir()) == ["ordinary-person1.take"]   # nothing written
+    assert (folder / "ordinary-person1.take").read_bytes() == b"an earlier run"
+    assert main([*run, "--overwrite"]) == 0
+    assert read_recording(folder / "ordinary-person1.take").wearer == "ordinary-person1"
+
+
+def test_people_follow_a_layout_file(tmp_path, capsys):
     layout = ROOT / "examples" / "layouts" / "sleeves_only.toml"
     assert main(["simulate", "--ordinary-people", "1", "--ordinary-s", "12", "--layout", str(layout),
                  "--out", str(tmp_path)]) == 0
+    assert f"{tmp_path}: 1 simulated person's ordinary movement" in capsys.readouterr().out
     r = read_recording(tmp_path / "ordinary-person0.take")
     assert r.channel_names == ("left_cuff", "right_cuff")
 
@@ -106,3 +121,19 @@ def test_fit_and_the_held_out_schemes_add_the_same_people(tmp_path, capsys):
         assert "adding the ordinary movement of 6 simulated people (10 min each)" in capsys.readouterr().out
         assert _simulated_others(parse([*verb, "--no-simulated-others"]), recs) == {}
         assert _simulated_others(parse([*verb, "--classifier", "linear"]), recs) == {}
+
+
+@pytest.mark.parametrize("verb, refused", [
+    (["fit", "-o", "m.npz", "--band-hz", "3", "1"], "LOW must be below HIGH"),
+    (["fit", "-o", "m.npz", "--band-hz", "1", "7"], "does not fit a 10 Hz source"),
+    (["evaluate", "--scheme", "leave-wearer-out"], "leave-wearer-out needs takes of at least two wearers"),
+])
+def test_options_are_checked_before_the_people_are_announced(tmp_path, monkeypatch, capsys, verb, refused):
+    """A fit or an evaluation refused for its options says nothing of people it never adds."""
+    monkeypatch.chdir(tmp_path)
+    assert main(["simulate", "--repetitions", "1", "--rate-hz", "10", "--out", "a.take"]) == 0
+    capsys.readouterr()
+    assert main([verb[0], "a.take", *verb[1:]]) == 2
+    said = capsys.readouterr()
+    assert refused in said.err and "adding" not in said.out
+    assert not (tmp_path / "m.npz").exists()

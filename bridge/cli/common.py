@@ -11,19 +11,17 @@ def _err(msg: str) -> int:
     return 2
 
 
-def _output_problem(path, inputs=(), model: bool = False, replace: bool = True) -> str:
+def _output_problem(path, inputs=(), model: bool = False, replace: bool = True, option: str = "--out") -> str:
     """Why ``path`` cannot be written ("" when it can), checked before any work is done: a
     folder, a folder that does not exist or cannot be written, one of the ``inputs`` (a take
     written over is lost), with ``model`` an existing file that is not a model (.npz) or a
-    new one not named .npz, and without ``replace`` any existing file (a take: --overwrite
-    replaces one)."""
+    new one not named .npz, and without ``replace`` any existing file (--overwrite replaces
+    one; ``option`` is the verb's output option, named in the message)."""
     import os
     from pathlib import Path
     out = Path(path)
     if out.is_dir():
         return f"{out} is a folder; give a file name"
-    if out.exists() and not replace:
-        return f"{out} exists; choose another --out or pass --overwrite"
     parent = out.parent if str(out.parent) else Path(".")
     if not parent.is_dir():
         return f"cannot write {out}: the folder {parent} does not exist"
@@ -44,9 +42,28 @@ def _output_problem(path, inputs=(), model: bool = False, replace: bool = True) 
             return f"cannot write {out}: {exc.strerror}"
         if head and head != b"PK":   # a model is a .npz, a zip archive
             return f"{out} exists and is not a model file; give another name"
+    if out.exists() and not replace:   # asked after the refusals --overwrite would not lift
+        return f"{out} exists; choose another {option} or pass --overwrite"
     if model and not out.exists() and out.suffix.lower() != ".npz":   # a new model is named for what it is
         return f"a model file is a .npz archive: name it {out.with_suffix('.npz').name}, not {out.name}"
     return ""
+
+
+def _folder_problem(folder, names, replace: bool = False) -> str:
+    """Why the files ``names`` cannot be written into ``folder`` ("" when they can), checked
+    before any is written: a file where the folder should be, or, without ``replace``, any of
+    them already there (a run written over another is lost, or mixed with it)."""
+    from pathlib import Path
+    folder = Path(folder)
+    if folder.exists() and not folder.is_dir():
+        return f"{folder} is a file; --out names a folder here"
+    there = [folder / n for n in names if (folder / n).exists()]
+    if not there or replace:
+        return ""
+    shown = ", ".join(str(p) for p in there[:3]) + (f" and {len(there) - 3} more" if len(there) > 3 else "")
+    verb = "exists" if len(there) == 1 else "exist"
+    return (f"{_plural(len(there), 'file')} this would write {verb} already: {shown}; "
+            "choose another --out or pass --overwrite")
 
 
 def _stop_on_signals(flag, reload: bool = False):
@@ -73,9 +90,9 @@ def _report(text: str) -> None:
         pass
 
 
-def _plural(n: int, word: str) -> str:
-    """'1 take', '3 takes'."""
-    return f"{n} {word}{'' if n == 1 else 's'}"
+def _plural(n: int, word: str, plural: str = "") -> str:
+    """'1 take', '3 takes'; ``plural`` for words that do not add an s ('1 person', '2 people')."""
+    return f"{n} {word if n == 1 else plural or word + 's'}"
 
 
 def replay_events(rec, model, mapping=None, block_s: float = 0.1, settle=None):

@@ -6,7 +6,7 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _output_problem, _plural, _stop_on_signals
+from .common import _err, _folder_problem, _output_problem, _plural, _stop_on_signals
 
 
 class _Keys:
@@ -154,8 +154,8 @@ def cmd_capture(a) -> int:
         text(f"the take is incomplete{' (marked so in the file)' if marked else ''}: stopped during {cut.step}; "
              f"not recorded: {cut.missing()}. Capture again, or fit it only beside complete takes")
     if a.check_in and sess.done:
-        text(f"fit it with your training takes, e.g. drape fit TRAINING.take ... {out} -o today.npz, "
-             "and run the show on today.npz")
+        text(f"fit it with your training takes, e.g. drape fit TRAINING.take ... {out} -o today.npz "
+             "(--overwrite replaces the last show's), and run the show on today.npz")
     return code
 
 
@@ -273,7 +273,11 @@ def cmd_simulate(a) -> int:
     if a.serve:
         return _serve(a, layout, gestures, nulls)
     if troupe:
-        from ..sources.troupe import write_troupe
+        from ..sources.troupe import troupe_file_names, write_troupe
+
+        problem = _folder_problem(a.out, troupe_file_names(a.wearers or 1, a.sessions or 1), a.overwrite)
+        if problem:
+            return _err(problem)
 
         def show(f):
             print(f"  {f['file']}: {f['seconds']:.0f} s, {f['gestures']} labelled", flush=True)
@@ -311,19 +315,23 @@ def _ordinary_people(a, layout) -> int:
     if a.ordinary_people < 1 or not a.ordinary_s > 0:
         return _err("--ordinary-people must be at least 1 and --ordinary-s positive")
     folder = Path(a.out)
+    names = [f"ordinary-person{k}.take" for k in range(a.ordinary_people)]
+    problem = _folder_problem(folder, names, a.overwrite)
+    if problem:
+        return _err(problem)
     try:
         folder.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         return _err(f"cannot make the folder {folder}: {exc.strerror or exc}")
     for k in range(a.ordinary_people):
         take = ordinary_take(a.seed + ORDINARY_SEED_OFFSET, k, a.ordinary_s, FULL_NULL_ACTIVITIES, layout, a.rate_hz)
-        path = folder / f"ordinary-person{k}.take"
+        path = folder / names[k]
         rec = Recording.from_take(take, {}, layout=layout.name if layout else "built-in")
         rec.wearer, rec.session = f"ordinary-person{k}", "ordinary"   # nobody a troupe names wearerN
         write_recording(path, rec)
         print(f"  {path}: {take.t_s.size / take.rate_hz:.0f} s of ordinary movement, "
               f"{len(take.channel_names)} channels at {take.rate_hz:g} Hz", flush=True)
-    print(f"{folder}: {a.ordinary_people} simulated people's ordinary movement "
+    print(f"{folder}: {_plural(a.ordinary_people, 'simulated person', 'simulated people')}'s ordinary movement "
           f"({', '.join(FULL_NULL_ACTIVITIES)}); add it to a fit: drape fit TAKE --ordinary {folder}/*.take -o MODEL")
     return 0
 

@@ -52,8 +52,9 @@ def _simulated_others(a, recs) -> dict:
     if a.classifier != "minirocket" or a.no_simulated_others or not built_in_jacket_takes(recs):
         return {}
     cues = built_in_others_cues(recs[0].rate_hz, {iv.label for r in recs for iv in r.intervals})
-    print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of {OTHERS_PEOPLE} "
-          f"simulated people ({OTHERS_S / 60:g} min each) to the null class"
+    print(f"the takes are the built-in simulated jacket's: adding the ordinary movement of "
+          f"{_plural(OTHERS_PEOPLE, 'simulated person', 'simulated people')} ({OTHERS_S / 60:g} min each) "
+          "to the null class"
           + (f", and {OTHERS_CUE_PEOPLE} performing every gesture {_times(OTHERS_REPS)}" if cues else "")
           + " (--no-simulated-others leaves them out)", flush=True)
     return {"ordinary": built_in_others(recs[0].rate_hz), **({"others": cues} if cues else {})}
@@ -74,6 +75,21 @@ def _training_settings(a):
     return TrainingSettings(window_s=a.window_s, hop_s=a.hop_s, **band)
 
 
+def _checked_settings(a, recs, scheme: str | None = None):
+    """``_training_settings``, checked against the takes before anything is added to them or
+    said of them (ValueError): a band-pass that fits no take's rate, takes with no labelled
+    gesture, a ``scheme`` the takes cannot be split by."""
+    from ..evaluation.heldout import groups_of
+    settings = _training_settings(a)
+    for rate_hz in sorted({r.rate_hz for r in recs}):
+        settings.band(rate_hz)
+    if not any(r.intervals for r in recs):
+        raise ValueError("the takes hold no labelled gestures")
+    if scheme:
+        groups_of(recs, scheme)
+    return settings
+
+
 def cmd_fit(a) -> int:
     from ..recognition import fit_cases, fit_recordings
     from ..sources import RecordingError
@@ -81,7 +97,8 @@ def cmd_fit(a) -> int:
 
     if bool(a.recordings) == bool(a.ts):
         return _err("give take files or --ts TRAIN.ts (one of the two)")
-    problem = _output_problem(a.output, [*a.recordings, *a.ordinary, *([a.ts] if a.ts else [])], model=True)
+    problem = _output_problem(a.output, [*a.recordings, *a.ordinary, *([a.ts] if a.ts else [])], model=True,
+                              replace=a.overwrite, option="-o")
     if problem:
         return _err(problem)
     options = {}
@@ -111,13 +128,14 @@ def cmd_fit(a) -> int:
             source = f"{len(y)} cases of {a.ts}"
         else:
             recs, kinds = _read_takes(a.recordings)
+            settings = _checked_settings(a, recs)
             if a.ordinary:
                 if a.classifier == "linear":
                     raise ValueError("--ordinary applies to --classifier minirocket or dtw")
                 options["ordinary"] = _read_takes(a.ordinary)[0]
             else:
                 options.update(_simulated_others(a, recs))
-            model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
+            model = fit_recordings(a.classifier, recs, kinds, settings, progress=step, **options)
             source = _plural(len(recs), "take")
     except (RecordingError, TsFormatError, ValueError) as exc:
         close()
@@ -228,7 +246,8 @@ def cmd_evaluate(a) -> int:
                 close()
                 return _err("give take files and --scheme leave-session-out or leave-wearer-out (or --model M with held-out data)")
             recs, kinds = _read_takes(a.recordings)
-            result = cross_validate(recs, kinds, a.scheme, a.classifier, _training_settings(a), progress=step,
+            settings = _checked_settings(a, recs, a.scheme)
+            result = cross_validate(recs, kinds, a.scheme, a.classifier, settings, progress=step,
                                     **_simulated_others(a, recs))
             title = f"{a.classifier}, {a.scheme}, {_plural(len(recs), 'take')}"
     except (ModelError, RecordingError, TsFormatError, ValueError) as exc:
@@ -263,13 +282,23 @@ def _stdout_to_devnull() -> None:
     os.close(devnull)
 
 
+def _same_file(path, other) -> bool:
+    """True when ``path`` and ``other`` name one file (or one path, when it does not exist yet)."""
+    try:
+        return Path(path).samefile(other)
+    except OSError:
+        return Path(path).resolve() == Path(other).resolve()
+
+
 def cmd_tune(a) -> int:
     from ..evaluation.matching import format_counts
     from ..evaluation.tuning import tune_model
     from ..recognition import ModelError, load_model
     from ..sources import RecordingError, read_recording
 
-    problem = _output_problem(a.output or a.model, a.recordings, model=True)
+    # Storing into the model being tuned is what tune does; only another existing file needs --overwrite.
+    problem = _output_problem(a.output or a.model, a.recordings, model=True,
+                              replace=a.overwrite or _same_file(a.output or a.model, a.model), option="-o")
     if problem:
         return _err(problem)
     try:
@@ -315,8 +344,9 @@ def cmd_tune(a) -> int:
     if problems and not a.store_anyway:
         for p in problems:
             _report("budget missed: " + p)
-        _report(f"nothing stored in {out} (--store-anyway stores the settings all the same); "
-                "more ordinary movement in training, or a stricter budget, may help")
+        _report(f"nothing stored in {out} (--store-anyway stores the settings all the same); what can help: "
+                "more ordinary movement in training, a longer tuning take, or a looser --max-false-per-hour "
+                "if the show allows it")
         return 3
     for p in problems:
         _report("budget missed, stored anyway: " + p)

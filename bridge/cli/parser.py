@@ -103,6 +103,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="minirocket (default: convolution features, trained against false cues), "
                         "linear (tiny) or dtw (few-shot templates)")
     f.add_argument("-o", "--output", required=True, help="model file to write (.npz)")
+    f.add_argument("--overwrite", action="store_true", help="replace an existing model file")
     f.add_argument("--window-s", type=_POSITIVE, default=None,
                    help="window length, s (default: room for the labelled gestures, at least 2 s)")
     f.add_argument("--hop-s", type=_POSITIVE, default=0.1, help="hop between windows, s")
@@ -213,7 +214,8 @@ def build_parser() -> argparse.ArgumentParser:
     r.set_defaults(func=cmd_replay)
     m = sub.add_parser("simulate", help=VERBS["simulate"], description=VERBS["simulate"])
     m.add_argument("--out", help="take file to write (a folder with --wearers/--sessions)")
-    m.add_argument("--overwrite", action="store_true", help="replace an existing take file")
+    m.add_argument("--overwrite", action="store_true",
+                   help="replace an existing take file (with a folder --out: the takes already there)")
     m.add_argument("--duration-s", type=_POSITIVE, default=None,
                    help="length of a random performance, s (default 120 when nothing else is asked for)")
     m.add_argument("--repetitions", type=_NON_NEGATIVE_INT, default=None,
@@ -247,6 +249,8 @@ def build_parser() -> argparse.ArgumentParser:
     t.add_argument("--model", required=True)
     t.add_argument("--max-false-per-hour", type=_NON_NEGATIVE, default=1.0, help="false-trigger budget (default 1)")
     t.add_argument("-o", "--output", help="write the tuned model here (default: update MODEL in place)")
+    t.add_argument("--overwrite", action="store_true",
+                   help="replace an existing file given as -o (storing into MODEL itself needs no flag)")
     t.add_argument("--store-anyway", action="store_true",
                    help="store the settings even when the false-firing budget is missed (exit 0)")
     t.set_defaults(func=cmd_tune)

@@ -75,6 +75,8 @@ def band_edges(rate_hz: float, low_hz: float = 1.0, high_hz: float | None = None
     high = min(10.0, 0.4 * rate_hz) if high_hz is None else float(high_hz)
     if not 0 < low_hz < high < nyquist:
         hint = ("give edges with --band-hz LOW HIGH, 0 < LOW < HIGH < " f"{nyquist:g} Hz (half the rate)")
+        if high_hz is not None and low_hz >= high:
+            raise ValueError(f"band-pass {low_hz:g}–{high:g} Hz: LOW must be below HIGH; {hint}")
         if high_hz is None:
             raise ValueError(f"a {rate_hz:g} Hz source leaves no band-pass above {low_hz:g} Hz below "
                              f"{0.4 * rate_hz:g} Hz; {hint}")
