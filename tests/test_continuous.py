@@ -78,6 +78,11 @@ def test_channels_that_do_not_rise_can_be_left_out():
 def test_range_counts_down_before_each_capture_and_the_countdown_is_not_captured(capsys, tmp_path):
     from bridge.cli import main
     assert main(["range", "--out", str(tmp_path / "r.json"), "--seconds", "2", "--countdown-s", "3"]) == 0
+    kept = (tmp_path / "r.json").read_bytes()   # a wearer's range is not written over unless asked
+    assert main(["range", "--out", str(tmp_path / "r.json"), "--seconds", "2", "--countdown-s", "3"]) == 2
+    assert (tmp_path / "r.json").read_bytes() == kept
+    assert "r.json exists; choose another --out or pass --overwrite" in capsys.readouterr().err
+    assert main(["range", "--out", str(tmp_path / "r.json"), "--seconds", "2", "--countdown-s", "3", "--overwrite"]) == 0
     lines = capsys.readouterr().out.splitlines()
     reach = next(i for i, l in enumerate(lines) if l.startswith("reach as close"))
     # Right before the second capture: its announcement and a countdown to it.

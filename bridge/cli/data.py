@@ -415,7 +415,7 @@ def cmd_range(a) -> int:
     from ..signal import Conditioner
     from ..sources.base import SourceGone
 
-    problem = _output_problem(a.out, [a.model] if a.model else [])
+    problem = _output_problem(a.out, [a.model] if a.model else [], replace=a.overwrite)
     if problem:
         return _err(problem)
 

@@ -256,7 +256,8 @@ def build_parser() -> argparse.ArgumentParser:
     t.set_defaults(func=cmd_tune)
     g = sub.add_parser("range", help=VERBS["range"], description=VERBS["range"] +
                        ". Without --port it runs on the simulated wearer, to try it out.")
-    g.add_argument("--out", required=True, help="range file to write (JSON)")
+    g.add_argument("--out", required=True, help="range file to write (JSON; an existing one is kept unless --overwrite)")
+    g.add_argument("--overwrite", action="store_true", help="replace an existing range file")
     g.add_argument("--port", help="the garment's serial device")
     g.add_argument("--model", help="model of this garment (channel names and rate); needed with --port")
     g.add_argument("--baud", type=_COUNT, default=115200)
