@@ -123,7 +123,7 @@ def build_parser() -> argparse.ArgumentParser:
                    help="dtw: always name the nearest class, never null for lack of a near template")
     f.add_argument("--edges", choices=("alternate", "valid"),
                    help="minirocket: 'valid' pools over unpadded positions only (default for takes: a stream's "
-                        "window edges are arbitrary), 'alternate' is the paper's padding (default for --ts)")
+                        "window edges are arbitrary), 'alternate' is the published method's alternating zero padding (default for --ts)")
     f.set_defaults(func=cmd_fit)
     e = sub.add_parser("evaluate", help=VERBS["evaluate"], description=VERBS["evaluate"])
     e.add_argument("recordings", nargs="*", metavar="TAKE")
