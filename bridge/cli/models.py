@@ -210,8 +210,9 @@ def cmd_evaluate(a) -> int:
                 title = f"{a.model} on {a.ts}"
             elif a.recordings:
                 recs, _ = _read_takes(a.recordings)
-                for r in recs:
+                for path, r in zip(a.recordings, recs):
                     model.check_source(len(r.channel_names), r.rate_hz)
+                    model.check_channel_names(r.channel_names, path)
                 _in_sample(model, a.model, a.recordings, recs)
                 unknown = sorted({iv.label for r in recs for iv in r.intervals} - set(model.classes))
                 if unknown:
@@ -275,8 +276,9 @@ def cmd_tune(a) -> int:
     try:
         model = load_model(a.model)
         recs = [read_recording(p) for p in a.recordings]
-        for r in recs:
+        for path, r in zip(a.recordings, recs):
             model.check_source(len(r.channel_names), r.rate_hz)
+            model.check_channel_names(r.channel_names, path)
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
     _in_sample(model, a.model, a.recordings, recs)
