@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from .common import _err, _output_problem, _plural, _report
+from .common import _err, _in_sample, _output_problem, _plural, _report, _say_in_sample
 
 
 def _progress(desc: str):
@@ -22,15 +22,6 @@ def _read_takes(paths):
     for r in recs:
         kinds.update(r.kinds)
     return recs, kinds
-
-
-def _in_sample(model, model_path, paths, recs) -> None:
-    """Warn about each take the model was fitted on: its figures are in-sample."""
-    seen = set(model.summary.get("fitted_on", ()))
-    for path, r in zip(paths, recs):
-        if r.fingerprint() in seen:
-            print(f"drape: {path} is one of the takes {model_path} was fitted on: figures on it are in-sample, "
-                  "not what to expect live; give a take the model never saw", file=sys.stderr)
 
 
 def _times(n: int) -> str:
@@ -99,6 +90,7 @@ def cmd_fit(a) -> int:
             options["band"] = a.band
         if a.no_rejection:
             options["reject"] = False
+    ordinary = []
     step, close = _progress(f"fitting {a.classifier}")
     try:
         if a.ts:
@@ -114,7 +106,7 @@ def cmd_fit(a) -> int:
             if a.ordinary:
                 if a.classifier == "linear":
                     raise ValueError("--ordinary applies to --classifier minirocket or dtw")
-                options["ordinary"] = _read_takes(a.ordinary)[0]
+                options["ordinary"] = ordinary = _read_takes(a.ordinary)[0]
             else:
                 options.update(_simulated_others(a, recs))
             model = fit_recordings(a.classifier, recs, kinds, _training_settings(a), progress=step, **options)
@@ -124,7 +116,7 @@ def cmd_fit(a) -> int:
         return _err(str(exc))
     close()
     if not a.ts:   # so that tune and evaluate can say when they are given a take the model learnt from
-        model.summary["fitted_on"] = [r.fingerprint() for r in recs]
+        model.summary["fitted_on"] = [r.fingerprint() for r in [*recs, *ordinary]]
     model.save(a.output)
     s = model.summary
     key = next((k for k in ("cross_validated_window_accuracy", "held_out_accuracy", "leave_one_out_accuracy") if k in s), None)
@@ -200,6 +192,7 @@ def cmd_evaluate(a) -> int:
     if a.model and (a.scheme or a.window_s is not None or a.band_hz):
         return _err("--scheme, --window-s and --band-hz fit models to evaluate; with --model the model's own are used: "
                     "leave them out")
+    in_sample = {}   # take path -> "fitted_on" / "tuned_on": the model learnt from it
     step, close = _progress("evaluating")
     try:
         if a.model:
@@ -213,7 +206,8 @@ def cmd_evaluate(a) -> int:
                 for path, r in zip(a.recordings, recs):
                     model.check_source(len(r.channel_names), r.rate_hz)
                     model.check_channel_names(r.channel_names, path)
-                _in_sample(model, a.model, a.recordings, recs)
+                in_sample = _in_sample(model, a.recordings, recs)
+                _say_in_sample(a.model, in_sample)
                 unknown = sorted({iv.label for r in recs for iv in r.intervals} - set(model.classes))
                 if unknown:
                     n = sum(iv.label in unknown for r in recs for iv in r.intervals)
@@ -236,6 +230,7 @@ def cmd_evaluate(a) -> int:
         close()
         return _err(str(exc))
     close()
+    result["in_sample"] = in_sample
     if a.report:
         from ..evaluation.report import write_report
         try:
@@ -281,7 +276,11 @@ def cmd_tune(a) -> int:
             model.check_channel_names(r.channel_names, path)
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
-    _in_sample(model, a.model, a.recordings, recs)
+    fitted = [path for path, how in _in_sample(model, a.recordings, recs).items() if "fitted_on" in how]
+    if fitted:   # settings chosen, and a "held-out" figure scored, on what the model learnt
+        return _err(f"{', '.join(fitted)} {'is one' if len(fitted) == 1 else 'are'} of the takes {a.model} was "
+                    f"fitted on: settings chosen on {'it' if len(fitted) == 1 else 'them'} and their figures would "
+                    "be in-sample; tune on takes the model was not fitted on. Nothing stored")
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
     print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, "
           f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
@@ -323,6 +322,9 @@ def cmd_tune(a) -> int:
     for p in problems:
         _report("budget missed, stored anyway: " + p)
     model.decision = {**model.decision, **result.settings}
+    # so that evaluate and replay can say when a figure is on a take these settings were chosen on
+    tuned_on = [str(f) for f in model.summary.get("tuned_on") or ()]
+    model.summary["tuned_on"] = list(dict.fromkeys([*tuned_on, *(r.fingerprint() for r in recs)]))
     model.save(out)
     print(f"{out}: decision settings stored")
     return 0
