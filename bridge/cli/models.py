@@ -260,7 +260,7 @@ def _stdout_to_devnull() -> None:
 
 
 def cmd_tune(a) -> int:
-    from ..evaluation.matching import format_counts
+    from ..evaluation.matching import format_counts, hours_to_show
     from ..evaluation.tuning import tune_model
     from ..recognition import ModelError, load_model
     from ..sources import RecordingError, read_recording
@@ -284,9 +284,11 @@ def cmd_tune(a) -> int:
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
     print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, "
           f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
+    need_h = hours_to_show(a.max_false_per_hour)
+    short = hours < need_h   # the counter's rule: these takes cannot show the budget, so nothing is loosened
     step, close = _progress("replaying")
     try:
-        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step)
+        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step, loosen=not short)
     finally:
         close()
     print("before, the settings stored in the model, on these takes:")
@@ -305,6 +307,15 @@ def cmd_tune(a) -> int:
                  if model.kinds.get(g) == "gesture" else "")
         mean = f" averaging ≥ {st['min_confidence']:.2f}" if st.get("min_confidence", 0) > 0 else ""
         print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops{mean}{rearm}")
+    if short:
+        shown = f"≥ {need_h:.1f} h" if need_h < float("inf") else "no length of take does"
+        firings = "false firing" if a.max_false_per_hour == 1 else "false firings"
+        print(f"{hours:.2f} h of take cannot show at most {a.max_false_per_hour:g} {firings} per hour "
+              f"(that needs {shown}): no class was given settings looser than the model's (a lower threshold, "
+              "fewer agreeing hops, a quicker re-arm)"
+              + (f"; on these takes alone the search would have loosened {', '.join(result.held_back)}"
+                 if result.held_back else "")
+              + ". Tune on longer takes to let it loosen them")
     problems = []
     if not result.met:
         problems.append(f"even the strictest settings fire {result.in_sample['false']} false on these takes, "
