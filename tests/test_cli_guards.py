@@ -227,5 +227,6 @@ def test_a_take_the_model_was_fitted_on_is_named_as_in_sample(small_take, tmp_pa
     assert main(["evaluate", "--model", str(model), str(small_take), str(other)]) == 0
     err = capsys.readouterr().err
     assert f"{small_take} is one of the takes {model} was fitted on" in err and str(other) not in err
-    assert main(["tune", "--model", str(model), str(small_take), "-o", str(tmp_path / "t.npz"), "--store-anyway"]) == 0
-    assert "was fitted on: figures on it are in-sample" in capsys.readouterr().err
+    assert main(["tune", "--model", str(model), str(small_take), "-o", str(tmp_path / "t.npz"), "--store-anyway"]) == 2
+    assert f"{small_take} is one of the takes {model} was fitted on" in capsys.readouterr().err
+    assert not (tmp_path / "t.npz").exists()

@@ -99,3 +99,29 @@ def replay_events(rec, model, mapping=None, block_s: float = 0.1, settle=None):
     """Events the live chain decides over a whole take (see ``bridge.service.replay_events``)."""
     from ..service import replay_events as replay
     return replay(rec, model, mapping, block_s, settle)
+
+
+# What a model's summary lists of take fingerprints say about a take: figures on it are in-sample.
+LEARNT_FROM = {"fitted_on": "fitted on", "tuned_on": "tuned on (its decision settings were chosen on it)"}
+
+
+def _in_sample(model, paths, recs) -> dict[str, list[str]]:
+    """{take path: the summary lists naming it, "fitted_on" and/or "tuned_on"} for each take
+    the model learnt from. A model from before a list was kept names no take in it."""
+    seen = {key: set(model.summary.get(key) or ()) for key in LEARNT_FROM}
+    found = {}
+    for path, r in zip(paths, recs):
+        fingerprint = r.fingerprint()
+        how = [key for key, prints in seen.items() if fingerprint in prints]
+        if how:
+            found[str(path)] = how
+    return found
+
+
+def _say_in_sample(model_path, found: dict) -> None:
+    """One line on stderr for each take of ``_in_sample``."""
+    for path, how in found.items():
+        print(f"drape: {path} is one of the takes {model_path} was {' and '.join(LEARNT_FROM[k] for k in how)}: "
+              "figures on it are in-sample, not what to expect live; give a take the model never saw",
+              file=sys.stderr)
+

@@ -6,7 +6,7 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _folder_problem, _output_problem, _plural, _stop_on_signals
+from .common import _err, _folder_problem, _in_sample, _output_problem, _plural, _say_in_sample, _stop_on_signals
 
 
 class _Keys:
@@ -172,9 +172,11 @@ def cmd_replay(a) -> int:
         model = load_model(a.model)
         rec = read_recording(a.recording)
         model.check_source(len(rec.channel_names), rec.rate_hz)
+        model.check_channel_names(rec.channel_names, a.recording)
         mapping = load_mapping(a.mapping, model.classes, model.kinds) if a.mapping else None
     except (ModelError, RecordingError, MappingError) as exc:
         return _err(str(exc))
+    _say_in_sample(a.model, _in_sample(model, [a.recording], [rec]))
     from ..mapping.watcher import nothing_to_send
     if nothing_to_send(mapping, a.mapping):
         print(f"drape: {a.mapping}: no destinations and no rules; nothing is sent", file=sys.stderr)

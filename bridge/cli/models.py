@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from .common import _err, _output_problem, _plural, _report
+from .common import _err, _in_sample, _output_problem, _plural, _report, _say_in_sample
 
 
 def _progress(desc: str):
@@ -22,15 +22,6 @@ def _read_takes(paths):
     for r in recs:
         kinds.update(r.kinds)
     return recs, kinds
-
-
-def _in_sample(model, model_path, paths, recs) -> None:
-    """Warn about each take the model was fitted on: its figures are in-sample."""
-    seen = set(model.summary.get("fitted_on", ()))
-    for path, r in zip(paths, recs):
-        if r.fingerprint() in seen:
-            print(f"drape: {path} is one of the takes {model_path} was fitted on: figures on it are in-sample, "
-                  "not what to expect live; give a take the model never saw", file=sys.stderr)
 
 
 def _times(n: int) -> str:
@@ -116,6 +107,7 @@ def cmd_fit(a) -> int:
             options["band"] = a.band
         if a.no_rejection:
             options["reject"] = False
+    ordinary = []
     step, close = _progress(f"fitting {a.classifier}")
     try:
         if a.ts:
@@ -132,7 +124,7 @@ def cmd_fit(a) -> int:
             if a.ordinary:
                 if a.classifier == "linear":
                     raise ValueError("--ordinary applies to --classifier minirocket or dtw")
-                options["ordinary"] = _read_takes(a.ordinary)[0]
+                options["ordinary"] = ordinary = _read_takes(a.ordinary)[0]
             else:
                 options.update(_simulated_others(a, recs))
             model = fit_recordings(a.classifier, recs, kinds, settings, progress=step, **options)
@@ -142,7 +134,7 @@ def cmd_fit(a) -> int:
         return _err(str(exc))
     close()
     if not a.ts:   # so that tune and evaluate can say when they are given a take the model learnt from
-        model.summary["fitted_on"] = [r.fingerprint() for r in recs]
+        model.summary["fitted_on"] = [r.fingerprint() for r in [*recs, *ordinary]]
     model.save(a.output)
     s = model.summary
     key = next((k for k in ("cross_validated_window_accuracy", "held_out_accuracy", "leave_one_out_accuracy") if k in s), None)
@@ -218,6 +210,7 @@ def cmd_evaluate(a) -> int:
     if a.model and (a.scheme or a.window_s is not None or a.band_hz):
         return _err("--scheme, --window-s and --band-hz fit models to evaluate; with --model the model's own are used: "
                     "leave them out")
+    in_sample = {}   # take path -> "fitted_on" / "tuned_on": the model learnt from it
     step, close = _progress("evaluating")
     try:
         if a.model:
@@ -228,9 +221,11 @@ def cmd_evaluate(a) -> int:
                 title = f"{a.model} on {a.ts}"
             elif a.recordings:
                 recs, _ = _read_takes(a.recordings)
-                for r in recs:
+                for path, r in zip(a.recordings, recs):
                     model.check_source(len(r.channel_names), r.rate_hz)
-                _in_sample(model, a.model, a.recordings, recs)
+                    model.check_channel_names(r.channel_names, path)
+                in_sample = _in_sample(model, a.recordings, recs)
+                _say_in_sample(a.model, in_sample)
                 unknown = sorted({iv.label for r in recs for iv in r.intervals} - set(model.classes))
                 if unknown:
                     n = sum(iv.label in unknown for r in recs for iv in r.intervals)
@@ -254,6 +249,7 @@ def cmd_evaluate(a) -> int:
         close()
         return _err(str(exc))
     close()
+    result["in_sample"] = in_sample
     if a.report:
         from ..evaluation.report import write_report
         try:
@@ -291,7 +287,7 @@ def _same_file(path, other) -> bool:
 
 
 def cmd_tune(a) -> int:
-    from ..evaluation.matching import format_counts
+    from ..evaluation.matching import format_counts, hours_to_show
     from ..evaluation.tuning import tune_model
     from ..recognition import ModelError, load_model
     from ..sources import RecordingError, read_recording
@@ -304,17 +300,24 @@ def cmd_tune(a) -> int:
     try:
         model = load_model(a.model)
         recs = [read_recording(p) for p in a.recordings]
-        for r in recs:
+        for path, r in zip(a.recordings, recs):
             model.check_source(len(r.channel_names), r.rate_hz)
+            model.check_channel_names(r.channel_names, path)
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
-    _in_sample(model, a.model, a.recordings, recs)
+    fitted = [path for path, how in _in_sample(model, a.recordings, recs).items() if "fitted_on" in how]
+    if fitted:   # settings chosen, and a "held-out" figure scored, on what the model learnt
+        return _err(f"{', '.join(fitted)} {'is one' if len(fitted) == 1 else 'are'} of the takes {a.model} was "
+                    f"fitted on: settings chosen on {'it' if len(fitted) == 1 else 'them'} and their figures would "
+                    "be in-sample; tune on takes the model was not fitted on. Nothing stored")
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
     print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, "
           f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
+    need_h = hours_to_show(a.max_false_per_hour)
+    short = hours < need_h   # the counter's rule: these takes cannot show the budget, so nothing is loosened
     step, close = _progress("replaying")
     try:
-        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step)
+        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step, loosen=not short)
     finally:
         close()
     print("before, the settings stored in the model, on these takes:")
@@ -333,6 +336,15 @@ def cmd_tune(a) -> int:
                  if model.kinds.get(g) == "gesture" else "")
         mean = f" averaging ≥ {st['min_confidence']:.2f}" if st.get("min_confidence", 0) > 0 else ""
         print(f"  {g:<16} threshold {st['threshold']:.2f}, {st['agree_k']} of {st['agree_n']} hops{mean}{rearm}")
+    if short:
+        shown = f"≥ {need_h:.1f} h" if need_h < float("inf") else "no length of take does"
+        firings = "false firing" if a.max_false_per_hour == 1 else "false firings"
+        print(f"{hours:.2f} h of take cannot show at most {a.max_false_per_hour:g} {firings} per hour "
+              f"(that needs {shown}): no class was given settings looser than the model's (a lower threshold, "
+              "fewer agreeing hops, a quicker re-arm)"
+              + (f"; on these takes alone the search would have loosened {', '.join(result.held_back)}"
+                 if result.held_back else "")
+              + ". Tune on longer takes to let it loosen them")
     problems = []
     if not result.met:
         problems.append(f"even the strictest settings fire {result.in_sample['false']} false on these takes, "
@@ -351,6 +363,9 @@ def cmd_tune(a) -> int:
     for p in problems:
         _report("budget missed, stored anyway: " + p)
     model.decision = {**model.decision, **result.settings}
+    # so that evaluate and replay can say when a figure is on a take these settings were chosen on
+    tuned_on = [str(f) for f in model.summary.get("tuned_on") or ()]
+    model.summary["tuned_on"] = list(dict.fromkeys([*tuned_on, *(r.fingerprint() for r in recs)]))
     model.save(out)
     print(f"{out}: decision settings stored")
     return 0

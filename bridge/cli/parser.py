@@ -247,7 +247,8 @@ def build_parser() -> argparse.ArgumentParser:
     t = sub.add_parser("tune", help=VERBS["tune"], description=VERBS["tune"])
     t.add_argument("recordings", nargs="+", metavar="TAKE", help="held-out labelled takes (not used to fit the model)")
     t.add_argument("--model", required=True)
-    t.add_argument("--max-false-per-hour", type=_NON_NEGATIVE, default=1.0, help="false-trigger budget (default 1)")
+    t.add_argument("--max-false-per-hour", type=_NON_NEGATIVE, default=1.0, help="false-trigger budget (default 1); on takes too short to show it "
+                        "(3.7 h at 1 per hour) no class is given looser settings than the model's")
     t.add_argument("-o", "--output", help="write the tuned model here (default: update MODEL in place)")
     t.add_argument("--overwrite", action="store_true",
                    help="replace an existing file given as -o (storing into MODEL itself needs no flag)")

@@ -116,6 +116,14 @@ def poisson_interval(k: int, hours: float, level: float = 0.95) -> tuple[float, 
     return float(lo), float(hi)
 
 
+def hours_to_show(target_per_hour: float) -> float:
+    """Hours of take needed before a rate at or below ``target_per_hour`` can be shown: with
+    none seen, the 95 % upper bound only then comes down to it (inf for a target of 0)."""
+    if target_per_hour <= 0:
+        return float("inf")
+    return poisson_interval(0, 1.0)[1] / target_per_hour
+
+
 def rate(k: int, hours: float, target_per_hour: float | None = 1.0) -> dict:
     """{count, hours, per_hour, low, high} and, when the data cannot show a rate at or
     below ``target_per_hour`` even with none seen, a ``too_short`` sentence."""
@@ -124,7 +132,7 @@ def rate(k: int, hours: float, target_per_hour: float | None = 1.0) -> dict:
     out = {"count": int(k), "hours": round(hours, 6), "per_hour": round(k / hours, 6) if hours > 0 else None,
            "low": round(lo, 6), "high": round(hi, 6)}
     if target_per_hour and hours > 0:
-        need_h = poisson_interval(0, 1.0)[1] / target_per_hour
+        need_h = hours_to_show(target_per_hour)
         if hours < need_h:
             out["too_short"] = (f"{hours:.2f} h cannot show ≤ {target_per_hour:g} per hour: even with none seen "
                                 f"the 95 % bound is {poisson_interval(0, hours)[1]:.1f} per hour; "

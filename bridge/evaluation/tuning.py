@@ -13,6 +13,11 @@ the decision layer is then searched over those stored probabilities (no classifi
   firings, then to the stricter setting. Each class is searched on its own (a vectorised
   walk over the hops: the shared refractory time between classes is left out there);
   every figure reported comes from the real ``Gate`` and the one matcher.
+- **no loosening on too little data**: with ``loosen=False`` (what ``drape tune`` asks when
+  the takes are too short to show the false-firing budget, ``matching.hours_to_show``) the
+  grid keeps only the class's current settings and stricter ones: no lower threshold,
+  fewer agreeing hops, smaller share of agreeing hops or quicker re-arm. A handful of
+  minutes without a false firing says nothing about an hour, so it cannot justify them.
 - **held-out figure**: the takes are split into pieces (each take, or the two halves of a
   single take cut between labelled intervals); for each piece the settings are chosen on
   the others and scored on it. Only these pooled held-out counts are an estimate; the
@@ -55,6 +60,7 @@ class TuneResult:
     met: bool            # the choice on all takes kept within the budget
     held_out_met: bool   # the held-out false firings kept within the held-out hours' budget
     pieces: int
+    held_back: tuple = ()  # classes kept no looser (loosen=False) where the whole grid chose looser settings
 
 
 def hop_probabilities(model, recording, block_s: float = 0.1) -> tuple[np.ndarray, np.ndarray]:
@@ -217,6 +223,23 @@ def candidates(current: GateSettings, kind: str, thresholds=THRESHOLDS, debounce
     return list(dict.fromkeys(grid))
 
 
+def no_looser(s: GateSettings, current: GateSettings) -> bool:
+    """Whether settings ``s`` fire no more readily than ``current``: a threshold as high, as
+    many agreeing hops and as large a share of the last n, a re-arm as slow."""
+    return (s.threshold >= current.threshold and s.agree_k >= current.agree_k
+            and s.agree_k * current.agree_n >= current.agree_k * s.agree_n
+            and s.rearm_below <= current.rearm_below and s.rearm_hops >= current.rearm_hops)
+
+
+def _stricter_only(table: dict, current: dict) -> dict:
+    """``search_table`` rows of settings no looser than each class's ``current``."""
+    out = {}
+    for name, (cands, hits, false) in table.items():
+        keep = [c for c, s in enumerate(cands) if no_looser(s, current[name])]
+        out[name] = ([cands[c] for c in keep], hits[keep], false[keep])
+    return out
+
+
 def _hits_false(fire_t: np.ndarray, intervals, slack_s: float = 2.5) -> tuple[int, int]:
     """(hits, other firings) of one class's firing times (sorted) against its own
     intervals: an interval is hit when a firing falls within its reach (the matcher's
@@ -290,9 +313,11 @@ def _score(model, pieces, settings) -> dict:
                  for p in pieces])
 
 
-def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None, **grid) -> TuneResult:
+def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None, loosen: bool = True,
+               **grid) -> TuneResult:
     """Tune every non-null class of ``model`` on labelled ``recordings``; the model is not
-    changed. ``grid``: thresholds, debounce, rearm (see ``candidates``)."""
+    changed. ``grid``: thresholds, debounce, rearm (see ``candidates``). ``loosen=False``:
+    search only each class's current settings and stricter ones (``no_looser``)."""
     takes = []
     for i, r in enumerate(recordings):
         t, p = hop_probabilities(model, r)
@@ -303,6 +328,9 @@ def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None
     pieces = split_pieces(takes)
     table = search_table(model, pieces, current, **grid)
     everyone = np.ones(len(pieces), dtype=bool)
+    whole = table
+    if not loosen:
+        table = _stricter_only(table, current)
 
     def cap_for(use):
         """(cap, budget): never more false firings than the budget, nor than the starting
@@ -313,6 +341,10 @@ def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None
 
     cap, budget = cap_for(everyone)
     chosen, met = choose(table, everyone, cap, current)
+    held_back = ()
+    if not loosen:   # what the whole grid would have chosen, to say which classes were kept back
+        free, _ = choose(whole, everyone, cap, current)
+        held_back = tuple(g for g, s in free.items() if not no_looser(s, current[g]))
     held = []
     held_met = True
     if len(pieces) > 1:
@@ -328,4 +360,4 @@ def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None
         ho = None
     return TuneResult(before=_score(model, takes, current), held_out=ho, in_sample=_score(model, takes, chosen),
                       settings={g: s.to_dict() for g, s in chosen.items()}, budget=budget, met=met,
-                      held_out_met=held_met, pieces=len(pieces))
+                      held_out_met=held_met, pieces=len(pieces), held_back=held_back)

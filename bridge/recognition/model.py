@@ -11,6 +11,7 @@ from pathlib import Path
 import numpy as np
 
 from ..signal import BandPass
+from ..sources.base import channels_differ
 from .minirocket import MiniRocketParams
 from .windows import WindowSpec
 
@@ -95,6 +96,24 @@ class LiveModel:
                 f"the model expects {self.rate_hz:g} Hz samples but the source runs at {rate_hz:g} Hz: "
                 f"set the garment's rate to {self.rate_hz:g} Hz or train a model at {rate_hz:g} Hz"
             )
+
+    def check_channel_names(self, names, source: str = "the source") -> None:
+        """Raise ModelError unless ``names`` are the model's channels in the model's order.
+
+        A model reads channels by position: a take with other names, or the same in another
+        order, would be scored on the wrong antennas without a word. Names a source makes up
+        when it knows none (c0, c1, ... of a .ts fit; ch1, ch2, ... of a garment without a
+        header line) say nothing either way, so only the count (``check_source``) is checked.
+        """
+        names, ours = tuple(names), tuple(self.channel_names)
+        if not channels_differ(names, ours):
+            return
+        order = (" (the same names in another order: a model reads channels by position)"
+                 if sorted(names) == sorted(ours) else "")
+        raise ModelError(
+            f"the model was trained on channels {', '.join(ours)} but {source} has {', '.join(names)}{order}: "
+            "use a model trained on this garment's channels, or record with the model's"
+        )
 
     def common_metadata(self) -> dict:
         return {

@@ -131,6 +131,9 @@ def _common_fields(meta: dict, path) -> dict:
     _require(2 <= len(classes) <= MAX_CLASSES and classes[0] == NULL and len(set(classes)) == len(classes), path,
              "classes must be unique, start with 'null' and number 2 to 256")
     _require(1 <= len(channels) <= MAX_CHANNELS, path, "channel count must be 1 to 64")
+    for key in ("fitted_on", "tuned_on"):   # fingerprints of the takes it learnt from; absent in older models
+        _require(isinstance(summary.get(key, []), list) and all(isinstance(f, str) for f in summary.get(key, [])),
+                 path, f"summary {key} must be a list of take fingerprints")
     _require(set(kinds) == set(classes[1:]) and set(kinds.values()) <= {"gesture", "posture"}, path,
              "every class but null needs a kind, 'gesture' or 'posture'")
     _require(np.isfinite(temperature) and temperature > 0, path, "temperature must be a positive number")

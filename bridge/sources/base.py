@@ -23,6 +23,21 @@ class Block:
         return self.freq_hz.shape[0]
 
 
+def placeholder_names(names) -> bool:
+    """Whether channel names are numbered stand-ins (c0, c1, ...; ch0 or ch1, ...) rather than
+    the names of cables: what a .ts fit or a garment that sends no header line gets."""
+    names = tuple(names)
+    return any(names == tuple(f"{prefix}{i + first}" for i in range(len(names)))
+               for prefix in ("c", "ch") for first in (0, 1))
+
+
+def channels_differ(names, expected) -> bool:
+    """Whether two lists of channel names name other channels, or the same in another order;
+    numbered stand-ins on either side say nothing, so they never differ."""
+    names, expected = tuple(names), tuple(expected)
+    return names != expected and not placeholder_names(names) and not placeholder_names(expected)
+
+
 class SourceGone(OSError):
     """The device went away (unplugged, port closed)."""
 

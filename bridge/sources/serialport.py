@@ -21,7 +21,7 @@ import numpy as np
 import serial
 from serial.tools import list_ports
 
-from .base import Block, Source, SourceGone, empty_block
+from .base import Block, Source, SourceGone, channels_differ, empty_block
 from .protocols import StreamDecoder
 from .textline import ProtocolUndecided
 from .timebase import DeviceClock, Resampler
@@ -205,6 +205,13 @@ class SerialSource(Source):
     def _check_channels(self) -> None:
         """A garment whose samples never have the stated channel count is refused, saying so,
         rather than read as a stream of bad lines: usually the model is not this garment's."""
+        header = self.decoder.header_names
+        if header and self._names and channels_differ(header, self._names):
+            same = " (the same names in another order)" if sorted(header) == sorted(self._names) else ""
+            raise ChannelMismatch(
+                f"serial port {self.port}: the garment's header line names its channels {', '.join(header)}, "
+                f"the model's are {', '.join(self._names)}{same}; is the model made for this garment? "
+                "(a model reads channels by position)")
         p = self.decoder.parser
         if p is None or p.stats.good or p.stats.wrong_count < MISMATCH_SAMPLES:
             return
