@@ -230,3 +230,22 @@ def test_a_take_the_model_was_fitted_on_is_named_as_in_sample(small_take, tmp_pa
     assert main(["tune", "--model", str(model), str(small_take), "-o", str(tmp_path / "t.npz"), "--store-anyway"]) == 2
     assert f"{small_take} is one of the takes {model} was fitted on" in capsys.readouterr().err
     assert not (tmp_path / "t.npz").exists()
+
+
+def test_fit_evaluate_and_tune_name_a_take_whose_capture_was_cut_short(small_take, demo_model_file, tmp_path, capsys):
+    """A take a capture left unfinished (its #cut line) is named in a warning by every verb
+    that learns from or scores takes; a complete one is not."""
+    import dataclasses
+
+    from bridge.cli import main
+    from bridge.sources import CutShort, read_recording, write_recording
+    cut = CutShort("SIGINT", "the countdown to prompt 6 of 45 (bow)", (("bow", 5),), 180.0, 180.0)
+    short = write_recording(tmp_path / "short.take", dataclasses.replace(read_recording(small_take), cut_short=cut))
+    for argv in (["fit", str(short), "--classifier", "linear", "-o", str(tmp_path / "m.npz")],
+                 ["evaluate", "--model", str(demo_model_file), str(short)],
+                 ["tune", "--model", str(demo_model_file), str(short), "-o", str(tmp_path / "t.npz")]):
+        main(argv)
+        err = capsys.readouterr().err
+        assert f"{short} is an incomplete take" in err and "SIGINT" in err, (argv, err)
+    main(["evaluate", "--model", str(demo_model_file), str(small_take)])
+    assert "incomplete" not in capsys.readouterr().err

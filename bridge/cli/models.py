@@ -16,8 +16,10 @@ def _progress(desc: str):
 
 
 def _read_takes(paths):
-    from ..sources import read_recording
+    """The takes (fit, evaluate), each one whose capture was cut short named in a warning."""
+    from ..sources import read_recording, warn_incomplete
     recs = [read_recording(p) for p in paths]
+    warn_incomplete(paths, recs)
     kinds = {}
     for r in recs:
         kinds.update(r.kinds)
@@ -310,6 +312,8 @@ def cmd_tune(a) -> int:
         return _err(f"{', '.join(fitted)} {'is one' if len(fitted) == 1 else 'are'} of the takes {a.model} was "
                     f"fitted on: settings chosen on {'it' if len(fitted) == 1 else 'them'} and their figures would "
                     "be in-sample; tune on takes the model was not fitted on. Nothing stored")
+    from ..sources import warn_incomplete
+    warn_incomplete(a.recordings, recs)
     hours = sum(r.freq_hz.shape[0] / r.rate_hz for r in recs) / 3600
     print(f"replaying {_plural(len(recs), 'take')} ({hours * 60:.1f} min, "
           f"{sum(len(r.intervals) for r in recs)} labelled) ...", flush=True)
