@@ -249,3 +249,12 @@ def test_fit_evaluate_and_tune_name_a_take_whose_capture_was_cut_short(small_tak
         assert f"{short} is an incomplete take" in err and "SIGINT" in err, (argv, err)
     main(["evaluate", "--model", str(demo_model_file), str(small_take)])
     assert "incomplete" not in capsys.readouterr().err
+
+
+def test_fit_says_its_held_out_figure_also_chose_the_penalty(small_take, tmp_path, capsys):
+    """The ridge penalty is picked on the same grouped folds that give the printed accuracy:
+    the line says so instead of passing the figure off as untouched."""
+    from bridge.cli import main
+    assert main(["fit", str(small_take), "--classifier", "linear", "-o", str(tmp_path / "m.npz")]) == 0
+    line = next(l for l in capsys.readouterr().out.splitlines() if l.startswith(str(tmp_path / "m.npz")))
+    assert "accuracy" in line and "(its ridge penalty chosen on the same folds: a little optimistic)" in line, line

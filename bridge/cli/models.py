@@ -141,7 +141,10 @@ def cmd_fit(a) -> int:
     s = model.summary
     key = next((k for k in ("cross_validated_window_accuracy", "held_out_accuracy", "leave_one_out_accuracy") if k in s), None)
     estimate = f"{key.replace('_', ' ')} {s[key]:.3f}" if key else "no held-out estimate (one take)"
-    cal = f", calibration error {s['calibration_error']:.3f}" if "calibration_error" in s else ""
+    if key and a.classifier in ("minirocket", "linear"):   # the penalty was picked on these very folds: say so
+        estimate += " (its ridge penalty chosen on the same folds: a little optimistic)"
+    cal = (f", calibration error {s['calibration_error']:.3f} (on the scores its temperature was fitted to)"
+           if "calibration_error" in s else "")
     print(f"{a.output}: {a.classifier}, {len(model.classes) - 1} classes from {source}; {estimate}{cal}")
     if len(model.classes) == 2:
         print(f"only one gesture in these takes ({model.classes[1]}): the model can fire nothing else; "
