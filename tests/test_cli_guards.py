@@ -72,8 +72,10 @@ def test_tune_keeps_another_existing_model_unless_told(small_take, tmp_path, cap
     assert main(["fit", str(small_take), "-o", str(model), "--classifier", "linear"]) == 0
     assert main(["fit", str(small_take), "-o", str(other), "--classifier", "linear"]) == 0
     kept = other.read_bytes()
+    held = tmp_path / "held.take"   # tune refuses a take the model was fitted on
+    assert main(["simulate", "--repetitions", "1", "--session", "1", "--out", str(held)]) == 0
     capsys.readouterr()
-    tune = ["tune", "--model", str(model), str(small_take), "--store-anyway"]
+    tune = ["tune", "--model", str(model), str(held), "--store-anyway"]
     assert main([*tune, "-o", str(other)]) == 2
     err = capsys.readouterr().err
     assert f"{other} exists" in err and "--overwrite" in err
@@ -258,3 +260,25 @@ def test_fit_says_its_held_out_figure_also_chose_the_penalty(small_take, tmp_pat
     assert main(["fit", str(small_take), "--classifier", "linear", "-o", str(tmp_path / "m.npz")]) == 0
     line = next(l for l in capsys.readouterr().out.splitlines() if l.startswith(str(tmp_path / "m.npz")))
     assert "accuracy" in line and "(its ridge penalty chosen on the same folds: a little optimistic)" in line, line
+
+
+def test_a_take_given_as_a_model_or_with_ts_is_named_for_what_it_is(small_take, tmp_path, capsys):
+    """The two mix-ups of a take: where a model belongs, and read as a .ts case file."""
+    from bridge.cli import main
+    assert main(["evaluate", "--model", str(small_take), str(small_take)]) == 2
+    assert "a take, not a model: give the .npz that drape fit wrote" in capsys.readouterr().err
+    assert main(["fit", "--ts", str(small_take), "-o", str(tmp_path / "m.npz")]) == 2
+    assert "a drape take, not a UCR/UEA .ts case file: leave out --ts" in capsys.readouterr().err
+
+
+def test_replay_shows_each_message_in_the_words_of_the_trade():
+    from bridge.cli.data import _show
+    from bridge.mapping.messages import (Arm, KeyAction, LightLevels, MidiControl, MidiNote, MidiProgram, OscMessage,
+                                         Release)
+    assert _show(KeyAction(("ctrl", "s"))) == "keys ctrl+s (tap)"
+    assert _show(MidiNote(1, 60, 90)) == "note on 60 velocity 90, channel 1"
+    assert _show(MidiControl(2, 7, 100)) == "CC 7 value 100, channel 2"
+    assert _show(MidiProgram(1, 5)) == "program 5, channel 1"
+    assert _show(LightLevels(1, {5: 255, 6: 0}, 1.5)) == "universe 1 slots {5: 255, 6: 0} over 1.5 s"
+    assert _show(OscMessage("/go", (1, 0.123456))) == "/go 1 0.1235"
+    assert _show(Release()) == "let go of everything held" and _show(Arm()) == "keys armed"

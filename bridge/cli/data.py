@@ -241,10 +241,28 @@ def _offset(dt_s: float, kind: str) -> str:
 
 
 def _show(message) -> str:
-    """One line for a message value, numbers rounded for reading."""
-    from ..mapping.messages import OscMessage
-    if isinstance(message, OscMessage):
+    """One line for a message value, in the words of the trade, numbers rounded for reading."""
+    from ..mapping import messages as mm
+    if isinstance(message, mm.OscMessage):
         return f"{message.address} {' '.join(f'{v:.4g}' if isinstance(v, float) else str(v) for v in message.args)}"
+    if isinstance(message, mm.OscBundle):
+        return "bundle: " + "; ".join(_show(m) for m in message.messages)
+    if isinstance(message, mm.KeyAction):
+        return f"keys {'+'.join(message.keys)} ({message.action})"
+    if isinstance(message, mm.MidiNote):
+        return (f"note {'on' if message.on else 'off'} {message.note} velocity {message.velocity}, "
+                f"channel {message.channel}")
+    if isinstance(message, mm.MidiControl):
+        return f"CC {message.controller} value {message.value}, channel {message.channel}"
+    if isinstance(message, mm.MidiProgram):
+        return f"program {message.program}, channel {message.channel}"
+    if isinstance(message, mm.LightLevels):
+        levels = ", ".join(f"{slot}: {level}" for slot, level in sorted(message.levels.items()))
+        return f"universe {message.universe} slots {{{levels}}}" + (f" over {message.fade_s:g} s" if message.fade_s else "")
+    if isinstance(message, mm.Release):
+        return "let go of everything held" + (" and disarm keys" if message.disarm else "")
+    if isinstance(message, mm.Arm):
+        return "keys armed"
     return repr(message)
 
 

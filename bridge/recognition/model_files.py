@@ -45,6 +45,13 @@ class _Archive:
             self.zip = zipfile.ZipFile(path)
             self.names = {n[:-4]: n for n in self.zip.namelist() if n.endswith(".npy")}
         except _UNREADABLE as exc:
+            try:
+                with open(path, "rb") as f:
+                    take = f.read(11) == b"#drape-take"
+            except OSError:
+                take = False
+            if take:   # the commonest mix-up: a take where its model belongs
+                raise ModelError(f"{path}: a take, not a model: give the .npz that drape fit wrote") from None
             raise ModelError(f"{path}: not a drape model file ({exc})") from None
 
     def header(self, name: str) -> tuple[tuple[int, ...], np.dtype]:

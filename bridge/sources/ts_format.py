@@ -78,6 +78,8 @@ def read_ts(path: str | Path, missing: str = "refuse") -> tuple[list[np.ndarray]
     except (OSError, UnicodeDecodeError) as exc:
         raise TsFormatError(f"{path}: cannot read ({exc})") from None
 
+    if text.startswith("#drape-take"):
+        raise TsFormatError(f"{path}: a drape take, not a UCR/UEA .ts case file: leave out --ts")
     meta: dict = {"problem_name": "", "univariate": None, "dimensions": None, "equal_length": None,
                   "series_length": None, "class_labels": None, "missing": None, "timestamps": False,
                   "comments": []}
