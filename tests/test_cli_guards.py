@@ -282,3 +282,23 @@ def test_replay_shows_each_message_in_the_words_of_the_trade():
     assert _show(LightLevels(1, {5: 255, 6: 0}, 1.5)) == "universe 1 slots {5: 255, 6: 0} over 1.5 s"
     assert _show(OscMessage("/go", (1, 0.123456))) == "/go 1 0.1235"
     assert _show(Release()) == "let go of everything held" and _show(Arm()) == "keys armed"
+
+
+def test_the_fit_bar_reaches_its_end_only_when_the_fit_is_done(small_take, tmp_path, monkeypatch):
+    """Cutting takes into windows is quick and the fit after it slow: the bar keeps a step
+    for the fit, so it never stands at 100 % while the longest part runs."""
+    from bridge.cli import main, models
+    calls, fitted = [], []
+    import bridge.recognition as recognition
+    real = recognition.fit_recordings
+
+    def watched(*args, **kwargs):
+        out = real(*args, **kwargs)
+        fitted.append(len(calls))   # how many bar updates had been drawn when the fit returned
+        return out
+    monkeypatch.setattr(recognition, "fit_recordings", watched)
+    monkeypatch.setattr(models, "_progress", lambda desc: (lambda done, total: calls.append((done, total)), lambda: None))
+    assert main(["fit", str(small_take), "--classifier", "linear", "-o", str(tmp_path / "m.npz")]) == 0
+    before = calls[:fitted[0]]
+    assert before and all(done < total for done, total in before), before
+    assert calls[-1][0] == calls[-1][1], calls

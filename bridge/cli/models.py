@@ -111,6 +111,14 @@ def cmd_fit(a) -> int:
             options["reject"] = False
     ordinary = []
     step, close = _progress(f"fitting {a.classifier}")
+    seen = []   # takes cut into windows so far, of how many
+
+    def cutting(done: int, total: int) -> None:
+        """Cutting each take into windows is a step; the fit after them is one more, so the
+        bar never shows 100 % while the longest part is still running."""
+        seen[:] = [total]
+        if step:
+            step(done, total + 1)
     try:
         if a.ts:
             X_list, y, meta = _read_ts_cases(a.ts)
@@ -129,7 +137,9 @@ def cmd_fit(a) -> int:
                 options["ordinary"] = ordinary = _read_takes(a.ordinary)[0]
             else:
                 options.update(_simulated_others(a, recs))
-            model = fit_recordings(a.classifier, recs, kinds, settings, progress=step, **options)
+            model = fit_recordings(a.classifier, recs, kinds, settings, progress=cutting, **options)
+            if step and seen:
+                step(seen[-1] + 1, seen[-1] + 1)   # the fit itself, the longest step, is done
             source = _plural(len(recs), "take")
     except (RecordingError, TsFormatError, ValueError) as exc:
         close()
