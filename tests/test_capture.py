@@ -255,6 +255,10 @@ def test_a_check_in_take_is_short_named_apart_and_sits_as_the_dressing_does(tmp_
                  "--wearer", "dancer", "--session", "day1", "--countdown-s", "1", "--rest-s", "1", "--ordinary-s", "5"])
     assert code == 0 and "5 labelled" in capsys.readouterr().out
     assert made[1].take_id is None and (tmp_path / "dancer-day1.take").exists()
+    # the header says which take is the check-in (the fit's dressing advice is then not given)
+    assert rec.check_in and not read_recording(tmp_path / "dancer-day1.take").check_in
+    assert '"check_in": true' in (tmp_path / "dancer-show-checkin.take").read_text().splitlines()[1]
+    assert "check_in" not in (tmp_path / "dancer-day1.take").read_text().splitlines()[1]
 
 
 def test_finishing_early_marks_the_take_with_where_and_what_is_missing(tmp_path):

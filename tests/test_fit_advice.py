@@ -22,3 +22,16 @@ def test_fit_advises_a_check_in_only_for_two_sessions_or_fewer(tmp_path, capsys)
     assert "takes from 2 sessions" in out and "drape capture --check-in" in out
     assert main(["fit", *map(str, takes), "-o", str(model), "--classifier", "linear", "--overwrite"]) == 0
     assert "check-in" not in capsys.readouterr().out
+
+
+def test_fit_gives_no_check_in_advice_when_a_check_in_is_among_the_takes(tmp_path, capsys):
+    import dataclasses
+
+    from bridge.sources import write_recording
+    takes = [_take(tmp_path, s) for s in (0, 1)]
+    checkin = write_recording(tmp_path / "w0-show-checkin.take",
+                              dataclasses.replace(read_recording(takes[1]), session="show", check_in=True))
+    capsys.readouterr()
+    assert main(["fit", str(takes[0]), str(checkin), "-o", str(tmp_path / "m.npz"), "--classifier", "linear"]) == 0
+    assert "check-in" not in capsys.readouterr().out
+

@@ -105,7 +105,8 @@ def cmd_capture(a) -> int:
         plan = capture_plan(rng, gestures, a.reps)
         settings = CaptureSettings(a.reps, a.countdown_s, a.window_s, a.hold_s, (a.rest_s, a.rest_s * 2), a.lead_s,
                                    a.ordinary_s)
-        writer = RecordingWriter(out, source.rate_hz, source.channel_names, wearer, session, layout, kinds)
+        writer = RecordingWriter(out, source.rate_hz, source.channel_names, wearer, session, layout, kinds,
+                                 check_in=a.check_in)
     except (SourceGone, ProtocolUndecided, TakeWriteError) as exc:
         source.close()
         return _err(str(exc))

@@ -177,8 +177,9 @@ def cmd_fit(a) -> int:
 
 
 def _dressing_advice(recs) -> str:
-    """A line for one wearer's takes from two sessions or fewer (each put on anew), else ''."""
-    if len({r.wearer for r in recs}) != 1:
+    """A line for one wearer's takes from two sessions or fewer (each put on anew), else ''
+    (also when one of them is a check-in: the advice is to record one)."""
+    if len({r.wearer for r in recs}) != 1 or any(r.check_in for r in recs):
         return ""
     sessions = {r.session or f"take {i}" for i, r in enumerate(recs)}
     if len(sessions) > 2:

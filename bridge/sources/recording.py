@@ -91,6 +91,7 @@ class Recording:
     layout: str = ""
     kinds: dict = field(default_factory=dict)
     cut_short: CutShort | None = None   # set when its capture stopped before the end
+    check_in: bool = False              # a short take recorded after dressing for a show (capture --check-in)
 
     @classmethod
     def from_take(cls, take, kinds: dict | None = None, layout: str = "default") -> "Recording":
@@ -130,7 +131,7 @@ class RecordingWriter:
     MAX_PENDING = 1 << 16  # bytes gathered before writing even within flush_s
 
     def __init__(self, path: str | Path, rate_hz: float, channel_names, wearer: str = "", session: str = "",
-                 layout: str = "", kinds: dict | None = None, flush_s: float = 1.0):
+                 layout: str = "", kinds: dict | None = None, flush_s: float = 1.0, check_in: bool = False):
         self.path = Path(path)
         self.fh = open(self.path, "wb", buffering=0)
         self.flush_s = flush_s
@@ -141,6 +142,8 @@ class RecordingWriter:
         self._last_flush = time.monotonic()
         meta = {"rate_hz": rate_hz, "channels": list(channel_names), "wearer": wearer, "session": session,
                 "layout": layout, "kinds": kinds or {}}
+        if check_in:   # named only when set: every other take's header stays as it was
+            meta["check_in"] = True
         self._add(f"{MAGIC}\n#meta {json.dumps(meta)}\n" + ",".join(["t_s", *channel_names]) + "\n")
         self.flush()
 
@@ -222,7 +225,8 @@ class RecordingWriter:
 
 
 def write_recording(path: str | Path, rec: Recording) -> Path:
-    with RecordingWriter(path, rec.rate_hz, rec.channel_names, rec.wearer, rec.session, rec.layout, rec.kinds) as w:
+    with RecordingWriter(path, rec.rate_hz, rec.channel_names, rec.wearer, rec.session, rec.layout, rec.kinds,
+                         check_in=rec.check_in) as w:
         w.samples(rec.t_s, rec.freq_hz)
         for iv in rec.intervals:
             w.label(iv.start_s, iv.end_s, iv.label)
@@ -336,4 +340,5 @@ def read_recording(path: str | Path) -> Recording:
         raise RecordingError(f"{path}: no #meta line")
     arr = np.array(rows, dtype=float).reshape(-1, n_cols)
     return Recording(rate, channels, arr[:, 0], arr[:, 1:], tuple(labels), str(meta.get("wearer", "")),
-                     str(meta.get("session", "")), str(meta.get("layout", "")), dict(meta.get("kinds", {})), cut)
+                     str(meta.get("session", "")), str(meta.get("layout", "")), dict(meta.get("kinds", {})), cut,
+                     meta.get("check_in") is True)
