@@ -28,6 +28,10 @@ def test_truncated_last_line_is_dropped(tmp_path):
     path.write_text(text[: text.rindex("2.99") + 9])  # cut inside the last sample row
     back = read_recording(path)
     assert back.freq_hz.shape == (299, 2)
+    # and said: labels come last in a simulated take, so a cut file can look like ordinary movement alone
+    from bridge.sources import describe_incomplete
+    assert read_recording(write_recording(tmp_path / "b.take", sample_recording())).cut_short is None
+    assert describe_incomplete(back, path).startswith(f"{path} ends mid-line: the file was cut off")
 
 
 def test_writer_flushes_while_open(tmp_path):

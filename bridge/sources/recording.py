@@ -43,6 +43,9 @@ class Label:
     label: str
 
 
+ENDS_MID_LINE = "the file ends mid-line"   # a CutShort reason: cut off outside any capture
+
+
 @dataclass(frozen=True)
 class CutShort:
     """A capture stopped before its end (a ``#cut`` line): why, where, and what is not in the take."""
@@ -241,6 +244,9 @@ def describe_incomplete(rec: Recording, path) -> str:
     c = rec.cut_short
     if c is None:
         return ""
+    if c.reason == ENDS_MID_LINE:   # a file cut off (crash, full disk, interrupted copy), not a capture stopped
+        return (f"{path} ends mid-line: the file was cut off (a crash, a full disk or an interrupted copy); its "
+                "samples up to there are read, and any labels written after them are lost; copy it again if you can")
     lacks = []
     if c.prompts_left:
         lacks.append("few examples of some gestures")
@@ -266,7 +272,9 @@ def warn_incomplete(paths, recs, stream=None) -> int:
 
 
 def read_recording(path: str | Path) -> Recording:
-    """Read a take file; a truncated last line (crash while writing, disk full) is dropped, not an error."""
+    """Read a take file; a truncated last line (crash while writing, disk full, a copy cut
+    short) is dropped, not an error, and the take is marked cut short (``ENDS_MID_LINE``) so
+    that the verbs reading it say so."""
     path = Path(path)
     try:
         lines = path.read_text(encoding="utf-8").split("\n")
@@ -338,6 +346,8 @@ def read_recording(path: str | Path) -> Recording:
         rows.append(row)
     if meta is None:
         raise RecordingError(f"{path}: no #meta line")
+    if lines[-1].strip() and cut is None:   # drape writes whole lines only: something else cut this file
+        cut = CutShort(ENDS_MID_LINE, "its last line")
     arr = np.array(rows, dtype=float).reshape(-1, n_cols)
     return Recording(rate, channels, arr[:, 0], arr[:, 1:], tuple(labels), str(meta.get("wearer", "")),
                      str(meta.get("session", "")), str(meta.get("layout", "")), dict(meta.get("kinds", {})), cut,
