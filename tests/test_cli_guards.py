@@ -302,3 +302,13 @@ def test_the_fit_bar_reaches_its_end_only_when_the_fit_is_done(small_take, tmp_p
     before = calls[:fitted[0]]
     assert before and all(done < total for done, total in before), before
     assert calls[-1][0] == calls[-1][1], calls
+
+
+def test_a_class_with_no_windows_is_not_scored_zero(capsys):
+    from bridge.cli.models import _print_result
+    from bridge.evaluation.heldout import classification_scores
+    result = classification_scores([0, 0, 1, 1], [0, 2, 1, 1], ("null", "bow", "clap"))
+    _print_result(result)
+    out = capsys.readouterr().out
+    assert "clap             no windows of it in these takes (taken for it once)" in out, out
+    assert "bow              precision 1.000  recall 1.000" in out, out

@@ -198,7 +198,12 @@ def _json_ready(result: dict) -> dict:
 def _print_result(result: dict) -> None:
     cal = f", calibration error {result['calibration_error']:.3f}" if "calibration_error" in result else ""
     print(f"accuracy {result['accuracy']:.3f}, macro F1 {result['macro_f1']:.3f}{cal} over {result['windows']} windows")
+    conf = result.get("confusion") or []
+    predicted = dict(zip(result.get("classes", ()), (sum(col) for col in zip(*conf))))
     for c, v in result["per_class"].items():
+        if not v["support"]:   # nothing to recall: its 0.000s would be made up
+            print(f"  {c:<16} no windows of it in these takes (taken for it {_times(predicted.get(c, 0))})")
+            continue
         print(f"  {c:<16} precision {v['precision']:.3f}  recall {v['recall']:.3f}  F1 {v['f1']:.3f}  ({v['support']})")
     for f in result.get("folds", []):
         rec = "n/a" if f.get("recall") is None else f"{f['recall']:.3f}"
