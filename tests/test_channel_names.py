@@ -6,17 +6,13 @@ import pytest
 
 from bridge.cli import main
 from bridge.sources import Recording, read_recording, write_recording
+from tests.conftest import linear_on_a_take
 
 
 @pytest.fixture(scope="module")
 def fitted(tmp_path_factory):
     """(a take, the linear model fitted on it, a second take of the same jacket)."""
-    d = tmp_path_factory.mktemp("names")
-    take, other, model = d / "a.take", d / "b.take", d / "m.npz"
-    assert main(["simulate", "--repetitions", "1", "--out", str(take)]) == 0
-    assert main(["simulate", "--repetitions", "1", "--seed", "5", "--out", str(other)]) == 0
-    assert main(["fit", str(take), "-o", str(model), "--classifier", "linear"]) == 0
-    return take, model, other
+    return linear_on_a_take(tmp_path_factory.mktemp("names"))
 
 
 def _rewritten(src, dst, order=None, names=None):

@@ -133,10 +133,9 @@ def test_single_switch_confirms_once_per_hold():
     assert m.safety.start_armed  # as its comments say: a carer disarms over the control port
 
 
-def test_once_after_s_beside_a_faster_repeat_and_while_disarmed():
-    from bridge.mapping import Router
-
-    m = parse_mapping(GOOD + """
+def _often_and(timing: str, address: str):
+    """GOOD with two held rules on arms_crossed: one every 0.5 s to /often, one with ``timing`` to ``address``."""
+    return parse_mapping(GOOD + f"""
 [[rule]]
 gesture = "arms_crossed"
 on = "held"
@@ -147,10 +146,16 @@ address = "/often"
 [[rule]]
 gesture = "arms_crossed"
 on = "held"
-once_after_s = 1.2
+{timing}
 to = "desk"
-address = "/once"
+address = "{address}"
 """, "show.toml", CLASSES, KINDS)
+
+
+def test_once_after_s_beside_a_faster_repeat_and_while_disarmed():
+    from bridge.mapping import Router
+
+    m = _often_and("once_after_s = 1.2", "/once")
     assert m.held_every_s() == {"arms_crossed": 0.5}
     r = Router(m)
 
@@ -178,21 +183,7 @@ def test_each_repeating_held_rule_keeps_its_own_every_s():
     and the 2 s rule fires once per 2 s of the hold, not at every held event."""
     from bridge.mapping import Router
 
-    m = parse_mapping(GOOD + """
-[[rule]]
-gesture = "arms_crossed"
-on = "held"
-every_s = 0.5
-to = "desk"
-address = "/often"
-
-[[rule]]
-gesture = "arms_crossed"
-on = "held"
-every_s = 2.0
-to = "desk"
-address = "/slow"
-""", "show.toml", CLASSES, KINDS)
+    m = _often_and("every_s = 2.0", "/slow")
     assert m.held_every_s() == {"arms_crossed": 0.5}
     r = Router(m)
     out = r.route([Event(0.0, "arms_crossed", "entered", 0.9)])

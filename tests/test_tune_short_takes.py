@@ -10,6 +10,7 @@ from bridge.evaluation.matching import hours_to_show
 from bridge.evaluation.tuning import no_looser, tune_model
 from bridge.recognition import load_model
 from bridge.sources import read_recording
+from tests.conftest import linear_on_a_take
 
 
 def _settings(model, decision=None):
@@ -20,11 +21,7 @@ def _settings(model, decision=None):
 @pytest.fixture(scope="module")
 def short(tmp_path_factory):
     """(model fitted on one take, a held take of about 2 minutes of another session)."""
-    d = tmp_path_factory.mktemp("short")
-    fit, held, model = d / "fit.take", d / "held.take", d / "m.npz"
-    assert main(["simulate", "--repetitions", "2", "--out", str(fit)]) == 0
-    assert main(["simulate", "--repetitions", "2", "--seed", "5", "--out", str(held)]) == 0
-    assert main(["fit", str(fit), "-o", str(model), "--classifier", "linear"]) == 0
+    _, model, held = linear_on_a_take(tmp_path_factory.mktemp("short"), repetitions=2)
     return model, held
 
 
