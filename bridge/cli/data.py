@@ -416,16 +416,16 @@ def cmd_check(a) -> int:
         f"panic gesture {sf.panic_gesture}" if sf.panic_gesture else "panic by control message or SIGUSR1 only"])))
     if mapping.status:
         print(f"status: {mapping.status.to} {mapping.status.address}")
-    print(f"  {'line':<5} {'layer':<8} {'gesture':<16} {'on':<16} {'to':<10} does")
+    print(f"  {'line':<5} {'layer':<8} {'gesture':<16} {'on':<18} {'to':<10} does")
     for r in mapping.rules:
         when = (r.on if r.on != "held" else f"held once at {r.once_after_s:g} s" if r.once_after_s
                 else f"held every {r.every_s:g} s")
-        print(f"  {r.line:<5} {r.layer or '*':<8} {r.gesture:<16} {when:<16} {r.to or '-':<10} {r.action.describe()}")
+        print(f"  {r.line:<5} {r.layer or '*':<8} {r.gesture:<16} {when:<18} {r.to or '-':<10} {r.action.describe()}")
     for c in mapping.controls:
         mix = " + ".join(f"{w:g}·{ch}" for ch, w in c.mix)
         rng = "range file" if c.range_file is not None else f"relaxed {c.relaxed:g} .. closest {c.closest:g}"
         while_ = f", only while {c.only_while}" if c.only_while else ""
-        print(f"  {c.line:<5} {c.layer or '*':<8} {c.name:<16} {'control':<16} {c.to:<10} {c.action.describe()} "
+        print(f"  {c.line:<5} {c.layer or '*':<8} {c.name:<16} {'control':<18} {c.to:<10} {c.action.describe()} "
               f"from {mix} ({rng}{while_}); at most {c.max_rate_hz:g}/s, steps ≥ {c.min_change:g}; "
               f"one-euro min_cutoff {c.filter.min_cutoff_hz:g} Hz beta {c.filter.beta:g}")
     return 0
