@@ -44,7 +44,7 @@ from . import status as st
 from .control import DONE, PARTLY, REFUSED, printable
 from .outputwatch import OutputWatch
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
-from .runner import StopFlag, keys_only_for_local_input, reconcile_outputs
+from .runner import StopFlag, keys_only_for_local_input, no_rebaseline, reconcile_outputs
 
 log = logging.getLogger("drape")
 
@@ -660,9 +660,7 @@ class Service:
             elif cmd == "rebaseline":
                 why = self.no_data(g)
                 if why:   # nobody to hold still for: state, note and the arrival message stay as they are
-                    later = ("it calibrates when its data comes" if g.pipeline.holding
-                             else "not re-baselined; ask again once its data flows")
-                    refused.append(f"{g.name}: no data ({why}); {later}")
+                    refused.append(no_rebaseline(g.name, why, g.pipeline.holding))
                     missed.append(g.name)
                 else:
                     self.begin_hold(g, "hold still: re-baselining")

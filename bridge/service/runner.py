@@ -108,6 +108,13 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print, warn=None)
     return left_out
 
 
+def no_rebaseline(name: str, why: str, holding: bool) -> str:
+    """A rebaseline's refusal for a garment whose data does not flow (``why``): nobody is
+    there to hold still, and a garment still calibrating does so once its data comes."""
+    later = "it calibrates when its data comes" if holding else "not re-baselined; ask again once its data flows"
+    return f"{name}: no data ({why}); {later}"
+
+
 def tell_holds(pipeline: Pipeline, told: int, report, answered=frozenset()) -> int:
     """Report the pipeline's hold-still captures begun since ``told``, except those whose
     index is in ``answered`` (a rebaseline command's answer said it already); returns how
@@ -211,9 +218,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             if getattr(pipeline, "settle", None) is None:
                 return False, f"{name} does not calibrate here (no hold-still capture in this loop)"
             if reported is not None and reported[0] == NO_DATA:   # nobody to hold still for
-                later = ("it calibrates when its data comes" if pipeline.holding
-                         else "not re-baselined; ask again once its data flows")
-                return False, f"{name}: no data ({reported[1]}); {later}"
+                return False, no_rebaseline(name, reported[1], pipeline.holding)
             deliver(pipeline.rebaseline(), clock())
             # The answer names the garment and the hold's length: the capture is not told again
             # when its first samples come in.
