@@ -312,3 +312,82 @@ def test_a_class_with_no_windows_is_not_scored_zero(capsys):
     out = capsys.readouterr().out
     assert "clap             no windows of it in these takes (taken for it once)" in out, out
     assert "bow              precision 1.000  recall 1.000" in out, out
+
+
+class _Reached(Exception):
+    """Raised by a stand-in for a verb's long work: the verb got past its output check."""
+
+
+def _stand_in(*_a, **_k):
+    raise _Reached
+
+
+def test_bench_spotting_keeps_an_existing_json_unless_told(tmp_path, monkeypatch, capsys):
+    import bridge.evaluation.spotting as spotting
+    monkeypatch.setattr(spotting, "run_protocol", _stand_in)   # the protocol runs for tens of minutes
+    kept = tmp_path / "last.json"
+    kept.write_text('{"last": "run"}', encoding="utf-8")
+    bench = ["bench", "--spotting", "--spotting-cache", str(tmp_path / "cache"), "--spotting-json", str(kept)]
+    assert main(bench) == 2   # refused before the protocol starts, not after it
+    err = capsys.readouterr().err
+    assert f"{kept} exists" in err and "--spotting-json" in err and "--overwrite" in err
+    assert kept.read_text(encoding="utf-8") == '{"last": "run"}'
+    with pytest.raises(_Reached):
+        main([*bench, "--overwrite"])
+
+
+def test_bench_soak_keeps_an_earlier_runs_files_unless_told(tmp_path, monkeypatch, capsys):
+    import bridge.evaluation.soak as soak
+    monkeypatch.setattr(soak, "soak", _stand_in)
+    out = tmp_path / "soak"
+    out.mkdir()
+    (out / "soak-take.csv").write_text("an earlier soak's take", encoding="utf-8")
+    bench = ["bench", "--soak", "0.01", "--soak-out", str(out)]
+    assert main(bench) == 2
+    err = capsys.readouterr().err
+    assert "soak-take.csv" in err and "--soak-out" in err and "--overwrite" in err
+    assert (out / "soak-take.csv").read_text(encoding="utf-8") == "an earlier soak's take"
+    with pytest.raises(_Reached):
+        main([*bench, "--overwrite"])
+    with pytest.raises(_Reached):   # a folder not made yet is still made and written
+        main(["bench", "--soak", "0.01", "--soak-out", str(tmp_path / "new")])
+
+
+def test_bench_fuzz_keeps_an_earlier_runs_crash_files_unless_told(tmp_path, monkeypatch, capsys):
+    import bridge.evaluation.fuzz as fuzz
+    monkeypatch.setattr(fuzz, "fuzz", _stand_in)
+    crashes = tmp_path / "crashes"
+    crashes.mkdir()
+    (crashes / "text-ValueError.bin").write_bytes(b"an earlier run's input")
+    bench = ["bench", "--fuzz", "10", "--fuzz-crashes", str(crashes)]
+    assert main([*bench, "--fuzz-target", "text"]) == 2
+    err = capsys.readouterr().err
+    assert "text-ValueError.bin" in err and "--fuzz-crashes" in err and "--overwrite" in err
+    assert (crashes / "text-ValueError.bin").read_bytes() == b"an earlier run's input"
+    with pytest.raises(_Reached):   # another target's run writes no file of the text parser's
+        main([*bench, "--fuzz-target", "osc"])
+    with pytest.raises(_Reached):
+        main([*bench, "--fuzz-target", "text", "--overwrite"])
+
+
+def test_start_keeps_an_existing_timings_file_unless_told(tmp_path, monkeypatch, capsys):
+    import bridge.service.config as config
+    monkeypatch.setattr(config, "load_service", _stand_in)   # nothing opens before the check
+    cfg = tmp_path / "show.toml"
+    cfg.write_text('[[garment]]\nname = "jacket"\n', encoding="utf-8")
+    kept = tmp_path / "t.npz"
+    kept.write_bytes(b"last night's timings")
+    start = ["start", "--config", str(cfg), "--timings", str(kept)]
+    assert main(start) == 2
+    err = capsys.readouterr().err
+    assert f"{kept} exists" in err and "--timings" in err and "--overwrite" in err
+    assert kept.read_bytes() == b"last night's timings"
+    with pytest.raises(_Reached):
+        main([*start, "--overwrite"])
+
+
+def test_timings_are_written_to_the_file_named(tmp_path):
+    from bridge.service.daemon import DeliveryTimes
+    named = tmp_path / "timings"   # no .npz: the checked name is the written one
+    DeliveryTimes().save(named)
+    assert named.is_file() and not (tmp_path / "timings.npz").exists()

@@ -49,21 +49,22 @@ def _output_problem(path, inputs=(), model: bool = False, replace: bool = True, 
     return ""
 
 
-def _folder_problem(folder, names, replace: bool = False) -> str:
+def _folder_problem(folder, names, replace: bool = False, option: str = "--out") -> str:
     """Why the files ``names`` cannot be written into ``folder`` ("" when they can), checked
     before any is written: a file where the folder should be, or, without ``replace``, any of
-    them already there (a run written over another is lost, or mixed with it)."""
+    them already there (a run written over another is lost, or mixed with it); ``option`` is
+    the verb's folder option, named in the message."""
     from pathlib import Path
     folder = Path(folder)
     if folder.exists() and not folder.is_dir():
-        return f"{folder} is a file; --out names a folder here"
+        return f"{folder} is a file; {option} names a folder here"
     there = [folder / n for n in names if (folder / n).exists()]
     if not there or replace:
         return ""
     shown = ", ".join(str(p) for p in there[:3]) + (f" and {len(there) - 3} more" if len(there) > 3 else "")
     verb = "exists" if len(there) == 1 else "exist"
     return (f"{_plural(len(there), 'file')} this would write {verb} already: {shown}; "
-            "choose another --out or pass --overwrite")
+            f"choose another {option} or pass --overwrite")
 
 
 def _stop_on_signals(flag, reload: bool = False):

@@ -7,7 +7,7 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _plural, _report, _stop_on_signals
+from .common import _err, _output_problem, _plural, _report, _stop_on_signals
 
 
 def _line(text: str) -> None:
@@ -222,6 +222,10 @@ def cmd_serve(a) -> int:
     from ..service.daemon import DeliveryTimes, Service
     from ..service.runner import StopFlag
 
+    if getattr(a, "timings", None):   # asked before any garment opens, not when the show is over
+        problem = _output_problem(a.timings, replace=getattr(a, "overwrite", False), option="--timings")
+        if problem:
+            return _err(problem)
     logging.basicConfig(level=getattr(logging, a.log_level.upper()), stream=sys.stderr,
                         format="%(asctime)s %(levelname)s %(message)s")
     log = logging.getLogger("drape")

@@ -73,7 +73,9 @@ def build_parser() -> argparse.ArgumentParser:
                    help="with [[garment]] configs: how much to log to stderr")
     s.add_argument("--timings", metavar="FILE.npz",
                    help="with [[garment]] configs: keep each delivery's sample arrival and send times, written "
-                        "to FILE.npz when the daemon stops (what `drape bench --live` reads)")
+                        "to FILE.npz when the daemon stops (what `drape bench --live` reads); an existing "
+                        "file is kept unless --overwrite")
+    s.add_argument("--overwrite", action="store_true", help="replace an existing --timings file")
     s.set_defaults(func=cmd_start)
     w = sub.add_parser("watch", help=VERBS["watch"], description=VERBS["watch"] +
                        ". Add this address to the daemon's [status] to = [...] list.")
@@ -206,6 +208,9 @@ def build_parser() -> argparse.ArgumentParser:
     b.add_argument("--fuzz-seed", type=_NON_NEGATIVE_INT, default=1, help="--fuzz: mutator seed (same seed, same inputs)")
     b.add_argument("--fuzz-crashes", metavar="DIR", help="--fuzz: save the first input of each crash kind here")
     b.add_argument("--fuzz-limit-s", type=_POSITIVE, metavar="S", help="--fuzz: stop each target after S seconds")
+    b.add_argument("--overwrite", action="store_true",
+                   help="replace an existing --spotting-json file, the files of an earlier --soak-out run or the "
+                        "crash files an earlier --fuzz-crashes run left for the same targets")
     b.set_defaults(func=cmd_bench)
     r = sub.add_parser("replay", help=VERBS["replay"], description=VERBS["replay"])
     r.add_argument("recording", metavar="TAKE")

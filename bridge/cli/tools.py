@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
-from .common import _err
+from .common import _err, _folder_problem, _output_problem
 
 
 def cmd_bench(a) -> int:
@@ -50,6 +50,10 @@ def _bench_spotting(a) -> int:
                     "--spotting-development")
     if a.spotting_checkin and a.spotting_development:
         return _err("--spotting-checkin is for the protocol's scored sessions; the development sessions have none")
+    if a.spotting_json:   # asked now: the protocol runs for tens of minutes before it writes
+        problem = _output_problem(a.spotting_json, replace=a.overwrite, option="--spotting-json")
+        if problem:
+            return _err(problem)
     from ..recognition.classifiers import DEFAULT_CLASSIFIER
     classifier = (a.classifier or [DEFAULT_CLASSIFIER])[0]
     garment = ""
@@ -109,6 +113,11 @@ def _bench_soak(a) -> int:
     from ..recognition import ModelError, load_model
     if a.soak <= 0:
         return _err("--soak takes a positive number of simulated hours, e.g. 2")
+    if a.soak_out:   # the files soak() writes there, asked before the hours of stream
+        problem = _folder_problem(a.soak_out, ["soak-take.csv", "soak-live-events.txt"], a.overwrite,
+                                  option="--soak-out")
+        if problem:
+            return _err(problem)
     try:
         model = load_model(a.soak_model) if a.soak_model else None
     except ModelError as exc:
@@ -130,8 +139,18 @@ def _bench_soak(a) -> int:
 def _bench_fuzz(a) -> int:
     """`drape bench --fuzz N`: N mutated inputs into each parser; crashes counted by type."""
     from ..evaluation.fuzz import TARGETS, fuzz
+    targets = a.fuzz_target or TARGETS
+    if a.fuzz_crashes:
+        # a crash file is named TARGET-EXCEPTION: which will be written is not known before the run,
+        # so any such file of a target about to run would be written over, or mixed with this run's
+        folder = Path(a.fuzz_crashes)
+        there = (sorted(p.name for t in targets for p in folder.glob(f"{t}-*") if p.suffix in (".bin", ".txt"))
+                 if folder.is_dir() else [])
+        problem = _folder_problem(folder, there, a.overwrite, option="--fuzz-crashes")
+        if problem:
+            return _err(problem)
     crashes = 0
-    for target in a.fuzz_target or TARGETS:
+    for target in targets:
         r = fuzz(target, a.fuzz, seed=a.fuzz_seed, crash_dir=a.fuzz_crashes, report=lambda t: print(t, flush=True),
                  time_limit_s=a.fuzz_limit_s)
         print(r.line(), flush=True)

@@ -102,9 +102,12 @@ class DeliveryTimes:
         self.values.extend((index, lat.arrived_s, lat.sent_s, controls, len(events) - controls, loop_cpu_s))
 
     def save(self, path) -> None:
-        """As a .npz: one array per column, plus ``beyond`` (rows not kept)."""
+        """As a .npz: one array per column, plus ``beyond`` (rows not kept). Written to
+        ``path`` exactly (``np.savez`` given a name would add .npz to one without it: not the
+        file the command line checked)."""
         a = np.frombuffer(self.values, dtype=float).reshape(-1, len(self.COLUMNS))
-        np.savez(path, beyond=np.array(self.beyond), **{c: a[:, i] for i, c in enumerate(self.COLUMNS)})
+        with open(path, "wb") as f:
+            np.savez(f, beyond=np.array(self.beyond), **{c: a[:, i] for i, c in enumerate(self.COLUMNS)})
 
 
 class Handoff:
