@@ -59,6 +59,56 @@ def test_a_take_with_a_channel_renamed_is_refused(fitted, tmp_path, capsys, verb
     assert "another order" not in err
 
 
+@pytest.mark.parametrize("score", ["evaluate_takes", "tune_model"])
+def test_the_library_refuses_takes_whose_channels_differ(fitted, tmp_path, score):
+    """Any caller of the scoring functions, not only the command line, is told: the same
+    words as `drape evaluate` and `drape tune`, both lists named."""
+    from bridge.evaluation.heldout import evaluate_takes
+    from bridge.evaluation.tuning import tune_model
+    from bridge.recognition import load_model
+    run = {"evaluate_takes": evaluate_takes, "tune_model": tune_model}[score]
+    take, model_path, other = fitted
+    model = load_model(model_path)
+    names = read_recording(other).channel_names
+    swapped = read_recording(_rewritten(other, tmp_path / "swapped.take", order=[1, 0, *range(2, len(names))]))
+    renamed = read_recording(_rewritten(other, tmp_path / "renamed.take", names=["hood", *names[1:]]))
+    with pytest.raises(ValueError) as got:
+        run(model, [read_recording(other), swapped])
+    msg = str(got.value)
+    assert f"trained on channels {', '.join(names)} but take 2 of 2" in msg
+    assert f"has {', '.join([names[1], names[0], *names[2:]])}" in msg and "the same names in another order" in msg
+    with pytest.raises(ValueError, match=f"but {tmp_path / 'renamed.take'} has hood, "):
+        run(model, [renamed], names=[tmp_path / "renamed.take"])
+
+
+@pytest.mark.parametrize("score", ["evaluate_takes", "tune_model"])
+def test_the_library_checks_numbered_channel_names_by_count_only(fitted, tmp_path, score):
+    from bridge.evaluation.heldout import evaluate_takes
+    from bridge.evaluation.tuning import tune_model
+    from bridge.recognition import load_model
+    run = {"evaluate_takes": evaluate_takes, "tune_model": tune_model}[score]
+    take, model_path, other = fitted
+    model = load_model(model_path)
+    n = len(read_recording(other).channel_names)
+    numbered = read_recording(_rewritten(other, tmp_path / "numbered.take", names=[f"ch{i + 1}" for i in range(n)]))
+    run(model, [numbered])   # scored, not refused
+    fewer = read_recording(_rewritten(other, tmp_path / "fewer.take", order=list(range(n - 1)),
+                                      names=[f"ch{i + 1}" for i in range(n - 1)]))
+    with pytest.raises(ValueError, match=f"trained on {n} channels"):
+        run(model, [fewer])
+
+
+@pytest.mark.parametrize("verb", ["evaluate", "tune"])
+def test_the_command_line_says_a_channel_refusal_once(fitted, tmp_path, capsys, verb):
+    take, model, other = fitted
+    names = read_recording(other).channel_names
+    swapped = _rewritten(other, tmp_path / "swapped.take", order=[1, 0, *range(2, len(names))])
+    capsys.readouterr()
+    assert _verb(verb, model, swapped, tmp_path) == 2
+    err = capsys.readouterr().err
+    assert err.count("trained on channels") == 1 and f"but {swapped} has" in err
+
+
 def test_a_take_with_numbered_channel_names_is_checked_by_count_only(fitted, tmp_path, capsys):
     """A garment that sends no header line records ch1, ch2, ...: no names to compare."""
     take, model, other = fitted

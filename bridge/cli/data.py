@@ -172,8 +172,7 @@ def cmd_replay(a) -> int:
     try:
         model = load_model(a.model)
         rec = read_recording(a.recording)
-        model.check_source(len(rec.channel_names), rec.rate_hz)
-        model.check_channel_names(rec.channel_names, a.recording)
+        model.check_takes([rec], [a.recording])
         mapping = load_mapping(a.mapping, model.classes, model.kinds) if a.mapping else None
     except (ModelError, RecordingError, MappingError) as exc:
         return _err(str(exc))

@@ -242,9 +242,7 @@ def cmd_evaluate(a) -> int:
                 title = f"{a.model} on {a.ts}"
             elif a.recordings:
                 recs, _ = _read_takes(a.recordings)
-                for path, r in zip(a.recordings, recs):
-                    model.check_source(len(r.channel_names), r.rate_hz)
-                    model.check_channel_names(r.channel_names, path)
+                model.check_takes(recs, a.recordings)   # refused before the in-sample notes below
                 in_sample = _in_sample(model, a.recordings, recs)
                 _say_in_sample(a.model, in_sample)
                 unknown = sorted({iv.label for r in recs for iv in r.intervals} - set(model.classes))
@@ -252,7 +250,7 @@ def cmd_evaluate(a) -> int:
                     n = sum(iv.label in unknown for r in recs for iv in r.intervals)
                     print(f"drape: {_plural(n, 'labelled performance')} of {', '.join(unknown)}, which the model does "
                           "not know, count as missed", file=sys.stderr)
-                result = evaluate_takes(model, recs, progress=step)
+                result = evaluate_takes(model, recs, progress=step, names=a.recordings)
                 title = f"{a.model} on {_plural(len(recs), 'take')}"
             else:
                 close()
@@ -321,9 +319,7 @@ def cmd_tune(a) -> int:
     try:
         model = load_model(a.model)
         recs = [read_recording(p) for p in a.recordings]
-        for path, r in zip(a.recordings, recs):
-            model.check_source(len(r.channel_names), r.rate_hz)
-            model.check_channel_names(r.channel_names, path)
+        model.check_takes(recs, a.recordings)   # refused before the in-sample refusal and notes below
     except (ModelError, RecordingError) as exc:
         return _err(str(exc))
     fitted = [path for path, how in _in_sample(model, a.recordings, recs).items() if "fitted_on" in how]
@@ -340,7 +336,8 @@ def cmd_tune(a) -> int:
     short = hours < need_h   # the counter's rule: these takes cannot show the budget, so nothing is loosened
     step, close = _progress("replaying")
     try:
-        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step, loosen=not short)
+        result = tune_model(model, recs, max_false_per_hour=a.max_false_per_hour, progress=step, loosen=not short,
+                            names=a.recordings)
     finally:
         close()
     print("before, the settings stored in the model, on these takes:")

@@ -83,8 +83,12 @@ def hop_windows(rec, model, hops) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     return y[keep], prob.argmax(axis=1)[keep], prob.max(axis=1)[keep]
 
 
-def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: bool = True) -> dict:
+def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: bool = True, names=None) -> dict:
     """Window and event scores of a model on takes it was not trained on.
+
+    Raises ``ModelError`` (a ValueError) before any scoring when a take's channels are not the
+    model's (count, rate, names in order: ``Model.check_takes``; ``names`` are the takes' names
+    for that message): a model reads channels by position.
 
     Returns classification_scores(...) plus "calibration_error" (ECE of the windows' top
     probabilities, 10 bins), "confidence" and "correct" (per window, for pooling over
@@ -92,6 +96,8 @@ def evaluate_takes(model, recs, progress=None, block_s: float = 5.0, events: boo
     decided and the truth (for the report's timeline).
     With ``events`` False the takes are not replayed (window scores only).
     """
+    recs = list(recs)
+    model.check_takes(recs, names)
     ys, ps, cs, per_take, scored = [], [], [], [], []
     for i, rec in enumerate(recs):
         decided = []

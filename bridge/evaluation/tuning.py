@@ -314,10 +314,14 @@ def _score(model, pieces, settings) -> dict:
 
 
 def tune_model(model, recordings, max_false_per_hour: float = 1.0, progress=None, loosen: bool = True,
-               **grid) -> TuneResult:
+               names=None, **grid) -> TuneResult:
     """Tune every non-null class of ``model`` on labelled ``recordings``; the model is not
     changed. ``grid``: thresholds, debounce, rearm (see ``candidates``). ``loosen=False``:
-    search only each class's current settings and stricter ones (``no_looser``)."""
+    search only each class's current settings and stricter ones (``no_looser``).
+    Raises ``ModelError`` (a ValueError) before any replay when a take's channels are not the
+    model's (``Model.check_takes``; ``names`` are the takes' names for that message)."""
+    recordings = list(recordings)
+    model.check_takes(recordings, names)
     takes = []
     for i, r in enumerate(recordings):
         t, p = hop_probabilities(model, r)

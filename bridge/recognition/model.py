@@ -115,6 +115,22 @@ class LiveModel:
             "use a model trained on this garment's channels, or record with the model's"
         )
 
+    def check_takes(self, recs, names=None) -> None:
+        """Raise ModelError unless every take (a ``Recording``) fits the model: channel count
+        and rate (``check_source``), channel names in the model's order (``check_channel_names``).
+        ``names``: what to call each take in the message (its file); by default its place in
+        the list, with its wearer and session when it has them."""
+        recs = list(recs)
+        for i, rec in enumerate(recs):
+            if names is not None:
+                name = str(names[i])
+            else:
+                who = ", ".join(f"{k} {v}" for k, v in (("wearer", getattr(rec, "wearer", "")),
+                                                         ("session", getattr(rec, "session", ""))) if v)
+                name = f"take {i + 1} of {len(recs)}" + (f" ({who})" if who else "")
+            self.check_source(len(rec.channel_names), rec.rate_hz)
+            self.check_channel_names(rec.channel_names, name)
+
     def common_metadata(self) -> dict:
         return {
             "format": FORMAT,
