@@ -1338,3 +1338,20 @@ def test_the_single_loop_calibrates_and_re_settles_as_the_service_does(demo_mode
         assert svc.settling() == Settling()   # the service's default [calibration] is the single loop's
     finally:
         svc.status.close()
+
+
+def test_a_running_garment_whose_data_stopped_is_not_shown_as_running():
+    """The stream's state word stays "running" (readers of the stream have its data flag), but
+    the head line an operator glances at says the data stopped, and says running again once
+    it flows."""
+    from bridge.service.watch import StatusView, render
+    v = StatusView()
+    v.take("/drape/alive", [12.0, 1, 4242], now_s=100.0)
+    v.take("/drape/g/jacket/state", ["running", 1, "act1", 0, 0.0, 0, 5000, "device gone"], now_s=100.0)
+    head = render(v, 200, now_s=100.5).splitlines()[1]
+    assert head.startswith("[jacket] data stopped  ARMED") and "running" not in head, head
+    assert v.garments["jacket"].state == "running"   # the machine-readable word is unchanged
+    v.take("/drape/g/jacket/state", ["running", 1, "act1", 1, 99.0, 0, 5100, ""], now_s=101.0)
+    assert render(v, 200, now_s=101.2).splitlines()[1].startswith("[jacket] running  ARMED")
+    v.take("/drape/g/jacket/state", ["calibrating", 1, "", 0, 0.0, 0, 10, "hold still: calibrating"], now_s=102.0)
+    assert render(v, 200, now_s=102.2).splitlines()[1].startswith("[jacket] calibrating  ARMED")

@@ -85,6 +85,16 @@ def bar(value: float, full: float, width: int = 24) -> str:
 STALE_S = 3.0  # the daemon sends a heartbeat every second: three missed is silence
 
 
+def shown_state(g: GarmentView) -> str:
+    """The state word a person reads. The stream keeps "running" for a garment whose data has
+    stopped (it is still set up: outputs open, mapping loaded, and it carries on when data
+    comes back; a reader of the stream has its data flag), but the head line must not tell
+    an operator "running" for a garment that delivers nothing."""
+    if g.state == "running" and not g.flowing:
+        return "data stopped" if g.samples else "no data yet"
+    return g.state
+
+
 def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_s: float = STALE_S) -> str:
     """One frame of plain text (no escape codes). With ``now_s``, a daemon silent for more
     than ``stale_s`` is said to be so at the top, and every value shown is marked stale."""
@@ -109,7 +119,7 @@ def render(view: StatusView, width: int = 78, now_s: float | None = None, stale_
             lines.append(f"{g_stale}[{printable(name, 32)}] state not heard yet: arming, data and rate unknown"[:width])
             lines += _events_and_notices(g, width)
             continue
-        head = (f"{g_stale}[{printable(name, 32)}] {printable(g.state, 20)}  {'ARMED' if g.armed else 'disarmed'}  "
+        head = (f"{g_stale}[{printable(name, 32)}] {printable(shown_state(g), 20)}  {'ARMED' if g.armed else 'disarmed'}  "
                 f"layer {printable(g.layer, 32) or '-'}  "
                 f"{'data' if g.flowing else 'NO DATA'} {g.rate_hz:5.1f} Hz  dropped {g.dropped}"
                 + (f" (implausible {g.implausible})" if g.implausible else ""))
