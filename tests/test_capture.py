@@ -11,7 +11,9 @@ from bridge.cli import main
 from bridge.garment import GESTURES
 from bridge.recognition.training import label_windows
 from bridge.service.capture import CaptureSession, CaptureSettings, capture_plan, run_capture
-from bridge.sources import RecordingWriter, read_recording
+from bridge.sources import RecordingWriter, describe_incomplete, read_recording
+
+UNSAID = "it ended without saying so: killed, power lost or disk full"   # the reason of a take short of its plan
 from bridge.sources.simulated import PromptedSimulatedSource
 
 from conftest import drape_cmd
@@ -149,8 +151,11 @@ def test_interrupted_capture_leaves_a_readable_take(tmp_path):
             assert cut.reason == "SIGINT" and "prompt" in cut.step and cut.prompts_left
             assert cut.ordinary_left_s == cut.ordinary_planned_s == 180.0
             assert "the take is incomplete" in stdout and "all 180 s of ordinary movement (none recorded)" in stdout
-        else:
-            assert rec.cut_short is None  # killed outright: nothing could mark it
+        else:   # killed outright: no #cut line, but the plan in its header names what is missing
+            cut = rec.cut_short
+            assert cut is not None and cut.reason == UNSAID and cut.prompts_left, cut
+            assert cut.ordinary_left_s == cut.ordinary_planned_s == 180.0
+            assert "is an incomplete take" in describe_incomplete(rec, "cut-SIGKILL.take")
 
 
 def test_capture_from_a_port_detects_the_layout_and_records(tmp_path, capsys):
@@ -294,3 +299,85 @@ def test_finishing_early_marks_the_take_with_where_and_what_is_missing(tmp_path)
     step, left, ordinary_s = late.shortfall()
     assert step.startswith("the ordinary movement after the prompts") and left == ()
     assert ordinary_s == pytest.approx(2.0, abs=0.1)
+
+
+class _Killed:
+    """A stop that comes without the capture's own ending: the writer is closed with no #cut
+    line, as a capture killed outright (SIGKILL, power loss) leaves its take."""
+
+    def __init__(self, when):
+        self.when = when
+
+    @property
+    def stopped(self):
+        return self.when()
+
+
+def _planned_capture(path, plan, settings, killed=None, keys=None, seed=5):
+    src = PromptedSimulatedSource(seed=seed, realtime=False)
+    with RecordingWriter(path, src.rate_hz, src.channel_names, kinds=GESTURES,
+                         plan=CaptureSession.take_plan(plan, settings)) as w:
+        sess = CaptureSession(list(plan), GESTURES, settings, w, np.random.default_rng(2), src.prompt)
+        run_capture(src, sess, w, stop=_Killed(lambda: killed(sess)) if killed else None,
+                    keys=(lambda: keys(sess)) if keys else None)
+    return sess, read_recording(path)
+
+
+def test_a_take_killed_during_the_prompts_is_named_short_of_its_plan(tmp_path):
+    plan = ["raise_right", "bow", "raise_right", "bow"]
+    sess, rec = _planned_capture(tmp_path / "k.take", plan, FAST, killed=lambda s: len(s.done) == 2)
+    assert "#cut" not in (tmp_path / "k.take").read_text()
+    cut = rec.cut_short
+    assert cut is not None and cut.reason == UNSAID
+    assert dict(cut.prompts_left) == {"raise_right": 1, "bow": 1}
+    assert cut.ordinary_left_s == cut.ordinary_planned_s == FAST.ordinary_s
+    said = describe_incomplete(rec, "k.take")
+    assert said.startswith("k.take is an incomplete take: its capture was cut short (it ended without saying so")
+    assert "the prompts (2 of 4 recorded)" in said and "1 × raise_right, 1 × bow" in said
+
+
+def test_a_take_killed_during_its_ordinary_movement_says_at_most_what_is_missing(tmp_path):
+    """After the last label the capture rested (1 to 2 s here) before the ordinary movement:
+    the reader counts from the label, so it may say less is missing, never more."""
+    from dataclasses import replace
+    settings = replace(FAST, ordinary_s=20.0)
+    sess, rec = _planned_capture(tmp_path / "o.take", ["bow"], settings,
+                                 killed=lambda s: s.phase == "ordinary" and s.phase_end_s - s.now_s <= 10.0)
+    cut = rec.cut_short
+    assert cut is not None and cut.reason == UNSAID and cut.prompts_left == ()
+    assert 10.0 - 2.0 - settings.window_s <= cut.ordinary_left_s <= 10.0 + 0.05, cut
+    assert cut.step.startswith("the ordinary movement after the prompts") and cut.ordinary_planned_s == 20.0
+
+
+def test_a_planned_take_run_to_its_end_or_with_a_prompt_skipped_is_complete(tmp_path):
+    plan = ["raise_right", "bow", "raise_left"]
+    sess, rec = _planned_capture(tmp_path / "all.take", plan, FAST)
+    assert rec.cut_short is None and len(rec.intervals) == 3
+    assert '"plan": {"prompts": {"raise_right": 1, "bow": 1, "raise_left": 1}, "ordinary_s": 5.0}' in \
+        (tmp_path / "all.take").read_text().splitlines()[1]
+    # s at the countdown of bow: skipped on purpose, written as such, not missing
+    sess, rec = _planned_capture(tmp_path / "s.take", plan, FAST,
+                                 keys=lambda s: ["s"] if s.phase == "countdown" and s.current == "bow" else [])
+    assert sess.skipped == ["bow"] and '#skip {"label": "bow"}' in (tmp_path / "s.take").read_text()
+    assert rec.cut_short is None and [iv.label for iv in rec.intervals] == ["raise_right", "raise_left"]
+    # the same take killed after its first prompt: the skip is not counted as missing
+    sess, rec = _planned_capture(tmp_path / "sk.take", ["raise_right", "bow", "raise_left", "bow"], FAST,
+                                 keys=lambda s: ["s"] if s.phase == "countdown" and s.current == "bow" else [],
+                                 killed=lambda s: len(s.done) == 1 and s.phase == "rest" and len(s.skipped) == 1)
+    assert dict(rec.cut_short.prompts_left) == {"bow": 1, "raise_left": 1}, rec.cut_short   # not the skipped bow
+    assert rec.cut_short.step == "the prompts (1 of 3 recorded)"
+
+
+def test_a_take_without_a_plan_reads_as_before(tmp_path):
+    """Takes written before plans (and those of drape simulate) state none: however few labels
+    they hold, they read as complete, and a header with no plan is unchanged."""
+    path = tmp_path / "old.take"
+    path.write_text('#drape-take 1\n#meta {"rate_hz": 10.0, "channels": ["a", "b"], "wearer": "w", "session": "s", '
+                    '"layout": "", "kinds": {"bow": "gesture"}}\nt_s,a,b\n0.0000,1.00,2.00\n0.1000,1.00,2.00\n'
+                    '#label {"start_s": 0.0, "end_s": 0.1, "label": "bow"}\n', encoding="utf-8")
+    rec = read_recording(path)
+    assert rec.cut_short is None and len(rec.intervals) == 1 and rec.freq_hz.shape == (2, 2)
+    with RecordingWriter(tmp_path / "new.take", 10.0, ("a", "b")) as w:
+        w.samples(np.array([0.0]), np.array([[1.0, 2.0]]))
+    assert "plan" not in (tmp_path / "new.take").read_text().splitlines()[1]
+    assert read_recording(tmp_path / "new.take").cut_short is None

@@ -106,7 +106,7 @@ def cmd_capture(a) -> int:
         settings = CaptureSettings(a.reps, a.countdown_s, a.window_s, a.hold_s, (a.rest_s, a.rest_s * 2), a.lead_s,
                                    a.ordinary_s)
         writer = RecordingWriter(out, source.rate_hz, source.channel_names, wearer, session, layout, kinds,
-                                 check_in=a.check_in)
+                                 check_in=a.check_in, plan=CaptureSession.take_plan(plan, settings))
     except (SourceGone, ProtocolUndecided, TakeWriteError) as exc:
         source.close()
         return _err(str(exc))

@@ -58,8 +58,9 @@ def capture_plan(rng: np.random.Generator, gestures, repetitions: int) -> list[s
 @dataclass
 class CaptureSession:
     """The prompting state machine. ``advance(now_s)`` moves it along stream time and returns
-    announcements (one line each); ``key(k)`` applies a key. ``writer`` receives labels and
-    voids; ``prompt(label, within_s)`` (optional) is told at each "now" (a simulated wearer).
+    announcements (one line each); ``key(k)`` applies a key. ``writer`` receives labels,
+    voids and skips; ``prompt(label, within_s)`` (optional) is told at each "now" (a simulated
+    wearer). ``take_plan`` is the plan a take's header states (see ``RecordingWriter``).
     """
 
     plan: list
@@ -83,6 +84,13 @@ class CaptureSession:
     def __post_init__(self):
         self.phase_end_s = self.settings.lead_s
         self.total = len(self.plan)
+
+    @staticmethod
+    def take_plan(plan, settings: CaptureSettings) -> dict:
+        """What a take's header states of this capture before it starts: the prompts (label:
+        count) and the ordinary movement after them, s. A take killed outright writes no
+        ``#cut`` line; its reader compares the take with this."""
+        return {"prompts": dict(Counter(plan)), "ordinary_s": settings.ordinary_s}
 
     def window_s(self, label: str) -> float:
         return self.settings.hold_s if self.kinds.get(label) == "posture" else self.settings.window_s
@@ -147,6 +155,7 @@ class CaptureSession:
                 return []
             label = self.plan.pop(self.index)
             self.skipped.append(label)
+            self.writer.skip(label)   # skipped on purpose: a reader of the take's plan does not miss it
             if self.phase in (COUNTDOWN, PERFORM):
                 self.phase, self.phase_end_s = REST, now_s + self.settings.rest_s[0]
             return [f"skipped: {label}"]

@@ -6,6 +6,7 @@
     0.0000,181234.0,...
     #label {"start_s": 3.2, "end_s": 4.5, "label": "raise_right"}
     #void {"start_s": 3.2, "end_s": 4.5, "label": "raise_right"}
+    #skip {"label": "bow"}
     #cut {"reason": "SIGINT", "step": "...", "prompts_left": {"bow": 2}, "ordinary_left_s": 180.0, ...}
 
 Lines starting with '#' carry metadata and labels (labels may come anywhere, appended as
@@ -14,8 +15,11 @@ flushes at least once a second, so a crash loses at most the last second. A ``#v
 withdraws an earlier label with the same start, end and name (guided capture writes one when
 the wearer asks to redo a take: the file stays append-only). A ``#cut`` line, written last,
 says the capture was cut short, where, and what it did not record; readers that do not know
-it skip it as they skip every '#' line they do not know. The full description of the
-format, version 1, is in docs/acquisition.md.
+it skip it as they skip every '#' line they do not know. A process killed outright writes no
+``#cut`` line; so a guided capture states its plan in the header (``"plan"``: the prompts,
+label: count, and the ordinary movement after them, s) and writes a ``#skip`` line for each
+prompt the wearer skips, and a take that holds less than its plan is read as cut short
+(``ENDS_UNSAID``). The full description of the format, version 1, is in docs/acquisition.md.
 """
 
 from __future__ import annotations
@@ -24,6 +28,7 @@ import json
 import math
 import os
 import time
+from collections import Counter
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -44,6 +49,8 @@ class Label:
 
 
 ENDS_MID_LINE = "the file ends mid-line"   # a CutShort reason: cut off outside any capture
+# a CutShort reason: a take holding less than the plan in its header, and no #cut line
+ENDS_UNSAID = "it ended without saying so: killed, power lost or disk full"
 
 
 @dataclass(frozen=True)
@@ -134,7 +141,8 @@ class RecordingWriter:
     MAX_PENDING = 1 << 16  # bytes gathered before writing even within flush_s
 
     def __init__(self, path: str | Path, rate_hz: float, channel_names, wearer: str = "", session: str = "",
-                 layout: str = "", kinds: dict | None = None, flush_s: float = 1.0, check_in: bool = False):
+                 layout: str = "", kinds: dict | None = None, flush_s: float = 1.0, check_in: bool = False,
+                 plan: dict | None = None):
         self.path = Path(path)
         self.fh = open(self.path, "wb", buffering=0)
         self.flush_s = flush_s
@@ -147,6 +155,9 @@ class RecordingWriter:
                 "layout": layout, "kinds": kinds or {}}
         if check_in:   # named only when set: every other take's header stays as it was
             meta["check_in"] = True
+        if plan is not None:   # a guided capture's plan: {"prompts": {label: count}, "ordinary_s": s}
+            meta["plan"] = {"prompts": {str(k): int(v) for k, v in dict(plan["prompts"]).items()},
+                            "ordinary_s": round(float(plan["ordinary_s"]), 3)}
         self._add(f"{MAGIC}\n#meta {json.dumps(meta)}\n" + ",".join(["t_s", *channel_names]) + "\n")
         self.flush()
 
@@ -162,6 +173,11 @@ class RecordingWriter:
     def void(self, start_s: float, end_s: float, label: str) -> None:
         """Withdraw a label written earlier (same start, end and name)."""
         self._add(f"#void {json.dumps({'start_s': round(start_s, 4), 'end_s': round(end_s, 4), 'label': label})}\n")
+        self._maybe_flush()
+
+    def skip(self, label: str) -> None:
+        """A planned prompt the wearer skipped: not recorded on purpose, so not missing."""
+        self._add(f"#skip {json.dumps({'label': label})}\n")
         self._maybe_flush()
 
     def cut(self, cut: CutShort) -> None:
@@ -271,6 +287,45 @@ def warn_incomplete(paths, recs, stream=None) -> int:
     return n
 
 
+def _plan(meta: dict):
+    """(prompts Counter, ordinary_s) of a header's ``plan``, or None when it has none (a take
+    not from a guided capture, or from drape before plans) or an unreadable one: such a take
+    is read as before."""
+    plan = meta.get("plan")
+    try:
+        prompts = Counter({str(k): int(v) for k, v in dict(plan["prompts"]).items()})
+        ordinary_s = float(plan["ordinary_s"])
+    except (KeyError, TypeError, ValueError):
+        return None
+    if not math.isfinite(ordinary_s) or ordinary_s < 0 or any(v < 0 for v in prompts.values()):
+        return None
+    return prompts, ordinary_s
+
+
+def short_of_plan(plan, labels, skips: Counter, length_s: float) -> CutShort | None:
+    """The take as cut short (``ENDS_UNSAID``) when it holds less than its capture's ``plan``
+    ((prompts, ordinary_s), see ``_plan``), else None. Prompts: each planned one is a label
+    or a ``#skip``. Ordinary movement: after the last label the capture rested, then recorded
+    ordinary_s, so a take shorter than the last label's end + ordinary_s lacks the difference
+    (a kill within the last rest's few seconds goes unseen: the take then holds the ordinary
+    movement planned, counted from the last label)."""
+    prompts, ordinary_s = plan
+    left = prompts - (Counter(iv.label for iv in labels) + skips)
+    total = sum(prompts.values()) - sum(min(n, prompts[k]) for k, n in skips.items())
+    if left:
+        done = total - sum(left.values())
+        step = (f"the prompts ({done} of {total} recorded)" if done else
+                "the lead-in or the first prompt (none of them recorded)")
+        return CutShort(ENDS_UNSAID, step, tuple(left.items()), ordinary_s, ordinary_s)
+    last_end = max((iv.end_s for iv in labels), default=0.0)
+    missing_s = last_end + ordinary_s - length_s
+    if ordinary_s <= 0 or missing_s <= 1e-6:
+        return None
+    missing_s = min(missing_s, ordinary_s)
+    return CutShort(ENDS_UNSAID, f"the ordinary movement after the prompts ({ordinary_s - missing_s:.0f} s of "
+                                 f"{ordinary_s:.0f} s)", (), missing_s, ordinary_s)
+
+
 def read_recording(path: str | Path) -> Recording:
     """Read a take file; a truncated last line (crash while writing, disk full, a copy cut
     short) is dropped, not an error, and the take is marked cut short (``ENDS_MID_LINE``) so
@@ -289,6 +344,7 @@ def read_recording(path: str | Path) -> Recording:
     meta = None
     cut = None
     labels, rows = [], []
+    skips: Counter = Counter()
     n_cols = None
     last_no = max((i for i, l in enumerate(lines, start=1) if l.strip()), default=0)  # the last non-empty line
     for no, line in enumerate(lines[1:], start=2):
@@ -327,6 +383,14 @@ def read_recording(path: str | Path) -> Recording:
         if s.startswith("#cut "):
             cut = CutShort.from_json(s[5:])
             continue
+        if s.startswith("#skip "):
+            try:
+                skips[str(json.loads(s[6:])["label"])] += 1
+            except (json.JSONDecodeError, KeyError, TypeError):
+                if all(not l.strip() for l in lines[no:]):
+                    break  # cut by a crash, as a label line may be
+                raise RecordingError(f"{path}:{no}: skip line unreadable") from None
+            continue
         if s.startswith("#") or s.startswith("t_s"):
             continue
         if n_cols is None:
@@ -346,9 +410,12 @@ def read_recording(path: str | Path) -> Recording:
         rows.append(row)
     if meta is None:
         raise RecordingError(f"{path}: no #meta line")
+    arr = np.array(rows, dtype=float).reshape(-1, n_cols)
+    plan = _plan(meta) if cut is None else None
+    if plan is not None:   # no #cut line: a capture killed outright says nothing, its plan does
+        cut = short_of_plan(plan, labels, skips, (arr.shape[0]) / rate)
     if lines[-1].strip() and cut is None:   # drape writes whole lines only: something else cut this file
         cut = CutShort(ENDS_MID_LINE, "its last line")
-    arr = np.array(rows, dtype=float).reshape(-1, n_cols)
     return Recording(rate, channels, arr[:, 0], arr[:, 1:], tuple(labels), str(meta.get("wearer", "")),
                      str(meta.get("session", "")), str(meta.get("layout", "")), dict(meta.get("kinds", {})), cut,
                      meta.get("check_in") is True)
