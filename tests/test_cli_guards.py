@@ -391,3 +391,22 @@ def test_timings_are_written_to_the_file_named(tmp_path):
     named = tmp_path / "timings"   # no .npz: the checked name is the written one
     DeliveryTimes().save(named)
     assert named.is_file() and not (tmp_path / "timings.npz").exists()
+
+
+def test_evaluate_keeps_an_earlier_report_unless_told(small_take, demo_model_file, tmp_path, monkeypatch, capsys):
+    import bridge.evaluation.heldout as heldout
+    monkeypatch.setattr(heldout, "evaluate_takes", _stand_in)     # scoring can take minutes
+    monkeypatch.setattr(heldout, "cross_validate", _stand_in)
+    rep = tmp_path / "rep"
+    rep.mkdir()
+    (rep / "index.html").write_text("last week's report", encoding="utf-8")
+    for argv in (["evaluate", "--model", str(demo_model_file), str(small_take)],
+                 ["evaluate", "--scheme", "leave-session-out", str(small_take)]):
+        assert main([*argv, "--report", str(rep)]) == 2            # refused before any scoring
+        err = capsys.readouterr().err
+        assert "index.html" in err and "--report" in err and "--overwrite" in err
+        assert (rep / "index.html").read_text(encoding="utf-8") == "last week's report"
+    with pytest.raises(_Reached):
+        main(["evaluate", "--model", str(demo_model_file), str(small_take), "--report", str(rep), "--overwrite"])
+    with pytest.raises(_Reached):   # a folder not made yet is no obstacle
+        main(["evaluate", "--model", str(demo_model_file), str(small_take), "--report", str(tmp_path / "new")])

@@ -5,7 +5,7 @@ from __future__ import annotations
 import sys
 from pathlib import Path
 
-from .common import _err, _in_sample, _output_problem, _plural, _report, _say_in_sample
+from .common import _err, _folder_problem, _in_sample, _output_problem, _plural, _report, _say_in_sample
 
 
 def _progress(desc: str):
@@ -231,6 +231,11 @@ def cmd_evaluate(a) -> int:
     if a.model and (a.scheme or a.window_s is not None or a.band_hz):
         return _err("--scheme, --window-s and --band-hz fit models to evaluate; with --model the model's own are used: "
                     "leave them out")
+    if a.report:   # before the scoring: a cross-validation can take many minutes
+        from ..evaluation.report import REPORT_FILES
+        problem = _folder_problem(a.report, REPORT_FILES, a.overwrite, option="--report")
+        if problem:
+            return _err(problem)
     in_sample = {}   # take path -> "fitted_on" / "tuned_on": the model learnt from it
     step, close = _progress("evaluating")
     try:

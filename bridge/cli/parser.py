@@ -138,7 +138,9 @@ def build_parser() -> argparse.ArgumentParser:
     e.add_argument("--model", help="score this model on held-out takes or --ts cases instead")
     e.add_argument("--ts", metavar="TEST.ts", help="cases to score --model on (resampled to its window)")
     e.add_argument("--json", action="store_true", help="print a machine-readable summary")
-    e.add_argument("--report", metavar="DIR", help="write an HTML report with pictures into DIR (needs matplotlib)")
+    e.add_argument("--report", metavar="DIR", help="write an HTML report with pictures into DIR (needs matplotlib; "
+                   "an earlier report there is kept unless --overwrite)")
+    e.add_argument("--overwrite", action="store_true", help="replace an earlier report in --report DIR")
     e.add_argument("--window-s", type=_POSITIVE, default=None, help="window length, s (as drape fit)")
     e.add_argument("--hop-s", type=_POSITIVE, default=0.1, help="hop between windows, s")
     e.add_argument("--band-hz", type=_POSITIVE, nargs=2, metavar=("LOW", "HIGH"),

@@ -154,8 +154,12 @@ def show_table(e: dict | None) -> str:
     return f"<h2>For the show</h2><table class='show'>{body}</table>"
 
 
+REPORT_FILES = ("index.html", "confusion.png", "per_class.png", "timeline.png", "latency.png")
+
+
 def write_report(result: dict, out_dir: str | Path, title: str, command: str = "") -> Path:
-    """Write index.html and its PNGs into out_dir (created); returns the page's path."""
+    """Write index.html and its PNGs (at most ``REPORT_FILES``) into out_dir (created); returns
+    the page's path."""
     _plt()
     out = Path(out_dir)
     out.mkdir(parents=True, exist_ok=True)
