@@ -58,6 +58,7 @@ NEEDS = {  # action → destination kinds that can carry it
 }
 _ADDRESS = re.compile(r"^/[^\s#*,?\[\]{}]*$")
 INT32 = (-(2**31), 2**31 - 1)
+FLOAT32_MAX = 3.4028234663852886e38  # the largest finite IEEE 754 binary32 value: OSC 'f' arguments
 
 
 class MappingError(ValueError):
@@ -192,6 +193,8 @@ class _Checker:
             self.bad(at, key, "must be a list, e.g. args = [1, 0.5, \"go\"]")
             return None
         for a in args:
+            if isinstance(a, float) and math.isfinite(a) and abs(a) > FLOAT32_MAX:
+                self.bad(at, key, f"{a} does not fit an OSC float32 (at most ±{FLOAT32_MAX:.7g})")
             if isinstance(a, (bool, float)):
                 continue
             if isinstance(a, int):
