@@ -88,3 +88,28 @@ address = "/x"
     assert pipe.router.warnings == ["no layer 'act9' in m.toml (control message); staying in 'act2'"]
     [e] = pipe.command("layer", "act2")
     assert e.kind == "layer" and e.detail == "act2"
+
+
+def test_a_panic_or_disarm_button_that_sends_its_value_is_obeyed():
+    # A control surface's button sends its value with the address, 1.0 on press and 0.0 on
+    # release (common practice, no source). A panic or a disarm must not be refused for it;
+    # arming stays strict.
+    from bridge.service.control import ControlPort
+    token = "a-long-shared-token"
+    for make, head in ((lambda: ControlInbox("127.0.0.1", 0), ()), (lambda: ControlPort("127.0.0.1", 0, token), (token,))):
+        port = make()
+        s = socket.socket(socket.AF_INET, socket.SOCK_DGRAM)
+        try:
+            for dgram in (osc("/drape/panic", *head, 1.0), osc("/drape/panic", *head, 0), osc("/drape/disarm", *head, True),
+                          osc("/drape/panic", *head, "lead", 1.0), osc("/drape/arm", *head, 1.0),
+                          osc("/drape/layer", *head, "act2", 1.0)):
+                s.sendto(dgram, port.address)
+            import time
+            time.sleep(0.2)
+            got = port.receive() if isinstance(port, ControlInbox) else port.poll()
+            assert [(c, d, g) for c, d, g, _ in got] == [("panic", "", ""), ("panic", "", ""), ("disarm", "", ""),
+                                                         ("panic", "", "lead")]
+            assert port.ignored == 2   # the arm and the layer switch with a number
+        finally:
+            s.close()
+            port.close()

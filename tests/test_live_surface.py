@@ -552,6 +552,64 @@ def test_a_reload_that_works_on_some_garments_says_which_and_exits_apart(tmp_pat
         service.status.close()
 
 
+SYNTH = '[destinations.synth]\nmidi = "no such port"\n[[rule]]\ngesture = "raise_right"\nto = "synth"\nnote = 60\n'
+
+
+def _no_synth(d):
+    """Opens every destination but 'synth', as a machine without that MIDI port would."""
+    from types import SimpleNamespace
+    from bridge.outputs import OutputUnavailable
+    from bridge.outputs.base import OutputStats
+    if d.name == "synth":
+        raise OutputUnavailable("MIDI output 'synth': no port named 'no such port'")
+    return SimpleNamespace(send=lambda m: None, close=lambda: None, stats=OutputStats())
+
+
+def test_a_reload_whose_new_destination_cannot_open_is_not_answered_done(tmp_path, demo_model, demo_model_file):
+    """A reload applied with a destination that could not be opened sends that destination's
+    cues nowhere: the answer names it and why, and `drape send` exits 3 (partly), not 0."""
+    service = _three_garment_service(tmp_path, demo_model, demo_model_file)
+    service.open_fn = _no_synth
+    try:
+        (tmp_path / "lead.toml").write_text(RULE.format(g="bow") + SYNTH)
+        code, out, err = _send_to(service, "reload", "--garment", "lead")
+        assert code == 3, (code, out, err)
+        assert ("lead: mapping reloaded (2 rules); but destination 'synth' could not be opened, its cues go "
+                "nowhere: MIDI output 'synth': no port named 'no such port'") in err, err
+        (tmp_path / "lead.toml").write_text(RULE.format(g="bow"))
+        code, out, err = _send_to(service, "reload", "--garment", "lead")
+        assert code == 0 and "lead: mapping reloaded (1 rules)" in out, (code, out, err)
+    finally:
+        service.control.close()
+        service.status.close()
+
+
+def test_the_single_loop_says_a_reloaded_destination_could_not_open(tmp_path, demo_model, capsys):
+    from bridge.cli import main
+    from bridge.mapping import MappingWatcher
+    from bridge.service import Pipeline, StopFlag, run
+    from bridge.service.control import ControlInbox
+    (tmp_path / "m.toml").write_text(RULE.format(g="bow"))
+    watcher = MappingWatcher(tmp_path / "m.toml", demo_model.classes, demo_model.kinds, demo_model.channel_names)
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, said = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, watcher.mapping,
+                                                                                          "solo"), {}, stop),
+                            kwargs=dict(inbox=inbox, watcher=watcher, open_fn=_no_synth, report=said.append),
+                            daemon=True)
+    loop.start()
+    try:
+        (tmp_path / "m.toml").write_text(RULE.format(g="bow") + SYNTH)
+        code = main(["send", "reload", "--port", str(inbox.address[1]), "--wait-s", "5"])
+        err = capsys.readouterr().err
+        assert code == 3, (code, err)
+        assert "solo: mapping reloaded (2 rules); but destination 'synth' could not be opened" in err, err
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+
+
 def test_a_reload_of_every_garment_passes_over_one_without_a_mapping_file(tmp_path, demo_model, demo_model_file):
     """A garment run without a mapping file has nothing to reload: a reload of every garment
     is done (exit 0) and says so for it; named alone, or when no garment has one, refused."""

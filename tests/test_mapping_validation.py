@@ -160,3 +160,38 @@ def test_example_mappings_are_valid_against_the_simulated_jacket():
              for p in sorted(root.glob("*.toml"))}
     assert kinds == {"demo": {"osc"}, "stage-cues": {"osc"}, "music": {"midi"}, "game-keys": {"keys"},
                      "single-switch": {"keys"}, "lighting": {"sacn"}}
+
+
+def test_a_copied_rule_is_refused_with_both_lines():
+    # Two rules sending the same thing on the same event would send each cue twice (a cue
+    # list would skip one): the copy is refused, naming the rule it repeats.
+    copy = '\n[[rule]]\ngesture = "raise_right"\nto = "desk"\naddress = "/show/next"\n'
+    assert one('address = "/show/next"', extra=copy) == (
+        "show.toml:16: rule[2]: does the same as rule[1] (line 11) on the same event, so the cue would go "
+        "out twice; remove one of them")
+    # a rule in every layer and its copy in one layer overlap there
+    assert "does the same as rule[1]" in one('address = "/show/next"', extra=copy.replace('to =', 'layer = "act1"\nto ='))
+    # other arguments, another event or another layer each are a rule of their own
+    for other in (copy.replace('"/show/next"', '"/show/next"\nargs = [2]'),
+                  copy.replace("raise_right", "bow")):
+        parse_mapping(BASE.replace("{to}", "desk").replace("{action}", 'address = "/show/next"') + other,
+                      "show.toml", CLASSES, KINDS, CHANNELS)
+    layered = BASE.replace("{to}", "desk").replace("{action}", 'address = "/show/next"\nlayer = "act1"')
+    parse_mapping(layered + copy.replace('to =', 'layer = "act2"\nto ='), "show.toml", CLASSES, KINDS, CHANNELS)
+
+
+def test_an_osc_float_too_large_for_float32_is_refused_at_check_time():
+    # OSC 1.0 'f' is an IEEE 754 binary32; its largest finite value is (2 − 2⁻²³)·2¹²⁷ ≈ 3.4028235e38
+    # (IEEE 754-2008, binary32). Python's struct packs exactly that range: the reference for the bound.
+    import struct
+    assert one('address = "/x"\nargs = [1e40]') == \
+        "show.toml:15: rule[1].args: 1e+40 does not fit an OSC float32 (at most ±3.402823e+38)"
+    assert "does not fit an OSC float32" in one('bundle = [{ address = "/a", args = [-1e39] }]')
+    with pytest.raises(OverflowError):
+        struct.pack(">f", 1e40)
+    largest = (2 - 2 ** -23) * 2.0 ** 127
+    struct.pack(">f", largest)
+    m = parse_mapping(BASE.replace("{to}", "desk").replace("{action}", f'address = "/x"\nargs = [{largest!r}, inf]'),
+                      "show.toml", CLASSES, KINDS, CHANNELS)
+    from bridge.outputs.osc import encode_osc
+    encode_osc(m.rules[0].action.build(Event(1.0, "raise_right", "gesture", 0.5, 0.0, "", 0.25)))  # what is accepted is sent

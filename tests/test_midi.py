@@ -100,6 +100,27 @@ def test_midi_file_holds_what_was_sent_with_times_and_closes_notes(tmp_path):
     assert abs(sum(m.time for m in f) - 1.5) < 1e-9  # mido's own tempo arithmetic
 
 
+def test_a_midi_file_already_there_is_kept_and_the_new_recording_goes_beside_it(tmp_path):
+    # Yesterday's rehearsal.mid, or another garment's recording of the same name: neither is
+    # written over; each recording gets the next free name and closing says which.
+    (tmp_path / "rehearsal.mid").write_bytes(b"yesterday")
+    (tmp_path / "rehearsal-1.mid").write_bytes(b"the day before")
+    outs = [MidiFileOutput(f"rec{i}", tmp_path / "rehearsal.mid", clock=FakeClock()) for i in range(2)]
+    for i, out in enumerate(outs):
+        out.send(MidiNote(1, 60 + i, 100))
+        out.close()
+    assert (tmp_path / "rehearsal.mid").read_bytes() == b"yesterday"
+    assert (tmp_path / "rehearsal-1.mid").read_bytes() == b"the day before"
+    for i, out in enumerate(outs):
+        want = tmp_path / f"rehearsal-{i + 2}.mid"
+        assert out.written == want
+        assert out.stats.on_close == f"written to {want} (rehearsal.mid was there already and is kept)"
+        assert [m.bytes() for m in mido.MidiFile(want).tracks[0] if not m.is_meta][0] == [0x90, 60 + i, 100]
+    fresh = MidiFileOutput("rec", tmp_path / "new.mid", clock=FakeClock())
+    fresh.close()
+    assert fresh.stats.on_close == f"written to {tmp_path / 'new.mid'}"
+
+
 def test_midi_file_through_open_output(tmp_path):
     out = open_output(Destination("rec", "midi-file", path=str(tmp_path / "x.mid")))
     out.send(MidiNote(1, 60))

@@ -58,6 +58,7 @@ NEEDS = {  # action → destination kinds that can carry it
 }
 _ADDRESS = re.compile(r"^/[^\s#*,?\[\]{}]*$")
 INT32 = (-(2**31), 2**31 - 1)
+FLOAT32_MAX = 3.4028234663852886e38  # the largest finite IEEE 754 binary32 value: OSC 'f' arguments
 
 
 class MappingError(ValueError):
@@ -192,6 +193,8 @@ class _Checker:
             self.bad(at, key, "must be a list, e.g. args = [1, 0.5, \"go\"]")
             return None
         for a in args:
+            if isinstance(a, float) and math.isfinite(a) and abs(a) > FLOAT32_MAX:
+                self.bad(at, key, f"{a} does not fit an OSC float32 (at most ±{FLOAT32_MAX:.7g})")
             if isinstance(a, (bool, float)):
                 continue
             if isinstance(a, int):
@@ -378,6 +381,7 @@ def _tables(ck: _Checker, raw, name: str, known) -> Iterator[tuple[int, dict, Ca
 
 def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
     rules = []
+    numbers = []  # each kept rule's number in the file (rule[N]), for naming a duplicate's twin
     for i, r, at, path in _tables(ck, raw, "rule", RULE_KEYS):
         acts = [a for a in ACTIONS if a in r]
         if "gesture" not in r:
@@ -481,8 +485,24 @@ def _rules(ck: _Checker, raw, dests, declared) -> list[Rule]:
                 action = SwitchLayer(r["set_layer"])
                 ck.layer_refs.append((at("set_layer"), f"{path}.set_layer", r["set_layer"]))
         if action is not None and dest_ok and gesture is not None and None not in (every_s, once_after_s):
-            rules.append(Rule(gesture, on, to, action, layer, at(), every_s, once_after_s))
+            rule = Rule(gesture, on, to, action, layer, at(), every_s, once_after_s)
+            twin = next((k for k, other in enumerate(rules) if _same_cue(other, rule)), None)
+            if twin is not None:
+                # a copied rule sends its cue twice on one event (a cue list skips one)
+                ck.bad(at(), path, f"does the same as rule[{numbers[twin]}] (line {rules[twin].line}) on the same "
+                                   "event, so the cue would go out twice; remove one of them")
+            else:
+                rules.append(rule)
+                numbers.append(i + 1)
     return rules
+
+
+def _same_cue(a: Rule, b: Rule) -> bool:
+    """Whether two rules send the same thing on the same event in some layer (a rule without
+    a layer is in every layer)."""
+    return ((a.gesture, a.on, a.to, a.action, a.every_s, a.once_after_s)
+            == (b.gesture, b.on, b.to, b.action, b.every_s, b.once_after_s)
+            and (a.layer == b.layer or "" in (a.layer, b.layer)))
 
 
 def _bundle(ck, at, key, items):

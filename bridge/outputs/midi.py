@@ -202,6 +202,8 @@ class MidiFileOutput(Output):
 
     Times come from ``clock`` (seconds); the file uses ``ticks_per_beat`` at 120 beats per
     minute (tempo 500 000 µs per beat), so one second is 2 × ticks_per_beat ticks.
+    A file already at ``path`` (the last rehearsal's, another garment's) is kept: the
+    recording goes to the first free ``NAME-1.mid``, ``NAME-2.mid``, ... and closing says where.
     """
 
     TEMPO_US_PER_BEAT = 500_000
@@ -219,6 +221,7 @@ class MidiFileOutput(Output):
         self._events: list[tuple[float, bytes]] = []
         self.notes = SoundingNotes()
         self._closed = False
+        self.written: Path | None = None   # where the recording went (set by the first write)
 
     def _record(self, message) -> None:
         self._events.append((self._clock() - self._start_s, midi_bytes(message)))
@@ -252,11 +255,14 @@ class MidiFileOutput(Output):
         os.close(fd)
         try:
             f.save(tmp)
-            os.replace(tmp, self.path)
+            if self.written is None:
+                self.written = _place_new(tmp, self.path)
+            else:  # our own file from an earlier write
+                os.replace(tmp, self.written)
         finally:
             if os.path.exists(tmp):
                 os.unlink(tmp)
-        return self.path
+        return self.written
 
     def close(self) -> None:
         if self._closed:
@@ -264,4 +270,23 @@ class MidiFileOutput(Output):
         self._closed = True
         for m in self.notes.release_messages():
             self._record(m)
-        self.write()
+        path = self.write()
+        self.stats.on_close = f"written to {path}" + (f" ({self.path.name} was there already and is kept)"
+                                                     if path != self.path else "")
+
+
+def _place_new(tmp: str, path: Path) -> Path:
+    """Put the finished file ``tmp`` at ``path``, or at the first free ``NAME-N.mid`` beside
+    it when a file is there already; never over an existing file. Returns where it went."""
+    for n in range(10_000):
+        target = path if n == 0 else path.with_name(f"{path.stem}-{n}{path.suffix}")
+        try:
+            os.link(tmp, target)   # fails if the name is taken, even by a file made a moment ago
+            return target
+        except FileExistsError:
+            continue
+        except OSError:            # no hard links here (a FAT stick): look, then move
+            if not target.exists():
+                os.replace(tmp, target)
+                return target
+    raise OSError(f"no free name beside {path} (NAME-1.mid to NAME-9999.mid are all taken)")

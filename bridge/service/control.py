@@ -67,6 +67,19 @@ def ack_message(outcome, command: str, text: str) -> bytes:
     return b.build().dgram
 
 
+# Commands that make the stage safe. A control surface's button sends its value with the
+# address (commonly 1.0 on press, 0.0 on release): for these the value is not a reason to
+# refuse, the command goes to every garment (or the one named by a string).
+SAFE_COMMANDS = ("panic", "disarm")
+
+
+def without_button_values(cmd: str, args: list) -> list:
+    """``args`` of a command, without the numbers and booleans a button adds to a panic or a disarm."""
+    if cmd not in SAFE_COMMANDS:
+        return args
+    return [a for a in args if not isinstance(a, (int, float, bool))]
+
+
 COMMANDS = {"/drape/arm": "arm", "/drape/disarm": "disarm", "/drape/panic": "panic", "/drape/layer": "layer"}
 INBOX_COMMANDS = dict(COMMANDS, **{"/drape/reload": "reload", "/drape/status": "status", "/drape/rebaseline": "rebaseline"})
 
@@ -142,6 +155,7 @@ class ControlInbox:
                 self._bad(f"unknown address {printable(msg.address, 64)}; use {', '.join(INBOX_COMMANDS)}",
                           "unknown address", peer, msg.address)
                 continue
+            args = without_button_values(cmd, args)
             if not all(isinstance(a, str) for a in args):
                 self._bad(f"{msg.address} takes only strings", "bad arguments", peer, msg.address)
                 continue
@@ -264,6 +278,7 @@ class ControlPort:
                 self._bad(f"{msg.address} from {printable(peer[0])} without the right token", "wrong or missing token",
                           peer, msg.address)
                 return None
+        args = without_button_values(cmd, args)
         if not all(isinstance(a, str) for a in args):
             self._bad(f"{msg.address} takes only strings", "bad arguments", peer, msg.address)
             return None

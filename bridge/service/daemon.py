@@ -44,7 +44,7 @@ from . import status as st
 from .control import DONE, PARTLY, REFUSED, printable
 from .outputwatch import OutputWatch
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
-from .runner import StopFlag, keys_only_for_local_input, no_rebaseline, reconcile_outputs
+from .runner import StopFlag, keys_only_for_local_input, left_out_words, no_rebaseline, reconcile_outputs
 
 log = logging.getLogger("drape")
 
@@ -643,6 +643,7 @@ class Service:
                  f" {printable(detail)}" if detail else "", target or "every garment")
         said, refused = [], []
         took, missed = [], []   # garment names, for the head of a partial answer and the outcome
+        short = []              # garments that reloaded with a destination that could not be opened
         for g in chosen:
             if cmd == "reload":
                 self.check_model(g)
@@ -654,8 +655,11 @@ class Service:
                 else:
                     change = g.watcher.reload_now()
                     if self.apply_reload(g, change):
-                        said.append(f"{g.name}: mapping reloaded ({len(g.pipeline.mapping.rules)} rules)")
+                        said.append(f"{g.name}: mapping reloaded ({len(g.pipeline.mapping.rules)} rules)"
+                                    + left_out_words(g.left_out))
                         took.append(g.name)
+                        if g.left_out:   # applied, but some of its cues go nowhere
+                            short.append(g.name)
                     else:
                         refused.append(f"{g.name}: mapping not reloaded, the last good one keeps running; fix: "
                                        + "; ".join(change.problems))
@@ -683,7 +687,7 @@ class Service:
         if cmd == "reload" and not took and not refused:
             return REFUSED, "; ".join(["no running garment has a mapping file to reload"] + passed)
         if not refused:
-            return DONE, "; ".join(said + passed)
+            return (PARTLY if short else DONE), "; ".join(said + passed)
         if not took:
             return REFUSED, "; ".join(refused + said + passed)
         # Some garments took it, some did not: an operator must not read this as a refusal

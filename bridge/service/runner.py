@@ -14,7 +14,7 @@ from ..decisions import Event
 from ..outputs import Output
 from ..sources.base import Source
 from ..sources.health import NO_DATA, STREAMING, Watchdog
-from .control import printable
+from .control import PARTLY, printable
 from .outputwatch import OutputWatch
 from .pipeline import Pipeline
 
@@ -108,6 +108,12 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print, warn=None)
     return left_out
 
 
+def left_out_words(left_out: dict) -> str:
+    """The part of a reload's answer naming destinations that could not be opened, and why."""
+    return "".join(f"; but destination {name!r} could not be opened, its cues go nowhere: {printable(why, 160)}"
+                   for name, why in sorted(left_out.items()))
+
+
 def no_rebaseline(name: str, why: str, holding: bool) -> str:
     """A rebaseline's refusal for a garment whose data does not flow (``why``): nobody is
     there to hold still, and a garment still calibrating does so once its data comes."""
@@ -173,25 +179,29 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             if on_event:
                 on_event(e, Timing((decided - arrived) * 1e3, (sent - arrived) * 1e3, not_sent))
 
-    def apply(change, quiet: bool = False) -> None:
-        """Swap in a reloaded mapping; ``quiet``: the outcome is said by the caller (a command's answer)."""
+    def apply(change, quiet: bool = False) -> dict:
+        """Swap in a reloaded mapping; ``quiet``: the outcome is said by the caller (a command's answer).
+        Returns the destinations left out ({name: why}): their cues go nowhere."""
         if change.mapping is None:
             stats.broken_reloads += 1
             if not quiet:
                 report(f"mapping not reloaded, the last good one keeps running; fix:\n  " + "\n  ".join(change.problems))
-            return
+            return {}
         old = pipeline.mapping
         pipeline.swap_mapping(change.mapping)
         stats.reloads += 1
+        left_out = {}
         if open_fn is not None:
-            reconcile_outputs(outputs, old, change.mapping, open_fn, report)
+            left_out = reconcile_outputs(outputs, old, change.mapping, open_fn, report)
         m = change.mapping
         if not quiet:
             report(f"mapping reloaded: {len(m.rules)} rules, {len(m.controls)} controls"
                    + (f", layer {pipeline.router.layer!r}" if m.layers else ""))
+        return left_out
 
-    def command(kind: str, detail: str, garment: str) -> tuple[bool, str]:
-        """One control message: (done, what was done or why it was refused)."""
+    def command(kind: str, detail: str, garment: str) -> tuple[bool | str, str]:
+        """One control message: (done, what was done or why it was refused); done is PARTLY
+        for a reload whose new destinations could not all be opened."""
         name = pipeline.garment or "garment"
         if garment and garment != pipeline.garment:
             return False, f"no garment {printable(garment)!r} here; this loop runs {name!r}"
@@ -205,10 +215,13 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             if watcher is None:
                 return False, f"{name} has no mapping file to reload"
             change = watcher.reload_now()
-            apply(change, quiet=True)   # the answer below is reported once, as every command's
+            left_out = apply(change, quiet=True)   # the answer below is reported once, as every command's
             if change.mapping is None:
                 return False, f"{name}: mapping not reloaded, the last good one keeps running: " + "; ".join(change.problems)
-            return True, f"{name}: mapping reloaded ({len(change.mapping.rules)} rules)"   # as the service says it
+            done = f"{name}: mapping reloaded ({len(change.mapping.rules)} rules)"   # as the service says it
+            if left_out:   # applied, but some cues go nowhere: not a plain "done"
+                return PARTLY, done + left_out_words(left_out)
+            return True, done
         if kind == "layer":
             m = pipeline.mapping
             if m is None or detail not in m.layers:
@@ -243,7 +256,7 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
         if inbox is not None:
             for kind, detail, garment, peer in inbox.receive():
                 ok, text = command(kind, detail, garment)
-                report(("" if ok else "refused: ") + text)
+                report({True: "", False: "refused: "}.get(ok, "partly done: ") + text)
                 inbox.acknowledge(peer, ok, kind, text)
             ignored = inbox.take_ignored()
             if ignored:
