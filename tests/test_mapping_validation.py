@@ -195,3 +195,14 @@ def test_an_osc_float_too_large_for_float32_is_refused_at_check_time():
                       "show.toml", CLASSES, KINDS, CHANNELS)
     from bridge.outputs.osc import encode_osc
     encode_osc(m.rules[0].action.build(Event(1.0, "raise_right", "gesture", 0.5, 0.0, "", 0.25)))  # what is accepted is sent
+
+
+def test_problems_are_listed_in_the_files_order():
+    # The checks run key by key (the gesture before the destination); the list an editor
+    # works down goes by line.
+    text = ('[destinations.desk]\nosc = "127.0.0.1:9000"\n\n[[rule]]\nto = "nowhere"\nnote = 200\n'
+            'gesture = "raise_rihgt"\n')
+    with pytest.raises(MappingError) as info:
+        parse_mapping(text, "show.toml", CLASSES, KINDS, CHANNELS)
+    lines = [int(p.split(":")[1]) for p in info.value.problems]
+    assert len(lines) >= 2 and lines == sorted(lines), info.value.problems

@@ -132,10 +132,12 @@ class _Checker:
         self.channel_names = tuple(channel_names) if channel_names is not None else None
         self.base_dir = base_dir
         self.problems: list[str] = []
+        self.problem_lines: list[int] = []   # the line of each problem, to list them in file order
         self.layer_refs: list[tuple[int, str, str]] = []  # (line, key path, layer) of each set_layer
 
     def bad(self, line: int, key: str, what: str) -> None:
         self.problems.append(f"{self.name}:{line}: {key}: {what}")
+        self.problem_lines.append(line if isinstance(line, int) else 0)
 
     # -- small checks returning None when the value is bad (and reported) -------------------
     def gesture(self, at, key, g, posture_only=False):
@@ -253,8 +255,9 @@ def parse_mapping(text: str, name: str = "<mapping>", classes=None, kinds: dict[
                    f"no rule is in layer {first!r}: {_near(str(first), layers, 'layers in this file')}")
     elif layers:
         first = layers[0]
-    if ck.problems:
-        raise MappingError(ck.problems)
+    if ck.problems:   # in the file's order, as an editor walks it (checks run table by table)
+        order = sorted(range(len(ck.problems)), key=lambda i: ck.problem_lines[i])
+        raise MappingError([ck.problems[i] for i in order])
     return Mapping(dests, tuple(rules), tuple(controls), tuple(layers), first, safety, status, name)
 
 
