@@ -64,8 +64,8 @@ def test_bad_address_port_destination_and_event_kind():
 
 def test_unknown_key_missing_key_bad_args():
     problems = errors(GOOD.replace('address = "/show/next"', 'adress = "/show/next"'))
-    assert "show.toml:7: rule[1].adress: unknown key" in problems[0]
-    assert "show.toml:4: rule[1].address: missing" in problems[1]
+    assert "show.toml:4: rule[1].address: missing" in problems[0]   # in the file's order
+    assert "show.toml:7: rule[1].adress: unknown key" in problems[1]
     problems = errors(GOOD.replace("3, true", "3, {x = 1}"))
     assert problems[0].startswith("show.toml:8: rule[1].args:")
     problems = errors(GOOD.replace("3, true", '"{velocity}"'))
