@@ -383,3 +383,35 @@ hold_still_s = 0.5
     assert len(on) >= 1, err[-2000:]
     for note in {m.note for m in on}:
         assert sum(m.note == note for m in on) <= sum(m.note == note for m in off)
+
+
+# drape started with one piece of it made to fail, as a fault of drape's own would.
+_FAULTY = """
+import sys
+import bridge.service as service
+import bridge.service.daemon as daemon
+from bridge.cli import main
+
+def boom(*_a, **_k):
+    raise RuntimeError("boom")
+
+service.run = boom                     # the single loop's run
+daemon.Service.housekeeping = boom     # the service loop's first round of housekeeping
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+@pytest.mark.parametrize("form", ["single loop", "service"])
+def test_a_fault_inside_drape_is_named_on_the_stop_line(tmp_path, demo_model_file, form):
+    """Not a bare "stopped;" before a traceback: the operator reads that drape itself failed."""
+    if form == "single loop":
+        text = f'[garment]\nname = "lead"\nsimulated = true\nmodel = "{demo_model_file}"\n'
+    else:
+        text = (f'[[garment]]\nname = "lead"\nsimulated = true\nmodel = "{demo_model_file}"\n'
+                f'[control]\nlisten = "127.0.0.1:{free_port()}"\n')
+    (tmp_path / "show.toml").write_text(text)
+    proc = subprocess.run([sys.executable, "-c", _FAULTY, "start", "--config", str(tmp_path / "show.toml")],
+                          capture_output=True, text=True, timeout=120, cwd=ROOT)
+    assert proc.returncode != 0, proc.stderr
+    assert "stopped (a fault inside drape: RuntimeError: boom)" in proc.stderr, proc.stderr
+    assert "Traceback" in proc.stderr and proc.stderr.index("stopped (") < proc.stderr.index("Traceback")

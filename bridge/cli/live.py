@@ -269,7 +269,11 @@ def cmd_serve(a) -> int:
             f" ({', '.join(failed)} failed: see above; the other garments carry on)" if failed else "")
     import gc
     gc.freeze()  # what start loaded (models, modules) is left out of later collections: a full one
-    service.serve()  # then scans only what the loop made, not a pause of tens of ms in the stream
+    try:
+        service.serve()  # then scans only what the loop made, not a pause of tens of ms in the stream
+    except Exception as exc:   # serve closed every output on its way out; the traceback follows
+        log.error("stopped (%s); every output closed, keys and notes let go", stop.reason or _fault_words(exc))
+        raise
     log.info("stopped%s", f" ({stop.reason})" if stop.reason else "")
     if timings is not None:
         try:
@@ -278,6 +282,12 @@ def cmd_serve(a) -> int:
             return _err(f"--timings {a.timings}: {exc}")
         log.info("timings of %d deliveries written to %s", len(timings), a.timings)
     return 0
+
+
+def _fault_words(exc: BaseException) -> str:
+    """Why a live loop stopped when drape itself failed, for its stop line."""
+    from ..service.control import printable
+    return f"a fault inside drape: {type(exc).__name__}: {printable(str(exc), 160)}"
 
 
 def cmd_start(a) -> int:
@@ -349,6 +359,9 @@ def cmd_start(a) -> int:
     except SourceGone as exc:
         print(f"drape: {exc}", file=sys.stderr)
         code = 1
+    except Exception as exc:   # a fault of drape's own: the stop line says so, its traceback follows
+        stop.reason = stop.reason or _fault_words(exc)
+        raise
     finally:
         source.close()
         if inbox:
