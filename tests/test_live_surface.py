@@ -1163,6 +1163,7 @@ class Counted:
 
     def close(self):
         self.closed = True
+        self.stats.on_close = "1 held key released"
 
 
 def test_a_reload_keeps_outputs_whose_settings_did_not_change(tmp_path):
@@ -1182,6 +1183,8 @@ def test_a_reload_keeps_outputs_whose_settings_did_not_change(tmp_path):
     assert outputs["rig"] is rig and not rig.closed               # same settings: untouched
     assert show.closed and outputs["show"] is not show            # changed port: reopened
     assert "more" in outputs and not any("rig" in s for s in said)
+    # the operator reads what closing the changed destination let go of
+    assert "destination 'show' closed: sent 0, dropped 0; on stop: 1 held key released" in said, said
 
 
 def test_sacn_sends_the_safe_look_at_start_unless_told_not_to(tmp_path):

@@ -12,6 +12,7 @@ from dataclasses import dataclass, field
 
 from ..decisions import Event
 from ..outputs import Output
+from ..outputs.base import closing_summary
 from ..sources.base import Source
 from ..sources.health import NO_DATA, STREAMING, Watchdog
 from .control import PARTLY, printable
@@ -93,8 +94,9 @@ def reconcile_outputs(outputs: dict, old, new, open_fn, report=print, warn=None)
     old_d = old.destinations if old is not None else {}
     for name, d in old_d.items():
         if name in outputs and new.destinations.get(name) != d:
-            outputs.pop(name).close()
-            report(f"destination {name!r} closed")
+            o = outputs.pop(name)
+            o.close()
+            report(f"destination {name!r} closed: {closing_summary(o)}")   # what closing let go of
     for name, d in new.destinations.items():
         if name not in outputs:  # new, changed, or left out before: (re)try
             try:
