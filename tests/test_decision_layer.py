@@ -238,3 +238,39 @@ min_change = 0.05
     values = [(0.00, 0.10), (0.01, 0.50), (0.10, 0.52), (0.12, 0.60), (0.20, 0.55), (0.30, 0.70)]
     out = r.route([Event(t, "reach", "control", 1.0, 0.0, "", v) for t, v in values])
     assert [(d.decided_s, d.message.args) for d in out] == [(0.00, (0.10,)), (0.10, (0.52,)), (0.30, (0.70,))]
+
+
+def test_a_key_held_in_one_layer_is_let_go_after_a_switch_to_another():
+    # What a posture holds down is let go by the release recorded when it was pressed, even
+    # when the layer changed in between (the new layer has no rule for that posture at all).
+    text = """
+[destinations.game]
+keys = "x11"
+[layers]
+first = "act1"
+[[rule]]
+gesture = "hold"
+on = "entered"
+layer = "act1"
+to = "game"
+keys = "shift"
+hold = true
+[[rule]]
+gesture = "wave"
+layer = "act2"
+to = "game"
+keys = "space"
+"""
+    r = Router(parse_mapping(text, "m.toml", CLASSES, KINDS))
+    assert [d.message for d in r.route([ev(1.0, "hold", "entered")])] == [KeyAction(("shift",), "down")]
+    r.command(ev(1.5, "", "layer", detail="act2"))
+    assert r.layer == "act2"
+    assert [d.message for d in r.route([ev(3.0, "hold", "left", dur=2.0)])] == [KeyAction(("shift",), "up")]
+    # and switched by a gesture of the new layer's rules while held: the same
+    r = Router(parse_mapping(text.replace('[[rule]]\ngesture = "wave"', '[[rule]]\ngesture = "wave"\nset_layer = "act1"\n'
+                                          '[[rule]]\ngesture = "wave"', 1), "m.toml", CLASSES, KINDS))
+    r.route([ev(1.0, "hold", "entered")])
+    r.command(ev(1.2, "", "layer", detail="act2"))
+    r.route([ev(1.5, "wave", "gesture")])
+    assert r.layer == "act1"
+    assert [d.message for d in r.route([ev(3.0, "hold", "left", dur=2.0)])] == [KeyAction(("shift",), "up")]
