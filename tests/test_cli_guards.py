@@ -410,3 +410,19 @@ def test_evaluate_keeps_an_earlier_report_unless_told(small_take, demo_model_fil
         main(["evaluate", "--model", str(demo_model_file), str(small_take), "--report", str(rep), "--overwrite"])
     with pytest.raises(_Reached):   # a folder not made yet is no obstacle
         main(["evaluate", "--model", str(demo_model_file), str(small_take), "--report", str(tmp_path / "new")])
+
+
+def test_demo_mapping_default_is_the_installed_one_away_from_a_checkout(tmp_path, monkeypatch, capsys):
+    """Found by a docs walkthrough: `drape demo --help` said the default was mappings/demo.toml,
+    but run from a folder without one the demo uses the mapping installed with drape."""
+    from bridge.cli.live import _default_mapping
+    from bridge.examples_data import example_path
+    monkeypatch.chdir(tmp_path)
+    assert _default_mapping() == example_path("demo.toml")
+    (tmp_path / "mappings").mkdir()
+    (tmp_path / "mappings" / "demo.toml").write_text("# the user's own copy\n")
+    assert _default_mapping() == tmp_path / "mappings" / "demo.toml"
+    with pytest.raises(SystemExit):
+        main(["demo", "--help"])
+    helped = " ".join(capsys.readouterr().out.split())
+    assert "mappings/demo.toml in the current folder, else the demo mapping installed with drape" in helped

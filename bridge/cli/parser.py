@@ -57,7 +57,8 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="verb", metavar="VERB")
     d = sub.add_parser("demo", help=VERBS["demo"], description=VERBS["demo"])
     d.add_argument("--for", dest="for_s", type=_POSITIVE, default=None, metavar="SECONDS", help="stop after this many seconds")
-    d.add_argument("--mapping", help="mapping file (default mappings/demo.toml)")
+    d.add_argument("--mapping", help="mapping file (default: mappings/demo.toml in the current folder, else the "
+                   "demo mapping installed with drape)")
     d.add_argument("--seed", type=_NON_NEGATIVE_INT, default=1)
     d.add_argument("--wearer", type=_NON_NEGATIVE_INT, default=0)
     d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
