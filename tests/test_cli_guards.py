@@ -426,3 +426,18 @@ def test_demo_mapping_default_is_the_installed_one_away_from_a_checkout(tmp_path
         main(["demo", "--help"])
     helped = " ".join(capsys.readouterr().out.split())
     assert "mappings/demo.toml in the current folder, else the demo mapping installed with drape" in helped
+
+
+@pytest.mark.parametrize("verb", ["demo", "start"])
+def test_listen_help_names_every_command_the_single_loop_answers(verb, capsys):
+    """Found by a docs walkthrough: --listen's help named arm, disarm, panic and layer only,
+    but the single-garment loop also answers reload, rebaseline and status (docs/service.md)."""
+    from bridge.service.control import INBOX_COMMANDS   # what the --listen inbox takes
+    with pytest.raises(SystemExit):
+        main([verb, "--help"])
+    helped = " ".join(capsys.readouterr().out.split())
+    options = helped[helped.index("options:"):]
+    listen = options[options.index("--listen HOST:PORT"):].split("--pid-file")[0]
+    assert set(INBOX_COMMANDS.values()) == {"arm", "disarm", "panic", "layer", "reload", "status", "rebaseline"}
+    for command in INBOX_COMMANDS.values():
+        assert command in listen, command
