@@ -441,3 +441,22 @@ def test_listen_help_names_every_command_the_single_loop_answers(verb, capsys):
     assert set(INBOX_COMMANDS.values()) == {"arm", "disarm", "panic", "layer", "reload", "status", "rebaseline"}
     for command in INBOX_COMMANDS.values():
         assert command in listen, command
+
+
+@pytest.mark.parametrize("argv, says", [
+    (["--listen", "0.0.0.0:9100"], "--listen: --listen 0.0.0.0:9100 would take commands from the network"),
+    (["--listen", "127.0.0.1:http"], "--listen: write HOST:PORT"),
+    (["--mapping", "absent.toml"], "absent.toml: no such mapping file"),
+])
+def test_demo_refuses_bad_input_before_training(argv, says, tmp_path, monkeypatch, capsys):
+    """Found by a docs walkthrough: `drape demo --listen 0.0.0.0:9100` (or a missing mapping)
+    was refused only after the simulated wearer's model had been trained."""
+    import bridge.evaluation.simulated as simulated
+
+    def no_training(*_a, **_k):
+        raise AssertionError("the demo trained a model before refusing its input")
+    monkeypatch.setattr(simulated, "train_simulated", no_training)
+    monkeypatch.chdir(tmp_path)
+    assert main(["demo", "--for", "1", "--fast", *argv]) == 2
+    captured = capsys.readouterr()
+    assert says in captured.err and "training" not in captured.out
