@@ -410,3 +410,53 @@ def test_evaluate_keeps_an_earlier_report_unless_told(small_take, demo_model_fil
         main(["evaluate", "--model", str(demo_model_file), str(small_take), "--report", str(rep), "--overwrite"])
     with pytest.raises(_Reached):   # a folder not made yet is no obstacle
         main(["evaluate", "--model", str(demo_model_file), str(small_take), "--report", str(tmp_path / "new")])
+
+
+def test_demo_mapping_default_is_the_installed_one_away_from_a_checkout(tmp_path, monkeypatch, capsys):
+    """Found by a docs walkthrough: `drape demo --help` said the default was mappings/demo.toml,
+    but run from a folder without one the demo uses the mapping installed with drape."""
+    from bridge.cli.live import _default_mapping
+    from bridge.examples_data import example_path
+    monkeypatch.chdir(tmp_path)
+    assert _default_mapping() == example_path("demo.toml")
+    (tmp_path / "mappings").mkdir()
+    (tmp_path / "mappings" / "demo.toml").write_text("# the user's own copy\n")
+    assert _default_mapping() == tmp_path / "mappings" / "demo.toml"
+    with pytest.raises(SystemExit):
+        main(["demo", "--help"])
+    helped = " ".join(capsys.readouterr().out.split())
+    assert "mappings/demo.toml in the current folder, else the demo mapping installed with drape" in helped
+
+
+@pytest.mark.parametrize("verb", ["demo", "start"])
+def test_listen_help_names_every_command_the_single_loop_answers(verb, capsys):
+    """Found by a docs walkthrough: --listen's help named arm, disarm, panic and layer only,
+    but the single-garment loop also answers reload, rebaseline and status (docs/service.md)."""
+    from bridge.service.control import INBOX_COMMANDS   # what the --listen inbox takes
+    with pytest.raises(SystemExit):
+        main([verb, "--help"])
+    helped = " ".join(capsys.readouterr().out.split())
+    options = helped[helped.index("options:"):]
+    listen = options[options.index("--listen HOST:PORT"):].split("--pid-file")[0]
+    assert set(INBOX_COMMANDS.values()) == {"arm", "disarm", "panic", "layer", "reload", "status", "rebaseline"}
+    for command in INBOX_COMMANDS.values():
+        assert command in listen, command
+
+
+@pytest.mark.parametrize("argv, says", [
+    (["--listen", "0.0.0.0:9100"], "--listen: --listen 0.0.0.0:9100 would take commands from the network"),
+    (["--listen", "127.0.0.1:http"], "--listen: write HOST:PORT"),
+    (["--mapping", "absent.toml"], "absent.toml: no such mapping file"),
+])
+def test_demo_refuses_bad_input_before_training(argv, says, tmp_path, monkeypatch, capsys):
+    """Found by a docs walkthrough: `drape demo --listen 0.0.0.0:9100` (or a missing mapping)
+    was refused only after the simulated wearer's model had been trained."""
+    import bridge.evaluation.simulated as simulated
+
+    def no_training(*_a, **_k):
+        raise AssertionError("the demo trained a model before refusing its input")
+    monkeypatch.setattr(simulated, "train_simulated", no_training)
+    monkeypatch.chdir(tmp_path)
+    assert main(["demo", "--for", "1", "--fast", *argv]) == 2
+    captured = capsys.readouterr()
+    assert says in captured.err and "training" not in captured.out

@@ -326,3 +326,16 @@ def test_a_host_that_clears_its_input_on_opening_still_gets_the_header():
         os.close(fd)
     assert data.startswith(b"t_s,left_sleeve,right_sleeve,left_front,right_front\n"), data[:80]
     assert data.count(b"\n") > 5                # and the lines after it
+
+
+def test_compare_layouts_names_what_seen_is_scored_on(capsys):
+    """Found by a docs walkthrough: with --sessions 1 the example printed "seen wearer, new
+    session", but with one session "seen" is scored on the wearers' training takes."""
+    import runpy
+    script = runpy.run_path(str(ROOT / "examples" / "compare_layouts.py"))
+    args = [str(LAYOUTS / "sleeves_only.toml"), "--wearers", "2", "--repetitions", "1", "--vocabulary", "demo"]
+    assert script["main"]([*args, "--sessions", "1"]) == 0
+    out = capsys.readouterr().out
+    assert "seen wearer, its training takes" in out and "new session" not in out
+    assert script["main"]([*args, "--sessions", "2"]) == 0
+    assert "seen wearer, new session" in capsys.readouterr().out

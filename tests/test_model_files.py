@@ -50,8 +50,10 @@ def test_garbage_and_missing_files(tmp_path):
     (tmp_path / "junk.npz").write_bytes(b"not a zip at all")
     with pytest.raises(ModelError, match="not a drape model"):
         load_model(tmp_path / "junk.npz")
-    with pytest.raises(ModelError, match="no such model file"):
+    with pytest.raises(ModelError, match="no such model file") as missing:
         load_model(tmp_path / "absent.npz")
+    # the hint is the fit command as `drape fit --help` spells it (takes are TAKE there)
+    assert "`drape fit TAKE... -o absent.npz`" in str(missing.value)
 
 
 def test_wrong_shapes_and_metadata(tmp_path):

@@ -137,3 +137,24 @@ def test_options_are_checked_before_the_people_are_announced(tmp_path, monkeypat
     said = capsys.readouterr()
     assert refused in said.err and "adding" not in said.out
     assert not (tmp_path / "m.npz").exists()
+
+
+def test_the_fit_names_the_layout_when_it_suggests_people_for_another_garment(tmp_path, capsys):
+    """Found by a docs walkthrough: fitting a take of examples/layouts/eight_cables.toml, the
+    hint said `drape simulate --ordinary-people 6 --out others`, whose takes (the built-in four
+    cables) that fit then refuses; the README says to add `--layout FILE` for your garment."""
+    layout = ROOT / "examples" / "layouts" / "sleeves_only.toml"
+    take = tmp_path / "coat.take"
+    assert main(["simulate", "--layout", str(layout), "--rate-hz", "20", "--repetitions", "2", "--null-s", "20",
+                 "--out", str(take)]) == 0
+    capsys.readouterr()
+    assert main(["fit", str(take), "-o", str(tmp_path / "coat.npz"), "--classifier", "dtw"]) == 0
+    hint = [line for line in capsys.readouterr().out.splitlines() if line.startswith("no --ordinary takes")]
+    assert len(hint) == 1 and "--ordinary-people 6 --layout FILE --out others" in hint[0]
+    # the built-in jacket's takes keep the plain command (the people wear the same cables)
+    plain = tmp_path / "plain.take"
+    assert main(["simulate", "--rate-hz", "20", "--repetitions", "2", "--null-s", "20", "--out", str(plain)]) == 0
+    capsys.readouterr()
+    assert main(["fit", str(plain), "-o", str(tmp_path / "plain.npz"), "--classifier", "dtw"]) == 0
+    hint = [line for line in capsys.readouterr().out.splitlines() if line.startswith("no --ordinary takes")]
+    assert len(hint) == 1 and "--ordinary-people 6 --out others" in hint[0] and "--layout" not in hint[0]

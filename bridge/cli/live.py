@@ -133,6 +133,18 @@ def cmd_demo(a) -> int:
     tour = list(GESTURES)
     source = SimulatedSource(seed=a.seed + 1, wearer=a.wearer, session=2, realtime=not a.fast, duration_s=a.for_s,
                              first=tour_script(np.random.default_rng([a.seed, a.wearer, 23]), tour))
+    # Bad input is refused before the training wait.
+    try:
+        inbox = _inbox(a.listen)
+    except (ValueError, OSError) as exc:
+        return _err(f"--listen: {exc}")
+
+    def fail(text: str) -> int:
+        if inbox:
+            inbox.close()
+        return _err(text)
+    if not mapping_path.is_file():
+        return fail(f"mapping has errors:\n{mapping_path}: no such mapping file")
     if a.model:  # a model of the simulated jacket saved before: no training wait
         from ..recognition import load_model
         try:
@@ -143,7 +155,7 @@ def cmd_demo(a) -> int:
                                  f"jacket has {', '.join(source.channel_names)}: use a model of the simulated jacket "
                                  f"(or leave out --model to train one)")
         except ModelError as exc:
-            return _err(str(exc))
+            return fail(str(exc))
         print(f"model {a.model}: {len(model.classes) - 1} gestures", flush=True)
     else:
         print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
@@ -154,11 +166,8 @@ def cmd_demo(a) -> int:
               f"cross-validated window accuracy {model.summary['cross_validated_window_accuracy']:.2f}", flush=True)
     try:
         watcher = MappingWatcher(mapping_path, model.classes, model.kinds, model.channel_names)
-        inbox = _inbox(a.listen)
     except MappingError as exc:
-        return _err(f"mapping has errors:\n{exc}")
-    except (ValueError, OSError) as exc:
-        return _err(f"--listen: {exc}")
+        return fail(f"mapping has errors:\n{exc}")
     mapping = watcher.mapping
     from ..mapping.watcher import nothing_to_send
     note = nothing_to_send(mapping, mapping_path)
@@ -167,7 +176,7 @@ def cmd_demo(a) -> int:
     try:
         stop = _stop_flag(a.pid_file)  # before anything is held: every ending lets go
     except OSError as exc:
-        return _err(f"--pid-file: {exc}")
+        return fail(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping)
     for name, d in mapping.destinations.items():
         if name in outputs:  # one that could not open was reported as left out

@@ -170,9 +170,15 @@ def cmd_fit(a) -> int:
         if advice:
             print(advice)
         if not a.ordinary and a.classifier != "linear" and not model.summary.get("ordinary_takes"):
+            from ..evaluation.simulated import built_in_jacket_takes
+            # Other cables than the built-in jacket's: the people must wear the same layout,
+            # or the fit refuses their takes (other channels).
+            people = ("drape simulate --ordinary-people 6 --out others writes simulated ones"
+                      if built_in_jacket_takes(recs) else
+                      "drape simulate --ordinary-people 6 --layout FILE --out others writes simulated ones "
+                      "in your garment's cable layout (FILE)")
             print("no --ordinary takes: on the simulated troupe, models fitted without other people's ordinary movement "
-                  "fired about 17 to 120 times as often during it (docs/benchmarks.md, Spotting); "
-                  "drape simulate --ordinary-people 6 --out others writes simulated ones")
+                  "fired about 17 to 120 times as often during it (docs/benchmarks.md, Spotting); " + people)
     return 0
 
 

@@ -30,6 +30,10 @@ VERBS = {
     "send": "send a command to a running daemon's control port (arm, disarm, panic, layer, ...)",
 }
 
+# What `drape send` can ask of the single-garment loop (its answers: runner.run's command).
+LISTEN_HELP = ("take control messages here (arm, disarm, panic, layer, reload, rebaseline, status: see drape send); "
+               "loopback only, and they never press keys")
+
 
 def _checked(convert, ok, what: str):
     """An argparse type: ``convert`` the text, then refuse it unless ``ok(value)``, saying ``what``."""
@@ -57,17 +61,18 @@ def build_parser() -> argparse.ArgumentParser:
     sub = p.add_subparsers(dest="verb", metavar="VERB")
     d = sub.add_parser("demo", help=VERBS["demo"], description=VERBS["demo"])
     d.add_argument("--for", dest="for_s", type=_POSITIVE, default=None, metavar="SECONDS", help="stop after this many seconds")
-    d.add_argument("--mapping", help="mapping file (default mappings/demo.toml)")
+    d.add_argument("--mapping", help="mapping file (default: mappings/demo.toml in the current folder, else the "
+                   "demo mapping installed with drape)")
     d.add_argument("--seed", type=_NON_NEGATIVE_INT, default=1)
     d.add_argument("--wearer", type=_NON_NEGATIVE_INT, default=0)
     d.add_argument("--fast", action="store_true", help="run as fast as possible instead of in real time")
-    d.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
+    d.add_argument("--listen", metavar="HOST:PORT", help=LISTEN_HELP)
     d.add_argument("--model", help="use this model of the simulated jacket instead of training one first")
     d.add_argument("--pid-file", metavar="FILE", help="write the process id here (for kill -USR1 \"$(cat FILE)\")")
     d.set_defaults(func=cmd_demo)
     s = sub.add_parser("start", help=VERBS["start"], description=VERBS["start"])
     s.add_argument("--config", required=True, help="daemon config file (TOML)")
-    s.add_argument("--listen", metavar="HOST:PORT", help="take control messages (arm, disarm, panic, layer) here")
+    s.add_argument("--listen", metavar="HOST:PORT", help=LISTEN_HELP)
     s.add_argument("--pid-file", metavar="FILE", help="write the process id here (for kill -USR1 \"$(cat FILE)\")")
     s.add_argument("--log-level", default="info", choices=("debug", "info", "warning", "error"),
                    help="with [[garment]] configs: how much to log to stderr")

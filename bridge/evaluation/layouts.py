@@ -1,9 +1,9 @@
 """Which cable layout separates the vocabulary best for wearers it was not trained on?
 
-``leave_one_wearer_out`` trains the default classifier (``linear``, as ``drape fit``
-does) on every wearer but one and scores the windows of the one left out; it also
-scores held-out sessions of the wearers it did train on, so the two can be compared
-(unseen wearers are harder).  ``compare_layouts`` simulates the same troupe in
+``leave_one_wearer_out`` trains the ``linear`` classifier (quick to fit; ``drape fit``
+defaults to ``minirocket``) on every wearer but one and scores the windows of the one
+left out; it also scores held-out sessions of the wearers it did train on, so the two
+can be compared (unseen wearers are harder).  ``compare_layouts`` simulates the same troupe in
 several layouts and runs it for each: the garment-design aid of ``examples/``.
 
 The score is balanced window accuracy: the mean over classes (null included) of the

@@ -101,7 +101,7 @@ def load_model(path: str | Path):
     """
     path = Path(path)
     if not path.is_file():
-        raise ModelError(f"{path}: no such model file (train one with `drape fit RECORDINGS -o {path.name}`)")
+        raise ModelError(f"{path}: no such model file (train one with `drape fit TAKE... -o {path.name}`)")
     ar = _Archive(path)
     with ar.zip:
         _require("meta_json" in ar.names, path, "no metadata: not a drape model file")
