@@ -3,8 +3,8 @@
 Simulates the same troupe (same people, same scripts, same seed) in each layout of
 examples/layouts/, and scores each with leave-one-wearer-out: the linear classifier
 is trained on all wearers but one and scored on the one left out ("unseen"), and on a
-new session of the wearers it trained on ("seen"; with one session, their training
-takes).  Scores are balanced window accuracy (mean per-class recall, null included);
+new session of the wearers it trained on ("seen"; not scored with one session each: their
+training takes would not be held out).  Scores are balanced window accuracy (mean per-class recall, null included);
 chance is 1 / classes.
 
     python examples/compare_layouts.py                  # 6 wearers x 2 sessions, full vocabulary
@@ -40,15 +40,15 @@ def main(argv=None) -> int:
           f"{len(nulls)} null kinds, seed {a.seed}", flush=True)
     t0 = time.monotonic()
 
-    # With one session per wearer, "seen" is scored on the takes the model was trained on.
-    seen = "seen wearer, new session" if a.sessions > 1 else "seen wearer, its training takes"
+    def score(v) -> str:   # one session each: no new session of a known wearer to score on
+        return "n/a (one session each)" if v is None else f"{v:.3f}"
 
     def show(r):
         print(f"{r['layout']:<48} {r['channels']:>2} ch   unseen wearer {r['unseen']:.3f}   "
-              f"{seen} {r['seen']:.3f}   chance {r['chance']:.3f}   "
+              f"seen wearer, new session {score(r['seen'])}   chance {r['chance']:.3f}   "
               f"({time.monotonic() - t0:.0f} s)", flush=True)
         for f in r["folds"]:
-            print(f"    left out {f['wearer']:<8} unseen {f['unseen']:.3f}  seen {f['seen']:.3f}", flush=True)
+            print(f"    left out {f['wearer']:<8} unseen {f['unseen']:.3f}  seen {score(f['seen'])}", flush=True)
 
     compare_layouts(layouts, a.seed, a.wearers, a.sessions, a.repetitions, gestures, nulls, progress=show)
     return 0
