@@ -20,13 +20,15 @@ E131_OPTIONS, E131_UNIVERSE = 112, 113   # ANSI E1.31-2018 Table 4-1 (framing la
 STREAM_TERMINATED = 0x40                  # ANSI E1.31-2018 6.2.6: options bit 6
 
 
-def wait_for(condition, timeout_s=20.0, what="condition"):
+def wait_for(condition, timeout_s=20.0, what="condition", said=None):
+    """Poll ``condition`` until true; fail after ``timeout_s``. ``said()``: what the program under
+    test printed so far, carried in the failure message."""
     end = time.monotonic() + timeout_s
     while time.monotonic() < end:
         if condition():
             return
         time.sleep(0.05)
-    raise AssertionError(f"timed out waiting for {what}")
+    raise AssertionError(f"timed out waiting for {what}" + (f"\n--- its output so far ---\n{said()}" if said else ""))
 
 
 class SacnPeer:
@@ -1093,22 +1095,30 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
     threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True).start()
     threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
 
+    fed = [0, ""]  # lines written to the pty; why the garment stopped early
+
     def garment():
-        i = 0
-        while not done.is_set() and i < len(lines):
-            os.write(master, b"".join(lines[i:i + 10]))
-            i += 10
-            time.sleep(0.05)
+        try:
+            while not done.is_set() and fed[0] < len(lines):
+                os.write(master, b"".join(lines[fed[0]:fed[0] + 10]))
+                fed[0] += 10
+                time.sleep(0.05)
+        except OSError as exc:
+            fed[1] = f" ({exc})"
+
+    def said():
+        return (f"garment: {fed[0]} of {len(lines)} lines written{fed[1]}\n"
+                f"stderr:\n{''.join(err)}stdout:\n{''.join(out)}")
     try:
-        wait_for(lambda: any(" on " in l for l in err), 30, "drape to start")
+        wait_for(lambda: any(" on " in l for l in err), 30, "drape to start", said)
         xvfb.terminate()  # the display goes away mid-show
         xvfb.wait(5)
         threading.Thread(target=garment, daemon=True).start()
-        wait_for(lambda: any("arms_crossed" in l and "entered" in l for l in out), 60, "the posture")
-        wait_for(lambda: any("output kb failing" in l for l in err), 10, "the failure to be told while running")
-        assert proc.poll() is None
+        wait_for(lambda: any("arms_crossed" in l and "entered" in l for l in out), 60, "the posture", said)
+        wait_for(lambda: any("output kb failing" in l for l in err), 10, "the failure to be told while running", said)
+        assert proc.poll() is None, said()
         proc.send_signal(signal.SIGTERM)
-        assert proc.wait(30) == 0
+        assert proc.wait(30) == 0, said()
     finally:
         done.set()
         proc.kill()
@@ -1117,8 +1127,8 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
         os.close(slave)
     time.sleep(0.2)
     text = "".join(err)
-    assert "Exception ignored" not in text and "Traceback" not in text
-    assert "output kb: sent" in text
+    assert "Exception ignored" not in text and "Traceback" not in text, said()
+    assert "output kb: sent" in text, said()
 
 
 # ---- hot reload that cannot blank the stage ------------------------------------------------------
