@@ -115,21 +115,17 @@ def test_uinput_names_exist_in_the_kernel_table():
 
 # -- real key events under Xvfb ---------------------------------------------------------
 
-@pytest.fixture
-def xvfb(monkeypatch):
-    if shutil.which("Xvfb") is None:
-        pytest.skip("Xvfb is not installed (Debian package xvfb); no X server to receive keys")
-    pytest.importorskip("Xlib", reason="python-xlib is not installed")
-    if importlib.util.find_spec("pynput") is None:  # importing it needs the display below
-        pytest.skip("pynput (extra 'keys') is not installed")
-    # Xvfb picks a free display itself (its lock files make that safe against another run
-    # doing the same) and writes the number once it accepts connections: no polling for a
-    # socket file that exists a moment before connections are accepted.
+def start_xvfb():
+    """A new Xvfb: (process, display name such as ":3"), once it accepts connections.
+
+    Xvfb picks a free display itself (its lock files make that safe against another run
+    doing the same at the same moment, where choosing a number by looking for a free lock
+    file first is not) and writes the number once it accepts connections: no polling for a
+    socket file that exists a moment before connections are accepted."""
     r, w = os.pipe()
     proc = subprocess.Popen(["Xvfb", "-displayfd", str(w), "-screen", "0", "1024x768x24", "-nolisten", "tcp"],
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, pass_fds=(w,))
     os.close(w)
-    d = None
     try:
         got = b""
         end = time.monotonic() + 10
@@ -137,15 +133,30 @@ def xvfb(monkeypatch):
             ready, _, _ = select.select([r], [], [], max(0.0, end - time.monotonic()))
             chunk = os.read(r, 16) if ready else b""
             if not chunk:
+                proc.kill()
+                proc.wait()
                 pytest.fail("Xvfb did not start within 10 s")
             got += chunk
-        name = f":{int(got)}"
+    finally:
+        os.close(r)
+    return proc, f":{int(got)}"
+
+
+@pytest.fixture
+def xvfb(monkeypatch):
+    if shutil.which("Xvfb") is None:
+        pytest.skip("Xvfb is not installed (Debian package xvfb); no X server to receive keys")
+    pytest.importorskip("Xlib", reason="python-xlib is not installed")
+    if importlib.util.find_spec("pynput") is None:  # importing it needs the display below
+        pytest.skip("pynput (extra 'keys') is not installed")
+    proc, name = start_xvfb()
+    d = None
+    try:
         monkeypatch.setenv("DISPLAY", name)
         from Xlib import display
         d = display.Display(name)
         yield d
     finally:
-        os.close(r)
         if d is not None:
             d.close()  # our connection goes before the server does
         proc.terminate()

@@ -1079,9 +1079,8 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
         pytest.skip("pynput (extra 'keys') is not installed")
     from bridge.garment import Jacket
     from bridge.sources.textline import format_line
-    n = next(n for n in range(201, 300) if not os.path.exists(f"/tmp/.X{n}-lock"))
-    xvfb = subprocess.Popen(["Xvfb", f":{n}", "-nolisten", "tcp"], stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
-    wait_for(lambda: os.path.exists(f"/tmp/.X11-unix/X{n}"), 10, "Xvfb")
+    from test_keys import start_xvfb
+    xvfb, display = start_xvfb()  # a display of our own: another run's Xvfb going away is not ours
     take = Jacket(seed=1, wearer=0, session=5).perform([("standing", 8.0), ("arms_crossed", 60.0)])
     lines = [format_line(v) for v in take.freq_hz]
     (tmp_path / "keys.toml").write_text('[destinations.kb]\nkeys = "x11"\n[[rule]]\ngesture = "arms_crossed"\n'
@@ -1090,10 +1089,12 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
     (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
                                         f'model = "{demo_model_file}"\nmapping = "keys.toml"\n')
     proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")), stdout=subprocess.PIPE,
-                            stderr=subprocess.PIPE, text=True, env=dict(os.environ, DISPLAY=f":{n}"))
+                            stderr=subprocess.PIPE, text=True, env=dict(os.environ, DISPLAY=display))
     out, err, done = [], [], threading.Event()
-    threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True).start()
-    threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True).start()
+    readers = [threading.Thread(target=lambda: [out.append(l) for l in proc.stdout], daemon=True),
+               threading.Thread(target=lambda: [err.append(l) for l in proc.stderr], daemon=True)]
+    for r in readers:
+        r.start()
 
     fed = [0, ""]  # lines written to the pty; why the garment stopped early
 
@@ -1110,7 +1111,7 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
         return (f"garment: {fed[0]} of {len(lines)} lines written{fed[1]}\n"
                 f"stderr:\n{''.join(err)}stdout:\n{''.join(out)}")
     try:
-        wait_for(lambda: any(" on " in l for l in err), 30, "drape to start", said)
+        wait_for(lambda: any("on " + os.ttyname(slave) in l for l in err), 30, "drape to start", said)
         xvfb.terminate()  # the display goes away mid-show
         xvfb.wait(5)
         threading.Thread(target=garment, daemon=True).start()
@@ -1123,9 +1124,11 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
         done.set()
         proc.kill()
         xvfb.kill()
+        xvfb.wait(5)
         os.close(master)
         os.close(slave)
-    time.sleep(0.2)
+    for r in readers:  # every line the daemon printed before it ended, not those read within some delay
+        r.join(10)
     text = "".join(err)
     assert "Exception ignored" not in text and "Traceback" not in text, said()
     assert "output kb: sent" in text, said()
