@@ -1070,6 +1070,76 @@ def test_the_live_loop_reports_a_failing_output_while_running(demo_model):
         loop.join(10)
 
 
+class HungKeyboard:
+    """A keyboard whose X server stopped answering: a press never returns until ``answer`` is set."""
+
+    def __init__(self):
+        self.answer, self.pressing = threading.Event(), threading.Event()
+
+    def press(self, key):
+        self.pressing.set()
+        self.answer.wait()
+
+    def release(self, key):
+        pass
+
+    def close(self):
+        pass
+
+
+class Kept:
+    """An output that keeps what it is sent (the lights, say)."""
+
+    def __init__(self):
+        from bridge.outputs.base import OutputStats
+        self.stats, self.got = OutputStats(), []
+
+    def send(self, message):
+        self.got.append(message)
+        return True
+
+    def close(self):
+        pass
+
+
+def test_a_keys_destination_whose_display_hangs_holds_up_nothing_in_the_loop(demo_model):
+    # A display that stops answering (a frozen X server, a dead remote connection) blocks the
+    # keys worker in its write. The loop hands messages over and never waits on that worker:
+    # a panic still reaches the other destinations, keys pile up only to be dropped, and the
+    # loop ends when told.
+    from bridge.mapping import parse_mapping
+    from bridge.mapping.messages import KeyAction, Release
+    from bridge.outputs import QueuedOutput
+    from bridge.outputs.keys import KeyOutput
+    from bridge.service import Pipeline, StopFlag, run
+    m = parse_mapping('[destinations.kb]\nkeys = "x11"\n[destinations.lights]\nosc = "127.0.0.1:9"\n', "m.toml",
+                      demo_model.classes, demo_model.kinds, demo_model.channel_names)
+    board, lights = HungKeyboard(), Kept()
+    kb = QueuedOutput(KeyOutput("kb", board), capacity=4)
+    kb.send(KeyAction(("shift",), "down"))
+    stop = StopFlag()
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"),
+                                              {"kb": kb, "lights": lights}, stop),
+                            kwargs=dict(report=lambda text: None), daemon=True)
+    try:
+        wait_for(board.pressing.is_set, 10, "the keys worker to hang in its press")
+        loop.start()
+        for n in (1, 2, 3):
+            stop.request_panic()
+            wait_for(lambda: sum(isinstance(x, Release) for x in lights.got) == n, 10,
+                     f"panic {n} to reach the lights while the display hangs")
+        for _ in range(10):
+            kb.send(KeyAction(("a",), "tap"))  # more than the queue holds: dropped, never waited for
+        assert kb.stats.overflowed > 0
+        stop.set("test")
+        loop.join(10)
+        assert not loop.is_alive() and not board.answer.is_set()
+    finally:
+        stop.set("test")
+        board.answer.set()
+        kb.close(drain_s=0.0, join_s=5.0)
+
+
 def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_closes_quietly(tmp_path, demo_model_file):
     import shutil
     if shutil.which("Xvfb") is None:
