@@ -1070,6 +1070,59 @@ def test_the_live_loop_reports_a_failing_output_while_running(demo_model):
         loop.join(10)
 
 
+def holders_of(path, ours=()) -> list[str]:
+    """Other processes with the terminal device at ``path`` open, as "pid command" (Linux /proc;
+    processes whose descriptors cannot be read are not seen). ``ours``: pids to leave out."""
+    rdev = os.stat(path).st_rdev
+    found = []
+    for pid in filter(str.isdigit, os.listdir("/proc")):
+        if int(pid) in ours or int(pid) == os.getpid():
+            continue
+        try:
+            fds = os.listdir(f"/proc/{pid}/fd")
+        except OSError:
+            continue
+        for fd in fds:
+            try:
+                st = os.stat(f"/proc/{pid}/fd/{fd}")
+            except OSError:
+                continue
+            if st.st_rdev == rdev and (st.st_mode & 0o170000) == 0o020000:  # the same character device
+                try:
+                    with open(f"/proc/{pid}/cmdline", "rb") as f:
+                        cmd = f.read().replace(b"\0", b" ").decode(errors="replace").strip()
+                except OSError:
+                    cmd = "?"
+                found.append(f"{pid} {cmd}")
+                break
+    return found
+
+
+def garment_pty(settle_s=1.5, tries=4):
+    """A pseudo-terminal (master, slave fds) that no other process has opened.
+
+    Pseudo-terminal numbers are handed out lowest first and reused at once, and a daemon
+    elsewhere on the machine (another test run, a walkthrough) whose own pseudo-terminal went
+    away keeps reopening it by path, about once a second: it would open ours, lock it and read
+    the garment's lines, and our daemon would see none. So each new pseudo-terminal is left
+    alone for ``settle_s`` first; one that someone opened is kept open (so the next has
+    another number) and closed only once a clean one is found."""
+    taken = []
+    try:
+        for _ in range(tries):
+            master, slave = os.openpty()
+            time.sleep(settle_s)
+            if not holders_of(os.ttyname(slave)):
+                return master, slave
+            taken.append((master, slave))
+        pytest.fail("every new pseudo-terminal was opened by another process: "
+                    + "; ".join(f"{os.ttyname(s)}: {', '.join(holders_of(os.ttyname(s)))}" for _, s in taken))
+    finally:
+        for fds in taken:
+            for fd in fds:
+                os.close(fd)
+
+
 class HungKeyboard:
     """A keyboard whose X server stopped answering: a press never returns until ``answer`` is set."""
 
@@ -1155,8 +1208,9 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
     lines = [format_line(v) for v in take.freq_hz]
     (tmp_path / "keys.toml").write_text('[destinations.kb]\nkeys = "x11"\n[[rule]]\ngesture = "arms_crossed"\n'
                                         'on = "entered"\nto = "kb"\nkeys = "shift"\nhold = true\n')
-    master, slave = os.openpty()
-    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+    master, slave = garment_pty()  # not one that a daemon elsewhere keeps reopening
+    port = os.ttyname(slave)
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{port}"\n'
                                         f'model = "{demo_model_file}"\nmapping = "keys.toml"\n')
     proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")), stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True, env=dict(os.environ, DISPLAY=display))
@@ -1178,10 +1232,16 @@ def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_clos
             fed[1] = f" ({exc})"
 
     def said():
+        try:
+            others = holders_of(port, {proc.pid})
+        except OSError:  # the pseudo-terminal is gone (closed at the end)
+            others = []
         return (f"garment: {fed[0]} of {len(lines)} lines written{fed[1]}\n"
-                f"stderr:\n{''.join(err)}stdout:\n{''.join(out)}")
+                + (f"the garment's port is open in other processes too: {'; '.join(others)}\n" if others else "")
+                + f"stderr:\n{''.join(err)}stdout:\n{''.join(out)}")
     try:
-        wait_for(lambda: any("on " + os.ttyname(slave) in l for l in err), 30, "drape to start", said)
+        wait_for(lambda: any("on " + port in l for l in err), 30, "drape to start", said)
+        assert not holders_of(port, {proc.pid}), said()  # the garment's lines are for our daemon alone
         xvfb.terminate()  # the display goes away mid-show
         xvfb.wait(5)
         threading.Thread(target=garment, daemon=True).start()
