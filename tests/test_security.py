@@ -142,6 +142,15 @@ def test_garments_fed_over_the_network_get_no_keys_output():
         service.opener(Garment("coat", SimpleNamespace(input="osc")))(m.destinations["kb"])
     service.opener(Garment("coat", SimpleNamespace(input="serial")))(m.destinations["kb"])
     assert "kb" in opened
+    # A serial port given as a pyserial URL that reaches the network (pyserial's URL handlers,
+    # socket:// and rfc2217://, pyserial documentation "URL Handlers") is network input too.
+    for port in ("socket://10.0.0.5:7777", "rfc2217://10.0.0.5:2217", "SOCKET://h:1", "spy://socket://h:1"):
+        with pytest.raises(OutputUnavailable, match="never pressed.*URL"):
+            service.opener(Garment("coat", SimpleNamespace(input="serial", port=port)))(m.destinations["kb"])
+    opened.clear()
+    for port in ("/dev/ttyACM0", "usb:2e8a:000a", "loop://", None):   # local: keys stay
+        service.opener(Garment("coat", SimpleNamespace(input="serial", port=port)))(m.destinations["kb"])
+    assert opened == ["kb"] * 4
 
 
 # ---- paths from configs ----------------------------------------------------------------------------

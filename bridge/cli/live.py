@@ -334,8 +334,8 @@ def cmd_start(a) -> int:
     except (SourceGone, ValueError) as exc:
         return _err(str(exc))
     where = cfg.port if cfg.input == "serial" else f"OSC {cfg.listen} {cfg.address}"
-    from ..service.runner import keys_only_for_local_input
-    opener = keys_only_for_local_input(_open_one, cfg.input == "osc")  # no keys from network samples
+    from ..service.runner import keys_only_for_local_input, samples_over_network
+    opener = keys_only_for_local_input(_open_one, samples_over_network(cfg))  # no keys from network samples
     try:
         stop = _stop_flag(a.pid_file)  # before anything is held: every ending lets go
     except OSError as exc:

@@ -44,7 +44,8 @@ from . import status as st
 from .control import DONE, PARTLY, REFUSED, printable
 from .outputwatch import OutputWatch
 from .pipeline import CALIBRATING, SETTLING, Pipeline, Settling
-from .runner import StopFlag, keys_only_for_local_input, left_out_words, no_rebaseline, reconcile_outputs
+from .runner import (StopFlag, keys_only_for_local_input, left_out_words, no_rebaseline, reconcile_outputs,
+                     samples_over_network)
 
 log = logging.getLogger("drape")
 
@@ -388,7 +389,7 @@ class Service:
 
     def opener(self, g: Garment):
         """How this garment's outputs are opened: no keys for samples from the network."""
-        return keys_only_for_local_input(self.open_fn, getattr(g.cfg, "input", "serial") == "osc")
+        return keys_only_for_local_input(self.open_fn, samples_over_network(g.cfg))
 
     def reconcile(self, g: Garment, old, new) -> None:
         """``reconcile_outputs`` for a garment: a destination that could not be opened is a

@@ -69,18 +69,34 @@ class RunStats:
     hop_ms: list = field(default_factory=list)
 
 
-def keys_only_for_local_input(open_fn, network_input: bool):
-    """``open_fn`` for a garment's destinations, refusing keys when its samples come over the
-    network (OSC input): anyone who can send to that port could otherwise type on this
-    computer by sending a gesture's samples. Keys stay for garments on a serial port."""
+def samples_over_network(cfg) -> str:
+    """How a garment's samples can come over the network ("" when they cannot): OSC input, or
+    a port given as a pyserial URL that reaches another machine (``socket://``,
+    ``rfc2217://``, or one wrapping such a URL). Only a device path, a USB identity or
+    ``loop://`` (a test loop in this process) counts as local."""
+    if getattr(cfg, "input", "serial") == "osc":
+        return 'its samples come over the network (input = "osc")'
+    port = str(getattr(cfg, "port", "") or "")
+    scheme = port.split("://", 1)[0].lower() if "://" in port else ""
+    if scheme and scheme != "loop":
+        return f"its port {port!r} is a {scheme}:// URL, which samples can reach from the network"
+    return ""
+
+
+def keys_only_for_local_input(open_fn, network_input: bool | str):
+    """``open_fn`` for a garment's destinations, refusing keys when its samples can come over
+    the network (``network_input``: true, or the reason from ``samples_over_network``):
+    anyone who can send to that port could otherwise type on this computer by sending a
+    gesture's samples. Keys stay for garments on a local serial port."""
     if not network_input:
         return open_fn
+    why = network_input if isinstance(network_input, str) else 'its samples come over the network (input = "osc")'
 
     def opener(d):
         if getattr(d, "kind", "") == "keys":
             from ..outputs import OutputUnavailable
-            raise OutputUnavailable("keys are never pressed for a garment whose samples come over the "
-                                    "network (input = \"osc\"); use a serial garment for keys")
+            raise OutputUnavailable(f"keys are never pressed for this garment: {why}; use a garment on a local "
+                                    "serial port for keys")
         return open_fn(d)
     return opener
 
