@@ -1068,6 +1068,38 @@ def test_the_live_loop_reports_a_failing_output_while_running(demo_model):
         loop.join(10)
 
 
+def test_status_from_the_single_loop_names_a_failing_output(demo_model, capsys):
+    """A carer asking `drape send status` while the keys destination is dead (its display went
+    away) must not read only "running, armed": the switch does not work."""
+    from bridge.cli import main
+    from bridge.mapping import parse_mapping
+    from bridge.mapping.messages import OscMessage
+    from bridge.service import Pipeline, StopFlag, run
+    from bridge.service.control import ControlInbox
+    m = parse_mapping('[destinations.kb]\nosc = "127.0.0.1:9"\n', "m.toml", demo_model.classes, demo_model.kinds,
+                      demo_model.channel_names)
+    o = FailingOutput()
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, said = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"),
+                                              {"kb": o}, stop), kwargs=dict(inbox=inbox, report=said.append),
+                            daemon=True)
+    loop.start()
+    try:
+        assert main(["send", "status", "--port", str(inbox.address[1])]) == 0
+        assert "FAILING" not in capsys.readouterr().out      # working: nothing to say
+        o.send(OscMessage("/a", ()))
+        o.send(OscMessage("/a", ()))
+        wait_for(lambda: any("output kb failing" in s for s in said), 5, "the failure to be reported while running")
+        assert main(["send", "status", "--port", str(inbox.address[1])]) == 0
+        out = capsys.readouterr().out
+        assert "jacket: running, armed" in out and "output kb FAILING: ConnectionClosedError" in out, out
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
+
+
 def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_closes_quietly(tmp_path, demo_model_file):
     import shutil
     if shutil.which("Xvfb") is None:
