@@ -107,6 +107,33 @@ def test_sighup_to_the_demo_reloads_and_every_ending_signal_lets_go(tmp_path, de
     assert not pid_file.exists()  # removed at exit
 
 
+@pytest.mark.parametrize("safety, said", [
+    ("", "armed at start"),
+    ('[safety]\narm_posture = "hand_on_heart"\n', "disarmed at start: nothing is sent until armed (hold hand_on_heart 2 s"),
+])
+def test_the_single_loop_says_at_start_whether_it_is_armed(safety, said, tmp_path, demo_model_file):
+    """A carer starting a switch mapping must learn whether the first recognised posture sends
+    a cue (armed) or nothing (disarmed), before the wearer moves."""
+    (tmp_path / "m.toml").write_text(f'{safety}[destinations.show]\nosc = "127.0.0.1:9"\n'
+                                     '[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/x"\n')
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "m.toml"\n')
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        line = proc.stderr.readline()
+        assert "on " + os.ttyname(slave) in line and said in line, line
+        if not safety:
+            assert "disarmed" not in line
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(30) == 0
+    finally:
+        proc.kill()
+        os.close(master)
+        os.close(slave)
+
+
 @pytest.mark.parametrize("how", ["SIGHUP then SIGTERM", "SIGQUIT"])
 def test_a_hangup_or_quit_to_the_single_loop_never_leaves_a_key_or_note_held(how, xvfb, tmp_path, demo_model_file):
     import mido

@@ -408,8 +408,8 @@ def cmd_check(a) -> int:
     if mapping.layers:
         print(f"layers: {', '.join(mapping.layers)} (first: {mapping.first_layer})")
     sf = mapping.safety
-    print("safety: " + ", ".join(filter(None, [
-        "starts armed" if sf.start_armed else "starts disarmed",
+    print("safety: " + "; ".join(filter(None, [
+        mapping.arming_at_start(),
         f"hold {sf.arm_posture} {sf.arm_hold_s:g} s to arm/disarm" if sf.arm_posture else "no arming posture",
         f"disarms after {sf.idle_disarm_s:g} s idle" if sf.idle_disarm_s else "",
         f"panic gesture {sf.panic_gesture}" if sf.panic_gesture else "panic by control message or SIGUSR1 only"])))

@@ -342,7 +342,7 @@ def cmd_start(a) -> int:
         return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
-          + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
+          + (f", mapping {cfg.mapping}; {mapping.arming_at_start()}" if mapping else ""), file=sys.stderr, flush=True)
     if not source.connected:
         hint = "" if cfg.input != "serial" or any(w in source.last_error for w in ("drape ports", "another program")) else \
             "; `drape ports` lists the serial ports of this machine"
