@@ -6,7 +6,8 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _folder_problem, _in_sample, _output_problem, _plural, _say_in_sample, _stop_on_signals
+from .common import _err, _folder_problem, _in_sample, _output_problem, _plural, _say_in_sample, _shipped_example_hint, \
+    _stop_on_signals
 
 
 class _Keys:
@@ -396,7 +397,7 @@ def cmd_check(a) -> int:
         mapping = load_mapping(a.file, model.classes if model else None, model.kinds if model else None,
                                model.channel_names if model else None)
     except (ModelError, MappingError) as exc:
-        return _err(str(exc))
+        return _err(str(exc) + (_shipped_example_hint(a.file) if isinstance(exc, MappingError) else ""))
     from ..mapping.watcher import nothing_to_send
     if nothing_to_send(mapping, a.file):
         return _err(f"{a.file}: no destinations and no rules: a running daemon would send nothing")

@@ -7,7 +7,7 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _output_problem, _plural, _report, _stop_on_signals
+from .common import _err, _output_problem, _plural, _report, _shipped_example_hint, _stop_on_signals
 
 
 def _line(text: str) -> None:
@@ -317,7 +317,7 @@ def cmd_start(a) -> int:
         mapping = watcher.mapping if watcher else None
         inbox = _inbox(a.listen)
     except (ConfigError, ModelError, MappingError) as exc:
-        return _err(str(exc))
+        return _err(str(exc) + (_shipped_example_hint(cfg.mapping) if isinstance(exc, MappingError) else ""))
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
     from ..mapping.watcher import nothing_to_send
