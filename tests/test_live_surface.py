@@ -973,6 +973,24 @@ def test_disarmed_events_are_marked_not_sent_in_every_view(demo_model, capsys):
     assert "disarmed: not sent" in lines[0] and "sent" in lines[1] and "disarmed" not in lines[1]
 
 
+def test_an_armed_event_that_no_rule_sends_is_never_reported_sent(demo_model):
+    """With the single-switch mapping, a carer reading the log must not see the wearer's
+    unmapped posture, or the hold going on after its one confirm, reported as sent."""
+    from bridge.decisions.gate import Event
+    from bridge.examples_data import example_text
+    from bridge.mapping import parse_mapping
+    from bridge.service import Pipeline
+    m = parse_mapping(example_text("single-switch.toml"), "single-switch.toml", demo_model.classes,
+                      demo_model.kinds, demo_model.channel_names)
+    p = Pipeline(demo_model, m, "jacket")
+    events = [Event(1.0, "arms_crossed", "entered", 0.9), Event(3.0, "arms_crossed", "left", 0.9),
+              Event(5.0, "hand_on_heart", "entered", 0.9),
+              Event(7.0, "hand_on_heart", "held", 0.9, 2.0), Event(9.0, "hand_on_heart", "held", 0.9, 4.0)]
+    sent, why_not = p.dispatches_marked(events)
+    assert [d.message.keys for d in sent] == [("space",), ("enter",)]
+    assert why_not == ["no rule due", "no rule due", "", "", "no rule due"]
+
+
 def test_events_of_a_garment_without_a_mapping_are_never_reported_sent(tmp_path, demo_model, demo_model_file,
                                                                           caplog, capsys):
     """Nothing goes out for a garment run without a mapping: the log, the status stream and

@@ -26,7 +26,7 @@ class Timing:
 
     decide_ms: float
     send_ms: float
-    not_sent: str = ""      # why nothing went out for the event ("disarmed", "no mapping"); "" when sent
+    not_sent: str = ""      # why nothing went out for the event ("disarmed", "no rule due", "no mapping"); "" when sent
 
     @property
     def disarmed(self) -> bool:
