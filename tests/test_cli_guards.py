@@ -201,7 +201,10 @@ def test_a_fit_on_one_gesture_says_it_can_fire_nothing_else(tmp_path, capsys):
     path = tmp_path / "cut.take"
     write_recording(path, Recording.from_take(take, {"wave_right": "gesture"}))
     assert main(["fit", str(path), "-o", str(tmp_path / "m.npz"), "--classifier", "linear"]) == 0
-    assert "only one gesture in these takes (wave_right)" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "only one gesture in these takes (wave_right)" in out and "1 class from" in out
+    # a switch's carer learns that look-alike postures are taken for it, and what to record
+    assert "may be taken for wave_right" in out and "record those too and leave them unmapped" in out
 
 
 def test_evaluate_with_a_model_refuses_fitting_options_and_names_cues_it_cannot_know(
