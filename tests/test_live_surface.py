@@ -134,6 +134,33 @@ def test_the_single_loop_says_at_start_whether_it_is_armed(safety, said, tmp_pat
         os.close(slave)
 
 
+@pytest.mark.parametrize("listen", [False, True])
+def test_a_keys_mapping_without_an_arming_posture_or_control_port_is_cautioned_at_start(listen, tmp_path,
+                                                                                        demo_model_file):
+    """The shipped single-switch mapping can only be disarmed over the control port: started
+    without one, the carer is told so at once (keys left out here: no DISPLAY)."""
+    from bridge.examples_data import example_path
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "{example_path("single-switch.toml")}"\n')
+    env = {k: v for k, v in os.environ.items() if k != "DISPLAY"}
+    argv = ["start", "--config", str(tmp_path / "show.toml")] + (["--listen", f"127.0.0.1:{free_port()}"] if listen else [])
+    proc = subprocess.Popen(drape_cmd(*argv), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    try:
+        lines = []
+        while not any("on " + os.ttyname(slave) in l for l in lines):
+            lines.append(proc.stderr.readline())
+        proc.send_signal(signal.SIGTERM)
+        lines += proc.stderr.read().splitlines()      # the rest, up to its stop line
+        assert proc.wait(30) == 0
+        cautioned = any("no arming posture and no control port" in l and "--listen" in l for l in lines)
+        assert cautioned != listen, lines
+    finally:
+        proc.kill()
+        os.close(master)
+        os.close(slave)
+
+
 @pytest.mark.parametrize("how", ["SIGHUP then SIGTERM", "SIGQUIT"])
 def test_a_hangup_or_quit_to_the_single_loop_never_leaves_a_key_or_note_held(how, xvfb, tmp_path, demo_model_file):
     import mido

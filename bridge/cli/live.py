@@ -343,6 +343,11 @@ def cmd_start(a) -> int:
     outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
           + (f", mapping {cfg.mapping}; {mapping.arming_at_start()}" if mapping else ""), file=sys.stderr, flush=True)
+    if mapping and inbox is None and not mapping.safety.arm_posture and \
+            any(d.kind == "keys" for d in mapping.destinations.values()):
+        print("drape: caution: keys, no arming posture and no control port: nothing but stopping drape (Ctrl-C) "
+              "disarms; start with --listen 127.0.0.1:9100 to disarm or panic with `drape send`",
+              file=sys.stderr, flush=True)
     if not source.connected:
         hint = "" if cfg.input != "serial" or any(w in source.last_error for w in ("drape ports", "another program")) else \
             "; `drape ports` lists the serial ports of this machine"
