@@ -201,7 +201,10 @@ def test_a_fit_on_one_gesture_says_it_can_fire_nothing_else(tmp_path, capsys):
     path = tmp_path / "cut.take"
     write_recording(path, Recording.from_take(take, {"wave_right": "gesture"}))
     assert main(["fit", str(path), "-o", str(tmp_path / "m.npz"), "--classifier", "linear"]) == 0
-    assert "only one gesture in these takes (wave_right)" in capsys.readouterr().out
+    out = capsys.readouterr().out
+    assert "only one gesture in these takes (wave_right)" in out and "1 class from" in out
+    # a switch's carer learns that look-alike postures are taken for it, and what to record
+    assert "may be taken for wave_right" in out and "record those too and leave them unmapped" in out
 
 
 def test_evaluate_with_a_model_refuses_fitting_options_and_names_cues_it_cannot_know(
@@ -460,3 +463,19 @@ def test_demo_refuses_bad_input_before_training(argv, says, tmp_path, monkeypatc
     assert main(["demo", "--for", "1", "--fast", *argv]) == 2
     captured = capsys.readouterr()
     assert says in captured.err and "training" not in captured.out
+
+
+def test_a_missing_mapping_named_like_a_shipped_example_says_where_the_shipped_one_is(tmp_path, capsys):
+    """A pip install has no mappings/ folder: a carer told to check single-switch.toml must
+    learn where drape keeps it (with its cautions), not only that the file is missing."""
+    from pathlib import Path
+    from bridge.cli import main
+    from bridge.examples_data import example_text
+    assert main(["check", str(tmp_path / "single-switch.toml")]) == 2
+    err = capsys.readouterr().err
+    assert "no such mapping file" in err and "drape ships an example of that name" in err
+    shipped = Path(err.split("with its cautions: ")[1].splitlines()[0])
+    assert shipped.read_text(encoding="utf-8") == example_text("single-switch.toml")
+    assert not (tmp_path / "single-switch.toml").exists()      # nothing copied unasked
+    assert main(["check", str(tmp_path / "mine.toml")]) == 2
+    assert "ships" not in capsys.readouterr().err               # no hint for a name drape does not ship

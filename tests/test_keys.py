@@ -84,6 +84,35 @@ def test_a_failing_press_lets_go_of_what_it_pressed():
     assert out.held == [] and "device gone" in out.stats.last_error
 
 
+class DeadServer(Keyboard):
+    """A keyboard whose display went away: every press and release fails, as pynput's does."""
+
+    def press(self, key):
+        raise ConnectionError("Display connection closed by server")
+
+    release = press
+
+
+def test_a_keyboard_whose_display_went_away_is_opened_anew_at_the_next_key():
+    """A switch whose X server restarted (a logout and login) must work again without
+    restarting drape: the next key action opens a new keyboard; until one opens, each key
+    fails and is counted."""
+    opened, fresh = [], Recorder()
+
+    def reopen():
+        opened.append(1)
+        if len(opened) == 1:
+            raise OutputUnavailable("keys: cannot open the display")   # not back yet
+        return fresh
+    out = KeyOutput("k", DeadServer(), reopen=reopen)
+    assert out.send(KeyAction(("space",))) is False                    # the display just went
+    assert out.send(KeyAction(("space",))) is False and "still unavailable" in out.stats.last_error
+    assert out.send(KeyAction(("enter",))) is True                     # back: a new connection
+    assert fresh.events == [("press", "enter"), ("release", "enter")] and len(opened) == 2
+    out.send(KeyAction(("a",)))
+    assert len(opened) == 2                                            # a working keyboard is kept
+
+
 def test_disarm_ignores_keys_until_armed():
     kb = Recorder()
     out = KeyOutput("k", kb)

@@ -109,6 +109,60 @@ def test_sighup_to_the_demo_reloads_and_every_ending_signal_lets_go(tmp_path, de
     assert not pid_file.exists()  # removed at exit
 
 
+@pytest.mark.parametrize("safety, said", [
+    ("", "armed at start"),
+    ('[safety]\narm_posture = "hand_on_heart"\n', "disarmed at start: nothing is sent until armed (hold hand_on_heart 2 s"),
+])
+def test_the_single_loop_says_at_start_whether_it_is_armed(safety, said, tmp_path, demo_model_file):
+    """A carer starting a switch mapping must learn whether the first recognised posture sends
+    a cue (armed) or nothing (disarmed), before the wearer moves."""
+    (tmp_path / "m.toml").write_text(f'{safety}[destinations.show]\nosc = "127.0.0.1:9"\n'
+                                     '[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/x"\n')
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "m.toml"\n')
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml")),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True)
+    try:
+        line = proc.stderr.readline()
+        assert "on " + os.ttyname(slave) in line and said in line, line
+        if not safety:
+            assert "disarmed" not in line
+        proc.send_signal(signal.SIGTERM)
+        assert proc.wait(30) == 0
+    finally:
+        proc.kill()
+        os.close(master)
+        os.close(slave)
+
+
+@pytest.mark.parametrize("listen", [False, True])
+def test_a_keys_mapping_without_an_arming_posture_or_control_port_is_cautioned_at_start(listen, tmp_path,
+                                                                                        demo_model_file):
+    """The shipped single-switch mapping can only be disarmed over the control port: started
+    without one, the carer is told so at once (keys left out here: no DISPLAY)."""
+    from bridge.examples_data import example_path
+    master, slave = os.openpty()
+    (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
+                                        f'model = "{demo_model_file}"\nmapping = "{example_path("single-switch.toml")}"\n')
+    env = {k: v for k, v in os.environ.items() if k != "DISPLAY"}
+    argv = ["start", "--config", str(tmp_path / "show.toml")] + (["--listen", f"127.0.0.1:{free_port()}"] if listen else [])
+    proc = subprocess.Popen(drape_cmd(*argv), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+    try:
+        lines = []
+        while not any("on " + os.ttyname(slave) in l for l in lines):
+            lines.append(proc.stderr.readline())
+        proc.send_signal(signal.SIGTERM)
+        lines += proc.stderr.read().splitlines()      # the rest, up to its stop line
+        assert proc.wait(30) == 0
+        cautioned = any("no arming posture and no control port" in l and "--listen" in l for l in lines)
+        assert cautioned != listen, lines
+    finally:
+        proc.kill()
+        os.close(master)
+        os.close(slave)
+
+
 @pytest.mark.parametrize("how", ["SIGHUP then SIGTERM", "SIGQUIT"])
 def test_a_hangup_or_quit_to_the_single_loop_never_leaves_a_key_or_note_held(how, xvfb, tmp_path, demo_model_file):
     import mido
@@ -948,6 +1002,24 @@ def test_disarmed_events_are_marked_not_sent_in_every_view(demo_model, capsys):
     assert "disarmed: not sent" in lines[0] and "sent" in lines[1] and "disarmed" not in lines[1]
 
 
+def test_an_armed_event_that_no_rule_sends_is_never_reported_sent(demo_model):
+    """With the single-switch mapping, a carer reading the log must not see the wearer's
+    unmapped posture, or the hold going on after its one confirm, reported as sent."""
+    from bridge.decisions.gate import Event
+    from bridge.examples_data import example_text
+    from bridge.mapping import parse_mapping
+    from bridge.service import Pipeline
+    m = parse_mapping(example_text("single-switch.toml"), "single-switch.toml", demo_model.classes,
+                      demo_model.kinds, demo_model.channel_names)
+    p = Pipeline(demo_model, m, "jacket")
+    events = [Event(1.0, "arms_crossed", "entered", 0.9), Event(3.0, "arms_crossed", "left", 0.9),
+              Event(5.0, "hand_on_heart", "entered", 0.9),
+              Event(7.0, "hand_on_heart", "held", 0.9, 2.0), Event(9.0, "hand_on_heart", "held", 0.9, 4.0)]
+    sent, why_not = p.dispatches_marked(events)
+    assert [d.message.keys for d in sent] == [("space",), ("enter",)]
+    assert why_not == ["no rule due", "no rule due", "", "", "no rule due"]
+
+
 def test_events_of_a_garment_without_a_mapping_are_never_reported_sent(tmp_path, demo_model, demo_model_file,
                                                                           caplog, capsys):
     """Nothing goes out for a garment run without a mapping: the log, the status stream and
@@ -1191,6 +1263,38 @@ def test_a_keys_destination_whose_display_hangs_holds_up_nothing_in_the_loop(dem
         stop.set("test")
         board.answer.set()
         kb.close(drain_s=0.0, join_s=5.0)
+
+
+def test_status_from_the_single_loop_names_a_failing_output(demo_model, capsys):
+    """A carer asking `drape send status` while the keys destination is dead (its display went
+    away) must not read only "running, armed": the switch does not work."""
+    from bridge.cli import main
+    from bridge.mapping import parse_mapping
+    from bridge.mapping.messages import OscMessage
+    from bridge.service import Pipeline, StopFlag, run
+    from bridge.service.control import ControlInbox
+    m = parse_mapping('[destinations.kb]\nosc = "127.0.0.1:9"\n', "m.toml", demo_model.classes, demo_model.kinds,
+                      demo_model.channel_names)
+    o = FailingOutput()
+    inbox = ControlInbox("127.0.0.1", 0)
+    stop, said = StopFlag(), []
+    loop = threading.Thread(target=run, args=(IdleSource(demo_model.n_channels), Pipeline(demo_model, m, "jacket"),
+                                              {"kb": o}, stop), kwargs=dict(inbox=inbox, report=said.append),
+                            daemon=True)
+    loop.start()
+    try:
+        assert main(["send", "status", "--port", str(inbox.address[1])]) == 0
+        assert "FAILING" not in capsys.readouterr().out      # working: nothing to say
+        o.send(OscMessage("/a", ()))
+        o.send(OscMessage("/a", ()))
+        wait_for(lambda: any("output kb failing" in s for s in said), 5, "the failure to be reported while running")
+        assert main(["send", "status", "--port", str(inbox.address[1])]) == 0
+        out = capsys.readouterr().out
+        assert "jacket: running, armed" in out and "output kb FAILING: ConnectionClosedError" in out, out
+    finally:
+        stop.set("test")
+        loop.join(10)
+        inbox.close()
 
 
 def test_a_keys_destination_whose_display_goes_away_is_reported_at_once_and_closes_quietly(tmp_path, demo_model_file):

@@ -6,6 +6,7 @@ import pytest
 
 from bridge.decisions import Event
 from bridge.mapping import MappingError, OscMessage, load_mapping, parse_mapping
+from bridge.mapping.messages import KeyAction
 
 CLASSES = ("null", "raise_right", "arms_crossed")
 KINDS = {"raise_right": "gesture", "arms_crossed": "posture"}
@@ -131,6 +132,27 @@ def test_single_switch_confirms_once_per_hold():
     (t_select, _), (t_confirm, _), (t_select2, _), (t_confirm2, _) = sent
     assert t_confirm - t_select == pytest.approx(2.0) and t_confirm2 - t_select2 == pytest.approx(2.0)
     assert m.safety.start_armed  # as its comments say: a carer disarms over the control port
+
+
+def test_a_hold_under_way_when_armed_sends_no_once_per_hold_key():
+    """Single switch: the wearer is already holding when the carer arms (or the arming
+    posture's own hold arms it). Its select was not sent; its confirm must not be sent alone
+    (Enter on whatever the scan shows). Let go and hold again: both, once."""
+    from bridge.garment import GESTURES, Jacket
+    from bridge.mapping import Router
+
+    root = Path(__file__).resolve().parent.parent
+    m = load_mapping(root / "mappings" / "single-switch.toml", ("null", *GESTURES), dict(GESTURES),
+                     Jacket(seed=0).channel_names)
+    r = Router(m)
+    r.route([Event(0.0, "", "disarmed", 1.0)])
+    out = r.route([Event(1.0, "hand_on_heart", "entered", 0.9)])
+    out += r.route([Event(1.5, "", "armed", 1.0)])                       # 0.5 s into the hold
+    out += r.route([Event(3.0, "hand_on_heart", "held", 0.9, 2.0), Event(5.0, "hand_on_heart", "held", 0.9, 4.0),
+                    Event(5.5, "hand_on_heart", "left", 0.9, 4.5)])
+    assert [d.message.keys for d in out if isinstance(d.message, KeyAction)] == []
+    out = r.route([Event(8.0, "hand_on_heart", "entered", 0.9), Event(10.0, "hand_on_heart", "held", 0.9, 2.0)])
+    assert [d.message.keys for d in out if isinstance(d.message, KeyAction)] == [("space",), ("enter",)]
 
 
 def _often_and(timing: str, address: str):

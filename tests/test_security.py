@@ -217,6 +217,27 @@ def test_the_service_warns_in_its_log_and_views_when_a_garments_destinations_can
     service.status.close()
 
 
+def test_the_services_state_names_an_output_that_is_failing_until_it_sends_again():
+    """A keys destination whose display went away: a view started after the notice, or a
+    status request, must not show the garment as simply running."""
+    from bridge.outputs.base import OutputStats
+    from bridge.service.daemon import Garment, Service
+    service = Service(SimpleNamespace(garments=[], status_to=()), lambda d: None)
+    kb = SimpleNamespace(stats=OutputStats(sent=1))
+    g = Garment("coat", SimpleNamespace(input="serial"), outputs={"kb": kb})
+    g.pipeline = None
+    service.garments.append(g)
+    g.failures.poll(g.outputs, 0.0)
+    assert b"FAILING" not in b"".join(service.state_messages(0.0))
+    kb.stats.dropped, kb.stats.last_error = 1, "ConnectionClosedError: Display connection closed by server"
+    g.failures.poll(g.outputs, 1.0)
+    assert b"output kb FAILING: ConnectionClosedError" in b"".join(service.state_messages(1.0))
+    kb.stats.sent += 1
+    g.failures.poll(g.outputs, 10.0)                     # told as sending again
+    assert b"FAILING" not in b"".join(service.state_messages(10.0))
+    service.status.close()
+
+
 def test_a_cue_to_a_destination_left_out_is_logged_as_not_sent(demo_model, caplog):
     import logging
     from bridge.decisions.gate import Event

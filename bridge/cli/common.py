@@ -11,6 +11,18 @@ def _err(msg: str) -> int:
     return 2
 
 
+def _shipped_example_hint(path) -> str:
+    """For a mapping file that is not there but is named like one drape ships: where the
+    shipped one is (a pip install has no mappings/ folder), else ""."""
+    from pathlib import Path
+    from ..examples_data import NAMES, example_path
+    path = Path(path)
+    if path.exists() or path.name not in NAMES:
+        return ""
+    return (f"\ndrape ships an example of that name, with its cautions: {example_path(path.name)}\n"
+            f"copy it to {path} and read and edit the copy before you use it")
+
+
 def _output_problem(path, inputs=(), model: bool = False, replace: bool = True, option: str = "--out") -> str:
     """Why ``path`` cannot be written ("" when it can), checked before any work is done: a
     folder, a folder that does not exist or cannot be written, one of the ``inputs`` (a take

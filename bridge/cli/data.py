@@ -6,7 +6,8 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _folder_problem, _in_sample, _output_problem, _plural, _say_in_sample, _stop_on_signals
+from .common import _err, _folder_problem, _in_sample, _output_problem, _plural, _say_in_sample, _shipped_example_hint, \
+    _stop_on_signals
 
 
 class _Keys:
@@ -396,7 +397,7 @@ def cmd_check(a) -> int:
         mapping = load_mapping(a.file, model.classes if model else None, model.kinds if model else None,
                                model.channel_names if model else None)
     except (ModelError, MappingError) as exc:
-        return _err(str(exc))
+        return _err(str(exc) + (_shipped_example_hint(a.file) if isinstance(exc, MappingError) else ""))
     from ..mapping.watcher import nothing_to_send
     if nothing_to_send(mapping, a.file):
         return _err(f"{a.file}: no destinations and no rules: a running daemon would send nothing")
@@ -408,8 +409,8 @@ def cmd_check(a) -> int:
     if mapping.layers:
         print(f"layers: {', '.join(mapping.layers)} (first: {mapping.first_layer})")
     sf = mapping.safety
-    print("safety: " + ", ".join(filter(None, [
-        "starts armed" if sf.start_armed else "starts disarmed",
+    print("safety: " + "; ".join(filter(None, [
+        mapping.arming_at_start(),
         f"hold {sf.arm_posture} {sf.arm_hold_s:g} s to arm/disarm" if sf.arm_posture else "no arming posture",
         f"disarms after {sf.idle_disarm_s:g} s idle" if sf.idle_disarm_s else "",
         f"panic gesture {sf.panic_gesture}" if sf.panic_gesture else "panic by control message or SIGUSR1 only"])))

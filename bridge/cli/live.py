@@ -7,7 +7,7 @@ import sys
 import time
 from pathlib import Path
 
-from .common import _err, _output_problem, _plural, _report, _stop_on_signals
+from .common import _err, _output_problem, _plural, _report, _shipped_example_hint, _stop_on_signals
 
 
 def _line(text: str) -> None:
@@ -317,7 +317,7 @@ def cmd_start(a) -> int:
         mapping = watcher.mapping if watcher else None
         inbox = _inbox(a.listen)
     except (ConfigError, ModelError, MappingError) as exc:
-        return _err(str(exc))
+        return _err(str(exc) + (_shipped_example_hint(cfg.mapping) if isinstance(exc, MappingError) else ""))
     except (ValueError, OSError) as exc:
         return _err(f"--listen: {exc}")
     from ..mapping.watcher import nothing_to_send
@@ -342,7 +342,12 @@ def cmd_start(a) -> int:
         return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
-          + (f", mapping {cfg.mapping}" if cfg.mapping else ""), file=sys.stderr, flush=True)
+          + (f", mapping {cfg.mapping}; {mapping.arming_at_start()}" if mapping else ""), file=sys.stderr, flush=True)
+    if mapping and inbox is None and not mapping.safety.arm_posture and \
+            any(d.kind == "keys" for d in mapping.destinations.values()):
+        print("drape: caution: keys, no arming posture and no control port: nothing but stopping drape (Ctrl-C) "
+              "disarms; start with --listen 127.0.0.1:9100 to disarm or panic with `drape send`",
+              file=sys.stderr, flush=True)
     if not source.connected:
         hint = "" if cfg.input != "serial" or any(w in source.last_error for w in ("drape ports", "another program")) else \
             "; `drape ports` lists the serial ports of this machine"

@@ -155,10 +155,14 @@ def cmd_fit(a) -> int:
         estimate += " (its ridge penalty chosen on the same folds: a little optimistic)"
     cal = (f", calibration error {s['calibration_error']:.3f} (on the scores its temperature was fitted to)"
            if "calibration_error" in s else "")
-    print(f"{a.output}: {a.classifier}, {len(model.classes) - 1} classes from {source}; {estimate}{cal}")
+    print(f"{a.output}: {a.classifier}, {_plural(len(model.classes) - 1, 'class', 'classes')} from {source}; {estimate}{cal}")
     if len(model.classes) == 2:
-        print(f"only one gesture in these takes ({model.classes[1]}): the model can fire nothing else; "
-              "if a capture was cut short, record the rest and fit again")
+        # On the simulated jacket a model of hand_on_heart alone took arms crossed for it (a
+        # switch's key pressed); with the other postures as classes of their own it did not.
+        print(f"only one gesture in these takes ({model.classes[1]}): the model can fire nothing else, and the "
+              f"wearer's other gestures and postures (arms crossed, hands clasped) may be taken for {model.classes[1]}; "
+              "record those too and leave them unmapped (a switch), or, if a capture was cut short, record the rest "
+              "and fit again")
     weakest = sorted((v["recall"], c) for c, v in s.get("held_out_by_class", {}).items() if v["recall"] is not None)[:3]
     if weakest:
         print("held-out window recall, lowest first: " + ", ".join(f"{c} {r:.2f}" for r, c in weakest)

@@ -13,7 +13,10 @@ Safety rules kept here:
 - While disarmed only status messages go out (and releases of what was held).
 - A once-per-hold rule (``once_after_s``) fires at most once between a posture's
   "entered" and "left", so one long hold is one action. Its moment, once passed, is spent
-  even while disarmed: arming later in the same hold does not send it late.
+  even while disarmed: arming later in the same hold does not send it late. A hold
+  under way when the garment is armed sends no once-per-hold action at all (it began
+  while nothing was meant to go out, or it is the arming posture's own hold): let go and
+  hold again.
 - A repeating held rule fires once for each ``every_s`` the hold has lasted, at the first
   "held" event at or after each multiple, whatever the other held rules of the posture
   ask (the decision stage repeats "held" at the shortest of them).
@@ -41,6 +44,7 @@ class Router:
         self.due_offs: list[tuple[float, Dispatch]] = []  # (stream time, note-off)
         self.control_sent: dict[int, tuple[float, float]] = {}  # control rule index → (t_s, value)
         self.fired: dict[str, dict[Rule, int]] = {}     # posture → held rule → times fired this hold
+        self.in_hold: set[str] = set()                   # postures entered and not yet left
         self.warnings: list[str] = []
 
     # -- mapping swaps -----------------------------------------------------------------------
@@ -88,6 +92,7 @@ class Router:
             out += [Dispatch(d.destination, d.message, e.t_s) for d in self.holding.pop(e.gesture)]
         if e.kind in ("entered", "left"):
             self.fired.pop(e.gesture, None)  # a new hold: held rules count from the start again
+            (self.in_hold.add if e.kind == "entered" else self.in_hold.discard)(e.gesture)
         layer = self.layer  # a layer switch takes effect after all of this event's rules
         # (held rules count their moments here even when disarmed, see the module's docstring)
         rules = [r for r in self.mapping.rules
@@ -181,6 +186,10 @@ class Router:
         if e.kind == "armed":
             was = self.armed
             self.armed = True
+            if not was:   # a hold under way sends no once-per-hold action (see the module's docstring)
+                for r in self.mapping.rules:
+                    if r.on == "held" and r.once_after_s and r.gesture in self.in_hold:
+                        self.fired.setdefault(r.gesture, {})[r] = 1
             return [Dispatch(n, Arm(), t) for n in self._keys()] + ([] if was else self._status(t, "armed", e.detail))
         if e.kind == "layer":
             return self._switch(t, e.detail, "control message")

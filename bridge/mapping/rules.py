@@ -222,6 +222,15 @@ class Mapping:
                 out[r.gesture] = min(out.get(r.gesture, every), every)
         return out
 
+    def arming_at_start(self) -> str:
+        """Whether cues go out from the first recognised gesture, in words for the operator."""
+        sf = self.safety
+        if not sf.start_armed:
+            how = f"hold {sf.arm_posture} {sf.arm_hold_s:g} s or `drape send arm`" if sf.arm_posture else "`drape send arm`"
+            return f"disarmed at start: nothing is sent until armed ({how})"
+        keys = [n for n, d in self.destinations.items() if d.kind == "keys"]
+        return "armed at start" + (f": keys ({', '.join(keys)}) go to whichever window has the focus" if keys else "")
+
     def dispatches(self, event: Event, layer: str | None = None) -> list:
         """Messages for one gesture event, ignoring arming and held state (offline listings).
         The live path goes through a Router, which also releases held notes and keys."""

@@ -41,12 +41,16 @@ class Disarmed(PermissionError):
 class KeyOutput(Output):
     """Taps, combinations and held keys; keeps the list of keys it holds down."""
 
-    def __init__(self, name: str, keyboard: Keyboard, armed: bool = True):
+    def __init__(self, name: str, keyboard: Keyboard, armed: bool = True, reopen=None):
+        """``reopen()``: a new keyboard of the same backend, tried at the next key action after
+        the keyboard failed (an X server restarted: the old connection is dead for good)."""
         super().__init__(name)
         self.keyboard = keyboard
         self.armed = armed
+        self.reopen = reopen
         self.held: list[str] = []  # in the order pressed
         self._closed = False
+        self._broken = False       # the keyboard failed: open a new one before the next key
 
     def _press_all(self, keys) -> list[str]:
         """Press keys not already held, in order; on failure let go of those just pressed."""
@@ -88,6 +92,29 @@ class KeyOutput(Output):
             _refuse(self.name, message)
         if not self.armed:
             raise Disarmed(f"keys {self.name!r} are disarmed; send Arm to use them again")
+        if self._broken and self.reopen is not None:
+            self._reopen()
+        try:
+            self._act(message)
+        except ValueError:   # a key this keymap lacks: the keyboard itself is fine
+            raise
+        except Exception:
+            self._broken = True
+            raise
+
+    def _reopen(self) -> None:
+        """A new keyboard in place of one that failed; what the old one held went with its server."""
+        try:
+            keyboard = self.reopen()
+        except OutputUnavailable as exc:
+            raise OSError(f"keyboard still unavailable: {exc}") from None
+        try:
+            self.keyboard.close()
+        except Exception:
+            pass
+        self.keyboard, self.held, self._broken = keyboard, [], False
+
+    def _act(self, message: KeyAction) -> None:
         if message.action == "tap":
             pressed = self._press_all(message.keys)
             self._let_go(pressed)

@@ -33,7 +33,7 @@ def open_backend(dest: Destination) -> Output:
 
     def keys(d):
         from .keys import open_keyboard, KeyOutput
-        return KeyOutput(d.name, open_keyboard(d.key_backend))
+        return KeyOutput(d.name, open_keyboard(d.key_backend), reopen=lambda: open_keyboard(d.key_backend))
 
     def sacn(d):
         from .sacn import SacnOutput

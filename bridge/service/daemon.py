@@ -372,8 +372,10 @@ class Service:
                 log.warning("%s: %s", g.name, g.note)
             g.reader = Reader(i, g.source, self.q)
             where = "simulated jacket" if cfg.simulated else (cfg.port or f"OSC {cfg.listen}")
-            log.info("%s: %s, model %s (%d gestures), mapping %s", g.name, where, Path(cfg.model).resolve(),
-                     len(g.model.classes) - 1, Path(cfg.mapping).resolve() if cfg.mapping else "none")
+            m = g.pipeline.mapping if g.pipeline is not None else None
+            log.info("%s: %s, model %s (%d gestures), mapping %s%s", g.name, where, Path(cfg.model).resolve(),
+                     len(g.model.classes) - 1, Path(cfg.mapping).resolve() if cfg.mapping else "none",
+                     f"; {m.arming_at_start()}" if m is not None else "")
 
         for g in self.garments:  # read only once every model is ready: none waits on another's training
             if g.reader is not None and g.state != FAILED:
@@ -747,6 +749,10 @@ class Service:
             if g.left_out and g.state != FAILED:
                 gone = f"cues to {', '.join(sorted(g.left_out))} go nowhere (left out at start or reload: see the log)"
                 note = f"{note}; {gone}" if note else gone
+            failing = g.failures.failing() if g.state != FAILED else {}
+            if failing:   # a keys output whose display went away: the switch does not work
+                bad = "; ".join(f"output {n} FAILING: {err}" for n, err in sorted(failing.items()))
+                note = f"{note}; {bad}" if note else bad
             out += st.garment_state(g.name, g.state, armed, layer, g.flowing and g.state != FAILED,
                                     g.rate_hz(now), g.dropped(), p.samples if p else 0, note, channels,
                                     p.skipped if p else 0)

@@ -51,3 +51,7 @@ class OutputWatch:
         for name in set(self._seen) - set(outputs):
             del self._seen[name]
         return notices
+
+    def failing(self) -> dict[str, str]:
+        """Outputs told as failing and not told as sending again since: {name: last error}."""
+        return {name: seen.error for name, seen in self._seen.items() if seen.failing}

@@ -307,20 +307,19 @@ class Pipeline:
     def dispatches_marked(self, events: list[Event]) -> tuple[list[Dispatch], list[str]]:
         """``dispatches(events)``, and for each event why nothing went out for it ("" when
         something did): "disarmed" (a gesture or posture event that produced no message while
-        the garment was disarmed) or "no mapping" (``router`` None: every event), so logs and
-        views never show such an event as sent."""
+        the garment was disarmed), "no rule due" (one that produced none while armed: no rule
+        for it, or a once-per-hold rule already sent) or "no mapping" (``router`` None: every
+        event), so logs and views never show such an event as sent."""
         r = self.router
         if r is None:
             return [], ["no mapping"] * len(events)
-        if r.armed and not any(e.kind in ("disarmed", "panic") for e in events):
-            return r.route(events) + r.due(self.t_s), [""] * len(events)
         out, why_not = [], []
         for e in events:  # the arming state can change within the list
             armed = r.armed
             ds = r.route([e])
             out += ds
-            why_not.append("disarmed" if e.kind in ("gesture", "entered", "held", "left") and not armed and not ds
-                           else "")
+            quiet = e.kind in ("gesture", "entered", "held", "left") and not ds
+            why_not.append(("no rule due" if armed else "disarmed") if quiet else "")
         return out + r.due(self.t_s), why_not
 
     def stop(self) -> list[Event]:

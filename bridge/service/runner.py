@@ -26,7 +26,7 @@ class Timing:
 
     decide_ms: float
     send_ms: float
-    not_sent: str = ""      # why nothing went out for the event ("disarmed", "no mapping"); "" when sent
+    not_sent: str = ""      # why nothing went out for the event ("disarmed", "no rule due", "no mapping"); "" when sent
 
     @property
     def disarmed(self) -> bool:
@@ -228,7 +228,9 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
             flow = "running" if reported is None or reported[0] != NO_DATA else f"no data ({reported[1]})"
             return True, (f"{name}: {flow}, {'armed' if r is None or r.armed else 'disarmed'}"
                           + (f", layer {r.layer!r}" if r is not None and r.layer else "")
-                          + f", {pipeline.samples} samples, {pipeline.skipped} skipped as implausible")
+                          + f", {pipeline.samples} samples, {pipeline.skipped} skipped as implausible"
+                          # a dead destination (a keys output whose display went away) is no switch that works
+                          + "".join(f"; output {n} FAILING: {err}" for n, err in sorted(failures.failing().items())))
         if kind == "reload":
             if watcher is None:
                 return False, f"{name} has no mapping file to reload"
