@@ -123,7 +123,7 @@ def cmd_capture(a) -> int:
         if tty_out:
             print("\r\033[K" + line, end="", flush=True)
 
-    print(f"capturing {len(gestures)} gestures x {a.reps} into {out} ({len(source.channel_names)} channels at "
+    print(f"capturing {_plural(len(gestures), 'gesture')} x {a.reps} into {out} ({len(source.channel_names)} channels at "
           f"{source.rate_hz:g} Hz); keys: r redo last, s skip, q finish", flush=True)
     code = 0
     gone = ""

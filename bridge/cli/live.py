@@ -156,7 +156,7 @@ def cmd_demo(a) -> int:
                                  f"(or leave out --model to train one)")
         except ModelError as exc:
             return fail(str(exc))
-        print(f"model {a.model}: {len(model.classes) - 1} gestures", flush=True)
+        print(f"model {a.model}: {_plural(len(model.classes) - 1, 'gesture')}", flush=True)
     else:
         print(f"training on simulated wearer {a.wearer} (seed {a.seed}) ...", flush=True)
         t0 = time.monotonic()
@@ -341,7 +341,7 @@ def cmd_start(a) -> int:
     except OSError as exc:
         return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping, opener) if mapping else {}
-    print(f"drape: {cfg.name} on {where}, model {cfg.model} ({len(model.classes) - 1} gestures)"
+    print(f"drape: {cfg.name} on {where}, model {cfg.model} ({_plural(len(model.classes) - 1, 'gesture')})"
           + (f", mapping {cfg.mapping}; {mapping.arming_at_start()}" if mapping else ""), file=sys.stderr, flush=True)
     if mapping and inbox is None and not mapping.safety.arm_posture and \
             any(d.kind == "keys" for d in mapping.destinations.values()):
