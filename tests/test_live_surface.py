@@ -136,31 +136,49 @@ def test_the_single_loop_says_at_start_whether_it_is_armed(safety, said, tmp_pat
         os.close(slave)
 
 
-@pytest.mark.parametrize("listen", [False, True])
-def test_a_keys_mapping_without_an_arming_posture_or_control_port_is_cautioned_at_start(listen, tmp_path,
-                                                                                        demo_model_file):
-    """The shipped single-switch mapping can only be disarmed over the control port: started
-    without one, the carer is told so at once (keys left out here: no DISPLAY)."""
-    from bridge.examples_data import example_path
+def _start_lines(tmp_path, model_file, mapping, env, extra=()) -> list[str]:
+    """What `drape start` says on stderr from its start to its stop line (SIGTERM once started)."""
     master, slave = os.openpty()
     (tmp_path / "show.toml").write_text(f'[garment]\nname = "jacket"\nport = "{os.ttyname(slave)}"\n'
-                                        f'model = "{demo_model_file}"\nmapping = "{example_path("single-switch.toml")}"\n')
-    env = {k: v for k, v in os.environ.items() if k != "DISPLAY"}
-    argv = ["start", "--config", str(tmp_path / "show.toml")] + (["--listen", f"127.0.0.1:{free_port()}"] if listen else [])
-    proc = subprocess.Popen(drape_cmd(*argv), stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
+                                        f'model = "{model_file}"\nmapping = "{mapping}"\n')
+    proc = subprocess.Popen(drape_cmd("start", "--config", str(tmp_path / "show.toml"), *extra),
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
     try:
         lines = []
-        while not any("on " + os.ttyname(slave) in l for l in lines):
+        while not any("on " + os.ttyname(slave) in l for l in lines) and proc.poll() is None:
             lines.append(proc.stderr.readline())
         proc.send_signal(signal.SIGTERM)
         lines += proc.stderr.read().splitlines()      # the rest, up to its stop line
-        assert proc.wait(30) == 0
-        cautioned = any("no arming posture and no control port" in l and "--listen" in l for l in lines)
-        assert cautioned != listen, lines
+        assert proc.wait(30) == 0, lines
+        return lines
     finally:
         proc.kill()
         os.close(master)
         os.close(slave)
+
+
+@pytest.mark.parametrize("listen", [False, True])
+def test_a_keys_mapping_without_an_arming_posture_or_control_port_is_cautioned_at_start(listen, xvfb, tmp_path,
+                                                                                        demo_model_file):
+    """The shipped single-switch mapping can only be disarmed over the control port: started
+    without one, the carer is told so at once (keys on a private Xvfb)."""
+    from bridge.examples_data import example_path
+    extra = ["--listen", f"127.0.0.1:{free_port()}"] if listen else []
+    lines = _start_lines(tmp_path, demo_model_file, example_path("single-switch.toml"), dict(os.environ), extra)
+    cautioned = any("no arming posture and no control port" in l and "--listen" in l for l in lines)
+    assert cautioned != listen, lines
+    assert any("armed at start: keys (" in l and "focus" in l for l in lines), lines
+
+
+def test_a_keys_destination_left_out_is_not_claimed_at_start(tmp_path, demo_model_file):
+    """With no display the keys destination is left out: the start line must not say keys go
+    to the focused window, nor caution about keys that cannot be pressed."""
+    from bridge.examples_data import example_path
+    env = {k: v for k, v in os.environ.items() if k != "DISPLAY"}
+    lines = _start_lines(tmp_path, demo_model_file, example_path("single-switch.toml"), env)
+    assert any("left out" in l for l in lines), lines
+    assert not any("keys (" in l and "focus" in l for l in lines), lines
+    assert not any("no arming posture and no control port" in l for l in lines), lines
 
 
 @pytest.mark.parametrize("how", ["SIGHUP then SIGTERM", "SIGQUIT"])

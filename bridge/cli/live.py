@@ -342,9 +342,9 @@ def cmd_start(a) -> int:
         return _err(f"--pid-file: {exc}")
     outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({_plural(len(model.classes) - 1, 'gesture')})"
-          + (f", mapping {cfg.mapping}; {mapping.arming_at_start()}" if mapping else ""), file=sys.stderr, flush=True)
+          + (f", mapping {cfg.mapping}; {mapping.arming_at_start(outputs)}" if mapping else ""), file=sys.stderr, flush=True)
     if mapping and inbox is None and not mapping.safety.arm_posture and \
-            any(d.kind == "keys" for d in mapping.destinations.values()):
+            any(d.kind == "keys" and n in outputs for n, d in mapping.destinations.items()):
         print("drape: caution: keys, no arming posture and no control port: nothing but stopping drape (Ctrl-C) "
               "disarms; start with --listen 127.0.0.1:9100 to disarm or panic with `drape send`",
               file=sys.stderr, flush=True)

@@ -222,13 +222,14 @@ class Mapping:
                 out[r.gesture] = min(out.get(r.gesture, every), every)
         return out
 
-    def arming_at_start(self) -> str:
-        """Whether cues go out from the first recognised gesture, in words for the operator."""
+    def arming_at_start(self, opened=None) -> str:
+        """Whether cues go out from the first recognised gesture, in words for the operator.
+        ``opened``: the destinations actually open (a keys destination left out presses nothing)."""
         sf = self.safety
         if not sf.start_armed:
             how = f"hold {sf.arm_posture} {sf.arm_hold_s:g} s or `drape send arm`" if sf.arm_posture else "`drape send arm`"
             return f"disarmed at start: nothing is sent until armed ({how})"
-        keys = [n for n, d in self.destinations.items() if d.kind == "keys"]
+        keys = [n for n, d in self.destinations.items() if d.kind == "keys" and (opened is None or n in opened)]
         return "armed at start" + (f": keys ({', '.join(keys)}) go to whichever window has the focus" if keys else "")
 
     def dispatches(self, event: Event, layer: str | None = None) -> list:

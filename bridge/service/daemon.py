@@ -375,7 +375,7 @@ class Service:
             m = g.pipeline.mapping if g.pipeline is not None else None
             log.info("%s: %s, model %s (%d gestures), mapping %s%s", g.name, where, Path(cfg.model).resolve(),
                      len(g.model.classes) - 1, Path(cfg.mapping).resolve() if cfg.mapping else "none",
-                     f"; {m.arming_at_start()}" if m is not None else "")
+                     f"; {m.arming_at_start(g.outputs)}" if m is not None else "")
 
         for g in self.garments:  # read only once every model is ready: none waits on another's training
             if g.reader is not None and g.state != FAILED:
