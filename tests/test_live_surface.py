@@ -170,6 +170,17 @@ def test_a_keys_mapping_without_an_arming_posture_or_control_port_is_cautioned_a
     assert any("armed at start: keys (" in l and "focus" in l for l in lines), lines
 
 
+@pytest.mark.parametrize("listen", [False, True])
+def test_a_mapping_nothing_can_arm_is_cautioned_at_start(listen, tmp_path, demo_model_file):
+    """Disarmed at start, no arming posture, no control port: no cue can ever go out."""
+    (tmp_path / "m.toml").write_text('[safety]\nstart = "disarmed"\n[destinations.show]\nosc = "127.0.0.1:9"\n'
+                                     '[[rule]]\ngesture = "bow"\nto = "show"\naddress = "/x"\n')
+    extra = ["--listen", f"127.0.0.1:{free_port()}"] if listen else []
+    lines = _start_lines(tmp_path, demo_model_file, tmp_path / "m.toml", dict(os.environ), extra)
+    assert any("disarmed at start" in l for l in lines), lines
+    assert any("nothing can arm it" in l and "--listen" in l for l in lines) != listen, lines
+
+
 def test_a_keys_destination_left_out_is_not_claimed_at_start(tmp_path, demo_model_file):
     """With no display the keys destination is left out: the start line must not say keys go
     to the focused window, nor caution about keys that cannot be pressed."""

@@ -348,6 +348,10 @@ def cmd_start(a) -> int:
         print("drape: caution: keys, no arming posture and no control port: nothing but stopping drape (Ctrl-C) "
               "disarms; start with --listen 127.0.0.1:9100 to disarm or panic with `drape send`",
               file=sys.stderr, flush=True)
+    if mapping and inbox is None and not mapping.safety.arm_posture and not mapping.safety.start_armed:
+        print("drape: caution: the mapping starts disarmed and has no arming posture, and there is no control port: "
+              "nothing can arm it, so no cue will be sent; start with --listen 127.0.0.1:9100 and `drape send arm`",
+              file=sys.stderr, flush=True)
     if not source.connected:
         hint = "" if cfg.input != "serial" or any(w in source.last_error for w in ("drape ports", "another program")) else \
             "; `drape ports` lists the serial ports of this machine"
