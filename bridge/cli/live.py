@@ -343,15 +343,15 @@ def cmd_start(a) -> int:
     outputs = _open_outputs(mapping, opener) if mapping else {}
     print(f"drape: {cfg.name} on {where}, model {cfg.model} ({_plural(len(model.classes) - 1, 'gesture')})"
           + (f", mapping {cfg.mapping}; {mapping.arming_at_start(outputs)}" if mapping else ""), file=sys.stderr, flush=True)
-    if mapping and inbox is None and not mapping.safety.arm_posture and \
-            any(d.kind == "keys" and n in outputs for n, d in mapping.destinations.items()):
-        print("drape: caution: keys, no arming posture and no control port: nothing but stopping drape (Ctrl-C) "
-              "disarms; start with --listen 127.0.0.1:9100 to disarm or panic with `drape send`",
-              file=sys.stderr, flush=True)
-    if mapping and inbox is None and not mapping.safety.arm_posture and not mapping.safety.start_armed:
-        print("drape: caution: the mapping starts disarmed and has no arming posture, and there is no control port: "
-              "nothing can arm it, so no cue will be sent; start with --listen 127.0.0.1:9100 and `drape send arm`",
-              file=sys.stderr, flush=True)
+    if mapping and inbox is None and not mapping.safety.arm_posture:   # only stopping drape changes its arming
+        if any(d.kind == "keys" and n in outputs for n, d in mapping.destinations.items()):
+            print("drape: caution: keys, no arming posture and no control port: nothing but stopping drape (Ctrl-C) "
+                  "disarms; start with --listen 127.0.0.1:9100 to disarm or panic with `drape send`",
+                  file=sys.stderr, flush=True)
+        if not mapping.safety.start_armed:
+            print("drape: caution: the mapping starts disarmed and has no arming posture, and there is no control "
+                  "port: nothing can arm it, so no cue will be sent; start with --listen 127.0.0.1:9100 and "
+                  "`drape send arm`", file=sys.stderr, flush=True)
     if not source.connected:
         hint = "" if cfg.input != "serial" or any(w in source.last_error for w in ("drape ports", "another program")) else \
             "; `drape ports` lists the serial ports of this machine"

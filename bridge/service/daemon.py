@@ -749,9 +749,8 @@ class Service:
             if g.left_out and g.state != FAILED:
                 gone = f"cues to {', '.join(sorted(g.left_out))} go nowhere (left out at start or reload: see the log)"
                 note = f"{note}; {gone}" if note else gone
-            failing = g.failures.failing() if g.state != FAILED else {}
-            if failing:   # a keys output whose display went away: the switch does not work
-                bad = "; ".join(f"output {n} FAILING: {err}" for n, err in sorted(failing.items()))
+            bad = g.failures.failing() if g.state != FAILED else ""
+            if bad:
                 note = f"{note}; {bad}" if note else bad
             out += st.garment_state(g.name, g.state, armed, layer, g.flowing and g.state != FAILED,
                                     g.rate_hz(now), g.dropped(), p.samples if p else 0, note, channels,

@@ -52,6 +52,8 @@ class OutputWatch:
             del self._seen[name]
         return notices
 
-    def failing(self) -> dict[str, str]:
-        """Outputs told as failing and not told as sending again since: {name: last error}."""
-        return {name: seen.error for name, seen in self._seen.items() if seen.failing}
+    def failing(self) -> str:
+        """Outputs told as failing and not told as sending again since, in words for a status
+        answer or a state note ("" when none): a dead keys output is no switch that works."""
+        return "; ".join(f"output {name} FAILING: {seen.error}" for name, seen in sorted(self._seen.items())
+                         if seen.failing)

@@ -226,11 +226,11 @@ def run(source: Source, pipeline: Pipeline, outputs: dict[str, Output], stop: St
         if kind == "status":
             r = pipeline.router
             flow = "running" if reported is None or reported[0] != NO_DATA else f"no data ({reported[1]})"
+            bad = failures.failing()   # a dead keys output is no switch that works
             return True, (f"{name}: {flow}, {'armed' if r is None or r.armed else 'disarmed'}"
                           + (f", layer {r.layer!r}" if r is not None and r.layer else "")
                           + f", {pipeline.samples} samples, {pipeline.skipped} skipped as implausible"
-                          # a dead destination (a keys output whose display went away) is no switch that works
-                          + "".join(f"; output {n} FAILING: {err}" for n, err in sorted(failures.failing().items())))
+                          + (f"; {bad}" if bad else ""))
         if kind == "reload":
             if watcher is None:
                 return False, f"{name} has no mapping file to reload"
